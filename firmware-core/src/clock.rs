@@ -1,0 +1,202 @@
+//! Stage 2 — the clock model: which slot a detection falls in, and where inside it.
+//!
+//! A clock is a period (Q32.32 picoseconds) and a phase origin (the time at which slot 0 starts).
+//! This module holds the [`Clock`] seam and [`FixedClock`], the clock handed in by configuration
+//! (links with a distributed reference clock use it). Recovering the clock from the detections
+//! themselves plugs into the same seam.
+//!
+//! Slot assignment avoids a division per detection: the slot estimate is the elapsed time
+//! multiplied by a Q0.64 reciprocal of the period, corrected by at most two steps; the position in
+//! the slot is the remainder multiplied by the same reciprocal.
+
+use core::fmt;
+use fixed::types::{U0F32, U32F32};
+
+/// Where a detection sits on the transmitter's slot grid.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct SlotPos {
+    /// Slot index counted from the clock's origin.
+    pub slot: u64,
+    /// Position inside the slot as a fraction of the period, in [0, 1).
+    pub phase: U0F32,
+}
+
+/// What a clock says about one detection time.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Located {
+    /// The clock is valid here: slot and position.
+    At(SlotPos),
+    /// The time lies before the clock's origin.
+    BeforeOrigin,
+    /// The clock is not (yet) locked: no slot can be given.
+    NotLocked,
+}
+
+/// The seam between the time base and the gates: maps a delay-corrected time to a slot.
+pub trait Clock {
+    /// Locate a delay-corrected detection time `t_ps` on the slot grid.
+    fn locate(&mut self, t_ps: u64) -> Located;
+}
+
+/// Why a clock description was refused.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum ClockError {
+    /// Period outside 2 ps ..= 2^31 ps.
+    PeriodOutOfRange,
+}
+
+impl fmt::Display for ClockError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::PeriodOutOfRange => write!(f, "slot period must lie in 2 ps ..= 2^31 ps"),
+        }
+    }
+}
+
+impl core::error::Error for ClockError {}
+
+/// A period with its precomputed reciprocal: the grid arithmetic shared by every clock.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct SlotGrid {
+    period_ps: U32F32,
+    /// floor(2^64 / period_ps): the Q0.64 reciprocal of the period.
+    inv_q64: u64,
+}
+
+impl SlotGrid {
+    /// Build the grid arithmetic for one period (2 ps ..= 2^31 ps).
+    pub const fn new(period_ps: U32F32) -> Result<Self, ClockError> {
+        let bits = period_ps.to_bits();
+        if bits < (2u64 << 32) || bits > (1u64 << 63) {
+            return Err(ClockError::PeriodOutOfRange);
+        }
+        let inv = (1u128 << 96) / bits as u128;
+        // bits ≥ 2^33 keeps inv ≤ 2^63.
+        Ok(Self {
+            period_ps,
+            inv_q64: inv as u64,
+        })
+    }
+
+    /// The slot period in picoseconds (Q32.32).
+    pub const fn period_ps(&self) -> U32F32 {
+        self.period_ps
+    }
+
+    /// Split an elapsed time (ps since slot 0 started) into slot index and position.
+    pub fn split(&self, elapsed_ps: u64) -> SlotPos {
+        let period = u128::from(self.period_ps.to_bits());
+        let inv = u128::from(self.inv_q64);
+        let e = u128::from(elapsed_ps);
+        // The reciprocal is floored, so the estimate is low by at most 2 slots.
+        let mut slot = (e * inv) >> 64;
+        let mut rem = (e << 32).saturating_sub(slot * period);
+        let mut steps = 0;
+        while rem >= period && steps < 4 {
+            rem -= period;
+            slot += 1;
+            steps += 1;
+        }
+        if rem >= period {
+            // Not reachable with a floored reciprocal; keep the exact answer anyway.
+            slot += rem / period;
+            rem %= period;
+        }
+        let frac = (rem * inv) >> 64;
+        let phase_bits = if frac > u128::from(u32::MAX) {
+            u32::MAX
+        } else {
+            frac as u32
+        };
+        SlotPos {
+            slot: if slot > u128::from(u64::MAX) {
+                u64::MAX
+            } else {
+                slot as u64
+            },
+            phase: U0F32::from_bits(phase_bits),
+        }
+    }
+}
+
+/// A clock fixed by configuration: known period and the time at which slot 0 starts.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct FixedClock {
+    grid: SlotGrid,
+    origin_ps: u64,
+}
+
+impl FixedClock {
+    /// A clock with period `period_ps` whose slot 0 starts at `origin_ps`.
+    pub const fn new(period_ps: U32F32, origin_ps: u64) -> Result<Self, ClockError> {
+        match SlotGrid::new(period_ps) {
+            Ok(grid) => Ok(Self { grid, origin_ps }),
+            Err(e) => Err(e),
+        }
+    }
+
+    /// The slot period in picoseconds (Q32.32).
+    pub const fn period_ps(&self) -> U32F32 {
+        self.grid.period_ps()
+    }
+
+    /// The time at which slot 0 starts, in picoseconds.
+    pub const fn origin_ps(&self) -> u64 {
+        self.origin_ps
+    }
+}
+
+impl Clock for FixedClock {
+    fn locate(&mut self, t_ps: u64) -> Located {
+        match t_ps.checked_sub(self.origin_ps) {
+            Some(e) => Located::At(self.grid.split(e)),
+            None => Located::BeforeOrigin,
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    #[test]
+    fn rejects_tiny_and_huge_periods() {
+        assert!(SlotGrid::new(U32F32::from_num(1)).is_err());
+        assert!(SlotGrid::new(U32F32::from_num(2)).is_ok());
+        assert!(SlotGrid::new(U32F32::MAX).is_err());
+    }
+
+    #[test]
+    fn ten_ns_grid() {
+        let mut c = FixedClock::new(U32F32::from_num(10_000), 1_000).unwrap();
+        assert_eq!(c.locate(999), Located::BeforeOrigin);
+        let Located::At(p) = c.locate(1_000 + 3 * 10_000 + 2_500) else {
+            panic!()
+        };
+        assert_eq!(p.slot, 3);
+        // Floored reciprocal: within one ulp of the exact quarter.
+        assert!(U0F32::from_num(0.25).to_bits() - p.phase.to_bits() <= 1);
+    }
+
+    proptest! {
+        // Against exact u128 long division (the definition of floor and remainder).
+        #[test]
+        fn split_matches_exact_division(bits in (2u64 << 32)..(1u64 << 63), e in any::<u64>()) {
+            let g = SlotGrid::new(U32F32::from_bits(bits)).unwrap();
+            let p = g.split(e);
+            let num = u128::from(e) << 32;
+            let slot = num / u128::from(bits);
+            let rem = num % u128::from(bits);
+            prop_assert_eq!(u128::from(p.slot), slot);
+            let exact = (rem << 32) / u128::from(bits);
+            let got = u128::from(p.phase.to_bits());
+            prop_assert!(got <= exact && exact - got <= 1, "phase {} vs {}", got, exact);
+        }
+    }
+}

@@ -1,0 +1,60 @@
+//! # slotwise — the receiver side of a prepare-and-measure QKD link, in fixed memory
+//!
+//! A time-to-digital converter hands the receiver board a stream of detector timestamps. Before any
+//! key exists, the board must place every detection on the transmitter's slot grid, decide which
+//! basis and bit it means, sift against the transmitter's answers, and keep tallies for the QBER.
+//! This crate does that with no heap, no floating point and no panics, so the same code runs on a
+//! laptop, a Cortex-M microcontroller and a RISC-V soft core.
+//!
+//! Data flows through one module per stage, in this order:
+//!
+//! 1. [`timestamps`] — TDC counter values (any width from 32 to 64 bits, wrapping) become a
+//!    monotonic picosecond time base; slightly reordered neighbours are handled.
+//! 2. [`clock`] — the slot grid: period in Q32.32 ps and a phase origin map each delay-corrected
+//!    time to a slot index and a position in the slot (Q0.32 fraction), division-free.
+//! 3. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
+//!    express time-bin and polarization receivers alike.
+//! 4. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
+//!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
+//! 5. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
+//! 6. [`accounting`] — every detection ends in exactly one counter.
+//!
+//! [`receiver`] strings the stages together behind [`Receiver::push_block`].
+//!
+//! Memory is fixed at compile time: the pending queue's capacity is a const generic and the gate
+//! table holds at most [`gates::MAX_GATES`] windows on [`gates::MAX_CHANNELS`] channels.
+#![cfg_attr(not(test), no_std)]
+#![cfg_attr(
+    not(test),
+    deny(
+        clippy::unwrap_used,
+        clippy::expect_used,
+        clippy::panic,
+        clippy::indexing_slicing,
+        clippy::float_arithmetic,
+        clippy::unreachable,
+        clippy::todo,
+        clippy::unimplemented
+    )
+)]
+#![deny(missing_docs)]
+
+pub mod accounting;
+pub mod clock;
+pub mod gates;
+mod log;
+pub mod receiver;
+pub mod sift;
+pub mod tally;
+pub mod timestamps;
+
+pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
+pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
+pub use fixed;
+pub use gates::{Basis, Gate, GateTable, Lookup};
+pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
+pub use sift::{
+    Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftedBit, Transmitter,
+};
+pub use tally::Tally;
+pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
