@@ -326,8 +326,9 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
                 o.clicks += 1;
             }
             _ => {
-                self.close_open(tx, key);
+                // Free what timed out before the closing slot takes a place in the queue.
                 self.expire(pos.slot, key);
+                self.close_open(tx, key);
                 self.open = Some(OpenSlot {
                     slot: pos.slot,
                     mask: click_bit(g.basis, g.bit),
