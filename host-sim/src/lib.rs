@@ -1,3 +1,7 @@
 //! Host side of slotwise: a physical link simulator, the capture format, replay through the
 //! firmware core, and the reports behind the `slotwise` command.
 #![allow(missing_docs)]
+
+pub mod plots;
+pub mod replay;
+pub mod summary;

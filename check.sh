@@ -1,0 +1,45 @@
+#!/usr/bin/env bash
+# The whole check, as CI and a person run it: formatting, lints, every test, the no_std cross
+# builds, and the docs. Installs the rustup targets it needs when they are missing.
+set -euo pipefail
+cd "$(dirname "$0")"
+
+step() { printf '\n== %s\n' "$*"; }
+
+step "toolchain"
+rustc --version
+cargo --version
+installed="$(rustup target list --installed 2>/dev/null || true)"
+for t in thumbv7em-none-eabihf riscv32imc-unknown-none-elf; do
+  if ! grep -qx "$t" <<<"$installed"; then
+    rustup target add "$t"
+  fi
+done
+rustup component list --installed 2>/dev/null | grep -q '^clippy' || rustup component add clippy
+rustup component list --installed 2>/dev/null | grep -q '^rustfmt' || rustup component add rustfmt
+
+step "format"
+cargo fmt --all -- --check
+
+step "clippy (host, all targets, warnings are errors)"
+cargo clippy --workspace --all-targets -- -D warnings
+
+step "clippy (firmware-core for thumbv7em, defmt on)"
+cargo clippy -p slotwise --target thumbv7em-none-eabihf --features defmt -- -D warnings
+
+step "tests"
+cargo test --workspace
+
+step "no_std cross builds of firmware-core"
+cargo build -p slotwise --target thumbv7em-none-eabihf --release
+cargo build -p slotwise --target riscv32imc-unknown-none-elf --release
+
+step "docs (warnings are errors)"
+RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
+
+if [ -x hil/check.sh ]; then
+  step "firmware under QEMU, bit for bit against the host"
+  hil/check.sh
+fi
+
+step "all checks passed"

@@ -1,0 +1,313 @@
+//! Replay: push a stream of TDC events through the firmware core exactly as a board would, and
+//! collect what a person debugging the link wants to see — the summary, time series for plots,
+//! the fold profile, and optionally a per-detection trace.
+
+use serde::Serialize;
+use slotwise::fixed::types::U0F32;
+use slotwise::{
+    Basis, Clock, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, Stage, TdcEvent, Trace,
+    Transmitter,
+};
+use std::collections::BTreeMap;
+use std::io::Write;
+
+/// Pending-queue capacity used on the host.
+pub const HOST_PENDING: usize = 4096;
+
+/// Number of phase bins in the fold profile.
+pub const FOLD_BINS: usize = 200;
+
+/// What the simulator knows about one detection (never shown to the core).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct TruthTag {
+    /// Slot of the pulse that caused the detection; `None` for dark counts and afterpulses.
+    pub slot: Option<u64>,
+}
+
+/// A per-detection trace request: write detections with `from_ps <= t < to_ps` as CSV.
+pub struct TraceRequest {
+    /// Where to write.
+    pub out: Box<dyn Write>,
+    /// First time traced (ps, on the unwrapped time base).
+    pub from_ps: u64,
+    /// End of the traced range (exclusive).
+    pub to_ps: u64,
+}
+
+/// QBER errors and totals of one time bucket.
+#[derive(Clone, Copy, Debug, Default, Serialize, PartialEq)]
+pub struct Bucket {
+    /// Start of the bucket in seconds on the receiver time base.
+    pub t_s: f64,
+    /// Matched-basis tested bits and errors: `[basis] = (errors, total)`.
+    pub tested: [(u64, u64); 2],
+    /// Detections taken in during the bucket, per channel (first 8 channels).
+    pub detections: [u64; 8],
+}
+
+struct Sink {
+    bucket_ps: u64,
+    period_ps: f64,
+    buckets: Vec<Bucket>,
+    wrong_slot: BTreeMap<u64, bool>,
+    misassigned_sifted: u64,
+    truth_checked: bool,
+    trace_pending: BTreeMap<u64, Vec<String>>,
+    trace_out: Option<Box<dyn Write>>,
+    io_error: Option<std::io::Error>,
+}
+
+impl Sink {
+    fn bucket(&mut self, t_ps: u64) -> &mut Bucket {
+        let i = (t_ps / self.bucket_ps.max(1)) as usize;
+        while self.buckets.len() <= i {
+            let t_s = (self.buckets.len() as u64 * self.bucket_ps) as f64 * 1e-12;
+            self.buckets.push(Bucket {
+                t_s,
+                ..Bucket::default()
+            });
+        }
+        &mut self.buckets[i]
+    }
+
+    fn flush_trace(&mut self, slot: u64, outcome: &str) {
+        if let Some(lines) = self.trace_pending.remove(&slot) {
+            if let Some(out) = self.trace_out.as_mut() {
+                for l in lines {
+                    if let Err(e) = writeln!(out, "{l},{outcome}") {
+                        self.io_error.get_or_insert(e);
+                    }
+                }
+            }
+        }
+    }
+}
+
+impl KeySink for Sink {
+    fn sifted(&mut self, bit: SiftedBit) {
+        if self.truth_checked && self.wrong_slot.get(&bit.slot).copied().unwrap_or(false) {
+            self.misassigned_sifted += 1;
+        }
+        if let Some(tx_bit) = bit.tx_bit {
+            let t_ps = (bit.slot as f64 * self.period_ps) as u64;
+            let b = self.bucket(t_ps);
+            let e = &mut b.tested[bit.basis.index()];
+            e.1 += 1;
+            if tx_bit != bit.bit {
+                e.0 += 1;
+            }
+        }
+    }
+
+    fn resolved(&mut self, slot: u64, outcome: Outcome) {
+        self.wrong_slot.remove(&slot);
+        let name = match outcome {
+            Outcome::Sifted => "sifted",
+            Outcome::BasisMismatch => "basis_mismatch",
+            Outcome::QueueOverflow => "queue_overflow",
+            Outcome::Unanswered => "unanswered",
+        };
+        self.flush_trace(slot, name);
+    }
+}
+
+/// The firmware core plus the host's bookkeeping around it.
+pub struct Session<C: Clock, T: Transmitter> {
+    rx: Box<Receiver<C, HOST_PENDING>>,
+    tx: T,
+    sink: Sink,
+    fold: Vec<[u64; FOLD_BINS]>,
+    trace_range: (u64, u64),
+    cfg: ReceiverConfig,
+}
+
+impl<C: Clock, T: Transmitter> Session<C, T> {
+    /// A session with the given core configuration, clock and transmitter. `period_ps` (nominal)
+    /// converts slots to time for the series; `bucket_s` is the series resolution.
+    pub fn new(
+        cfg: ReceiverConfig,
+        clock: C,
+        tx: T,
+        period_ps: f64,
+        bucket_s: f64,
+        truth_checked: bool,
+        trace: Option<TraceRequest>,
+    ) -> std::io::Result<Self> {
+        let (trace_out, trace_range) = match trace {
+            Some(mut t) => {
+                writeln!(
+                    t.out,
+                    "t_ps,channel,slot,phase,gate,basis,bit,decision,outcome"
+                )?;
+                (Some(t.out), (t.from_ps, t.to_ps))
+            }
+            None => (None, (0, 0)),
+        };
+        Ok(Self {
+            rx: Box::new(Receiver::new(cfg, clock)),
+            tx,
+            sink: Sink {
+                bucket_ps: (bucket_s * 1e12).max(1.0) as u64,
+                period_ps,
+                buckets: Vec::new(),
+                wrong_slot: BTreeMap::new(),
+                misassigned_sifted: 0,
+                truth_checked,
+                trace_pending: BTreeMap::new(),
+                trace_out,
+                io_error: None,
+            },
+            fold: vec![[0; FOLD_BINS]; usize::from(cfg.gates().channels())],
+            trace_range,
+            cfg,
+        })
+    }
+
+    /// Push one event (with the simulator's truth when known).
+    pub fn push(&mut self, ev: TdcEvent, truth: Option<TruthTag>) {
+        let tr = self.rx.push(ev, &mut self.tx, &mut self.sink);
+        self.observe(&tr, truth);
+    }
+
+    /// Push a block of events without truth.
+    pub fn push_block(&mut self, events: &[TdcEvent]) {
+        for &ev in events {
+            self.push(ev, None);
+        }
+        self.rx.service(&mut self.tx, &mut self.sink);
+    }
+
+    fn observe(&mut self, tr: &Trace, truth: Option<TruthTag>) {
+        if let Some(t) = tr.t_ps {
+            let b = self.sink.bucket(t);
+            if let Some(d) = b.detections.get_mut(usize::from(tr.channel)) {
+                *d += 1;
+            }
+        }
+        if let (Some((_, phase)), Some(f)) = (tr.slot, self.fold.get_mut(usize::from(tr.channel)))
+        {
+            let bin = ((u64::from(phase.to_bits()) * FOLD_BINS as u64) >> 32) as usize;
+            f[bin.min(FOLD_BINS - 1)] += 1;
+        }
+        if tr.stage == Stage::Gated {
+            if let (Some((slot, _)), Some(TruthTag { slot: true_slot })) = (tr.slot, truth) {
+                let wrong = true_slot.is_some_and(|s| s != slot);
+                *self.sink.wrong_slot.entry(slot).or_insert(false) |= wrong;
+            }
+        }
+        self.trace(tr);
+    }
+
+    fn trace(&mut self, tr: &Trace) {
+        if self.sink.trace_out.is_none() {
+            return;
+        }
+        let Some(t) = tr.t_ps else {
+            return self.trace_line(tr, None);
+        };
+        if t >= self.trace_range.0 && t < self.trace_range.1 {
+            self.trace_line(tr, Some(t));
+        }
+    }
+
+    fn trace_line(&mut self, tr: &Trace, t: Option<u64>) {
+        let (slot, phase) = match tr.slot {
+            Some((s, p)) => (s.to_string(), format!("{:.6}", p.to_num::<f64>())),
+            None => (String::new(), String::new()),
+        };
+        let (gate, basis, bit) = match tr.gate.and_then(|g| self.cfg.gates().gate(g).map(|x| (g, x))) {
+            Some((g, x)) => (
+                g.to_string(),
+                basis_name(x.basis).to_string(),
+                x.bit.to_string(),
+            ),
+            None => (String::new(), String::new(), String::new()),
+        };
+        let decision = stage_name(tr.stage);
+        let line = format!(
+            "{},{},{slot},{phase},{gate},{basis},{bit},{decision}",
+            t.map(|t| t.to_string()).unwrap_or_default(),
+            tr.channel
+        );
+        match (tr.stage, tr.slot) {
+            (Stage::Gated, Some((s, _))) => self.sink.trace_pending.entry(s).or_default().push(line),
+            _ => {
+                if let Some(out) = self.sink.trace_out.as_mut() {
+                    if let Err(e) = writeln!(out, "{line},") {
+                        self.sink.io_error.get_or_insert(e);
+                    }
+                }
+            }
+        }
+    }
+
+    /// End of stream: resolve everything and hand back the results.
+    pub fn finish(mut self) -> std::io::Result<SessionResult<C, T>> {
+        self.rx.finish(&mut self.tx, &mut self.sink);
+        let rest: Vec<u64> = self.sink.trace_pending.keys().copied().collect();
+        for s in rest {
+            self.sink.flush_trace(s, "multi_click");
+        }
+        if let Some(mut out) = self.sink.trace_out.take() {
+            out.flush()?;
+        }
+        if let Some(e) = self.sink.io_error.take() {
+            return Err(e);
+        }
+        Ok(SessionResult {
+            rx: self.rx,
+            tx: self.tx,
+            buckets: self.sink.buckets,
+            fold: self.fold,
+            misassigned_sifted: if self.sink.truth_checked {
+                Some(self.sink.misassigned_sifted)
+            } else {
+                None
+            },
+        })
+    }
+
+    /// The core, for progress reports.
+    pub fn receiver(&self) -> &Receiver<C, HOST_PENDING> {
+        &self.rx
+    }
+}
+
+/// Everything a finished session produced.
+pub struct SessionResult<C: Clock, T: Transmitter> {
+    /// The core in its final state (accounting, tallies, clock).
+    pub rx: Box<Receiver<C, HOST_PENDING>>,
+    /// The transmitter, for its own counters.
+    pub tx: T,
+    /// QBER and rate series.
+    pub buckets: Vec<Bucket>,
+    /// Fold profile per channel: detections per phase bin over the whole run.
+    pub fold: Vec<[u64; FOLD_BINS]>,
+    /// Sifted bits whose slot differs from the simulator's truth (simulated runs only).
+    pub misassigned_sifted: Option<u64>,
+}
+
+/// Short name of a basis for reports.
+pub fn basis_name(b: Basis) -> &'static str {
+    match b {
+        Basis::Z => "Z",
+        Basis::X => "X",
+    }
+}
+
+/// Short name of a pipeline decision for reports.
+pub fn stage_name(s: Stage) -> &'static str {
+    match s {
+        Stage::RejectedTime => "rejected_time",
+        Stage::RejectedChannel => "rejected_channel",
+        Stage::NoClock => "no_clock",
+        Stage::OutsideGates => "outside_gates",
+        Stage::Late => "late",
+        Stage::Gated => "gated",
+    }
+}
+
+/// A phase as an f64 fraction of the slot (for reports).
+pub fn phase_f64(p: U0F32) -> f64 {
+    p.to_num::<f64>()
+}

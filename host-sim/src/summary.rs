@@ -1,0 +1,238 @@
+//! The JSON summary of a run: where every detection went, sifted bits, QBER, the clock, and (for
+//! simulated runs) the truth to compare against.
+
+use crate::replay::SessionResult;
+use serde::Serialize;
+use slotwise::gates::MAX_INTENSITIES;
+use slotwise::{Basis, Clock, Tally, Transmitter};
+use std::collections::BTreeMap;
+
+/// QBER of one basis with its counts.
+#[derive(Clone, Debug, Serialize, PartialEq)]
+pub struct QberFigure {
+    /// Error fraction (errors / tested), `null` when nothing was tested.
+    pub value: Option<f64>,
+    /// Matched-basis errors.
+    pub errors: u64,
+    /// Matched-basis tested events.
+    pub tested: u64,
+}
+
+impl QberFigure {
+    fn from_tally(t: &Tally, b: Basis, intensity: Option<u8>) -> Self {
+        let (errors, tested) = t.errors(b, intensity);
+        Self {
+            value: (tested > 0).then(|| errors as f64 / tested as f64),
+            errors,
+            tested,
+        }
+    }
+}
+
+/// QBER per basis, overall and per intensity class.
+#[derive(Clone, Debug, Serialize, PartialEq)]
+pub struct Qber {
+    /// Key basis.
+    pub z: QberFigure,
+    /// Test basis.
+    pub x: QberFigure,
+    /// Per intensity class (index 0 = signal).
+    pub per_intensity: Vec<BTreeMap<&'static str, QberFigure>>,
+}
+
+/// Period figures in picoseconds.
+#[derive(Clone, Debug, Serialize, PartialEq)]
+pub struct PeriodPs {
+    /// What the receiver used or estimated.
+    pub estimate: f64,
+    /// The simulator's true period at the start (simulated runs only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub truth: Option<f64>,
+}
+
+/// The simulator's truth (simulated runs only).
+#[derive(Clone, Debug, Serialize, PartialEq)]
+pub struct Truth {
+    /// Expected Z-basis QBER from the channel model.
+    pub qber_z: f64,
+    /// Expected X-basis QBER from the channel model.
+    pub qber_x: f64,
+    /// Sifted bits assigned to a slot other than the one their photon was sent in.
+    pub misassigned_sifted: u64,
+}
+
+/// The whole summary.
+#[derive(Clone, Debug, Serialize, PartialEq)]
+pub struct Summary {
+    /// Scenario or capture name.
+    pub name: String,
+    /// Detections taken in.
+    pub detections_in: u64,
+    /// Where they went (values sum to `detections_in`).
+    pub accounting: BTreeMap<&'static str, u64>,
+    /// Multi-click slot events by outcome.
+    pub multi_click_events: BTreeMap<&'static str, u64>,
+    /// Transmitter answers the core refused.
+    pub answer_errors: BTreeMap<&'static str, u64>,
+    /// Sifted key bits (single and squashed multi-click).
+    pub sifted_bits: u64,
+    /// QBER per basis.
+    pub qber: Qber,
+    /// The slot period.
+    pub period_ps: PeriodPs,
+    /// Truth, for simulated runs.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub truth: Option<Truth>,
+    /// Counts per `tx basis/tx bit/intensity/rx basis/rx bit`, nonzero entries only.
+    pub tally: BTreeMap<String, u64>,
+    /// Wall-clock seconds the replay took, and detections per second.
+    pub run: BTreeMap<&'static str, f64>,
+}
+
+/// Build the summary of a finished session.
+pub fn summarize<C: Clock, T: Transmitter>(
+    name: &str,
+    res: &SessionResult<C, T>,
+    period_estimate_ps: f64,
+    truth_period_ps: Option<f64>,
+    truth_qber: Option<(f64, f64)>,
+    seconds: f64,
+) -> Summary {
+    let rx = &res.rx;
+    let accounting = rx.accounting().fields().into_iter().collect();
+    let m = rx.multi_click_events();
+    let multi_click_events = [
+        ("sifted", m.sifted),
+        ("basis_mismatch", m.basis_mismatch),
+        ("queue_overflow", m.queue_overflow),
+        ("unanswered", m.unanswered),
+        ("cross_basis", m.cross_basis),
+    ]
+    .into_iter()
+    .collect();
+    let ae = rx.answer_errors();
+    let answer_errors = [("unmatched", ae.unmatched), ("malformed", ae.malformed)]
+        .into_iter()
+        .collect();
+    let t = rx.tally();
+    let n_int = rx.config().intensities();
+    let per_intensity = (0..n_int.min(MAX_INTENSITIES as u8))
+        .map(|i| {
+            [
+                ("z", QberFigure::from_tally(t, Basis::Z, Some(i))),
+                ("x", QberFigure::from_tally(t, Basis::X, Some(i))),
+            ]
+            .into_iter()
+            .collect()
+        })
+        .collect();
+    let mut tally = BTreeMap::new();
+    for tb in Basis::ALL {
+        for tbit in 0..2u8 {
+            for i in 0..n_int {
+                for rb in Basis::ALL {
+                    for rbit in 0..2u8 {
+                        let n = t.count(tb, tbit, i, rb, rbit);
+                        if n > 0 {
+                            let k = format!(
+                                "{}{}/{}/{}{}",
+                                crate::replay::basis_name(tb),
+                                tbit,
+                                i,
+                                crate::replay::basis_name(rb),
+                                rbit
+                            );
+                            tally.insert(k, n);
+                        }
+                    }
+                }
+            }
+        }
+    }
+    let det = rx.detections_in();
+    Summary {
+        name: name.to_string(),
+        detections_in: det,
+        accounting,
+        multi_click_events,
+        answer_errors,
+        sifted_bits: rx.sifted_bits(),
+        qber: Qber {
+            z: QberFigure::from_tally(t, Basis::Z, None),
+            x: QberFigure::from_tally(t, Basis::X, None),
+            per_intensity,
+        },
+        period_ps: PeriodPs {
+            estimate: period_estimate_ps,
+            truth: truth_period_ps,
+        },
+        truth: truth_qber.map(|(qz, qx)| Truth {
+            qber_z: qz,
+            qber_x: qx,
+            misassigned_sifted: res.misassigned_sifted.unwrap_or(0),
+        }),
+        tally,
+        run: [
+            ("seconds", seconds),
+            (
+                "detections_per_s",
+                if seconds > 0.0 { det as f64 / seconds } else { 0.0 },
+            ),
+        ]
+        .into_iter()
+        .collect(),
+    }
+}
+
+fn pct(v: Option<f64>) -> String {
+    v.map(|x| format!("{:.3} %", 100.0 * x))
+        .unwrap_or_else(|| "n/a".into())
+}
+
+impl std::fmt::Display for Summary {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        writeln!(f, "run            {}", self.name)?;
+        writeln!(f, "detections in  {}", self.detections_in)?;
+        writeln!(f, "where they went:")?;
+        for (k, v) in &self.accounting {
+            if *v > 0 {
+                let share = 100.0 * *v as f64 / self.detections_in.max(1) as f64;
+                writeln!(f, "  {k:<17}{v:>12}  {share:6.2} %")?;
+            }
+        }
+        writeln!(f, "sifted bits    {}", self.sifted_bits)?;
+        let truth = self.truth.as_ref();
+        writeln!(
+            f,
+            "QBER Z         {:<12} ({} of {} tested){}",
+            pct(self.qber.z.value),
+            self.qber.z.errors,
+            self.qber.z.tested,
+            truth
+                .map(|t| format!("   model {:.3} %", 100.0 * t.qber_z))
+                .unwrap_or_default()
+        )?;
+        writeln!(
+            f,
+            "QBER X         {:<12} ({} of {} tested){}",
+            pct(self.qber.x.value),
+            self.qber.x.errors,
+            self.qber.x.tested,
+            truth
+                .map(|t| format!("   model {:.3} %", 100.0 * t.qber_x))
+                .unwrap_or_default()
+        )?;
+        write!(f, "period         {:.6} ps", self.period_ps.estimate)?;
+        if let Some(t) = self.period_ps.truth {
+            write!(f, "   truth {t:.6} ps")?;
+        }
+        writeln!(f)?;
+        if let Some(t) = truth {
+            writeln!(f, "misassigned    {} sifted bits (against the simulator's truth)", t.misassigned_sifted)?;
+        }
+        if let Some(s) = self.run.get("seconds") {
+            writeln!(f, "replay time    {s:.2} s")?;
+        }
+        Ok(())
+    }
+}
