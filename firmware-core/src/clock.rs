@@ -14,7 +14,6 @@ use fixed::types::{U0F32, U32F32};
 
 /// Where a detection sits on the transmitter's slot grid.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct SlotPos {
     /// Slot index counted from the clock's origin.
     pub slot: u64,
@@ -60,7 +59,6 @@ impl core::error::Error for ClockError {}
 
 /// A period with its precomputed reciprocal: the grid arithmetic shared by every clock.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct SlotGrid {
     period_ps: U32F32,
     /// floor(2^64 / period_ps): the Q0.64 reciprocal of the period.
@@ -125,7 +123,6 @@ impl SlotGrid {
 
 /// A clock fixed by configuration: known period and the time at which slot 0 starts.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct FixedClock {
     grid: SlotGrid,
     origin_ps: u64,
@@ -157,6 +154,42 @@ impl Clock for FixedClock {
             Some(e) => Located::At(self.grid.split(e)),
             None => Located::BeforeOrigin,
         }
+    }
+}
+
+// Fixed-point fields print as raw bits with their format in the name (defmt has no fixed types).
+#[cfg(feature = "defmt")]
+impl defmt::Format for SlotPos {
+    fn format(&self, f: defmt::Formatter<'_>) {
+        defmt::write!(
+            f,
+            "SlotPos {{ slot: {=u64}, phase_q0_32: {=u32} }}",
+            self.slot,
+            self.phase.to_bits()
+        );
+    }
+}
+
+#[cfg(feature = "defmt")]
+impl defmt::Format for SlotGrid {
+    fn format(&self, f: defmt::Formatter<'_>) {
+        defmt::write!(
+            f,
+            "SlotGrid {{ period_ps_q32_32: {=u64} }}",
+            self.period_ps.to_bits()
+        );
+    }
+}
+
+#[cfg(feature = "defmt")]
+impl defmt::Format for FixedClock {
+    fn format(&self, f: defmt::Formatter<'_>) {
+        defmt::write!(
+            f,
+            "FixedClock {{ period_ps_q32_32: {=u64}, origin_ps: {=u64} }}",
+            self.grid.period_ps.to_bits(),
+            self.origin_ps
+        );
     }
 }
 

@@ -50,7 +50,6 @@ impl Basis {
 
 /// One gate: a window on one channel, and the outcome it stands for.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct Gate {
     /// TDC channel.
     pub channel: u8,
@@ -272,6 +271,21 @@ impl GateTable {
             }
         }
         Lookup::Outside
+    }
+}
+
+#[cfg(feature = "defmt")]
+impl defmt::Format for Gate {
+    fn format(&self, f: defmt::Formatter<'_>) {
+        defmt::write!(
+            f,
+            "Gate {{ channel: {=u8}, start_q0_32: {=u32}, end_q0_32: {=u32}, basis: {}, bit: {=u8} }}",
+            self.channel,
+            self.start.to_bits(),
+            self.end.to_bits(),
+            self.basis,
+            self.bit
+        );
     }
 }
 

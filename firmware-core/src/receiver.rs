@@ -118,7 +118,6 @@ pub enum Stage {
 
 /// Per-detection record for debugging traces.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct Trace {
     /// Unwrapped time in ps (before the channel delay), when the time base accepted it.
     pub t_ps: Option<u64>,
@@ -478,5 +477,21 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             basis,
         });
         self.service(tx, key);
+    }
+}
+#[cfg(feature = "defmt")]
+impl defmt::Format for Trace {
+    fn format(&self, f: defmt::Formatter<'_>) {
+        let (slot, phase) = self.slot.map(|(s, p)| (s, p.to_bits())).unzip();
+        defmt::write!(
+            f,
+            "Trace {{ t_ps: {}, channel: {=u8}, slot: {}, phase_q0_32: {}, gate: {}, stage: {} }}",
+            self.t_ps,
+            self.channel,
+            slot,
+            phase,
+            self.gate,
+            self.stage
+        );
     }
 }

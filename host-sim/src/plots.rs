@@ -24,7 +24,10 @@ fn font_ready() -> bool {
     static READY: OnceLock<bool> = OnceLock::new();
     *READY.get_or_init(|| {
         let env = std::env::var("SLOTWISE_FONT").ok();
-        let candidates = env.iter().map(String::as_str).chain(FONT_PATHS.iter().copied());
+        let candidates = env
+            .iter()
+            .map(String::as_str)
+            .chain(FONT_PATHS.iter().copied());
         for p in candidates {
             if let Ok(bytes) = std::fs::read(p) {
                 let bytes: &'static [u8] = Box::leak(bytes.into_boxed_slice());
@@ -56,7 +59,12 @@ trait Plot {
 }
 
 /// Write `stem.svg` (and `stem.png` when a font is available); returns the files written.
-fn both(dir: &Path, stem: &str, size: (u32, u32), plot: &impl Plot) -> Result<Vec<PathBuf>, DynErr> {
+fn both(
+    dir: &Path,
+    stem: &str,
+    size: (u32, u32),
+    plot: &impl Plot,
+) -> Result<Vec<PathBuf>, DynErr> {
     let mut out = Vec::new();
     if font_ready() {
         let png = dir.join(format!("{stem}.png"));
@@ -125,7 +133,11 @@ pub fn fold_profile(
                     "{}{}",
                     crate::replay::basis_name(g.basis),
                     if g.basis == Basis::X {
-                        if g.bit == 0 { "+" } else { "-" }
+                        if g.bit == 0 {
+                            "+"
+                        } else {
+                            "-"
+                        }
                     } else if g.bit == 0 {
                         "0"
                     } else {
@@ -136,7 +148,9 @@ pub fn fold_profile(
                 chart.draw_series(std::iter::once(Text::new(
                     label,
                     ((a + b) / 2.0 - 0.01, y),
-                    ("sans-serif", 13).into_font().color(&colour(usize::from(g.channel))),
+                    ("sans-serif", 13)
+                        .into_font()
+                        .color(&colour(usize::from(g.channel))),
                 )))?;
             }
             for (ch, f) in self.fold.iter().enumerate() {
@@ -149,7 +163,9 @@ pub fn fold_profile(
                         c.stroke_width(2),
                     ))?
                     .label(format!("channel {ch}"))
-                    .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2)));
+                    .legend(move |(x, y)| {
+                        PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2))
+                    });
             }
             chart
                 .configure_series_labels()
@@ -165,7 +181,11 @@ pub fn fold_profile(
 }
 
 /// QBER per basis over time, with a ±2σ binomial band per bucket, and detection rate per channel.
-pub fn qber_and_rate(dir: &Path, buckets: &[Bucket], channels: usize) -> Result<Vec<PathBuf>, DynErr> {
+pub fn qber_and_rate(
+    dir: &Path,
+    buckets: &[Bucket],
+    channels: usize,
+) -> Result<Vec<PathBuf>, DynErr> {
     struct Series<'a> {
         b: &'a [Bucket],
         channels: usize,
@@ -177,13 +197,7 @@ pub fn qber_and_rate(dir: &Path, buckets: &[Bucket], channels: usize) -> Result<
         {
             root.fill(&WHITE)?;
             let (top, bottom) = root.split_vertically(root.dim_in_pixel().1 / 2);
-            let t_end = self
-                .b
-                .last()
-                .map(|b| b.t_s)
-                .unwrap_or(1.0)
-                .max(1e-9)
-                * 1.02
+            let t_end = self.b.last().map(|b| b.t_s).unwrap_or(1.0).max(1e-9) * 1.02
                 + self.b.get(1).map(|b| b.t_s).unwrap_or(0.0);
             let q: Vec<(f64, [Option<(f64, f64)>; 2])> = self
                 .b
@@ -193,7 +207,10 @@ pub fn qber_and_rate(dir: &Path, buckets: &[Bucket], channels: usize) -> Result<
                         let (e, n) = b.tested[i];
                         (n > 0).then(|| {
                             let p = e as f64 / n as f64;
-                            (p, 2.0 * (p.max(0.5 / n as f64) * (1.0 - p) / n as f64).sqrt())
+                            (
+                                p,
+                                2.0 * (p.max(0.5 / n as f64) * (1.0 - p) / n as f64).sqrt(),
+                            )
                         })
                     };
                     (b.t_s, [f(0), f(1)])
@@ -229,11 +246,14 @@ pub fn qber_and_rate(dir: &Path, buckets: &[Bucket], channels: usize) -> Result<
                 }))?;
                 chart
                     .draw_series(LineSeries::new(
-                        q.iter().filter_map(|(t, v)| v[i].map(|(p, _)| (*t, 100.0 * p))),
+                        q.iter()
+                            .filter_map(|(t, v)| v[i].map(|(p, _)| (*t, 100.0 * p))),
                         c.stroke_width(2),
                     ))?
                     .label(format!("{name} basis"))
-                    .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2)));
+                    .legend(move |(x, y)| {
+                        PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2))
+                    });
             }
             chart
                 .configure_series_labels()
@@ -266,11 +286,15 @@ pub fn qber_and_rate(dir: &Path, buckets: &[Bucket], channels: usize) -> Result<
                 let c = colour(ch);
                 chart
                     .draw_series(LineSeries::new(
-                        self.b.iter().map(|b| (b.t_s, b.detections[ch] as f64 / dt / 1e3)),
+                        self.b
+                            .iter()
+                            .map(|b| (b.t_s, b.detections[ch] as f64 / dt / 1e3)),
                         c.stroke_width(2),
                     ))?
                     .label(format!("channel {ch}"))
-                    .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2)));
+                    .legend(move |(x, y)| {
+                        PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2))
+                    });
             }
             chart
                 .configure_series_labels()
@@ -281,6 +305,9 @@ pub fn qber_and_rate(dir: &Path, buckets: &[Bucket], channels: usize) -> Result<
             Ok(())
         }
     }
-    let s = Series { b: buckets, channels };
+    let s = Series {
+        b: buckets,
+        channels,
+    };
     both(dir, "qber_rate", (960, 760), &s)
 }

@@ -184,8 +184,7 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
                 *d += 1;
             }
         }
-        if let (Some((_, phase)), Some(f)) = (tr.slot, self.fold.get_mut(usize::from(tr.channel)))
-        {
+        if let (Some((_, phase)), Some(f)) = (tr.slot, self.fold.get_mut(usize::from(tr.channel))) {
             let bin = ((u64::from(phase.to_bits()) * FOLD_BINS as u64) >> 32) as usize;
             f[bin.min(FOLD_BINS - 1)] += 1;
         }
@@ -215,7 +214,10 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
             Some((s, p)) => (s.to_string(), format!("{:.6}", p.to_num::<f64>())),
             None => (String::new(), String::new()),
         };
-        let (gate, basis, bit) = match tr.gate.and_then(|g| self.cfg.gates().gate(g).map(|x| (g, x))) {
+        let (gate, basis, bit) = match tr
+            .gate
+            .and_then(|g| self.cfg.gates().gate(g).map(|x| (g, x)))
+        {
             Some((g, x)) => (
                 g.to_string(),
                 basis_name(x.basis).to_string(),
@@ -230,7 +232,9 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
             tr.channel
         );
         match (tr.stage, tr.slot) {
-            (Stage::Gated, Some((s, _))) => self.sink.trace_pending.entry(s).or_default().push(line),
+            (Stage::Gated, Some((s, _))) => {
+                self.sink.trace_pending.entry(s).or_default().push(line)
+            }
             _ => {
                 if let Some(out) = self.sink.trace_out.as_mut() {
                     if let Err(e) = writeln!(out, "{line},") {

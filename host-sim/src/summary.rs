@@ -176,7 +176,11 @@ pub fn summarize<C: Clock, T: Transmitter>(
             ("seconds", seconds),
             (
                 "detections_per_s",
-                if seconds > 0.0 { det as f64 / seconds } else { 0.0 },
+                if seconds > 0.0 {
+                    det as f64 / seconds
+                } else {
+                    0.0
+                },
             ),
         ]
         .into_iter()
@@ -228,7 +232,11 @@ impl std::fmt::Display for Summary {
         }
         writeln!(f)?;
         if let Some(t) = truth {
-            writeln!(f, "misassigned    {} sifted bits (against the simulator's truth)", t.misassigned_sifted)?;
+            writeln!(
+                f,
+                "misassigned    {} sifted bits (against the simulator's truth)",
+                t.misassigned_sifted
+            )?;
         }
         if let Some(s) = self.run.get("seconds") {
             writeln!(f, "replay time    {s:.2} s")?;
