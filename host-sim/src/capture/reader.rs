@@ -50,55 +50,64 @@ pub enum BlockOutcome {
     Skipped(SkippedBlock),
 }
 
-/// Bytes read from the source but not yet consumed, with their offset in the capture.
+/// Bytes read from the source but not yet consumed (`buf[start..end]`), with their offset in
+/// the capture. The buffer grows to the largest record asked for, at least [`READ_CHUNK`].
 #[derive(Debug)]
 struct Window<R> {
     r: R,
     buf: Vec<u8>,
     start: usize,
+    end: usize,
     offset: u64,
     eof: bool,
 }
 
 impl<R: Read> Window<R> {
+    fn new(r: R) -> Self {
+        Self {
+            r,
+            buf: Vec::new(),
+            start: 0,
+            end: 0,
+            offset: 0,
+            eof: false,
+        }
+    }
+
     /// Make at least `n` unconsumed bytes available unless the source ends first; returns the
-    /// number available.
+    /// number available. Reads only as often as needed, so a live pipe is not waited on for
+    /// more than `n` bytes.
     fn fill(&mut self, n: usize) -> Result<usize, Fault> {
-        if self.buf.len() - self.start >= n || self.eof {
-            return Ok(self.buf.len() - self.start);
+        if self.end - self.start >= n || self.eof {
+            return Ok(self.end - self.start);
         }
         if self.start > 0 {
-            self.buf.drain(..self.start);
+            self.buf.copy_within(self.start..self.end, 0);
+            self.end -= self.start;
             self.start = 0;
         }
-        while self.buf.len() < n && !self.eof {
-            let have = self.buf.len();
-            let want = (n - have).max(READ_CHUNK);
-            self.buf.resize(have + want, 0);
-            let got = loop {
-                match self.r.read(self.buf.get_mut(have..).unwrap_or_default()) {
-                    Ok(g) => break g,
-                    Err(e) if e.kind() == io::ErrorKind::Interrupted => continue,
-                    Err(e) => {
-                        self.buf.truncate(have);
-                        return Err(io_fault(self.offset + have as u64, &e));
-                    }
-                }
-            };
-            self.buf.truncate(have + got);
-            if got == 0 {
-                self.eof = true;
+        let room = n.max(READ_CHUNK);
+        if self.buf.len() < room {
+            self.buf.resize(room, 0);
+        }
+        while self.end < n && !self.eof {
+            let spare = self.buf.get_mut(self.end..).unwrap_or_default();
+            match self.r.read(spare) {
+                Ok(0) => self.eof = true,
+                Ok(got) => self.end += got,
+                Err(e) if e.kind() == io::ErrorKind::Interrupted => {}
+                Err(e) => return Err(io_fault(self.offset + self.end as u64, &e)),
             }
         }
-        Ok(self.buf.len())
+        Ok(self.end)
     }
 
     fn bytes(&self) -> &[u8] {
-        self.buf.get(self.start..).unwrap_or_default()
+        self.buf.get(self.start..self.end).unwrap_or_default()
     }
 
     fn consume(&mut self, n: usize) {
-        let n = n.min(self.buf.len() - self.start);
+        let n = n.min(self.end - self.start);
         self.start += n;
         self.offset += n as u64;
     }
@@ -150,13 +159,7 @@ pub struct CaptureReader<R> {
 impl<R: Read> CaptureReader<R> {
     /// Read and check the header; `source_name` names the capture in every error.
     pub fn new(r: R, source_name: &str) -> Result<Self, CaptureError> {
-        let mut win = Window {
-            r,
-            buf: Vec::new(),
-            start: 0,
-            offset: 0,
-            eof: false,
-        };
+        let mut win = Window::new(r);
         let (header, header_len) = read_header(&mut win).map_err(|f| f.with_source(source_name))?;
         let limits = Limits {
             mask: header.counter_mask(),
@@ -376,7 +379,7 @@ impl<R: Read> CaptureReader<R> {
     /// the end record's block count), or `None` at the end of the file.
     fn resync(&mut self, scratch: &mut Vec<TdcEvent>) -> Result<Option<u64>, CaptureError> {
         loop {
-            let avail = self.fill_or_fail(READ_CHUNK)?;
+            let avail = self.fill_or_fail(4)?;
             let found = self
                 .win
                 .bytes()
@@ -443,25 +446,27 @@ impl<R: Read> CaptureReader<R> {
             } else if b == END_SYNC.get(..avail).unwrap_or_default() {
                 "end_record"
             } else {
-                return Err(Fault::new(
-                    start,
-                    "block_sync",
-                    ErrorKind::BadSync { found: sync },
-                ));
+                return Err(
+                    Fault::new(start, "block_sync", ErrorKind::BadSync { found: sync })
+                        .in_block(self.next_index),
+                );
             };
-            return Err(truncated(start + avail as u64, field, 4 - avail));
+            let fault = truncated(start + avail as u64, field, 4 - avail);
+            return Err(if field == "block_sync" {
+                fault.in_block(self.next_index)
+            } else {
+                fault
+            });
         }
         if sync == END_SYNC {
             return self.end_record(start, avail);
         }
-        if sync != BLOCK_SYNC {
-            return Err(Fault::new(
-                start,
-                "block_sync",
-                ErrorKind::BadSync { found: sync },
-            ));
-        }
         let block = self.next_index;
+        if sync != BLOCK_SYNC {
+            return Err(
+                Fault::new(start, "block_sync", ErrorKind::BadSync { found: sync }).in_block(block),
+            );
+        }
         if avail < BLOCK_HEAD_LEN {
             let field = block_field_at(avail);
             return Err(
