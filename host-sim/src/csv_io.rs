@@ -139,7 +139,7 @@ impl<R: BufRead> CsvReader<R> {
     }
 
     /// Line number of the last event returned (0 before the first).
-    pub fn line(&self) -> u64 {
+    pub fn event_line(&self) -> u64 {
         self.event_line
     }
 
@@ -445,7 +445,7 @@ pub fn csv_to_capture<R: BufRead, W: Write>(
         if ev.channel >= channel_count {
             return Err(ConvertError::Csv(CsvError {
                 source: csv.source.clone(),
-                line: csv.line(),
+                line: csv.event_line(),
                 field: "channel",
                 text: ev.channel.to_string(),
                 kind: CsvErrorKind::ChannelOutOfRange { channel_count },
