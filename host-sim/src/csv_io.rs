@@ -128,7 +128,7 @@ impl<R: BufRead> CsvReader<R> {
                 return Err(reader.error("header", String::new(), CsvErrorKind::MissingHeader));
             };
             let t = text.trim();
-            if t.starts_with('#') || (t.is_empty() && reader.line == 1) {
+            if t.starts_with('#') {
                 continue;
             }
             if t != CSV_HEADER {

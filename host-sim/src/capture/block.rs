@@ -169,9 +169,22 @@ impl BlockHead {
         }
     }
 
-    /// Check event count and payload length before the payload is read, so a damaged length
-    /// cannot make the reader buffer more than one legal block. `start` is the block's offset.
+    /// Check index, event count and payload length before the payload is read, so a damaged
+    /// length cannot make the reader buffer more than one legal block. `start` is the block's
+    /// offset.
     pub(crate) fn check_lengths(&self, start: u64, max_block_events: u32) -> Result<(), Fault> {
+        // The last index is reserved so that the count of blocks read always fits 64 bits.
+        if self.index == u64::MAX {
+            return Err(Fault::new(
+                start + OFF_INDEX as u64,
+                "block_index",
+                ErrorKind::OutOfRange {
+                    value: self.index,
+                    min: 0,
+                    max: u64::MAX - 1,
+                },
+            ));
+        }
         let n = u64::from(self.event_count);
         if n == 0 || n > u64::from(max_block_events) {
             return Err(Fault::new(

@@ -343,8 +343,8 @@ impl<R: Read> CaptureReader<R> {
 
     /// Count a verified block and describe it.
     fn accept(&mut self, head: BlockHead, start: u64) -> BlockInfo {
-        self.next_index += 1;
-        self.events += u64::from(head.event_count);
+        self.next_index = self.next_index.saturating_add(1);
+        self.events = self.events.saturating_add(u64::from(head.event_count));
         BlockInfo {
             index: head.index,
             byte_offset: start,

@@ -507,3 +507,39 @@ fn skipping_reports_a_truncated_tail_and_a_missing_end_record() {
         ErrorKind::MissingEndRecord { blocks: 3 }
     );
 }
+
+#[test]
+fn the_reserved_last_block_index_is_refused() {
+    let h = header(32, 1, 2, 100);
+    let mut b = bare_header(&h);
+    let first = b.len() as u64;
+    b.extend(raw_block(u64::MAX - 1, 1, 7, &[0]));
+    b.extend(raw_block(u64::MAX, 1, 8, &[1]));
+    b.extend(raw_end(u64::MAX, 2));
+    let e = strict_error(&b);
+    assert_eq!(
+        (e.offset, e.field, e.block),
+        (first + 4, "block_index", Some(0))
+    );
+    // Skipping: a gap up to index 2^64-2, that block, then the reserved index is damage and the
+    // end record (counting 2^64-1 blocks) closes the capture.
+    let (good, skipped) = read_skipping(&b);
+    assert_eq!(
+        good,
+        [vec![TdcEvent {
+            count: 7,
+            channel: 0
+        }]]
+    );
+    assert_eq!(skipped.len(), 2);
+    assert_eq!((skipped[0].index, skipped[0].blocks), (0, u64::MAX - 1));
+    assert_eq!(skipped[1].reason.field, "block_index");
+    assert_eq!(
+        skipped[1].reason.kind,
+        ErrorKind::OutOfRange {
+            value: u64::MAX,
+            min: 0,
+            max: u64::MAX - 1
+        }
+    );
+}
