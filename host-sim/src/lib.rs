@@ -2,6 +2,8 @@
 //! firmware core, and the reports behind the `slotwise` command.
 #![allow(missing_docs)]
 
+pub mod capture;
+pub mod csv_io;
 pub mod plots;
 pub mod replay;
 pub mod summary;
