@@ -1,3 +1,6 @@
 //! Host side of slotwise: a physical link simulator, the capture format, replay through the
 //! firmware core, and the reports behind the `slotwise` command.
 #![allow(missing_docs)]
+
+pub mod scenario;
+pub mod sim;
