@@ -51,8 +51,8 @@ pub struct ChannelModel {
     pub y0_basis: [f64; 2],
     /// Per detector: dark-count probability per slot inside its windows.
     pub y0_detector: Vec<f64>,
-    /// Per detector: fraction of the slot covered by its windows.
-    pub gate_duty: Vec<f64>,
+    /// Per detector and basis (Z = 0, X = 1): fraction of the slot covered by its windows.
+    pub gate_duty: Vec<[f64; 2]>,
     /// r_b: probability that a b-prepared photon is measured in basis b.
     pub basis_share: [f64; 2],
     /// Per intensity class, index 0 = signal.
@@ -152,11 +152,13 @@ pub fn channel_model(s: &Scenario) -> ChannelModel {
         .collect();
     let gate_duty = (0..channels)
         .map(|d| {
-            gates
-                .iter()
-                .filter(|g| usize::from(g.channel) == d)
-                .map(|g| g.hi - g.lo)
-                .sum()
+            let mut duty = [0.0; 2];
+            for g in gates.iter().filter(|g| usize::from(g.channel) == d) {
+                if let Some(x) = duty.get_mut(g.basis.index()) {
+                    *x += g.hi - g.lo;
+                }
+            }
+            duty
         })
         .collect();
     let y0 = y0_basis[0] + y0_basis[1];
@@ -215,22 +217,41 @@ pub fn channel_model(s: &Scenario) -> ChannelModel {
 }
 
 impl ChannelModel {
+    /// Per detector: rate of photon clicks plus dark counts without dead time, Hz.
+    fn raw_rate_hz(&self, s: &Scenario, d: usize) -> f64 {
+        let photon: f64 = self
+            .intensities
+            .iter()
+            .map(|m| m.prob * m.detector_click_prob.get(d).copied().unwrap_or(0.0))
+            .sum();
+        photon * s.rep_rate_hz + s.dark_count_hz
+    }
+
     /// Per detector: fraction of time it is live, m/n = 1/(1 + n·τ) for the non-paralysable
     /// dead-time model (common practice, radiation-detection textbooks), with n the rate of
     /// photon clicks, dark counts and afterpulses (approximated as n·(1 + p_ap)), in Hz.
     pub fn live_fraction(&self, s: &Scenario) -> Vec<f64> {
         let tau_s = s.dead_time_ns * 1e-9;
         (0..self.y0_detector.len())
-            .map(|d| {
-                let photon: f64 = self
-                    .intensities
-                    .iter()
-                    .map(|m| m.prob * m.detector_click_prob.get(d).copied().unwrap_or(0.0))
-                    .sum();
-                let n_hz = (photon * s.rep_rate_hz + s.dark_count_hz) * (1.0 + s.afterpulse_prob);
-                1.0 / (1.0 + n_hz * tau_s)
-            })
+            .map(|d| 1.0 / (1.0 + self.raw_rate_hz(s, d) * (1.0 + s.afterpulse_prob) * tau_s))
             .collect()
+    }
+
+    /// Afterpulses per slot inside the windows of each basis (Z = 0, X = 1): registered click
+    /// rate × p_ap × the windows' share of the slot × the live fraction (the microsecond delay
+    /// spreads afterpulses evenly over the slot). They act like extra dark counts.
+    pub fn afterpulse_yield(&self, s: &Scenario) -> [f64; 2] {
+        let live = self.live_fraction(s);
+        let mut y = [0.0; 2];
+        for (d, duty) in self.gate_duty.iter().enumerate() {
+            let l = live.get(d).copied().unwrap_or(1.0);
+            let registered_per_slot = l * self.raw_rate_hz(s, d) / s.rep_rate_hz;
+            for (acc, share) in y.iter_mut().zip(duty) {
+                // The afterpulse itself is only registered if it finds the detector live.
+                *acc += registered_per_slot * s.afterpulse_prob * share * l;
+            }
+        }
+        y
     }
 
     /// Gain of intensity class `i` corrected for dead time (each detector live with probability
@@ -251,24 +272,28 @@ impl ChannelModel {
                 .product();
             miss += p_state * none;
         }
-        let t_s = 1.0 / s.rep_rate_hz;
-        let noise: f64 = (0..live.len())
-            .map(|d| {
-                let l = live.get(d).copied().unwrap_or(1.0);
-                let y0 = self.y0_detector.get(d).copied().unwrap_or(0.0);
-                // Afterpulses per slot inside this detector's windows: registered click rate ×
-                // p_ap × the windows' share of the slot (the delay spreads them over the slot).
-                let photon: f64 = self
-                    .intensities
-                    .iter()
-                    .map(|c| c.prob * c.detector_click_prob.get(d).copied().unwrap_or(0.0))
-                    .sum();
-                let registered_hz = l * (photon * s.rep_rate_hz + s.dark_count_hz);
-                let duty = self.gate_duty.get(d).copied().unwrap_or(0.0);
-                l * (y0 + registered_hz * s.afterpulse_prob * t_s * duty)
-            })
-            .sum();
-        1.0 - miss + noise
+        let dark: f64 = self.y0_detector.iter().zip(&live).map(|(y, l)| y * l).sum();
+        let ap = self.afterpulse_yield(s);
+        1.0 - miss + dark + ap[0] + ap[1]
+    }
+
+    /// E_μ^b with afterpulses counted as dark counts in the windows (Y0_b → Y0_b + Y_ap,b, same
+    /// e0 = 1/2); dead time scales signal and noise alike and drops out.
+    pub fn qber_with_afterpulses(&self, s: &Scenario, i: usize) -> [f64; 2] {
+        let Some(m) = self.intensities.get(i) else {
+            return [0.0; 2];
+        };
+        let ap = self.afterpulse_yield(s);
+        let eta_g = self.eta * self.gate_acceptance;
+        let mut e = [0.0; 2];
+        for (b, out) in e.iter_mut().enumerate() {
+            let share = self.basis_share.get(b).copied().unwrap_or(0.0);
+            let noise =
+                self.y0_basis.get(b).copied().unwrap_or(0.0) + ap.get(b).copied().unwrap_or(0.0);
+            let sig = -(-eta_g * share * m.mu).exp_m1();
+            *out = (0.5 * noise + s.misalignment * sig) / (noise + sig);
+        }
+        e
     }
 }
 
