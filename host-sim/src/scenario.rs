@@ -252,7 +252,14 @@ impl Scenario {
     /// Parse and validate a scenario; `source_name` (usually the file path) names it in errors.
     pub fn from_toml_str(text: &str, source_name: &str) -> Result<Self, ScenarioError> {
         let s: Scenario = toml::from_str(text).map_err(|e| {
+            let missing = e
+                .message()
+                .strip_prefix("missing field `")
+                .and_then(|m| m.split_once('`'))
+                .map(|(k, _)| k.to_string());
             let (line, column, byte, key) = match e.span() {
+                // A missing key has no place in the text; name it instead.
+                _ if missing.is_some() => (None, None, None, missing),
                 Some(span) => {
                     let (l, c, k) = locate(text, span.start);
                     (Some(l), Some(c), Some(span.start), k)
@@ -550,6 +557,17 @@ mod tests {
         assert!(e.message.contains("unknown field"), "{e}");
         assert_eq!(e.line, Some(text.lines().count()), "{e}");
         assert_eq!(e.key.as_deref(), Some("colour"), "{e}");
+    }
+
+    #[test]
+    fn missing_key_is_named() {
+        let text: String = DEFAULT_BENCH_TOML
+            .lines()
+            .filter(|l| !l.starts_with("seed"))
+            .map(|l| format!("{l}\n"))
+            .collect();
+        let e = Scenario::from_toml_str(&text, "c.toml").unwrap_err();
+        assert_eq!(e.to_string(), "c.toml: key 'seed': missing field `seed`");
     }
 
     #[test]
