@@ -3,7 +3,10 @@
 #![allow(missing_docs)]
 
 pub mod capture;
+pub mod cli;
 pub mod csv_io;
 pub mod plots;
 pub mod replay;
+pub mod scenario;
+pub mod sim;
 pub mod summary;
