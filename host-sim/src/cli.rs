@@ -1,6 +1,6 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
-use crate::capture::{self, CaptureHeader, CaptureReader, CaptureWriter, BlockOutcome};
+use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter};
 use crate::csv_io;
 use crate::plots;
 use crate::replay::{Session, TraceRequest, TruthTag};
@@ -225,8 +225,19 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let started = Instant::now();
     let (cfg, clock) = receiver_setup(&s)?;
     let truth = sim::clock_truth(&s)?;
-    let mut session = Session::new(cfg, clock, SimTransmitter::new(&s), s.period_ps(), bucket_s(&s), true, None)?;
-    let mut writer = CaptureWriter::new(BufWriter::new(File::create(&cap_path)?), capture_header(&s)?)?;
+    let mut session = Session::new(
+        cfg,
+        clock,
+        SimTransmitter::new(&s),
+        s.period_ps(),
+        bucket_s(&s),
+        true,
+        None,
+    )?;
+    let mut writer = CaptureWriter::new(
+        BufWriter::new(File::create(&cap_path)?),
+        capture_header(&s)?,
+    )?;
     let mut simulator = Simulator::new(&s);
     let pb = progress(1000, "simulating");
     let mut block = Vec::with_capacity(4096);
@@ -263,8 +274,17 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let json = a.out.join("summary.json");
     std::fs::write(&json, serde_json::to_string_pretty(&summary)? + "\n")?;
     let mut files = vec![cap_path.clone(), json];
-    files.extend(plots::fold_profile(&a.out, &res.fold, cfg.gates(), &format!("Fold profile — {}", s.name))?);
-    files.extend(plots::qber_and_rate(&a.out, &res.buckets, usize::from(cfg.gates().channels()))?);
+    files.extend(plots::fold_profile(
+        &a.out,
+        &res.fold,
+        cfg.gates(),
+        &format!("Fold profile — {}", s.name),
+    )?);
+    files.extend(plots::qber_and_rate(
+        &a.out,
+        &res.buckets,
+        usize::from(cfg.gates().channels()),
+    )?);
     print!("{summary}");
     println!(
         "capture replay {} (the written capture replays to the same counters)",
@@ -286,7 +306,8 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
     let pb = progress(1000, "simulating");
     let mut block = Vec::with_capacity(4096);
     let mut n = 0u64;
-    let out = BufWriter::new(File::create(&a.out).map_err(|e| format!("{}: {e}", a.out.display()))?);
+    let out =
+        BufWriter::new(File::create(&a.out).map_err(|e| format!("{}: {e}", a.out.display()))?);
     enum Sink {
         Cap(CaptureWriter<BufWriter<File>>),
         Csv(csv_io::CsvWriter<BufWriter<File>>),
@@ -324,7 +345,13 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
             w.finish()?;
         }
     }
-    println!("{}: {n} detections from scenario '{}' ({} s at {} Hz)", a.out.display(), s.name, s.duration_s, s.rep_rate_hz);
+    println!(
+        "{}: {n} detections from scenario '{}' ({} s at {} Hz)",
+        a.out.display(),
+        s.name,
+        s.duration_s,
+        s.rep_rate_hz
+    );
     Ok(())
 }
 
@@ -342,7 +369,15 @@ pub fn replay_capture(
     let name = path.display().to_string();
     let file = File::open(path).map_err(|e| format!("{name}: {e}"))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
-    let mut session = Session::new(cfg, clock, SimTransmitter::new(s), s.period_ps(), bucket_s(s), false, trace)?;
+    let mut session = Session::new(
+        cfg,
+        clock,
+        SimTransmitter::new(s),
+        s.period_ps(),
+        bucket_s(s),
+        false,
+        trace,
+    )?;
     let mut skipped = Vec::new();
     let pb = progress(size, "replaying");
     if path.extension().is_some_and(|e| e == "csv") {
@@ -389,8 +424,17 @@ pub fn replay_capture(
     );
     if let Some(dir) = plots_dir {
         std::fs::create_dir_all(dir)?;
-        let mut files = plots::fold_profile(dir, &res.fold, cfg.gates(), &format!("Fold profile — {name}"))?;
-        files.extend(plots::qber_and_rate(dir, &res.buckets, usize::from(cfg.gates().channels()))?);
+        let mut files = plots::fold_profile(
+            dir,
+            &res.fold,
+            cfg.gates(),
+            &format!("Fold profile — {name}"),
+        )?;
+        files.extend(plots::qber_and_rate(
+            dir,
+            &res.buckets,
+            usize::from(cfg.gates().channels()),
+        )?);
         for f in files {
             eprintln!("wrote {}", f.display());
         }
@@ -419,7 +463,10 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
     let trace = match &a.trace {
         Some(p) => {
             let from_ps = (a.trace_from_s * 1e12) as u64;
-            let to_ps = a.trace_to_s.map(|t| (t * 1e12) as u64).unwrap_or(from_ps + 1_000_000_000);
+            let to_ps = a
+                .trace_to_s
+                .map(|t| (t * 1e12) as u64)
+                .unwrap_or(from_ps + 1_000_000_000);
             Some(TraceRequest {
                 out: Box::new(BufWriter::new(File::create(p)?)),
                 from_ps,
@@ -428,7 +475,15 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
         }
         None => None,
     };
-    let summary = replay_capture(&a.capture, cfg, clock, &s, a.skip_damaged, trace, a.plots.as_deref())?;
+    let summary = replay_capture(
+        &a.capture,
+        cfg,
+        clock,
+        &s,
+        a.skip_damaged,
+        trace,
+        a.plots.as_deref(),
+    )?;
     print!("{summary}");
     if let Some(j) = &a.json {
         std::fs::write(j, serde_json::to_string_pretty(&summary)? + "\n")?;

@@ -11,6 +11,9 @@ use std::sync::OnceLock;
 
 type DynErr = Box<dyn std::error::Error>;
 
+/// A QBER estimate and its 2σ half-width, when the bucket tested anything.
+type QberPoint = Option<(f64, f64)>;
+
 const FONT_PATHS: &[&str] = &[
     "/usr/share/fonts/truetype/dejavu/DejaVuSans.ttf",
     "/usr/share/fonts/TTF/DejaVuSans.ttf",
@@ -199,7 +202,7 @@ pub fn qber_and_rate(
             let (top, bottom) = root.split_vertically(root.dim_in_pixel().1 / 2);
             let t_end = self.b.last().map(|b| b.t_s).unwrap_or(1.0).max(1e-9) * 1.02
                 + self.b.get(1).map(|b| b.t_s).unwrap_or(0.0);
-            let q: Vec<(f64, [Option<(f64, f64)>; 2])> = self
+            let q: Vec<(f64, [QberPoint; 2])> = self
                 .b
                 .iter()
                 .map(|b| {
