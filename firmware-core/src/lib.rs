@@ -40,6 +40,7 @@
 #![deny(missing_docs)]
 
 pub mod accounting;
+pub mod acquire;
 pub mod clock;
 pub mod gates;
 mod log;
