@@ -48,6 +48,7 @@ pub mod receiver;
 pub mod sift;
 pub mod tally;
 pub mod timestamps;
+pub mod track;
 
 pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
 pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
