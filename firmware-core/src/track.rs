@@ -72,7 +72,8 @@ pub struct TrackParams {
 }
 
 impl TrackParams {
-    /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, bridge 100 ppb.
+    /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, bridge 50 ppb (about
+    /// five times the loop's frequency rms at the rates of the examples above).
     pub const fn new(bandwidth_mhz: u32, rate_per_s: u64, blackout_ps: u64) -> Self {
         Self {
             bandwidth_mhz,
@@ -82,7 +83,7 @@ impl TrackParams {
             average_shift: 8,
             blackout_ps,
             max_rms: U0F32::from_bits(1 << 27),
-            bridge_ppb: 100,
+            bridge_ppb: 50,
         }
     }
 }

@@ -5,7 +5,7 @@
 //! (the Poisson–χ² identity, common practice). A search that tests M trial frequencies raises a
 //! false lock with probability at most M·Q(x) (Bonferroni), so the per-trial threshold for a
 //! false-lock probability P per attempt solves Q(x) = P/M. With P = 1e-9 and M rounded up to
-//! 2^m, [`SEARCH_MILLI`][n−1][m] holds that x in thousandths, rounded up, for m = 0..=40
+//! 2^m, `SEARCH_MILLI[n−1][m]` holds that x in thousandths, rounded up, for m = 0..=40
 //! (computed with `scipy.stats.chi2.isf(1e-9 / 2**m, 2*n)`; the unit tests re-derive every
 //! entry from the series above). Examples: n = 2, M = 2^15 (a ±500 ppm search over 5·10^6 slots)
 //! → x = 69.391; n = 4, M = 2^21 → x = 89.947.
@@ -16,7 +16,7 @@
 //! conservative too.
 //!
 //! Confirmation tests one trial (the found frequency) on an independent batch at P = 1e-6:
-//! [`CONFIRM_MILLI`][n−1] = chi2.isf(1e-6, 2n) in thousandths, rounded up. Search and
+//! `CONFIRM_MILLI[n−1]` = chi2.isf(1e-6, 2n) in thousandths, rounded up. Search and
 //! confirmation must both pass; the batches are independent, so a false lock needs both.
 
 use fixed::types::U32F32;
