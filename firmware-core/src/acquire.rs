@@ -668,7 +668,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             return;
         };
         let nu = i128::from(self.nu);
-        let new_nu = nu - ((nu * c1) >> 64);
+        let new_nu = nu.checked_mul(c1).map_or(-1, |v| nu - (v >> 64));
         let phi = self.phi0;
         let new_phi = phi
             .checked_sub(phi.checked_mul(c1).map_or(0, |v| v >> 64))

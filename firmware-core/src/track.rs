@@ -163,7 +163,7 @@ impl TrackConfig {
         let k1 = ((4 * z * theta / 1000) << 64) / d;
         let k2 = 4 * theta * theta / d;
         // K2/T_u in Q0.96 per Q0.32 error: K2·2^32·R/10^12 = K2·R·2^20/244140625.
-        let g2_q96 = (k2 * rate * (1 << 20)) / 244_140_625;
+        let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625;
         Ok(Self {
             p,
             k1: u64::try_from(k1).unwrap_or(u64::MAX),
@@ -188,9 +188,11 @@ impl TrackConfig {
     }
 }
 
-/// x·n/d without overflowing for x up to 2^127 (n, d below 2^64).
+/// x·n/d for d > 0, saturating instead of overflowing.
 fn mul_div(x: u128, n: u128, d: u128) -> u128 {
-    (x / d).saturating_mul(n) + (x % d) * n / d
+    (x / d)
+        .saturating_mul(n)
+        .saturating_add((x % d).saturating_mul(n) / d)
 }
 
 /// Optimal loop bandwidth in mHz for in-window rate `rate_per_s`, drift `drift_ppb_per_s` and
@@ -205,7 +207,7 @@ pub fn bandwidth_for_mhz(
     let s2 = u128::from(sigma_ps.max(1)).pow(2);
     // 10^15 mHz⁵ per Hz⁵, 10^6 from the units.
     let mut x = mul_div(
-        2 * u128::from(rate_per_s) * u128::from(drift_ppb_per_s).pow(2),
+        (2 * u128::from(rate_per_s)).saturating_mul(u128::from(drift_ppb_per_s).pow(2)),
         1_000_000_000_000_000_000_000,
         s2,
     );
@@ -273,7 +275,7 @@ impl Snapshot {
         }
         let hi = (self.nu_q96 >> 32) as i128;
         let lo = (self.nu_q96 & 0xFFFF_FFFF) as i128;
-        Some(self.pos_q64 + d * hi + ((d * lo) >> 32))
+        self.pos_q64.checked_add(d * hi + ((d * lo) >> 32))
     }
 
     /// Period in ps (Q32.32).
@@ -502,8 +504,8 @@ impl Tracker {
             self.lose(LossCause::InWindowFraction);
             return Located::NotLocked;
         }
-        let max = i64::from(self.cfg.p.max_rms.to_bits());
-        if self.r2_q64 > max * max {
+        let max = u64::from(self.cfg.p.max_rms.to_bits());
+        if self.r2_q64.unsigned_abs() > max * max {
             self.lose(LossCause::ResidualRms);
             return Located::NotLocked;
         }

@@ -135,13 +135,22 @@ mod tests {
         // Reference: scipy.stats.chi2.isf. Runs when `SLOTWISE_PYTHON` (or python3) imports
         // scipy; otherwise the series tests above stand alone.
         let py = std::env::var("SLOTWISE_PYTHON").unwrap_or_else(|_| "python3".into());
-        let script = "from scipy.stats import chi2\nimport math\n            print(' '.join(str(math.ceil(chi2.isf(1e-9/2**m, 2*n)*1000))             for n in range(1,5) for m in range(41)))\n            print(' '.join(str(math.ceil(chi2.isf(1e-6, 2*n)*1000)) for n in range(1,5)))";
+        let script = concat!(
+            "from scipy.stats import chi2\nimport math\n",
+            "print(' '.join(str(math.ceil(chi2.isf(1e-9/2**m, 2*n)*1000))",
+            " for n in range(1,5) for m in range(41)))\n",
+            "print(' '.join(str(math.ceil(chi2.isf(1e-6, 2*n)*1000)) for n in range(1,5)))",
+        );
         let Ok(out) = std::process::Command::new(py).args(["-c", script]).output() else {
             eprintln!("no python: scipy cross-check skipped");
             return;
         };
         if !out.status.success() {
-            eprintln!("no scipy: cross-check skipped");
+            let err = String::from_utf8_lossy(&out.stderr);
+            eprintln!(
+                "no scipy: cross-check skipped ({})",
+                err.lines().last().unwrap_or("")
+            );
             return;
         }
         let text = String::from_utf8(out.stdout).unwrap();
