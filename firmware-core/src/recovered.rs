@@ -17,6 +17,13 @@
 //! one is used (numbers never go back), the epoch counter increments, and
 //! [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
 //! [`RecoveredClock::align_numbering`].
+//!
+//! ## Work per detection
+//! Acquiring: one store (during confirmation also one fold: n harmonics) plus at most
+//! `work_per_call` search units (see [`crate::acquire`]); [`RecoveredClock::work`] spends more in
+//! idle time. Locked: one loop update — one residual per expected position of the channel
+//! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment. A lock
+//! clears the calibration histograms once (MAX_CHANNELS × 32 counters).
 
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::{AcquireConfig, AcquireConfigError, AcquireStats, AcquiredLock, Acquirer};

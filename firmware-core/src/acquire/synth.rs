@@ -6,7 +6,6 @@
 //! with optional frequency steps, arrival phase jumps, and blackouts.
 
 /// Something that happens to the link at a given time.
-#[allow(dead_code)] // used by the tracking tests
 #[derive(Clone, Copy, Debug)]
 pub enum Event {
     /// From `at_ps` on, signal arrives `slots` of a slot later.
