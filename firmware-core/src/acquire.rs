@@ -19,6 +19,10 @@
 //!   with the twice longer window, keeps the best, and drops candidates within two steps of a
 //!   better one.
 //!
+//! A channel whose pattern is symmetric (time-bin Z: peaks half a slot apart) cannot tell the
+//! two half-slot offsets apart by timing; another channel's asymmetric pattern (the X peaks)
+//! resolves it, otherwise the later stages see the swap (bits inverted).
+//!
 //! The best final candidate must pass the threshold of [`thresholds`] for M = the number of final
 //! lattice points in the prior (Bonferroni over every point any stage could have visited): a false
 //! lock per attempt below 1e-9. Its offset comes from the matched fold ([`fold::Fold::best_offset`]);
@@ -269,6 +273,11 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// Counters since construction.
     pub const fn stats(&self) -> &AcquireStats {
         &self.stats
+    }
+
+    /// Whether the acquirer is filling its buffer for a new search (nothing in progress).
+    pub const fn is_collecting(&self) -> bool {
+        matches!(self.step, Step::Collect) && self.len == 0
     }
 
     /// Whether a confirmed lock waits in [`Self::take_lock`].

@@ -7,7 +7,8 @@
 //! locked it answers slots from the tracking loop ([`crate::track`]) and updates it.
 //!
 //! Lock states: Acquiring (cold prior) → Locked → Lost (blackout, in-window fraction, residual) →
-//! Reacquiring (prior ±`reacquire_ppm` around the last good frequency) → Locked.
+//! Reacquiring (prior ±`reacquire_ppm` around the last good frequency; the cold prior after
+//! [`NARROW_ATTEMPTS`] failed attempts) → Locked.
 //!
 //! ## Slot numbering across a loss
 //! A cold lock numbers slots from the time origin (slot ≈ t·f) and opens numbering epoch 1.
@@ -114,7 +115,12 @@ pub struct RecoveredClock<const N: usize, const K: usize, const H: usize> {
     counters: LockCounters,
     numbering_valid: bool,
     last_lock: Option<AcquiredLock>,
+    /// Acquisition attempts when the narrow reacquisition started (`None` once widened).
+    reacquire_from: Option<u32>,
 }
+
+/// Failed narrow reacquisition attempts before the search widens to the cold prior.
+pub const NARROW_ATTEMPTS: u32 = 4;
 
 impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
     /// A cold clock expecting detections at `pattern`'s positions.
@@ -128,6 +134,7 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
             counters: LockCounters::default(),
             numbering_valid: false,
             last_lock: None,
+            reacquire_from: None,
         })
     }
 
@@ -241,7 +248,19 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
         if self.state == LockState::Lost {
             let nu = (self.trk.last_good().nu_q96 >> 32) as u64;
             self.acq.restart(nu, self.cfg.reacquire_ppm);
+            self.reacquire_from = Some(self.acq.stats().attempts);
             self.state = LockState::Reacquiring;
+        } else if self.state == LockState::Reacquiring
+            && self
+                .reacquire_from
+                .is_some_and(|a| self.acq.stats().attempts >= a.saturating_add(NARROW_ATTEMPTS))
+            && self.acq.is_collecting()
+        {
+            // The narrow prior keeps failing: the frequency may have moved further away.
+            let cold = self.cfg.acquire;
+            self.acq
+                .restart(cold.nominal_nu_q64(), cold.params().prior_ppm);
+            self.reacquire_from = None;
         }
         if self.state != LockState::Locked {
             self.acq.push(t_ps, channel, &self.pattern);

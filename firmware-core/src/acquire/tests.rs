@@ -213,6 +213,7 @@ fn noise_only_never_locks() {
         assert_eq!(r.stats.confirm_failed, 0);
         attempts += r.stats.attempts;
     }
+    eprintln!("noise only: {attempts} attempts, 0 locks");
     assert!(attempts >= 300, "{attempts}");
 }
 

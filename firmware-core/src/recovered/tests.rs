@@ -233,6 +233,28 @@ fn frequency_step_is_followed_or_relocked() {
 }
 
 #[test]
+fn large_frequency_step_widens_the_reacquisition() {
+    // +30 ppm lies outside the ±20 ppm reacquisition prior: the narrow searches fail, then the
+    // cold prior finds it.
+    let mut clk = Clk::new(
+        config(500, 100_000),
+        ArrivalPattern::single(U0F32::from_num(0.5)),
+    )
+    .unwrap();
+    let mut sc = Scenario::simple(T0, 10.0, 1e-3, 0.5, 37);
+    sc.events = vec![Event::FreqStep {
+        at_ps: sc.start_ps + 0.05e12,
+        ppm: 30.0,
+    }];
+    let (o, stream) = drive(&mut clk, sc.clone(), 0.15, false);
+    let s = clk.acquire_stats();
+    eprintln!("+30 ppm step: states {:?}, acquisition {s:?}", o.states);
+    assert_eq!(clk.state(), LockState::Locked);
+    assert!(s.search_failed >= NARROW_ATTEMPTS);
+    assert!(frequency_error(&clk, &stream, sc.start_ps + 0.15e12).abs() < 5e-8);
+}
+
+#[test]
 fn delay_calibration_finds_channel_skews() {
     let mut clk = Clk::new(
         config(500, 100_000),
