@@ -1,6 +1,7 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
 use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter};
+use crate::clocks::{self, ClockMode, HostClock};
 use crate::csv_io;
 use crate::plots;
 use crate::replay::{Session, TraceRequest, TruthTag};
@@ -9,7 +10,7 @@ use crate::sim::{self, SimTransmitter, Simulator};
 use crate::summary::{summarize, Summary};
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressStyle};
-use slotwise::{FixedClock, OverflowPolicy, ReceiverConfig, UnwrapConfig};
+use slotwise::{OverflowPolicy, ReceiverConfig, UnwrapConfig};
 use std::fs::File;
 use std::io::{BufReader, BufWriter, IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -72,8 +73,22 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
     Inspect(InspectArgs),
 }
 
+/// How the receiver gets its clock.
+#[derive(Args, Debug, Clone)]
+pub struct ClockArgs {
+    /// `recovered`: find period and phase from the detections (no clock cable);
+    /// `reference`: use the scenario's true clock, as a link with a distributed reference would.
+    #[arg(long, value_enum, default_value_t = ClockMode::Reference)]
+    pub clock: ClockMode,
+    /// Prior on the transmitter's period for recovery: nominal ± this many ppm (1..=1000).
+    #[arg(long, default_value_t = 500)]
+    pub prior_ppm: u32,
+}
+
 #[derive(Args, Debug)]
 pub struct DemoArgs {
+    #[command(flatten)]
+    pub clock: ClockArgs,
     /// Output folder for the capture, summary.json and plots.
     #[arg(long, default_value = "out/demo")]
     pub out: PathBuf,
@@ -102,6 +117,8 @@ pub struct SimulateArgs {
 
 #[derive(Args, Debug)]
 pub struct ReplayArgs {
+    #[command(flatten)]
+    pub clock: ClockArgs,
     /// Capture file, or a CSV file (`.csv`) of `t_ps,channel` lines.
     pub capture: PathBuf,
     /// Scenario describing the link (default: the one stored in the capture header).
@@ -158,8 +175,11 @@ fn load_scenario(path: Option<&Path>, duration_s: Option<f64>) -> Result<Scenari
     Ok(s)
 }
 
-/// The receiver configuration the scenario's optics imply, with the clock given by configuration.
-pub fn receiver_setup(s: &Scenario) -> Result<(ReceiverConfig, FixedClock), AnyErr> {
+/// The receiver configuration the scenario's optics imply, with the chosen clock.
+pub fn receiver_setup(
+    s: &Scenario,
+    clock: &ClockArgs,
+) -> Result<(ReceiverConfig, HostClock), AnyErr> {
     let (delays, gates) = sim::receiver_gates(s);
     let table = slotwise::GateTable::new(&delays, &gates)?;
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
@@ -172,7 +192,7 @@ pub fn receiver_setup(s: &Scenario) -> Result<(ReceiverConfig, FixedClock), AnyE
         OverflowPolicy::DropNewest,
         s.seed ^ 0x5351_5541_5348,
     )?;
-    let clock = sim::clock_truth(s)?.fixed_clock();
+    let clock = clocks::build(s, cfg.gates(), clock.clock, clock.prior_ppm)?;
     Ok((cfg, clock))
 }
 
@@ -223,7 +243,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     std::fs::create_dir_all(&a.out)?;
     let cap_path = a.out.join("demo.swcap");
     let started = Instant::now();
-    let (cfg, clock) = receiver_setup(&s)?;
+    let (cfg, clock) = receiver_setup(&s, &a.clock)?;
     let truth = sim::clock_truth(&s)?;
     let mut session = Session::new(
         cfg,
@@ -262,13 +282,13 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let summary = summarize(
         &s.name,
         &res,
-        res.rx.clock().period_ps().to_num::<f64>(),
+        res.rx.clock().period_ps().unwrap_or(f64::NAN),
         Some(truth.period_ps),
         Some(model_qber),
         secs,
     );
     // The capture must replay to exactly the same result through the same core.
-    let (cfg2, clock2) = receiver_setup(&s)?;
+    let (cfg2, clock2) = receiver_setup(&s, &a.clock)?;
     let again = replay_capture(&cap_path, cfg2, clock2, &s, false, None, None)?;
     let same = again.accounting == summary.accounting && again.sifted_bits == summary.sifted_bits;
     let json = a.out.join("summary.json");
@@ -359,7 +379,7 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
 pub fn replay_capture(
     path: &Path,
     cfg: ReceiverConfig,
-    clock: FixedClock,
+    clock: HostClock,
     s: &Scenario,
     skip_damaged: bool,
     trace: Option<TraceRequest>,
@@ -417,7 +437,7 @@ pub fn replay_capture(
     let summary = summarize(
         &name,
         &res,
-        res.rx.clock().period_ps().to_num::<f64>(),
+        res.rx.clock().period_ps().unwrap_or(f64::NAN),
         None,
         None,
         started.elapsed().as_secs_f64(),
@@ -459,7 +479,7 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
             Scenario::from_toml_str(meta, &format!("{name} (header metadata)"))?
         }
     };
-    let (cfg, clock) = receiver_setup(&s)?;
+    let (cfg, clock) = receiver_setup(&s, &a.clock)?;
     let trace = match &a.trace {
         Some(p) => {
             let from_ps = (a.trace_from_s * 1e12) as u64;

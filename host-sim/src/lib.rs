@@ -4,6 +4,7 @@
 
 pub mod capture;
 pub mod cli;
+pub mod clocks;
 pub mod csv_io;
 pub mod plots;
 pub mod replay;
