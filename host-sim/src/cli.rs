@@ -249,7 +249,6 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         cfg,
         clock,
         SimTransmitter::new(&s),
-        s.period_ps(),
         bucket_s(&s),
         true,
         None,
@@ -300,6 +299,9 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         cfg.gates(),
         &format!("Fold profile — {}", s.name),
     )?);
+    let tx_clock = sim::TxClock::from_scenario(&s);
+    let truth_period = |t_s: f64| tx_clock.period_at_ps(tx_clock.start_ps() + t_s * 1e12);
+    files.extend(plots::clock_series(&a.out, &res.buckets, Some(&truth_period))?);
     files.extend(plots::qber_and_rate(
         &a.out,
         &res.buckets,
@@ -393,7 +395,6 @@ pub fn replay_capture(
         cfg,
         clock,
         SimTransmitter::new(s),
-        s.period_ps(),
         bucket_s(s),
         false,
         trace,
@@ -450,6 +451,9 @@ pub fn replay_capture(
             cfg.gates(),
             &format!("Fold profile — {name}"),
         )?;
+        let tx_clock = sim::TxClock::from_scenario(s);
+        let truth_period = |t_s: f64| tx_clock.period_at_ps(tx_clock.start_ps() + t_s * 1e12);
+        files.extend(plots::clock_series(dir, &res.buckets, Some(&truth_period))?);
         files.extend(plots::qber_and_rate(
             dir,
             &res.buckets,

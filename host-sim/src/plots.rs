@@ -331,3 +331,80 @@ pub fn qber_and_rate(
     };
     both(dir, "qber_rate", (960, 760), &s)
 }
+
+/// Clock quality over time: RMS distance of gated detections from their gate centres, and the
+/// period error against `truth_period_ps(t_s)` (when known) in parts per billion.
+pub fn clock_series(
+    dir: &Path,
+    buckets: &[Bucket],
+    truth_period_ps: Option<&dyn Fn(f64) -> f64>,
+) -> Result<Vec<PathBuf>, DynErr> {
+    struct Clk<'a> {
+        b: &'a [Bucket],
+        truth: Option<&'a dyn Fn(f64) -> f64>,
+    }
+    impl Plot for Clk<'_> {
+        fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), DynErr>
+        where
+            DB::ErrorType: 'static,
+        {
+            root.fill(&WHITE)?;
+            let (top, bottom) = root.split_vertically(root.dim_in_pixel().1 / 2);
+            let t_end = self.b.last().map(|b| b.t_s).unwrap_or(0.0).max(1e-9) * 1.05;
+            let rms: Vec<(f64, f64)> = self
+                .b
+                .iter()
+                .filter(|b| b.residual.0 > 0)
+                .map(|b| (b.t_s, (b.residual.1 / b.residual.0 as f64).sqrt()))
+                .collect();
+            let rmax = rms.iter().map(|p| p.1).fold(1.0, f64::max) * 1.2;
+            let mut chart = ChartBuilder::on(&top)
+                .caption("Phase residual of gated detections", ("sans-serif", 20))
+                .margin(10)
+                .x_label_area_size(35)
+                .y_label_area_size(55)
+                .build_cartesian_2d(0f64..t_end, 0f64..rmax)?;
+            chart
+                .configure_mesh()
+                .x_desc("time (s)")
+                .y_desc("RMS distance to gate centre (ps)")
+                .draw()?;
+            line(&mut chart, rms, colour(0), "residual rms".into())?;
+            legend(&mut chart, SeriesLabelPosition::UpperRight)?;
+            let err: Vec<(f64, f64)> = self
+                .b
+                .iter()
+                .filter_map(|b| {
+                    let p = b.period_ps?;
+                    let reference = self.truth.map(|f| f(b.t_s)).unwrap_or(p);
+                    Some((b.t_s, (p - reference) / reference * 1e9))
+                })
+                .collect();
+            let emax = err.iter().map(|p| p.1.abs()).fold(1.0, f64::max) * 1.2;
+            let caption = if self.truth.is_some() {
+                "Period error against the scenario's clock"
+            } else {
+                "Period error (no reference known)"
+            };
+            let mut chart = ChartBuilder::on(&bottom)
+                .caption(caption, ("sans-serif", 20))
+                .margin(10)
+                .x_label_area_size(35)
+                .y_label_area_size(55)
+                .build_cartesian_2d(0f64..t_end, -emax..emax)?;
+            chart
+                .configure_mesh()
+                .x_desc("time (s)")
+                .y_desc("period error (ppb)")
+                .draw()?;
+            line(&mut chart, err, colour(1), "estimate − truth".into())?;
+            legend(&mut chart, SeriesLabelPosition::UpperRight)?;
+            Ok(())
+        }
+    }
+    let c = Clk {
+        b: buckets,
+        truth: truth_period_ps,
+    };
+    both(dir, "clock", (960, 700), &c)
+}

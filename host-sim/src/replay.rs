@@ -4,8 +4,9 @@
 
 use serde::Serialize;
 use slotwise::fixed::types::U0F32;
+use crate::clocks::HostClock;
 use slotwise::{
-    Basis, Clock, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, Stage, TdcEvent, Trace,
+    Basis, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, Stage, TdcEvent, Trace,
     Transmitter,
 };
 use std::collections::BTreeMap;
@@ -37,17 +38,22 @@ pub struct TraceRequest {
 /// QBER errors and totals of one time bucket.
 #[derive(Clone, Copy, Debug, Default, Serialize, PartialEq)]
 pub struct Bucket {
-    /// Start of the bucket in seconds on the receiver time base.
+    /// Start of the bucket in seconds since the first detection.
     pub t_s: f64,
     /// Matched-basis tested bits and errors: `[basis] = (errors, total)`.
     pub tested: [(u64, u64); 2],
     /// Detections taken in during the bucket, per channel (first 8 channels).
     pub detections: [u64; 8],
+    /// Gated detections: count and sum of squared distance to their gate's centre (ps²).
+    pub residual: (u64, f64),
+    /// The clock's period at the end of the bucket (ps), when locked.
+    pub period_ps: Option<f64>,
 }
 
 struct Sink {
     bucket_ps: u64,
-    period_ps: f64,
+    /// Time of the latest detection, ps since the first one (sifted bits are binned by it).
+    now_ps: u64,
     buckets: Vec<Bucket>,
     wrong_slot: BTreeMap<u64, bool>,
     misassigned_sifted: u64,
@@ -89,8 +95,7 @@ impl KeySink for Sink {
             self.misassigned_sifted += 1;
         }
         if let Some(tx_bit) = bit.tx_bit {
-            let t_ps = (bit.slot as f64 * self.period_ps) as u64;
-            let b = self.bucket(t_ps);
+            let b = self.bucket(self.now_ps);
             let e = &mut b.tested[bit.basis.index()];
             e.1 += 1;
             if tx_bit != bit.bit {
@@ -112,23 +117,24 @@ impl KeySink for Sink {
 }
 
 /// The firmware core plus the host's bookkeeping around it.
-pub struct Session<C: Clock, T: Transmitter> {
-    rx: Box<Receiver<C, HOST_PENDING>>,
+pub struct Session<T: Transmitter> {
+    rx: Box<Receiver<HostClock, HOST_PENDING>>,
     tx: T,
     sink: Sink,
     fold: Vec<[u64; FOLD_BINS]>,
     trace_range: (u64, u64),
     cfg: ReceiverConfig,
+    first_t_ps: Option<u64>,
+    first_lock: Option<(u64, f64)>,
 }
 
-impl<C: Clock, T: Transmitter> Session<C, T> {
-    /// A session with the given core configuration, clock and transmitter. `period_ps` (nominal)
-    /// converts slots to time for the series; `bucket_s` is the series resolution.
+impl<T: Transmitter> Session<T> {
+    /// A session with the given core configuration, clock and transmitter; `bucket_s` is the
+    /// resolution of the time series (seconds since the first detection).
     pub fn new(
         cfg: ReceiverConfig,
-        clock: C,
+        clock: HostClock,
         tx: T,
-        period_ps: f64,
         bucket_s: f64,
         truth_checked: bool,
         trace: Option<TraceRequest>,
@@ -148,7 +154,7 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
             tx,
             sink: Sink {
                 bucket_ps: (bucket_s * 1e12).max(1.0) as u64,
-                period_ps,
+                now_ps: 0,
                 buckets: Vec::new(),
                 wrong_slot: BTreeMap::new(),
                 misassigned_sifted: 0,
@@ -160,6 +166,8 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
             fold: vec![[0; FOLD_BINS]; usize::from(cfg.gates().channels())],
             trace_range,
             cfg,
+            first_t_ps: None,
+            first_lock: None,
         })
     }
 
@@ -178,10 +186,27 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
     }
 
     fn observe(&mut self, tr: &Trace, truth: Option<TruthTag>) {
+        let period = self.rx.clock().period_ps();
         if let Some(t) = tr.t_ps {
-            let b = self.sink.bucket(t);
+            let first = *self.first_t_ps.get_or_insert(t);
+            let rel = t.saturating_sub(first);
+            self.sink.now_ps = rel;
+            if self.first_lock.is_none() && self.rx.clock().locked() {
+                self.first_lock = Some((self.rx.detections_in(), rel as f64 * 1e-12));
+            }
+            let centre = tr
+                .gate
+                .and_then(|g| self.cfg.gates().gate(g))
+                .map(|g| g.centre().to_num::<f64>());
+            let b = self.sink.bucket(rel);
             if let Some(d) = b.detections.get_mut(usize::from(tr.channel)) {
                 *d += 1;
+            }
+            b.period_ps = period;
+            if let (Some(c), Some((_, phase)), Some(p)) = (centre, tr.slot, period) {
+                let r = (phase.to_num::<f64>() - c) * p;
+                b.residual.0 += 1;
+                b.residual.1 += r * r;
             }
         }
         if let (Some((_, phase)), Some(f)) = (tr.slot, self.fold.get_mut(usize::from(tr.channel))) {
@@ -246,7 +271,7 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
     }
 
     /// End of stream: resolve everything and hand back the results.
-    pub fn finish(mut self) -> std::io::Result<SessionResult<C, T>> {
+    pub fn finish(mut self) -> std::io::Result<SessionResult<T>> {
         self.rx.finish(&mut self.tx, &mut self.sink);
         let rest: Vec<u64> = self.sink.trace_pending.keys().copied().collect();
         for s in rest {
@@ -263,6 +288,7 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
             tx: self.tx,
             buckets: self.sink.buckets,
             fold: self.fold,
+            first_lock: self.first_lock,
             misassigned_sifted: if self.sink.truth_checked {
                 Some(self.sink.misassigned_sifted)
             } else {
@@ -272,15 +298,17 @@ impl<C: Clock, T: Transmitter> Session<C, T> {
     }
 
     /// The core, for progress reports.
-    pub fn receiver(&self) -> &Receiver<C, HOST_PENDING> {
+    pub fn receiver(&self) -> &Receiver<HostClock, HOST_PENDING> {
         &self.rx
     }
 }
 
 /// Everything a finished session produced.
-pub struct SessionResult<C: Clock, T: Transmitter> {
+pub struct SessionResult<T: Transmitter> {
     /// The core in its final state (accounting, tallies, clock).
-    pub rx: Box<Receiver<C, HOST_PENDING>>,
+    pub rx: Box<Receiver<HostClock, HOST_PENDING>>,
+    /// Detections taken in, and seconds since the first one, when the clock first locked.
+    pub first_lock: Option<(u64, f64)>,
     /// The transmitter, for its own counters.
     pub tx: T,
     /// QBER and rate series.

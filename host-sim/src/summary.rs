@@ -4,7 +4,8 @@
 use crate::replay::SessionResult;
 use serde::Serialize;
 use slotwise::gates::MAX_INTENSITIES;
-use slotwise::{Basis, Clock, Tally, Transmitter};
+use crate::clocks::LockReport;
+use slotwise::{Basis, Tally, Transmitter};
 use std::collections::BTreeMap;
 
 /// QBER of one basis with its counts.
@@ -80,6 +81,10 @@ pub struct Summary {
     pub qber: Qber,
     /// The slot period.
     pub period_ps: PeriodPs,
+    /// Clock lock figures.
+    pub lock: LockReport,
+    /// RMS distance of gated detections from their gate's centre (ps), over the whole run.
+    pub phase_residual_rms_ps: Option<f64>,
     /// Truth, for simulated runs.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub truth: Option<Truth>,
@@ -90,9 +95,9 @@ pub struct Summary {
 }
 
 /// Build the summary of a finished session.
-pub fn summarize<C: Clock, T: Transmitter>(
+pub fn summarize<T: Transmitter>(
     name: &str,
-    res: &SessionResult<C, T>,
+    res: &SessionResult<T>,
     period_estimate_ps: f64,
     truth_period_ps: Option<f64>,
     truth_qber: Option<(f64, f64)>,
@@ -166,6 +171,25 @@ pub fn summarize<C: Clock, T: Transmitter>(
             estimate: period_estimate_ps,
             truth: truth_period_ps,
         },
+        lock: {
+            let (losses, relocks, bridged, state) = rx.clock().counters();
+            LockReport {
+                acquired: res.first_lock.is_some(),
+                after_detections: res.first_lock.map(|l| l.0),
+                after_s: res.first_lock.map(|l| l.1),
+                losses,
+                relocks,
+                bridged,
+                state,
+            }
+        },
+        phase_residual_rms_ps: {
+            let (n, ss) = res
+                .buckets
+                .iter()
+                .fold((0u64, 0.0), |(n, s), b| (n + b.residual.0, s + b.residual.1));
+            (n > 0).then(|| (ss / n as f64).sqrt())
+        },
         truth: truth_qber.map(|(qz, qx)| Truth {
             qber_z: qz,
             qber_x: qx,
@@ -227,6 +251,23 @@ impl std::fmt::Display for Summary {
             write!(f, "   truth {t:.6} ps")?;
         }
         writeln!(f)?;
+        let l = &self.lock;
+        let residual = self
+            .phase_residual_rms_ps
+            .map(|r| format!("{r:.1} ps"))
+            .unwrap_or_else(|| "n/a".into());
+        match l.after_detections {
+            Some(n) => writeln!(
+                f,
+                "clock          {} after {n} detections ({:.4} s); {} losses, {} relocks ({} bridged); gate residual rms {residual}",
+                l.state,
+                l.after_s.unwrap_or(0.0),
+                l.losses,
+                l.relocks,
+                l.bridged,
+            )?,
+            None => writeln!(f, "clock          never locked ({})", l.state)?,
+        }
         if let Some(t) = truth {
             writeln!(
                 f,
