@@ -18,6 +18,8 @@
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
 //! 5. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
 //! 6. [`accounting`] — every detection ends in exactly one counter.
+//! 7. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//!    COBS-stuffed records for the post-processing host.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
 //!
@@ -41,6 +43,7 @@
 
 pub mod accounting;
 pub mod clock;
+pub mod frames;
 pub mod gates;
 mod log;
 pub mod receiver;
@@ -51,6 +54,7 @@ pub mod timestamps;
 pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
 pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
 pub use fixed;
+pub use frames::{FrameOut, FrameSink};
 pub use gates::{Basis, Gate, GateTable, Lookup};
 pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
 pub use sift::{
