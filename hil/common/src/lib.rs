@@ -8,7 +8,7 @@
 //!   SPI / UART / USB streams (any `embedded-io` streams will do);
 //! - [`run`]: the loop itself, the replaying transmitter of the firmware and the recording
 //!   transmitter of the host.
-#![no_std]
+#![cfg_attr(not(test), no_std)]
 #![cfg_attr(
     not(test),
     deny(
@@ -34,3 +34,6 @@ pub use transport::{
     AnswerRecord, AnswerSource, EventSource, IoAnswers, IoEvents, IoFrames, IoTransport,
     StreamError, Transport,
 };
+
+#[cfg(test)]
+mod tests;

@@ -199,7 +199,11 @@ impl Setup {
 
     /// Write the setup file into `out`; returns its length in bytes.
     pub fn encode(&self, out: &mut [u8]) -> Result<usize, SetupError> {
-        let mut w = Writer { out, at: 0, ok: true };
+        let mut w = Writer {
+            out,
+            at: 0,
+            ok: true,
+        };
         w.put(&MAGIC);
         w.put(&[SETUP_VERSION, self.tdc.counter_bits()]);
         w.put(&self.tdc.resolution_ps().to_le_bytes());

@@ -24,7 +24,10 @@ pub const NOT_REVEALED: u8 = 0xFF;
 /// One event as 9 record bytes.
 pub fn encode_event(ev: &TdcEvent) -> [u8; EVENT_LEN] {
     let mut b = [0u8; EVENT_LEN];
-    for (d, s) in b.iter_mut().zip(ev.count.to_le_bytes().iter().chain([&ev.channel])) {
+    for (d, s) in b
+        .iter_mut()
+        .zip(ev.count.to_le_bytes().iter().chain([&ev.channel]))
+    {
         *d = *s;
     }
     b
@@ -84,7 +87,10 @@ impl AnswerRecord {
     pub fn encode(&self) -> [u8; ANSWER_LEN] {
         let mut b = [0u8; ANSWER_LEN];
         let tail = [self.basis, self.intensity, self.bit];
-        for (d, s) in b.iter_mut().zip(self.slot.to_le_bytes().iter().chain(&tail)) {
+        for (d, s) in b
+            .iter_mut()
+            .zip(self.slot.to_le_bytes().iter().chain(&tail))
+        {
             *d = *s;
         }
         b
@@ -185,7 +191,7 @@ impl<R: Read, const B: usize> RecordReader<R, B> {
     }
 
     /// The next record of `N` bytes; `Ok(None)` at a clean end of stream.
-    pub fn next<const N: usize>(&mut self) -> Result<Option<[u8; N]>, StreamError> {
+    pub fn record<const N: usize>(&mut self) -> Result<Option<[u8; N]>, StreamError> {
         const { assert!(N <= B, "record larger than the buffer") };
         while self.end - self.start < N && !self.eof {
             self.buf.copy_within(self.start..self.end, 0);
@@ -233,7 +239,7 @@ impl<R: Read> EventSource for IoEvents<R> {
     fn read_events(&mut self, buf: &mut [TdcEvent]) -> Result<usize, StreamError> {
         let mut n = 0;
         for slot in buf.iter_mut() {
-            match self.0.next::<EVENT_LEN>()? {
+            match self.0.record::<EVENT_LEN>()? {
                 Some(rec) => *slot = decode_event(&rec),
                 None => break,
             }
@@ -256,7 +262,10 @@ impl<R: Read> IoAnswers<R> {
 impl<R: Read> AnswerSource for IoAnswers<R> {
     type Error = StreamError;
     fn next_answer(&mut self) -> Result<Option<AnswerRecord>, StreamError> {
-        Ok(self.0.next::<ANSWER_LEN>()?.map(|b| AnswerRecord::decode(&b)))
+        Ok(self
+            .0
+            .record::<ANSWER_LEN>()?
+            .map(|b| AnswerRecord::decode(&b)))
     }
 }
 

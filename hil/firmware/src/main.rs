@@ -118,12 +118,11 @@ fn run() -> Result<(), i32> {
     meter.total = 0;
 
     log::info!("running");
-    let totals = slotwise_hil::run(&mut rx, &mut events, &mut tx, &mut out, &mut meter).map_err(
-        |e| {
+    let totals =
+        slotwise_hil::run(&mut rx, &mut events, &mut tx, &mut out, &mut meter).map_err(|e| {
             log::error!("event stream: {}", e);
             exit::IO
-        },
-    )?;
+        })?;
     out.sink_mut().flush();
     let unused = tx.drain_unused();
     let replay = *tx.stats();
@@ -143,7 +142,10 @@ fn run() -> Result<(), i32> {
         ("meter_overhead_counts", meter_overhead),
         ("calib_instructions", calib_instructions),
         ("calib_counts", calib_counts),
-        ("receiver_bytes", core::mem::size_of::<BoardReceiver>() as u64),
+        (
+            "receiver_bytes",
+            core::mem::size_of::<BoardReceiver>() as u64,
+        ),
         (
             "frame_out_bytes",
             core::mem::size_of::<BoardFrameOut<IoFrames<ShFile>>>() as u64,

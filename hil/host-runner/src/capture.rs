@@ -79,15 +79,16 @@ pub fn host_replay(capture: &mut Capture) -> io::Result<HostRun> {
     let clock = capture.setup.clock().map_err(invalid)?;
     let mut rx = Box::new(BoardReceiver::new(cfg, clock));
     let mut answers = Vec::new();
-    let mut tx = RecordingTx::new(&mut capture.answer, |r| answers.push(r));
     let mut out = Box::new(BoardFrameOut::new(VecFrames::default()));
-    let mut events = SliceEvents {
-        events: &capture.events,
-        at: 0,
-    };
-    let Ok(_) = run(&mut rx, &mut events, &mut tx, &mut out, &mut NoMeter);
+    {
+        let mut tx = RecordingTx::new(&mut capture.answer, |r| answers.push(r));
+        let mut events = SliceEvents {
+            events: &capture.events,
+            at: 0,
+        };
+        let Ok(_) = run(&mut rx, &mut events, &mut tx, &mut out, &mut NoMeter);
+    }
     let summary = Summary::of(&rx);
-    drop(tx);
     let out = *out;
     Ok(HostRun {
         frames: out.into_sink(),

@@ -68,6 +68,47 @@ enum Cmd {
         #[arg(long)]
         qemu_exit: i32,
     },
+    /// Read `compare` JSON lines on stdin and print each budget as met or missed.
+    Budgets,
+}
+
+/// Budgets of the board build (thumbv7em, default capture): name, JSON field, limit.
+const BUDGETS: [(&str, &str, f64); 3] = [
+    ("core state RAM, bytes", "ram_bytes", 16.0 * 1024.0),
+    ("flash image, bytes", "flash_bytes", 64.0 * 1024.0),
+    (
+        "instructions per detection",
+        "instructions_per_detection",
+        150.0,
+    ),
+];
+
+fn budgets() -> Result<bool, String> {
+    for line in std::io::stdin().lines() {
+        let line = line.map_err(|e| format!("stdin: {e}"))?;
+        let Ok(r) = serde_json::from_str::<Value>(&line) else {
+            continue;
+        };
+        let (Some(target), Some(capture)) = (r["target"].as_str(), r["capture"].as_str()) else {
+            continue;
+        };
+        for (name, field, limit) in BUDGETS {
+            let value = r[field].as_f64();
+            let verdict = match value {
+                Some(v) if v <= limit => "met",
+                Some(_) => "MISSED",
+                None => "not measured",
+            };
+            let shown = value.map_or("-".to_string(), |v| v.to_string());
+            let scope = if target.starts_with("thumbv7em") {
+                "budget"
+            } else {
+                "for reference"
+            };
+            println!("{target} {capture}: {name} {shown} ({scope} {limit}) {verdict}");
+        }
+    }
+    Ok(true)
 }
 
 fn main() -> ExitCode {
@@ -84,6 +125,7 @@ fn main() -> ExitCode {
             elf,
             qemu_exit,
         } => compare(&dir, &target, &capture, &elf, qemu_exit),
+        Cmd::Budgets => budgets(),
     };
     match result {
         Ok(true) => ExitCode::SUCCESS,
@@ -111,6 +153,16 @@ fn prepare(source: CaptureSource, slots: u64, out: &Path) -> Result<bool, String
         "frames": host.frames.frames,
         "accounting": acc,
         "answers": host.answers.len(),
+        "answer_errors": {
+            "unmatched": s.answer_errors.unmatched,
+            "malformed": s.answer_errors.malformed,
+        },
+        "multi_click_events": {
+            "sifted": s.multi.sifted,
+            "basis_mismatch": s.multi.basis_mismatch,
+            "unanswered": s.multi.unanswered,
+            "cross_basis": s.multi.cross_basis,
+        },
     });
     fs::write(out.join("host-summary.json"), format!("{line}\n"))
         .map_err(|e| format!("{}: {e}", out.display()))?;

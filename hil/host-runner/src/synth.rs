@@ -157,15 +157,19 @@ pub fn capture(variant: Variant, slots: u64) -> Capture {
     let setup = setup();
     let mut rng = Rng(seed.wrapping_mul(0x2545_F491_4F6C_DD1D));
     let period = setup.period_ps.to_bits();
-    let slot_start = |slot: u64| setup.origin_ps + ((u128::from(slot) * u128::from(period)) >> 32) as u64;
+    let slot_start =
+        |slot: u64| setup.origin_ps + ((u128::from(slot) * u128::from(period)) >> 32) as u64;
     let period_ps = setup.period_ps.to_num::<f64>();
     // Jitter: sum of four uniforms with 35 ps RMS in total.
     let jitter = |rng: &mut Rng| -> i64 {
         let u = 35.0 * (3.0f64 / 4.0).sqrt();
-        (0..4).map(|_| (2.0 * rng.unit() - 1.0) * u).sum::<f64>().round() as i64
+        (0..4)
+            .map(|_| (2.0 * rng.unit() - 1.0) * u)
+            .sum::<f64>()
+            .round() as i64
     };
     let mut times: Vec<(u64, u8)> = Vec::new();
-    let mut push = |times: &mut Vec<(u64, u8)>, slot: u64, pos: f64, channel: u8, j: i64| {
+    let push = |times: &mut Vec<(u64, u8)>, slot: u64, pos: f64, channel: u8, j: i64| {
         let delay = if channel == 1 { CH1_DELAY_PS } else { 0 };
         let t = slot_start(slot) as i64 + (pos * period_ps) as i64 + j + delay;
         times.push((t as u64, channel));
@@ -189,7 +193,11 @@ pub fn capture(variant: Variant, slots: u64) -> Capture {
         let mut clicks: Vec<(f64, u8)> = Vec::with_capacity(2);
         if rng.chance(0.9) {
             // Arrival-time detector: Z by arrival bin, X gives a random bin; 1 % misalignment.
-            let mut bin = if s.basis == Basis::Z { s.bit } else { rng.below(2) as u8 };
+            let mut bin = if s.basis == Basis::Z {
+                s.bit
+            } else {
+                rng.below(2) as u8
+            };
             if rng.chance(0.01) {
                 bin ^= 1;
             }
@@ -260,7 +268,7 @@ pub fn capture(variant: Variant, slots: u64) -> Capture {
 fn inject_faults(events: &mut [TdcEvent], times: &[(u64, u8)], rng: &mut Rng) {
     let mut i = 1;
     while i < events.len() {
-        if times[i].0 - times[i - 1].0 < 3_000 && rng.chance(0.5) {
+        if times[i].0 - times[i - 1].0 < 6_000 && rng.chance(0.5) {
             events.swap(i - 1, i);
             i += 2;
         } else if rng.chance(0.001) {
