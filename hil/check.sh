@@ -51,6 +51,7 @@ cargo build --release -p slotwise-hil-firmware --target thumbv7em-none-eabihf --
   --target-dir target/defmt
 HOST_TOOL="$HIL/target/release/hil-host"
 elf() { echo "$HIL/target/$1/release/slotwise-hil-firmware"; }
+profile_elf() { echo "$HIL/target/$1/release/slotwise-hil-profile"; }
 
 failures=0
 step "fault handlers exit with their own code"
@@ -94,6 +95,19 @@ for t in "${TARGETS[@]}"; do
       sed 's/^/    /' "$d/qemu-stderr.txt" >&2
     fi
   done
+done
+
+step "where the instructions go (default capture)"
+for t in "${TARGETS[@]}"; do
+  d="$RUNS/$t-profile"
+  rm -rf "$d" && mkdir -p "$d" && cp "$RUNS/default"/{setup.bin,events.bin} "$d/"
+  full="$(printf '%s\n' "${results[@]}" | grep "\"target\":\"$t\"" | grep '"capture":"default"' |
+    sed -n 's/.*"instructions_per_detection":\([0-9.]*\).*/\1/p')"
+  if ./qemu-run.sh "$(profile_elf "$t")" "$d" >/dev/null 2>&1; then
+    "$HOST_TOOL" profile --dir "$d" --target "$t" ${full:+--full "$full"}
+  else
+    echo "$t: profile run failed" >&2; failures=$((failures + 1))
+  fi
 done
 
 step "defmt logs"

@@ -4,7 +4,9 @@
 //! is QEMU's working directory), pushes every event through the `slotwise` core with the shared
 //! [`slotwise_hil::run`] loop, writes the frames to `frames-fw.bin`, and its own measurements
 //! (instruction counter, memory, replay counters) to `report-fw.txt`. The exit code says how it
-//! ended: see [`exit`].
+//! ended: see [`exit`]. With `fault.trigger` in the run directory it checks the fault exit
+//! instead. The stage-by-stage profile is a binary of its own (`slotwise-hil-profile`), so that
+//! this one is exactly the board build that is measured.
 #![no_std]
 #![no_main]
 
@@ -27,21 +29,7 @@ use slotwise_hil::{
 #[cfg(feature = "defmt")]
 use defmt_semihosting as _;
 
-/// Exit codes of the firmware (QEMU passes them on).
-pub mod exit {
-    /// The run completed; compare the frames.
-    pub const OK: i32 = 0;
-    /// `setup.bin` missing or refused.
-    pub const SETUP: i32 = 2;
-    /// An input or output file could not be opened, or an input stream broke.
-    pub const IO: i32 = 3;
-    /// The report could not be written.
-    pub const REPORT: i32 = 4;
-    /// A panic (never expected: the core has no panicking paths).
-    pub const PANIC: i32 = 70;
-    /// A CPU fault or unexpected exception.
-    pub const FAULT: i32 = 71;
-}
+mod exit;
 
 /// Instruction meter: the architecture's counter around the receiver calls, with time spent in
 /// semihosting I/O subtracted.

@@ -70,6 +70,18 @@ enum Cmd {
     },
     /// Read `compare` JSON lines on stdin and print each budget as met or missed.
     Budgets,
+    /// Turn the firmware's stage-by-stage profile into one JSON line (instructions per event).
+    Profile {
+        /// Run directory of a profile run.
+        #[arg(long)]
+        dir: PathBuf,
+        /// Target triple of the firmware.
+        #[arg(long)]
+        target: String,
+        /// The full run's instructions per detection (from `compare`), for the replay share.
+        #[arg(long)]
+        full: Option<f64>,
+    },
 }
 
 /// Budgets of the board build (thumbv7em, default capture): name, JSON field, limit.
@@ -126,6 +138,7 @@ fn main() -> ExitCode {
             qemu_exit,
         } => compare(&dir, &target, &capture, &elf, qemu_exit),
         Cmd::Budgets => budgets(),
+        Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
     };
     match result {
         Ok(true) => ExitCode::SUCCESS,
@@ -216,6 +229,41 @@ fn flash_image_bytes(elf: &Path) -> Result<u64, String> {
         .filter(|&o| u32_at(o) == 1)
         .map(|o| u64::from(u32_at(o + 16)))
         .sum())
+}
+
+fn profile(dir: &Path, target: &str, full: Option<f64>) -> Result<bool, String> {
+    let p = read_report(&dir.join("profile-fw.txt"))?;
+    let n = |k: &str| -> Result<f64, String> {
+        let v = p
+            .get(k)
+            .ok_or_else(|| format!("profile-fw.txt: field {k} missing"))?;
+        v.parse::<f64>()
+            .map_err(|e| format!("profile-fw.txt: field {k}: {e}"))
+    };
+    // Instructions per counter unit, from the firmware's loop of known length.
+    let scale = n("calib_instructions")? / n("calib_counts")?.max(1.0);
+    let events = n("events")?;
+    let per =
+        |k: &str| -> Result<f64, String> { Ok((n(k)? * scale / events * 10.0).round() / 10.0) };
+    let receiver = per("receiver_echo_tx_null_sink_counts")?;
+    let with_frames = per("receiver_echo_tx_frames_counts")?;
+    let stages =
+        per("unwrap_counts")? + per("delay_and_locate_counts")? + per("gate_lookup_counts")?;
+    let line = json!({
+        "target": target,
+        "profile": "instructions per event, default capture",
+        "unwrap": per("unwrap_counts")?,
+        "delay_and_locate": per("delay_and_locate_counts")?,
+        "gate_lookup": per("gate_lookup_counts")?,
+        "slots_sifting_tally": ((receiver - stages) * 10.0).round() / 10.0,
+        "receiver_total": receiver,
+        "frame_out": ((with_frames - receiver) * 10.0).round() / 10.0,
+        "frame_out_per_sifted_bit": (n("frame_out_sifted_only_counts")? * scale
+            / n("sifted_bits_echo")? * 10.0).round() / 10.0,
+        "answer_replay": full.map(|f| ((f - with_frames) * 10.0).round() / 10.0),
+    });
+    println!("{line}");
+    Ok(true)
 }
 
 fn compare(
