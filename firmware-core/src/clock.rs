@@ -37,6 +37,13 @@ pub enum Located {
 pub trait Clock {
     /// Locate a delay-corrected detection time `t_ps` on the slot grid.
     fn locate(&mut self, t_ps: u64) -> Located;
+
+    /// Locate a detection of a known `channel`: a clock recovered from the detections uses that
+    /// channel's expected arrival positions. The default ignores the channel.
+    fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
+        let _ = channel;
+        self.locate(t_ps)
+    }
 }
 
 /// Why a clock description was refused.

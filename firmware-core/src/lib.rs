@@ -10,15 +10,23 @@
 //!
 //! 1. [`timestamps`] — TDC counter values (any width from 32 to 64 bits, wrapping) become a
 //!    monotonic picosecond time base; slightly reordered neighbours are handled.
-//! 2. [`clock`] — the slot grid: period in Q32.32 ps and a phase origin map each delay-corrected
-//!    time to a slot index and a position in the slot (Q0.32 fraction), division-free.
-//! 3. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
+//! 2. [`acquire`] — clock acquisition from a cold start: a staged epoch-folding search over the
+//!    period prior with the Z²_n statistic in fixed point, a Bonferroni threshold (false lock
+//!    below 1e-9 per attempt), a least-squares refinement and an independent confirmation.
+//! 3. [`track`] — an event-driven type-II PLL follows phase and period through drift, detects loss
+//!    of lock (blackout, phase jump, frequency step) and calibrates per-channel delays.
+//! 4. [`clock`] — the slot grid: period in Q32.32 ps and a phase origin map each delay-corrected
+//!    time to a slot index and a position in the slot (Q0.32 fraction), division-free. The grid
+//!    comes from configuration ([`FixedClock`]) or from the detections themselves
+//!    ([`recovered::RecoveredClock`]: acquisition and tracking with lock states and numbering
+//!    epochs).
+//! 5. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
 //!    express time-bin and polarization receivers alike.
-//! 4. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
+//! 6. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
-//! 5. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
-//! 6. [`accounting`] — every detection ends in exactly one counter.
-//! 7. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//! 7. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
+//! 8. [`accounting`] — every detection ends in exactly one counter.
+//! 9. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
 //!    COBS-stuffed records for the post-processing host.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
@@ -42,23 +50,30 @@
 #![deny(missing_docs)]
 
 pub mod accounting;
+pub mod acquire;
 pub mod clock;
 pub mod frames;
 pub mod gates;
 mod log;
 pub mod receiver;
+pub mod recovered;
 pub mod sift;
 pub mod tally;
 pub mod timestamps;
+pub mod track;
 
 pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
+pub use acquire::fold::ArrivalPattern;
+pub use acquire::{AcquireConfig, AcquireParams, AcquiredLock, Acquirer};
 pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
 pub use fixed;
 pub use frames::{FrameOut, FrameSink};
 pub use gates::{Basis, Gate, GateTable, Lookup};
 pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
+pub use recovered::{RecoveredClock, RecoveredConfig};
 pub use sift::{
     Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftedBit, Transmitter,
 };
 pub use tally::Tally;
 pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
+pub use track::{LockState, TrackConfig, TrackParams, Tracker};

@@ -289,7 +289,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             self.accounting.rejected_time += 1;
             return trace;
         };
-        let pos = match self.clock.locate(t) {
+        let pos = match self.clock.locate_on(det.channel, t) {
             Located::At(p) => p,
             Located::BeforeOrigin | Located::NotLocked => {
                 self.accounting.no_clock += 1;

@@ -2,6 +2,12 @@
 //! firmware core, and the reports behind the `slotwise` command.
 #![allow(missing_docs)]
 
+pub mod capture;
+pub mod cli;
+pub mod clocks;
+pub mod csv_io;
 pub mod plots;
 pub mod replay;
+pub mod scenario;
+pub mod sim;
 pub mod summary;

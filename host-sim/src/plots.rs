@@ -11,6 +11,9 @@ use std::sync::OnceLock;
 
 type DynErr = Box<dyn std::error::Error>;
 
+/// A QBER estimate and its 2σ half-width, when the bucket tested anything.
+type QberPoint = Option<(f64, f64)>;
+
 const FONT_PATHS: &[&str] = &[
     "/usr/share/fonts/truetype/dejavu/DejaVuSans.ttf",
     "/usr/share/fonts/TTF/DejaVuSans.ttf",
@@ -49,6 +52,46 @@ const CHANNEL_COLOURS: [RGBColor; 4] = [
 
 fn colour(i: usize) -> RGBColor {
     CHANNEL_COLOURS[i % CHANNEL_COLOURS.len()]
+}
+
+/// Draw one labelled line (2 px, with a legend entry).
+fn line<DB, X, Y>(
+    chart: &mut ChartContext<'_, DB, Cartesian2d<X, Y>>,
+    points: impl IntoIterator<Item = (f64, f64)>,
+    c: RGBColor,
+    label: String,
+) -> Result<(), DynErr>
+where
+    DB: DrawingBackend,
+    DB::ErrorType: 'static,
+    X: Ranged<ValueType = f64>,
+    Y: Ranged<ValueType = f64>,
+{
+    chart
+        .draw_series(LineSeries::new(points, c.stroke_width(2)))?
+        .label(label)
+        .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2)));
+    Ok(())
+}
+
+/// Draw the legend box at `pos`.
+fn legend<'a, DB, X, Y>(
+    chart: &mut ChartContext<'a, DB, Cartesian2d<X, Y>>,
+    pos: SeriesLabelPosition,
+) -> Result<(), DynErr>
+where
+    DB: DrawingBackend + 'a,
+    DB::ErrorType: 'static,
+    X: Ranged<ValueType = f64>,
+    Y: Ranged<ValueType = f64>,
+{
+    chart
+        .configure_series_labels()
+        .background_style(WHITE.mix(0.85))
+        .border_style(BLACK)
+        .position(pos)
+        .draw()?;
+    Ok(())
 }
 
 /// A picture that can be drawn on any backend.
@@ -155,24 +198,16 @@ pub fn fold_profile(
             }
             for (ch, f) in self.fold.iter().enumerate() {
                 let c = colour(ch);
-                chart
-                    .draw_series(LineSeries::new(
-                        f.iter().enumerate().map(|(i, &n)| {
-                            ((i as f64 + 0.5) / FOLD_BINS as f64, (n as f64).max(0.5))
-                        }),
-                        c.stroke_width(2),
-                    ))?
-                    .label(format!("channel {ch}"))
-                    .legend(move |(x, y)| {
-                        PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2))
-                    });
+                line(
+                    &mut chart,
+                    f.iter()
+                        .enumerate()
+                        .map(|(i, &n)| ((i as f64 + 0.5) / FOLD_BINS as f64, (n as f64).max(0.5))),
+                    c,
+                    format!("channel {ch}"),
+                )?;
             }
-            chart
-                .configure_series_labels()
-                .background_style(WHITE.mix(0.85))
-                .border_style(BLACK)
-                .position(SeriesLabelPosition::UpperRight)
-                .draw()?;
+            legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             Ok(())
         }
     }
@@ -199,7 +234,7 @@ pub fn qber_and_rate(
             let (top, bottom) = root.split_vertically(root.dim_in_pixel().1 / 2);
             let t_end = self.b.last().map(|b| b.t_s).unwrap_or(1.0).max(1e-9) * 1.02
                 + self.b.get(1).map(|b| b.t_s).unwrap_or(0.0);
-            let q: Vec<(f64, [Option<(f64, f64)>; 2])> = self
+            let q: Vec<(f64, [QberPoint; 2])> = self
                 .b
                 .iter()
                 .map(|b| {
@@ -244,22 +279,15 @@ pub fn qber_and_rate(
                         )
                     })
                 }))?;
-                chart
-                    .draw_series(LineSeries::new(
-                        q.iter()
-                            .filter_map(|(t, v)| v[i].map(|(p, _)| (*t, 100.0 * p))),
-                        c.stroke_width(2),
-                    ))?
-                    .label(format!("{name} basis"))
-                    .legend(move |(x, y)| {
-                        PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2))
-                    });
+                line(
+                    &mut chart,
+                    q.iter()
+                        .filter_map(|(t, v)| v[i].map(|(p, _)| (*t, 100.0 * p))),
+                    c,
+                    format!("{name} basis"),
+                )?;
             }
-            chart
-                .configure_series_labels()
-                .background_style(WHITE.mix(0.85))
-                .border_style(BLACK)
-                .draw()?;
+            legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             let dt = self.b.get(1).map(|b| b.t_s).unwrap_or(1.0).max(1e-12);
             let rmax = self
                 .b
@@ -284,24 +312,16 @@ pub fn qber_and_rate(
                 .draw()?;
             for ch in 0..self.channels.min(8) {
                 let c = colour(ch);
-                chart
-                    .draw_series(LineSeries::new(
-                        self.b
-                            .iter()
-                            .map(|b| (b.t_s, b.detections[ch] as f64 / dt / 1e3)),
-                        c.stroke_width(2),
-                    ))?
-                    .label(format!("channel {ch}"))
-                    .legend(move |(x, y)| {
-                        PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2))
-                    });
+                line(
+                    &mut chart,
+                    self.b
+                        .iter()
+                        .map(|b| (b.t_s, b.detections[ch] as f64 / dt / 1e3)),
+                    c,
+                    format!("channel {ch}"),
+                )?;
             }
-            chart
-                .configure_series_labels()
-                .background_style(WHITE.mix(0.85))
-                .border_style(BLACK)
-                .position(SeriesLabelPosition::LowerRight)
-                .draw()?;
+            legend(&mut chart, SeriesLabelPosition::LowerRight)?;
             Ok(())
         }
     }

@@ -206,26 +206,22 @@ impl std::fmt::Display for Summary {
         }
         writeln!(f, "sifted bits    {}", self.sifted_bits)?;
         let truth = self.truth.as_ref();
-        writeln!(
-            f,
-            "QBER Z         {:<12} ({} of {} tested){}",
-            pct(self.qber.z.value),
-            self.qber.z.errors,
-            self.qber.z.tested,
-            truth
-                .map(|t| format!("   model {:.3} %", 100.0 * t.qber_z))
-                .unwrap_or_default()
-        )?;
-        writeln!(
-            f,
-            "QBER X         {:<12} ({} of {} tested){}",
-            pct(self.qber.x.value),
-            self.qber.x.errors,
-            self.qber.x.tested,
-            truth
-                .map(|t| format!("   model {:.3} %", 100.0 * t.qber_x))
-                .unwrap_or_default()
-        )?;
+        let rows = [
+            ("Z", &self.qber.z, truth.map(|t| t.qber_z)),
+            ("X", &self.qber.x, truth.map(|t| t.qber_x)),
+        ];
+        for (name, q, model) in rows {
+            let model = model
+                .map(|m| format!("   model {:.3} %", 100.0 * m))
+                .unwrap_or_default();
+            writeln!(
+                f,
+                "QBER {name}         {:<12} ({} of {} tested){model}",
+                pct(q.value),
+                q.errors,
+                q.tested
+            )?;
+        }
         write!(f, "period         {:.6} ps", self.period_ps.estimate)?;
         if let Some(t) = self.period_ps.truth {
             write!(f, "   truth {t:.6} ps")?;

@@ -1,0 +1,749 @@
+//! Stage 2a — acquisition: find the transmitter's period and slot phase from detections alone.
+//!
+//! A cold receiver knows the nominal period T0 and a prior (±`prior_ppm`, up to ±1000 ppm); most
+//! slots are empty (detection probability 1e-2 … 1e-6 per slot) and up to half the detections are
+//! noise. Epoch folding finds the period: at the right frequency the detections pile up at their
+//! expected positions in the slot, elsewhere they spread out. The statistic is Z²_n (Leahy et al.,
+//! ApJ 266, 160, 1983; Buccheri et al., A&A 128, 245, 1983), computed in fixed point by
+//! [`fold`]; n ≥ 2 keeps time-bin channels (two or three peaks per slot) detectable.
+//!
+//! ## Staged search
+//! The buffer holds `F = first_stage·2^stages` detections spanning `span` ps. The search runs on a
+//! lattice in frequency ν (cycles per ps, Q0.64) whose final step is `2^64 / (2·n·span)`: a half-step
+//! error then drifts harmonic n by at most 1/4 turn across the span (power loss ≤ 19 %, sinc²);
+//! for n = 2 this is a period step of T/(4·W) for a window of W slots. Stage s (0..=stages) uses
+//! the first `first_stage·2^s` detections (about span/2^(stages−s)) on the lattice thinned by
+//! 2^(stages−s), so every stage is matched to its window:
+//! - stage 0 scans the whole prior and keeps the K best local maxima;
+//! - each later stage evaluates each candidate and its ±1, ±2 neighbours on the twice finer lattice
+//!   with the twice longer window, keeps the best, and drops candidates within two steps of a
+//!   better one.
+//!
+//! A channel whose pattern is symmetric (time-bin Z: peaks half a slot apart) cannot tell the
+//! two half-slot offsets apart by timing; another channel's asymmetric pattern (the X peaks)
+//! resolves it, otherwise the later stages see the swap (bits inverted).
+//!
+//! The best final candidate must pass the threshold of [`thresholds`] for M = the number of final
+//! lattice points in the prior (Bonferroni over every point any stage could have visited): a false
+//! lock per attempt below 1e-9. Its offset comes from the matched fold ([`fold::Fold::best_offset`]);
+//! then a line fit of residual against slot index (the least-squares period estimator, whose
+//! variance reaches the Cramér–Rao bound σ²/Σ(k_i − k̄)², Kay, Fundamentals of Statistical Signal
+//! Processing I, 1993) refines period and phase twice over the detections within ±2w, then ±w of
+//! their nearest expected position (w = `fit_half_window`).
+//!
+//! ## Confirmation
+//! The next `confirm` detections are an independent batch: Z²_n at the found frequency must pass
+//! the single-trial threshold (false alarm 1e-6), and the matched fold at the predicted offset
+//! must reach half its maximum (the phase carries over). A last fit over both batches gives the
+//! period and the slot start nearest below the latest detection.
+//!
+//! ## Work bound
+//! [`Acquirer::push`] stores one detection (during confirmation it also folds it: n harmonics).
+//! [`Acquirer::work`] spends at most `budget` units; one unit is one detection at one trial
+//! frequency (one multiply for the phase, n rotations and table lookups) or one detection of a fit
+//! pass (one residual per expected position). Between stages it sorts K candidates (K²
+//! comparisons); twice per attempt it searches the best offset (1024·n lookups). An attempt
+//! costs about (G/2^stages + 1)·first_stage + 10·K·F + 3·F + confirm units, G the final lattice
+//! size. Detections that arrive while the search runs are not stored (counted in
+//! [`AcquireStats::dropped_busy`]).
+
+mod config;
+pub mod fold;
+#[cfg(test)]
+pub(crate) mod synth;
+pub mod thresholds;
+
+pub use config::{AcquireConfig, AcquireConfigError, AcquireParams};
+use fixed::types::{U0F32, U32F32};
+use fold::{ArrivalPattern, Fold};
+
+/// A confirmed acquisition: the slot grid and the evidence for it.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct AcquiredLock {
+    /// Period estimate in ps (Q32.32).
+    pub period_ps: U32F32,
+    /// Frequency in cycles per ps (Q0.64): the exact value behind `period_ps`.
+    pub nu_q64: u64,
+    /// Time (ps) at which a slot starts, at or just below `anchor_t_ps`.
+    pub origin_ps: u64,
+    /// Latest detection time used (ps).
+    pub anchor_t_ps: u64,
+    /// Position inside the slot at `anchor_t_ps`, Q0.64 slot fraction.
+    pub anchor_phase_q64: u64,
+    /// Z²_n of the winning frequency in the search.
+    pub z2_search: U32F32,
+    /// Search threshold it passed.
+    pub z2_threshold: U32F32,
+    /// Z²_n of the confirmation batch at the found frequency.
+    pub z2_confirm: U32F32,
+    /// Final lattice points in the prior (the Bonferroni trial count).
+    pub trials: u64,
+    /// Detections in the final fit.
+    pub detections: u32,
+    /// Fraction of those within the fit window of an expected position (Q0.32).
+    pub in_window: U0F32,
+    /// The same fraction expected for uniform noise (Q0.32).
+    pub null_window: U0F32,
+    /// Mean squared residual of in-window detections, slot² (Q0.64).
+    pub mean_r2_q64: u64,
+}
+
+/// Acquisition counters.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct AcquireStats {
+    /// Searches started.
+    pub attempts: u32,
+    /// Searches whose best candidate stayed below the threshold.
+    pub search_failed: u32,
+    /// Searches that passed but failed confirmation.
+    pub confirm_failed: u32,
+    /// Fits that could not be solved (degenerate or overflowing sums).
+    pub fit_failed: u32,
+    /// Detections not stored because the search was busy.
+    pub dropped_busy: u64,
+}
+
+const NO_CHANNEL: u8 = u8::MAX;
+
+#[derive(Clone, Copy, Debug)]
+struct Cand<const H: usize> {
+    j: u64,
+    z: U32F32,
+    fold: Fold<H>,
+}
+
+#[derive(Clone, Copy, Debug)]
+struct Eval<const H: usize> {
+    j: u64,
+    nu: u64,
+    i: usize,
+    end: usize,
+    fold: Fold<H>,
+}
+
+/// Sums of a straight-line fit y = c0 + c1·x (x slots, y Q0.32 slot fractions).
+#[derive(Clone, Copy, Debug, Default)]
+struct LsSums {
+    n: i128,
+    sx: i128,
+    sxx: i128,
+    sy: i128,
+    sxy: i128,
+    syy: u128,
+    n_all: u64,
+    null_q32: u64,
+}
+
+impl LsSums {
+    fn add(&mut self, x: i128, y: i64) {
+        let y = i128::from(y);
+        self.n += 1;
+        self.sx = self.sx.saturating_add(x);
+        self.sxx = self.sxx.saturating_add(x.saturating_mul(x));
+        self.sy += y;
+        self.sxy = self.sxy.saturating_add(x.saturating_mul(y));
+        self.syy += y.unsigned_abs() * y.unsigned_abs();
+    }
+
+    /// Intercept at x = 0 (Q0.64 slots) and slope (Q0.64 per slot).
+    fn solve(&self) -> Option<(i128, i128)> {
+        if self.n < 3 {
+            return None;
+        }
+        let sxx = self
+            .n
+            .checked_mul(self.sxx)?
+            .checked_sub(self.sx.checked_mul(self.sx)?)?;
+        let sxy = self
+            .n
+            .checked_mul(self.sxy)?
+            .checked_sub(self.sx.checked_mul(self.sy)?)?;
+        if sxx <= 0 {
+            return None;
+        }
+        let c1 = sxy.checked_mul(1 << 32)? / sxx;
+        let c0 = (self.sy.checked_mul(1 << 32)?).checked_sub(c1.checked_mul(self.sx)?)? / self.n;
+        Some((c0, c1))
+    }
+}
+
+#[derive(Clone, Copy, Debug)]
+enum Step<const H: usize> {
+    Collect,
+    Scan {
+        eval: Eval<H>,
+        prev: Option<Cand<H>>,
+        prev_z: Option<U32F32>,
+    },
+    Refine {
+        stage: u8,
+        cand: usize,
+        off: i64,
+        eval: Eval<H>,
+        best: Option<Cand<H>>,
+    },
+    Fit {
+        pass: u8,
+        i: usize,
+        sums: LsSums,
+        xc: i128,
+    },
+    Confirm,
+    Done,
+    Idle,
+}
+
+/// Cold and warm acquisition with a buffer of `N` detections, `K` candidates and Z²_`H`.
+#[derive(Clone, Debug)]
+pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
+    cfg: AcquireConfig,
+    times: [u64; N],
+    chans: [u8; N],
+    len: usize,
+    t0: u64,
+    t_max: u64,
+    prior_centre: u64,
+    prior_half: u64,
+    lo: u64,
+    step_nu: u64,
+    points: u64,
+    cands: [Cand<H>; K],
+    ncand: usize,
+    step: Step<H>,
+    nu: u64,
+    phi0: i128,
+    confirm: Fold<H>,
+    n_confirm: u32,
+    z2_search: U32F32,
+    z2_threshold: U32F32,
+    z2_confirm: U32F32,
+    lock: Option<AcquiredLock>,
+    stats: AcquireStats,
+}
+
+impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
+    /// An acquirer with the cold prior, collecting.
+    pub fn new(cfg: AcquireConfig) -> Result<Self, AcquireConfigError> {
+        const { assert!(K >= 1 && H >= 1 && H <= fold::MAX_HARMONICS) };
+        let need = cfg.search_len() + u64::from(cfg.p.confirm);
+        if need > N as u64 {
+            return Err(AcquireConfigError::Capacity(need));
+        }
+        let empty = Cand {
+            j: 0,
+            z: U32F32::ZERO,
+            fold: Fold::new(),
+        };
+        let mut a = Self {
+            cfg,
+            times: [0; N],
+            chans: [NO_CHANNEL; N],
+            len: 0,
+            t0: 0,
+            t_max: 0,
+            prior_centre: cfg.nu0,
+            prior_half: 0,
+            lo: 0,
+            step_nu: 1,
+            points: 1,
+            cands: [empty; K],
+            ncand: 0,
+            step: Step::Collect,
+            nu: cfg.nu0,
+            phi0: 0,
+            confirm: Fold::new(),
+            n_confirm: 0,
+            z2_search: U32F32::ZERO,
+            z2_threshold: U32F32::ZERO,
+            z2_confirm: U32F32::ZERO,
+            lock: None,
+            stats: AcquireStats::default(),
+        };
+        a.restart(cfg.nu0, cfg.p.prior_ppm);
+        Ok(a)
+    }
+
+    /// The settings.
+    pub const fn config(&self) -> &AcquireConfig {
+        &self.cfg
+    }
+
+    /// Counters since construction.
+    pub const fn stats(&self) -> &AcquireStats {
+        &self.stats
+    }
+
+    /// Whether the acquirer is filling its buffer for a new search (nothing in progress).
+    pub const fn is_collecting(&self) -> bool {
+        matches!(self.step, Step::Collect) && self.len == 0
+    }
+
+    /// Whether a confirmed lock waits in [`Self::take_lock`].
+    pub const fn has_lock(&self) -> bool {
+        self.lock.is_some()
+    }
+
+    /// Start over around `centre_nu_q64` (cycles per ps, Q0.64) with a ±`prior_ppm` prior.
+    pub fn restart(&mut self, centre_nu_q64: u64, prior_ppm: u32) {
+        self.prior_centre = centre_nu_q64;
+        self.prior_half =
+            (u128::from(centre_nu_q64) * u128::from(prior_ppm.max(1)) / 1_000_000).max(1) as u64;
+        self.lock = None;
+        self.reset_collect();
+    }
+
+    /// Take the confirmed lock; the acquirer then idles until [`Self::restart`].
+    pub fn take_lock(&mut self) -> Option<AcquiredLock> {
+        let l = self.lock.take();
+        if l.is_some() {
+            self.step = Step::Idle;
+        }
+        l
+    }
+
+    fn reset_collect(&mut self) {
+        self.len = 0;
+        self.ncand = 0;
+        self.step = Step::Collect;
+    }
+
+    fn store(&mut self, t_ps: u64, channel: Option<u8>) -> bool {
+        let (Some(t), Some(c)) = (self.times.get_mut(self.len), self.chans.get_mut(self.len))
+        else {
+            return false;
+        };
+        *t = t_ps;
+        *c = channel.unwrap_or(NO_CHANNEL);
+        if self.len == 0 {
+            self.t0 = t_ps;
+            self.t_max = t_ps;
+        }
+        self.t_max = self.t_max.max(t_ps);
+        self.len += 1;
+        true
+    }
+
+    #[cfg(test)]
+    pub(crate) fn stored_len(&self) -> usize {
+        self.len
+    }
+
+    fn chan(&self, i: usize) -> Option<u8> {
+        match self.chans.get(i).copied() {
+            Some(NO_CHANNEL) | None => None,
+            c => c,
+        }
+    }
+
+    /// Take one delay-corrected detection (`channel` selects its expected positions).
+    pub fn push(&mut self, t_ps: u64, channel: Option<u8>, pat: &ArrivalPattern) {
+        match self.step {
+            Step::Collect => {
+                self.store(t_ps, channel);
+                if self.len as u64 >= self.cfg.search_len() {
+                    self.start_search();
+                }
+            }
+            Step::Confirm => {
+                if !self.store(t_ps, channel) {
+                    return;
+                }
+                let ph = t_ps.wrapping_sub(self.t0).wrapping_mul(self.nu);
+                self.confirm.add(ph, pat.channel(channel));
+                self.n_confirm += 1;
+                if self.n_confirm >= self.cfg.p.confirm {
+                    self.decide_confirmation();
+                }
+            }
+            Step::Done | Step::Idle => {}
+            _ => self.stats.dropped_busy += 1,
+        }
+    }
+
+    fn nu_at(&self, j: u64) -> u64 {
+        self.lo.saturating_add(j.saturating_mul(self.step_nu))
+    }
+
+    fn stage_end(&self, stage: u8) -> usize {
+        (u64::from(self.cfg.p.first_stage) << stage).min(self.len as u64) as usize
+    }
+
+    fn eval_at(&self, j: u64, stage: u8) -> Eval<H> {
+        Eval {
+            j,
+            nu: self.nu_at(j),
+            i: 0,
+            end: self.stage_end(stage),
+            fold: Fold::new(),
+        }
+    }
+
+    fn start_search(&mut self) {
+        self.stats.attempts += 1;
+        let span = self.t_max.saturating_sub(self.t0).max(1);
+        self.step_nu = ((1u128 << 63) / (H as u128 * u128::from(span))).max(1) as u64;
+        let stride = 1u64 << self.cfg.p.stages;
+        self.lo = self.prior_centre.saturating_sub(self.prior_half);
+        let raw = (2 * self.prior_half).div_ceil(self.step_nu);
+        self.points = raw
+            .div_ceil(stride)
+            .saturating_mul(stride)
+            .saturating_add(1);
+        let Some(thr) = thresholds::search_threshold(H, self.points) else {
+            self.stats.search_failed += 1;
+            self.reset_collect();
+            return;
+        };
+        self.z2_threshold = thr;
+        self.ncand = 0;
+        self.step = Step::Scan {
+            eval: self.eval_at(0, 0),
+            prev: None,
+            prev_z: None,
+        };
+    }
+
+    fn insert(&mut self, c: Cand<H>) {
+        if let Some(slot) = self.cands.get_mut(self.ncand) {
+            *slot = c;
+            self.ncand += 1;
+            return;
+        }
+        if let Some(min) = self.cands.iter_mut().min_by_key(|c| c.z) {
+            if c.z > min.z {
+                *min = c;
+            }
+        }
+    }
+
+    /// Sort candidates by Z² (best first) and drop those within `2·stride` of a better one.
+    fn sort_and_suppress(&mut self, stride: u64) {
+        let n = self.ncand;
+        if let Some(c) = self.cands.get_mut(..n) {
+            c.sort_unstable_by_key(|c| core::cmp::Reverse(c.z));
+        }
+        let mut kept = 0;
+        for i in 0..n {
+            let Some(&c) = self.cands.get(i) else { break };
+            let near = self
+                .cands
+                .get(..kept)
+                .unwrap_or(&[])
+                .iter()
+                .any(|k| k.j.abs_diff(c.j) <= 2 * stride);
+            if !near {
+                if let Some(slot) = self.cands.get_mut(kept) {
+                    *slot = c;
+                }
+                kept += 1;
+            }
+        }
+        self.ncand = kept;
+    }
+
+    /// Next offset ≥ `from` in −2..=2 whose lattice point lies inside the prior.
+    fn next_offset(&self, cand: usize, stage: u8, from: i64) -> Option<(i64, u64)> {
+        let c = self.cands.get(cand)?;
+        let stride = 1i64 << (self.cfg.p.stages - stage);
+        (from..=2).find_map(|off| {
+            let j = c.j.checked_add_signed(off * stride)?;
+            (j < self.points).then_some((off, j))
+        })
+    }
+
+    fn begin_candidate(&mut self, stage: u8, cand: usize) {
+        if cand >= self.ncand {
+            self.sort_and_suppress(1 << (self.cfg.p.stages - stage));
+            if stage < self.cfg.p.stages {
+                self.begin_candidate(stage + 1, 0);
+            } else {
+                self.finish_search();
+            }
+            return;
+        }
+        match self.next_offset(cand, stage, -2) {
+            Some((off, j)) => {
+                self.step = Step::Refine {
+                    stage,
+                    cand,
+                    off,
+                    eval: self.eval_at(j, stage),
+                    best: None,
+                }
+            }
+            None => self.begin_candidate(stage, cand + 1),
+        }
+    }
+
+    fn finish_search(&mut self) {
+        let best = self.cands.first().copied().filter(|_| self.ncand > 0);
+        let Some(best) = best.filter(|b| b.z >= self.z2_threshold) else {
+            self.stats.search_failed += 1;
+            self.reset_collect();
+            return;
+        };
+        self.z2_search = best.z;
+        self.nu = self.nu_at(best.j);
+        self.phi0 = i128::from(best.fold.best_offset().0);
+        self.begin_fit(0);
+    }
+
+    fn begin_fit(&mut self, pass: u8) {
+        let xc = self.position(self.t_max).map_or(0, |v| (v >> 64) / 2);
+        self.step = Step::Fit {
+            pass,
+            i: 0,
+            sums: LsSums::default(),
+            xc,
+        };
+    }
+
+    /// Model position of time `t` in slots (Q64.64), slot starts at integers.
+    fn position(&self, t: u64) -> Option<i128> {
+        let d = i128::from(t) - i128::from(self.t0);
+        d.checked_mul(i128::from(self.nu))?.checked_sub(self.phi0)
+    }
+
+    fn eval_step(&self, e: &mut Eval<H>, budget: &mut u32, pat: &ArrivalPattern) -> bool {
+        while e.i < e.end && *budget > 0 {
+            let t = self.times.get(e.i).copied().unwrap_or(self.t0);
+            let ph = t.wrapping_sub(self.t0).wrapping_mul(e.nu);
+            e.fold.add(ph, pat.channel(self.chan(e.i)));
+            e.i += 1;
+            *budget -= 1;
+        }
+        e.i >= e.end
+    }
+
+    /// Spend at most `budget` work units on the search and fits.
+    pub fn work(&mut self, mut budget: u32, pat: &ArrivalPattern) {
+        while budget > 0 {
+            let step = core::mem::replace(&mut self.step, Step::Idle);
+            match step {
+                Step::Scan {
+                    mut eval,
+                    prev,
+                    prev_z,
+                } => {
+                    if !self.eval_step(&mut eval, &mut budget, pat) {
+                        self.step = Step::Scan { eval, prev, prev_z };
+                        return;
+                    }
+                    self.scan_point(eval, prev, prev_z);
+                }
+                Step::Refine {
+                    stage,
+                    cand,
+                    off,
+                    mut eval,
+                    best,
+                } => {
+                    if !self.eval_step(&mut eval, &mut budget, pat) {
+                        self.step = Step::Refine {
+                            stage,
+                            cand,
+                            off,
+                            eval,
+                            best,
+                        };
+                        return;
+                    }
+                    self.refine_point(stage, cand, off, eval, best);
+                }
+                Step::Fit {
+                    pass,
+                    mut i,
+                    mut sums,
+                    xc,
+                } => {
+                    let end = if pass < 2 {
+                        self.stage_end(self.cfg.p.stages)
+                    } else {
+                        self.len
+                    };
+                    let w = self.cfg.p.fit_half_window.to_bits();
+                    let w = u64::from(if pass == 0 {
+                        w.saturating_mul(2).min(1 << 30)
+                    } else {
+                        w
+                    });
+                    let win = U0F32::from_bits(w as u32);
+                    while i < end && budget > 0 {
+                        self.fit_one(i, &mut sums, xc, w << 32, win, pat);
+                        i += 1;
+                        budget -= 1;
+                    }
+                    if i < end {
+                        self.step = Step::Fit { pass, i, sums, xc };
+                        return;
+                    }
+                    self.finish_fit(pass, &sums, xc);
+                }
+                other => {
+                    self.step = other;
+                    return;
+                }
+            }
+        }
+    }
+
+    fn scan_point(&mut self, eval: Eval<H>, prev: Option<Cand<H>>, prev_z: Option<U32F32>) {
+        let cur = Cand {
+            j: eval.j,
+            z: eval.fold.z2(),
+            fold: eval.fold,
+        };
+        if let Some(p) = prev {
+            if prev_z.is_none_or(|z| p.z >= z) && p.z > cur.z {
+                self.insert(p);
+            }
+        }
+        let next = cur.j + (1 << self.cfg.p.stages);
+        if next >= self.points {
+            if prev.is_none_or(|p| cur.z >= p.z) {
+                self.insert(cur);
+            }
+            self.begin_candidate(0, self.ncand);
+            return;
+        }
+        self.step = Step::Scan {
+            eval: self.eval_at(next, 0),
+            prev: Some(cur),
+            prev_z: prev.map(|p| p.z),
+        };
+    }
+
+    fn refine_point(
+        &mut self,
+        stage: u8,
+        cand: usize,
+        off: i64,
+        eval: Eval<H>,
+        best: Option<Cand<H>>,
+    ) {
+        let cur = Cand {
+            j: eval.j,
+            z: eval.fold.z2(),
+            fold: eval.fold,
+        };
+        let best = match best {
+            Some(b) if b.z >= cur.z => b,
+            _ => cur,
+        };
+        if let Some((off, j)) = self.next_offset(cand, stage, off + 1) {
+            self.step = Step::Refine {
+                stage,
+                cand,
+                off,
+                eval: self.eval_at(j, stage),
+                best: Some(best),
+            };
+            return;
+        }
+        if let Some(slot) = self.cands.get_mut(cand) {
+            *slot = best;
+        }
+        self.begin_candidate(stage, cand + 1);
+    }
+
+    fn fit_one(
+        &self,
+        i: usize,
+        sums: &mut LsSums,
+        xc: i128,
+        w_q64: u64,
+        win: U0F32,
+        pat: &ArrivalPattern,
+    ) {
+        let Some(v) = self.times.get(i).and_then(|&t| self.position(t)) else {
+            return;
+        };
+        let p = pat.channel(self.chan(i));
+        let (r, carry) = p.residual(v as u64);
+        sums.n_all += 1;
+        sums.null_q32 += p.null_fraction(win);
+        if r.unsigned_abs() <= w_q64 {
+            let slot = (v >> 64) + i128::from(carry);
+            sums.add(slot - xc, r >> 32);
+        }
+    }
+
+    fn finish_fit(&mut self, pass: u8, sums: &LsSums, xc: i128) {
+        let Some((c0, c1)) = sums.solve() else {
+            self.stats.fit_failed += 1;
+            self.reset_collect();
+            return;
+        };
+        let nu = i128::from(self.nu);
+        let new_nu = nu.checked_mul(c1).map_or(-1, |v| nu - (v >> 64));
+        let phi = self.phi0;
+        let new_phi = phi
+            .checked_sub(phi.checked_mul(c1).map_or(0, |v| v >> 64))
+            .and_then(|v| v.checked_add(c0))
+            .and_then(|v| v.checked_sub(c1.checked_mul(xc)?));
+        let (Ok(new_nu), Some(new_phi)) = (u64::try_from(new_nu), new_phi) else {
+            self.stats.fit_failed += 1;
+            self.reset_collect();
+            return;
+        };
+        self.nu = new_nu;
+        self.phi0 = new_phi;
+        match pass {
+            0 => self.begin_fit(1),
+            1 => {
+                self.confirm = Fold::new();
+                self.n_confirm = 0;
+                self.step = Step::Confirm;
+            }
+            _ => self.build_lock(sums),
+        }
+    }
+
+    fn decide_confirmation(&mut self) {
+        let z = self.confirm.z2();
+        let thr = thresholds::confirm_threshold(H).unwrap_or(U32F32::MAX);
+        let predicted = self.confirm.matched(self.phi0 as u64);
+        let (_, best) = self.confirm.best_offset();
+        self.z2_confirm = z;
+        if z >= thr && predicted.saturating_mul(2) >= best {
+            self.begin_fit(2);
+        } else {
+            self.stats.confirm_failed += 1;
+            self.reset_collect();
+        }
+    }
+
+    fn build_lock(&mut self, sums: &LsSums) {
+        let Some(v) = self.position(self.t_max) else {
+            self.stats.fit_failed += 1;
+            self.reset_collect();
+            return;
+        };
+        let frac = v as u64;
+        let period_bits = (1u128 << 96) / u128::from(self.nu.max(1));
+        let into_slot_ps = ((u128::from(frac) * period_bits) >> 96) as u64;
+        let n_all = sums.n_all.max(1);
+        let n_in = u64::try_from(sums.n).unwrap_or(0);
+        self.lock = Some(AcquiredLock {
+            period_ps: U32F32::from_bits(u64::try_from(period_bits).unwrap_or(u64::MAX)),
+            nu_q64: self.nu,
+            origin_ps: self.t_max.saturating_sub(into_slot_ps),
+            anchor_t_ps: self.t_max,
+            anchor_phase_q64: frac,
+            z2_search: self.z2_search,
+            z2_threshold: self.z2_threshold,
+            z2_confirm: self.z2_confirm,
+            trials: self.points,
+            detections: self.len as u32,
+            in_window: U0F32::from_bits(((n_in << 32) / n_all).min(u64::from(u32::MAX)) as u32),
+            null_window: U0F32::from_bits((sums.null_q32 / n_all).min(u64::from(u32::MAX)) as u32),
+            mean_r2_q64: u64::try_from(sums.syy / u128::from(n_in.max(1))).unwrap_or(u64::MAX),
+        });
+        self.step = Step::Done;
+    }
+}
+
+#[cfg(test)]
+mod tests;

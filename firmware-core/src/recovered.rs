@@ -1,0 +1,292 @@
+//! Stage 2 — the recovered clock: acquisition and tracking behind the [`Clock`] seam.
+//!
+//! [`RecoveredClock`] replaces [`crate::FixedClock`] when the link has no distributed reference:
+//! every delay-corrected detection goes through [`Clock::locate_on`] (or [`Clock::locate`], which
+//! uses the union of all channels' positions). While acquiring it stores the detection, spends a
+//! bounded amount of search work ([`crate::acquire`]) and answers [`Located::NotLocked`]; once
+//! locked it answers slots from the tracking loop ([`crate::track`]) and updates it.
+//!
+//! Lock states: Acquiring (cold prior) → Locked → Lost (blackout, in-window fraction, residual) →
+//! Reacquiring (prior ±`reacquire_ppm` around the last good frequency; the cold prior after
+//! [`NARROW_ATTEMPTS`] failed attempts) → Locked.
+//!
+//! ## Slot numbering across a loss
+//! A cold lock numbers slots from the time origin (slot ≈ t·f) and opens numbering epoch 1.
+//! After a relock, the last good model is extrapolated to the new lock's anchor: if the new slot
+//! phase agrees with the prediction within 1/8 slot and the gap times `bridge_ppb` stays below
+//! 1/8 slot, the gap is bridged and numbering continues. Otherwise the slot after the predicted
+//! one is used (numbers never go back), the epoch counter increments, and
+//! [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
+//! [`RecoveredClock::align_numbering`].
+//!
+//! ## Work per detection
+//! Acquiring: one store (during confirmation also one fold: n harmonics) plus at most
+//! `work_per_call` search units (see [`crate::acquire`]); [`RecoveredClock::work`] spends more in
+//! idle time. Locked: one loop update — one residual per expected position of the channel
+//! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment. A lock
+//! clears the calibration histograms once (MAX_CHANNELS × 32 counters).
+
+use crate::acquire::fold::ArrivalPattern;
+use crate::acquire::{AcquireConfig, AcquireConfigError, AcquireStats, AcquiredLock, Acquirer};
+use crate::clock::{Clock, Located};
+use crate::gates::MAX_CHANNELS;
+use crate::track::{LockState, LossCause, TrackConfig, Tracker};
+use core::fmt;
+use fixed::types::U32F32;
+
+/// Why a recovered-clock configuration was refused.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum RecoveredConfigError {
+    /// The acquisition fit window and the tracking window differ (the lock-loss threshold is
+    /// measured in one and used in the other).
+    WindowMismatch,
+    /// Reacquisition prior outside 1..=1000 ppm.
+    Reacquire,
+}
+
+impl fmt::Display for RecoveredConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::WindowMismatch => {
+                write!(f, "acquire fit_half_window must equal track window")
+            }
+            Self::Reacquire => write!(f, "reacquire_ppm must lie in 1..=1000"),
+        }
+    }
+}
+
+impl core::error::Error for RecoveredConfigError {}
+
+/// Validated settings of a recovered clock.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct RecoveredConfig {
+    acquire: AcquireConfig,
+    track: TrackConfig,
+    reacquire_ppm: u32,
+}
+
+impl RecoveredConfig {
+    /// Combine acquisition and tracking settings; `reacquire_ppm` is the prior after a loss.
+    pub fn new(
+        acquire: AcquireConfig,
+        track: TrackConfig,
+        reacquire_ppm: u32,
+    ) -> Result<Self, RecoveredConfigError> {
+        if acquire.params().fit_half_window != track.params().window {
+            return Err(RecoveredConfigError::WindowMismatch);
+        }
+        if reacquire_ppm == 0 || reacquire_ppm > 1000 {
+            return Err(RecoveredConfigError::Reacquire);
+        }
+        Ok(Self {
+            acquire,
+            track,
+            reacquire_ppm,
+        })
+    }
+}
+
+/// Lock counters.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LockCounters {
+    /// Cold locks.
+    pub locks: u32,
+    /// Losses of lock.
+    pub losses: u32,
+    /// Locks regained after a loss.
+    pub relocks: u32,
+    /// Relocks whose gap was bridged (numbering continued).
+    pub bridged: u32,
+    /// Numbering epoch: increments whenever slot numbers restart without continuity.
+    pub epoch: u32,
+}
+
+/// A clock recovered from the detections: buffer `N`, `K` candidates, Z²_`H`.
+#[derive(Clone, Debug)]
+pub struct RecoveredClock<const N: usize, const K: usize, const H: usize> {
+    cfg: RecoveredConfig,
+    pattern: ArrivalPattern,
+    acq: Acquirer<N, K, H>,
+    trk: Tracker,
+    state: LockState,
+    counters: LockCounters,
+    numbering_valid: bool,
+    last_lock: Option<AcquiredLock>,
+    /// Acquisition attempts when the narrow reacquisition started (`None` once widened).
+    reacquire_from: Option<u32>,
+}
+
+/// Failed narrow reacquisition attempts before the search widens to the cold prior.
+pub const NARROW_ATTEMPTS: u32 = 4;
+
+impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
+    /// A cold clock expecting detections at `pattern`'s positions.
+    pub fn new(cfg: RecoveredConfig, pattern: ArrivalPattern) -> Result<Self, AcquireConfigError> {
+        Ok(Self {
+            acq: Acquirer::new(cfg.acquire)?,
+            trk: Tracker::new(cfg.track),
+            cfg,
+            pattern,
+            state: LockState::Acquiring,
+            counters: LockCounters::default(),
+            numbering_valid: false,
+            last_lock: None,
+            reacquire_from: None,
+        })
+    }
+
+    /// Current lock state.
+    pub const fn state(&self) -> LockState {
+        self.state
+    }
+
+    /// Lock counters.
+    pub const fn counters(&self) -> &LockCounters {
+        &self.counters
+    }
+
+    /// Numbering epoch (0 before the first lock).
+    pub const fn numbering_epoch(&self) -> u32 {
+        self.counters.epoch
+    }
+
+    /// Whether slot numbers are tied to the transmitter's (set by [`Self::align_numbering`],
+    /// kept across bridged gaps, cleared by a cold lock or an unbridged relock).
+    pub const fn slot_numbering_valid(&self) -> bool {
+        self.numbering_valid
+    }
+
+    /// Frame alignment's hook: add `offset_slots` to every slot number and mark them valid.
+    pub fn align_numbering(&mut self, offset_slots: i64) {
+        self.trk.shift_slots(offset_slots);
+        self.numbering_valid = true;
+    }
+
+    /// Why the last lock was lost.
+    pub const fn loss_cause(&self) -> Option<LossCause> {
+        self.trk.loss()
+    }
+
+    /// Period estimate in ps (Q32.32) while locked.
+    pub fn period_ps(&self) -> Option<U32F32> {
+        (self.state == LockState::Locked).then(|| self.trk.model().period_ps())
+    }
+
+    /// The evidence of the latest (re)lock.
+    pub const fn last_lock(&self) -> Option<&AcquiredLock> {
+        self.last_lock.as_ref()
+    }
+
+    /// Acquisition counters.
+    pub const fn acquire_stats(&self) -> &AcquireStats {
+        self.acq.stats()
+    }
+
+    /// The tracking loop.
+    pub const fn tracker(&self) -> &Tracker {
+        &self.trk
+    }
+
+    /// Per-channel delay corrections in ps since the latest lock (see [`Tracker`]).
+    pub fn delay_corrections_ps(&self) -> [Option<i64>; MAX_CHANNELS] {
+        self.trk.delay_corrections_ps()
+    }
+
+    /// Spend up to `budget` units of search work without a detection (idle time).
+    pub fn work(&mut self, budget: u32) {
+        if matches!(self.state, LockState::Acquiring | LockState::Reacquiring) {
+            self.acq.work(budget, &self.pattern);
+            self.take_lock();
+        }
+    }
+
+    fn take_lock(&mut self) {
+        let Some(lock) = self.acq.take_lock() else {
+            return;
+        };
+        let slot = if self.state == LockState::Acquiring {
+            self.counters.locks += 1;
+            self.counters.epoch += 1;
+            self.numbering_valid = false;
+            ((u128::from(lock.anchor_t_ps) * u128::from(lock.nu_q64)) >> 64) as u64
+        } else {
+            self.counters.relocks += 1;
+            self.continue_numbering(&lock)
+        };
+        self.trk.start(&lock, slot);
+        self.last_lock = Some(lock);
+        self.state = LockState::Locked;
+    }
+
+    /// Slot number for the relock's anchor slot, from the last good model.
+    fn continue_numbering(&mut self, lock: &AcquiredLock) -> u64 {
+        let s = *self.trk.last_good();
+        let frac = i128::from(lock.anchor_phase_q64);
+        let Some(pred) = s.position(lock.anchor_t_ps) else {
+            self.counters.epoch += 1;
+            self.numbering_valid = false;
+            return ((u128::from(lock.anchor_t_ps) * u128::from(lock.nu_q64)) >> 64) as u64;
+        };
+        let mismatch = (pred as u64).wrapping_sub(lock.anchor_phase_q64) as i64;
+        let slot = ((pred - frac + (1 << 63)) >> 64).max(0) as u64;
+        let gap_slots = ((pred - s.pos_q64) >> 64).unsigned_abs();
+        let drift = gap_slots.saturating_mul(u128::from(self.cfg.track.params().bridge_ppb));
+        if mismatch.unsigned_abs() <= 1 << 61 && drift <= 125_000_000 {
+            self.counters.bridged += 1;
+            slot
+        } else {
+            self.counters.epoch += 1;
+            self.numbering_valid = false;
+            slot + 1
+        }
+    }
+
+    fn handle(&mut self, channel: Option<u8>, t_ps: u64) -> Located {
+        if self.state == LockState::Lost {
+            let nu = (self.trk.last_good().nu_q96 >> 32) as u64;
+            self.acq.restart(nu, self.cfg.reacquire_ppm);
+            self.reacquire_from = Some(self.acq.stats().attempts);
+            self.state = LockState::Reacquiring;
+        } else if self.state == LockState::Reacquiring
+            && self
+                .reacquire_from
+                .is_some_and(|a| self.acq.stats().attempts >= a.saturating_add(NARROW_ATTEMPTS))
+            && self.acq.is_collecting()
+        {
+            // The narrow prior keeps failing: the frequency may have moved further away.
+            let cold = self.cfg.acquire;
+            self.acq
+                .restart(cold.nominal_nu_q64(), cold.params().prior_ppm);
+            self.reacquire_from = None;
+        }
+        if self.state != LockState::Locked {
+            self.acq.push(t_ps, channel, &self.pattern);
+            self.work(self.cfg.acquire.params().work_per_call);
+            return Located::NotLocked;
+        }
+        let r = self
+            .trk
+            .update(t_ps, channel, self.pattern.channel(channel));
+        if !self.trk.is_locked() {
+            self.state = LockState::Lost;
+            self.counters.losses += 1;
+        }
+        r
+    }
+}
+
+impl<const N: usize, const K: usize, const H: usize> Clock for RecoveredClock<N, K, H> {
+    fn locate(&mut self, t_ps: u64) -> Located {
+        self.handle(None, t_ps)
+    }
+
+    fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
+        self.handle(Some(channel), t_ps)
+    }
+}
+
+#[cfg(test)]
+mod tests;

@@ -1,0 +1,523 @@
+//! The `slotwise` command line: demo, simulate, replay, inspect.
+
+use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter};
+use crate::clocks::{self, ClockMode, HostClock};
+use crate::csv_io;
+use crate::plots;
+use crate::replay::{Session, TraceRequest, TruthTag};
+use crate::scenario::Scenario;
+use crate::sim::{self, SimTransmitter, Simulator};
+use crate::summary::{summarize, Summary};
+use clap::{Args, Parser, Subcommand};
+use indicatif::{ProgressBar, ProgressStyle};
+use slotwise::{OverflowPolicy, ReceiverConfig, UnwrapConfig};
+use std::fs::File;
+use std::io::{BufReader, BufWriter, IsTerminal, Write};
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+type AnyErr = Box<dyn std::error::Error>;
+
+const ABOUT: &str = "Receiver-side slot synchronisation, gating, sifting and QBER for QKD links";
+
+const LONG_ABOUT: &str = "\
+slotwise takes the detector timestamps of a QKD receiver (from the link simulator or from a
+capture of real hardware), places each detection on the transmitter's slot grid, decides which
+basis and bit it means, sifts against the transmitter's answers and tallies the QBER — all through
+the same no_std core that runs on the receiver board.
+
+Start with `slotwise demo`: it simulates the default bench link, writes a capture, replays it and
+prints where every detection went. Then try `slotwise simulate` on a scenario of your own
+(see docs/scenario.md), `slotwise inspect` on the capture, and `slotwise replay --plots DIR`.
+
+QBER and rate figures are estimates under the stated model assumptions, not a security
+certification.";
+
+/// The slotwise command line.
+#[derive(Parser, Debug)]
+#[command(name = "slotwise", version, about = ABOUT, long_about = LONG_ABOUT)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+pub enum Command {
+    /// Simulate the default scenario end to end: capture, replay, summary and plots.
+    #[command(long_about = "\
+Simulate a scenario (the invented default bench link unless --scenario is given), write its
+capture, push every detection through the firmware core with the simulated transmitter answering,
+then print the summary and write summary.json, the capture and plots into --out.
+
+The summary shows where every detection went (the counters sum to the detections taken in), the
+sifted bits, and the QBER per basis next to the channel model's expectation.")]
+    Demo(DemoArgs),
+    /// Run a scenario through the link simulator and write a capture (or CSV).
+    #[command(long_about = "\
+Run a scenario file through the physical link simulator (source, fibre, detectors, drifting
+transmitter clock, TDC) and write the raw TDC events as a capture (docs/capture-format.md) or, with
+--csv, as `t_ps,channel` lines. The scenario text is stored in the capture's header so that
+`slotwise replay` can find the transmitter again.")]
+    Simulate(SimulateArgs),
+    /// Replay a capture through the firmware core and report what happened.
+    #[command(long_about = "\
+Replay a capture (or a `t_ps,channel` CSV) through the firmware core exactly as the receiver
+board would. The transmitter's answers come from the scenario (given with --scenario, or stored in
+the capture's header). Prints the summary; --json writes it, --plots draws pictures, --trace
+writes one CSV line per detection in a time range saying where it went and why.
+
+Damaged blocks stop the replay with an error naming the file, byte offset and field, unless
+--skip-damaged is given: then they are stepped over and listed.")]
+    Replay(ReplayArgs),
+    /// Show a capture's header and block statistics and check every CRC.
+    Inspect(InspectArgs),
+}
+
+/// How the receiver gets its clock.
+#[derive(Args, Debug, Clone)]
+pub struct ClockArgs {
+    /// `recovered`: find period and phase from the detections (no clock cable);
+    /// `reference`: use the scenario's true clock, as a link with a distributed reference would.
+    #[arg(long, value_enum, default_value_t = ClockMode::Reference)]
+    pub clock: ClockMode,
+    /// Prior on the transmitter's period for recovery: nominal ± this many ppm (1..=1000).
+    #[arg(long, default_value_t = 500)]
+    pub prior_ppm: u32,
+}
+
+#[derive(Args, Debug)]
+pub struct DemoArgs {
+    #[command(flatten)]
+    pub clock: ClockArgs,
+    /// Output folder for the capture, summary.json and plots.
+    #[arg(long, default_value = "out/demo")]
+    pub out: PathBuf,
+    /// Scenario file (TOML); the built-in default bench scenario when omitted.
+    #[arg(long)]
+    pub scenario: Option<PathBuf>,
+    /// Override the scenario's duration in seconds.
+    #[arg(long)]
+    pub duration_s: Option<f64>,
+}
+
+#[derive(Args, Debug)]
+pub struct SimulateArgs {
+    /// Scenario file (TOML), see docs/scenario.md.
+    pub scenario: PathBuf,
+    /// Output file (capture, or CSV with --csv).
+    #[arg(short, long)]
+    pub out: PathBuf,
+    /// Write `t_ps,channel` CSV instead of a capture.
+    #[arg(long)]
+    pub csv: bool,
+    /// Override the scenario's duration in seconds.
+    #[arg(long)]
+    pub duration_s: Option<f64>,
+}
+
+#[derive(Args, Debug)]
+pub struct ReplayArgs {
+    #[command(flatten)]
+    pub clock: ClockArgs,
+    /// Capture file, or a CSV file (`.csv`) of `t_ps,channel` lines.
+    pub capture: PathBuf,
+    /// Scenario describing the link (default: the one stored in the capture header).
+    #[arg(long)]
+    pub scenario: Option<PathBuf>,
+    /// Write the JSON summary here.
+    #[arg(long)]
+    pub json: Option<PathBuf>,
+    /// Draw plots (fold profile, QBER and rate over time) into this folder.
+    #[arg(long)]
+    pub plots: Option<PathBuf>,
+    /// Write a per-detection trace (CSV) for the time range below.
+    #[arg(long)]
+    pub trace: Option<PathBuf>,
+    /// Start of the traced range, in seconds on the capture's time base.
+    #[arg(long, default_value_t = 0.0)]
+    pub trace_from_s: f64,
+    /// End of the traced range, in seconds (default: 1 ms after the start).
+    #[arg(long)]
+    pub trace_to_s: Option<f64>,
+    /// Step over damaged blocks instead of stopping at the first one.
+    #[arg(long)]
+    pub skip_damaged: bool,
+}
+
+#[derive(Args, Debug)]
+pub struct InspectArgs {
+    /// Capture file.
+    pub capture: PathBuf,
+    /// Print the report as JSON.
+    #[arg(long)]
+    pub json: bool,
+}
+
+/// Run the command line.
+pub fn run(cli: Cli) -> Result<(), AnyErr> {
+    match cli.command {
+        Command::Demo(a) => demo(a),
+        Command::Simulate(a) => simulate(a),
+        Command::Replay(a) => replay(a),
+        Command::Inspect(a) => inspect(a),
+    }
+}
+
+fn load_scenario(path: Option<&Path>, duration_s: Option<f64>) -> Result<Scenario, AnyErr> {
+    let mut s = match path {
+        Some(p) => Scenario::load(p)?,
+        None => Scenario::default_bench(),
+    };
+    if let Some(d) = duration_s {
+        s.duration_s = d;
+        s.validate("--duration-s")?;
+    }
+    Ok(s)
+}
+
+/// The receiver configuration the scenario's optics imply, with the chosen clock.
+pub fn receiver_setup(
+    s: &Scenario,
+    clock: &ClockArgs,
+) -> Result<(ReceiverConfig, HostClock), AnyErr> {
+    let (delays, gates) = sim::receiver_gates(s);
+    let table = slotwise::GateTable::new(&delays, &gates)?;
+    let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
+    let timeout_slots = (s.rep_rate_hz * 0.01).max(1.0) as u64;
+    let cfg = ReceiverConfig::new(
+        tdc,
+        table,
+        s.intensities.len() as u8,
+        timeout_slots,
+        OverflowPolicy::DropNewest,
+        s.seed ^ 0x5351_5541_5348,
+    )?;
+    let clock = clocks::build(s, cfg.gates(), clock.clock, clock.prior_ppm)?;
+    Ok((cfg, clock))
+}
+
+fn progress(total: u64, what: &str) -> ProgressBar {
+    if !std::io::stderr().is_terminal() {
+        return ProgressBar::hidden();
+    }
+    let pb = ProgressBar::new(total);
+    pb.set_style(
+        ProgressStyle::with_template("{msg:12} [{bar:40}] {percent:>3}% {elapsed} (eta {eta})")
+            .unwrap_or_else(|_| ProgressStyle::default_bar())
+            .progress_chars("=> "),
+    );
+    pb.set_message(what.to_string());
+    pb
+}
+
+fn capture_header(s: &Scenario) -> Result<CaptureHeader, AnyErr> {
+    let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
+    Ok(CaptureHeader::new(tdc, sim::channels(s))
+        .with_metadata(s.to_toml_string())
+        .with_flags(capture::FLAG_SIMULATED))
+}
+
+/// The channel model's QBER per basis (Z, X), averaged over intensity classes by their
+/// matched-basis detection rates, afterpulses counted as noise.
+pub fn model_qber(s: &Scenario) -> (f64, f64) {
+    let m = sim::channel_model(s);
+    let mut out = [0.0; 2];
+    for (b, o) in out.iter_mut().enumerate() {
+        let (mut num, mut den) = (0.0, 0.0);
+        for (i, im) in m.intensities.iter().enumerate() {
+            let w = im.prob * im.matched_gain[b];
+            num += w * m.qber_with_afterpulses(s, i)[b];
+            den += w;
+        }
+        *o = if den > 0.0 { num / den } else { 0.0 };
+    }
+    (out[0], out[1])
+}
+
+fn bucket_s(s: &Scenario) -> f64 {
+    (s.duration_s / 50.0).max(1e-6)
+}
+
+fn demo(a: DemoArgs) -> Result<(), AnyErr> {
+    let s = load_scenario(a.scenario.as_deref(), a.duration_s)?;
+    std::fs::create_dir_all(&a.out)?;
+    let cap_path = a.out.join("demo.swcap");
+    let started = Instant::now();
+    let (cfg, clock) = receiver_setup(&s, &a.clock)?;
+    let truth = sim::clock_truth(&s)?;
+    let mut session = Session::new(
+        cfg,
+        clock,
+        SimTransmitter::new(&s),
+        s.period_ps(),
+        bucket_s(&s),
+        true,
+        None,
+    )?;
+    let mut writer = CaptureWriter::new(
+        BufWriter::new(File::create(&cap_path)?),
+        capture_header(&s)?,
+    )?;
+    let mut simulator = Simulator::new(&s);
+    let pb = progress(1000, "simulating");
+    let mut block = Vec::with_capacity(4096);
+    loop {
+        block.clear();
+        if simulator.next_block(&mut block, 4096) == 0 {
+            break;
+        }
+        for e in &block {
+            writer.push(e.event)?;
+            session.push(e.event, Some(TruthTag { slot: e.truth.slot }));
+        }
+        if let Some(last) = block.last() {
+            pb.set_position((last.truth.true_t_ps * 1e-12 / s.duration_s * 1000.0) as u64);
+        }
+    }
+    pb.finish_and_clear();
+    writer.finish()?.flush()?;
+    let res = session.finish()?;
+    let secs = started.elapsed().as_secs_f64();
+    let model_qber = model_qber(&s);
+    let summary = summarize(
+        &s.name,
+        &res,
+        res.rx.clock().period_ps().unwrap_or(f64::NAN),
+        Some(truth.period_ps),
+        Some(model_qber),
+        secs,
+    );
+    // The capture must replay to exactly the same result through the same core.
+    let (cfg2, clock2) = receiver_setup(&s, &a.clock)?;
+    let again = replay_capture(&cap_path, cfg2, clock2, &s, false, None, None)?;
+    let same = again.accounting == summary.accounting && again.sifted_bits == summary.sifted_bits;
+    let json = a.out.join("summary.json");
+    std::fs::write(&json, serde_json::to_string_pretty(&summary)? + "\n")?;
+    let mut files = vec![cap_path.clone(), json];
+    files.extend(plots::fold_profile(
+        &a.out,
+        &res.fold,
+        cfg.gates(),
+        &format!("Fold profile — {}", s.name),
+    )?);
+    files.extend(plots::qber_and_rate(
+        &a.out,
+        &res.buckets,
+        usize::from(cfg.gates().channels()),
+    )?);
+    print!("{summary}");
+    println!(
+        "capture replay {} (the written capture replays to the same counters)",
+        if same { "identical" } else { "DIFFERENT" }
+    );
+    println!("files:");
+    for f in files {
+        println!("  {}", f.display());
+    }
+    if !same {
+        return Err("replaying the written capture gave different counters".into());
+    }
+    Ok(())
+}
+
+fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
+    let s = load_scenario(Some(&a.scenario), a.duration_s)?;
+    let mut simulator = Simulator::new(&s);
+    let pb = progress(1000, "simulating");
+    let mut block = Vec::with_capacity(4096);
+    let mut n = 0u64;
+    let out =
+        BufWriter::new(File::create(&a.out).map_err(|e| format!("{}: {e}", a.out.display()))?);
+    enum Sink {
+        Cap(CaptureWriter<BufWriter<File>>),
+        Csv(csv_io::CsvWriter<BufWriter<File>>),
+    }
+    let mut sink = if a.csv {
+        Sink::Csv(csv_io::CsvWriter::new(
+            out,
+            csv_io::CsvTime::Unwrapped(UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?),
+        )?)
+    } else {
+        Sink::Cap(CaptureWriter::new(out, capture_header(&s)?)?)
+    };
+    loop {
+        block.clear();
+        if simulator.next_block(&mut block, 4096) == 0 {
+            break;
+        }
+        for e in &block {
+            match &mut sink {
+                Sink::Cap(w) => w.push(e.event)?,
+                Sink::Csv(w) => w.push(e.event)?,
+            }
+        }
+        n += block.len() as u64;
+        if let Some(last) = block.last() {
+            pb.set_position((last.truth.true_t_ps * 1e-12 / s.duration_s * 1000.0) as u64);
+        }
+    }
+    pb.finish_and_clear();
+    match sink {
+        Sink::Cap(w) => {
+            w.finish_seek()?;
+        }
+        Sink::Csv(w) => {
+            w.finish()?;
+        }
+    }
+    println!(
+        "{}: {n} detections from scenario '{}' ({} s at {} Hz)",
+        a.out.display(),
+        s.name,
+        s.duration_s,
+        s.rep_rate_hz
+    );
+    Ok(())
+}
+
+/// Replay a capture file through the core; returns the summary.
+pub fn replay_capture(
+    path: &Path,
+    cfg: ReceiverConfig,
+    clock: HostClock,
+    s: &Scenario,
+    skip_damaged: bool,
+    trace: Option<TraceRequest>,
+    plots_dir: Option<&Path>,
+) -> Result<Summary, AnyErr> {
+    let started = Instant::now();
+    let name = path.display().to_string();
+    let file = File::open(path).map_err(|e| format!("{name}: {e}"))?;
+    let size = file.metadata().map(|m| m.len()).unwrap_or(0);
+    let mut session = Session::new(
+        cfg,
+        clock,
+        SimTransmitter::new(s),
+        s.period_ps(),
+        bucket_s(s),
+        false,
+        trace,
+    )?;
+    let mut skipped = Vec::new();
+    let pb = progress(size, "replaying");
+    if path.extension().is_some_and(|e| e == "csv") {
+        let r = csv_io::CsvReader::new(BufReader::new(file), &name)?;
+        let mut block = Vec::with_capacity(4096);
+        for ev in r {
+            block.push(ev?);
+            if block.len() == 4096 {
+                session.push_block(&block);
+                block.clear();
+            }
+        }
+        session.push_block(&block);
+    } else {
+        let mut r = CaptureReader::new(BufReader::new(file), &name)?;
+        let mut block = Vec::new();
+        loop {
+            if skip_damaged {
+                match r.next_block_skipping(&mut block)? {
+                    None => break,
+                    Some(BlockOutcome::Block(_)) => session.push_block(&block),
+                    Some(BlockOutcome::Skipped(sk)) => skipped.push(sk),
+                }
+            } else if r.next_block(&mut block)?.is_some() {
+                session.push_block(&block);
+            } else {
+                break;
+            }
+            pb.set_position(r.offset());
+        }
+    }
+    pb.finish_and_clear();
+    let res = session.finish()?;
+    for sk in &skipped {
+        eprintln!("skipped damaged data: {sk:?}");
+    }
+    let summary = summarize(
+        &name,
+        &res,
+        res.rx.clock().period_ps().unwrap_or(f64::NAN),
+        None,
+        None,
+        started.elapsed().as_secs_f64(),
+    );
+    if let Some(dir) = plots_dir {
+        std::fs::create_dir_all(dir)?;
+        let mut files = plots::fold_profile(
+            dir,
+            &res.fold,
+            cfg.gates(),
+            &format!("Fold profile — {name}"),
+        )?;
+        files.extend(plots::qber_and_rate(
+            dir,
+            &res.buckets,
+            usize::from(cfg.gates().channels()),
+        )?);
+        for f in files {
+            eprintln!("wrote {}", f.display());
+        }
+    }
+    Ok(summary)
+}
+
+fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
+    let name = a.capture.display().to_string();
+    let s = match &a.scenario {
+        Some(p) => Scenario::load(p)?,
+        None => {
+            let f = File::open(&a.capture).map_err(|e| format!("{name}: {e}"))?;
+            let r = CaptureReader::new(BufReader::new(f), &name)?;
+            let meta = &r.header().metadata;
+            if meta.trim().is_empty() {
+                return Err(format!(
+                    "{name}: the capture header holds no scenario; give one with --scenario FILE"
+                )
+                .into());
+            }
+            Scenario::from_toml_str(meta, &format!("{name} (header metadata)"))?
+        }
+    };
+    let (cfg, clock) = receiver_setup(&s, &a.clock)?;
+    let trace = match &a.trace {
+        Some(p) => {
+            let from_ps = (a.trace_from_s * 1e12) as u64;
+            let to_ps = a
+                .trace_to_s
+                .map(|t| (t * 1e12) as u64)
+                .unwrap_or(from_ps + 1_000_000_000);
+            Some(TraceRequest {
+                out: Box::new(BufWriter::new(File::create(p)?)),
+                from_ps,
+                to_ps,
+            })
+        }
+        None => None,
+    };
+    let summary = replay_capture(
+        &a.capture,
+        cfg,
+        clock,
+        &s,
+        a.skip_damaged,
+        trace,
+        a.plots.as_deref(),
+    )?;
+    print!("{summary}");
+    if let Some(j) = &a.json {
+        std::fs::write(j, serde_json::to_string_pretty(&summary)? + "\n")?;
+        eprintln!("wrote {}", j.display());
+    }
+    Ok(())
+}
+
+fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
+    let report = capture::inspect(&a.capture)?;
+    if a.json {
+        println!("{}", serde_json::to_string_pretty(&report)?);
+    } else {
+        print!("{report}");
+    }
+    Ok(())
+}

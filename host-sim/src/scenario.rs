@@ -1,0 +1,612 @@
+//! Scenario files: one TOML document describes a whole simulated link (transmitter, fibre,
+//! receiver optics, detectors, clocks and TDC). Every key, its unit and its range is documented in
+//! `docs/scenario.md`; [`Scenario::from_toml_str`] refuses unknown keys and out-of-range values with
+//! an error that names the file, the line and the key.
+
+use serde::{Deserialize, Serialize};
+use std::fmt;
+use std::path::Path;
+
+/// The default scenario's text (BRIEF §6), committed as `scenarios/bench-100mhz-30km.toml`.
+pub const DEFAULT_BENCH_TOML: &str = include_str!("../../scenarios/bench-100mhz-30km.toml");
+
+/// Name under which [`Scenario::default_bench`] reports errors (the committed file's path).
+pub const DEFAULT_BENCH_PATH: &str = "scenarios/bench-100mhz-30km.toml";
+
+/// Group delay of standard single-mode fibre at 1550 nm, ps per km (group index ≈ 1.468; common
+/// practice).
+pub const FIBER_DELAY_PS_PER_KM: f64 = 4.9e6;
+
+/// Fixed delay before slot 0 reaches the receiver when `start_offset_ps` is not given, in ps.
+pub const BASE_START_OFFSET_PS: f64 = 1.0e6;
+
+/// How the qubit is encoded, which fixes the receiver optics.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Encoding {
+    /// Time-bin: arrival-time detector plus an unbalanced interferometer with two outputs.
+    TimeBin,
+    /// Polarization: passive basis splitter and four detectors (H, V, D, A).
+    Polarization,
+}
+
+/// Which states the transmitter prepares.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "kebab-case")]
+pub enum Protocol {
+    /// Four states, both bases with probability 1/2 (`p_z` must be 0.5).
+    Bb84,
+    /// Four states, Z basis with probability `p_z`.
+    EfficientBb84,
+    /// Z0 and Z1 with probability `p_z/2` each, X+ with `1 - p_z`.
+    ThreeState,
+}
+
+fn default_afterpulse_delay_ns() -> f64 {
+    1000.0
+}
+
+/// One simulated link, as read from a scenario file (units in the field names).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Scenario {
+    /// Human-readable name, e.g. `bench-100mhz-30km`.
+    pub name: String,
+    /// Seed of every random choice in the simulation.
+    pub seed: u64,
+    /// Length of the run in seconds of transmitter slots.
+    pub duration_s: f64,
+    /// Nominal repetition rate of the transmitter, Hz.
+    pub rep_rate_hz: f64,
+    /// Qubit encoding (receiver optics).
+    pub encoding: Encoding,
+    /// Protocol (which states the transmitter prepares).
+    pub protocol: Protocol,
+    /// Probability of the Z basis, at the transmitter and at the receiver's passive splitter.
+    pub p_z: f64,
+    /// Mean photon numbers per pulse, index 0 = signal, then decoys (1..=3 entries).
+    pub intensities: Vec<f64>,
+    /// Probability of each intensity class (same length as `intensities`, sums to 1).
+    pub intensity_probs: Vec<f64>,
+    /// Fibre length, km.
+    pub fiber_km: f64,
+    /// Fibre attenuation, dB per km.
+    pub fiber_db_per_km: f64,
+    /// Further loss (attenuators, receiver optics), dB.
+    pub extra_loss_db: f64,
+    /// Detection efficiency of every detector, in (0, 1].
+    pub detector_efficiency: f64,
+    /// Dark-count rate of each detector, Hz.
+    pub dark_count_hz: f64,
+    /// Non-paralysable dead time of each detector, ns.
+    pub dead_time_ns: f64,
+    /// RMS of the Gaussian timing jitter of photon clicks, ps.
+    pub jitter_ps: f64,
+    /// Probability that a registered click is followed by one afterpulse.
+    pub afterpulse_prob: f64,
+    /// Mean of the exponential afterpulse delay, ns.
+    #[serde(default = "default_afterpulse_delay_ns")]
+    pub afterpulse_delay_ns: f64,
+    /// Misalignment error e_d: probability that a photon's bit flips within its basis.
+    pub misalignment: f64,
+    /// Transmitter clock offset, ppm (positive: transmitter runs fast, shorter period).
+    pub clock_offset_ppm: f64,
+    /// Linear drift of the transmitter clock offset, ppm per second.
+    pub clock_drift_ppm_per_s: f64,
+    /// TDC counter width, bits (32..=64).
+    pub tdc_bits: u8,
+    /// TDC tick, ps.
+    pub tdc_resolution_ps: u32,
+    /// TDC counter value at true time 0, ticks (places a wrap mid-run).
+    #[serde(default)]
+    pub tdc_start_ticks: u64,
+    /// Per-detector cable and detector skew, ps (one entry per channel; default all 0).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub channel_delays_ps: Option<Vec<i64>>,
+    /// True time from the start of the capture to the start of slot 0, ps (default: 1 µs plus
+    /// 4.9 µs per km of fibre).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub start_offset_ps: Option<u64>,
+}
+
+/// A scenario that could not be read: which file, where, which key, and why.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct ScenarioError {
+    /// File name (or other source name) the text came from.
+    pub source: String,
+    /// 1-based line of the offending key, when known.
+    pub line: Option<usize>,
+    /// 1-based column, when known.
+    pub column: Option<usize>,
+    /// Byte offset into the text, when known.
+    pub byte: Option<usize>,
+    /// The offending key, when known.
+    pub key: Option<String>,
+    /// What is wrong.
+    pub message: String,
+}
+
+impl fmt::Display for ScenarioError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}:", self.source)?;
+        if let Some(l) = self.line {
+            write!(f, " line {l}")?;
+            if let Some(c) = self.column {
+                write!(f, ", column {c}")?;
+            }
+            if let Some(b) = self.byte {
+                write!(f, " (byte {b})")?;
+            }
+            write!(f, ":")?;
+        }
+        if let Some(k) = &self.key {
+            write!(f, " key '{k}':")?;
+        }
+        write!(f, " {}", self.message)
+    }
+}
+
+impl std::error::Error for ScenarioError {}
+
+/// Line, column (both 1-based) and key name at a byte offset of a TOML text.
+fn locate(text: &str, byte: usize) -> (usize, usize, Option<String>) {
+    let byte = byte.min(text.len());
+    let before = text.get(..byte).unwrap_or("");
+    let line = before.matches('\n').count() + 1;
+    let line_start = before.rfind('\n').map_or(0, |i| i + 1);
+    let column = before.len() - line_start + 1;
+    let line_text = text
+        .get(line_start..)
+        .unwrap_or("")
+        .lines()
+        .next()
+        .unwrap_or("");
+    let key = line_text
+        .split_once('=')
+        .map(|(k, _)| k.trim().to_string())
+        .filter(|k| !k.is_empty() && !k.starts_with('#'));
+    (line, column, key)
+}
+
+/// Byte offset of the line that assigns `key` at the top level, if any.
+fn find_key(text: &str, key: &str) -> Option<usize> {
+    let mut offset = 0;
+    for line in text.split_inclusive('\n') {
+        if let Some((k, _)) = line.split_once('=') {
+            if k.trim() == key {
+                return Some(offset + (line.len() - line.trim_start().len()));
+            }
+        }
+        offset += line.len();
+    }
+    None
+}
+
+struct Check<'a> {
+    source: &'a str,
+    text: &'a str,
+}
+
+impl Check<'_> {
+    fn err(&self, key: &str, message: impl Into<String>) -> ScenarioError {
+        let (line, column, byte) = match find_key(self.text, key) {
+            Some(b) => {
+                let (l, c, _) = locate(self.text, b);
+                (Some(l), Some(c), Some(b))
+            }
+            None => (None, None, None),
+        };
+        ScenarioError {
+            source: self.source.to_string(),
+            line,
+            column,
+            byte,
+            key: Some(key.to_string()),
+            message: message.into(),
+        }
+    }
+
+    fn finite(&self, key: &str, v: f64) -> Result<(), ScenarioError> {
+        if v.is_finite() {
+            Ok(())
+        } else {
+            Err(self.err(key, "must be a finite number"))
+        }
+    }
+
+    /// `lo <= v <= hi` (closed) or `lo < v < hi` (open), chosen per bound.
+    fn range(&self, key: &str, v: f64, lo: Bound, hi: Bound) -> Result<(), ScenarioError> {
+        self.finite(key, v)?;
+        let ok_lo = match lo {
+            Bound::Closed(x) => v >= x,
+            Bound::Open(x) => v > x,
+        };
+        let ok_hi = match hi {
+            Bound::Closed(x) => v <= x,
+            Bound::Open(x) => v < x,
+        };
+        if ok_lo && ok_hi {
+            return Ok(());
+        }
+        let l = match lo {
+            Bound::Closed(x) => format!("[{x}"),
+            Bound::Open(x) => format!("({x}"),
+        };
+        let h = match hi {
+            Bound::Closed(x) => format!("{x}]"),
+            Bound::Open(x) => format!("{x})"),
+        };
+        Err(self.err(key, format!("must lie in {l},{h}, got {v}")))
+    }
+}
+
+#[derive(Clone, Copy)]
+enum Bound {
+    Closed(f64),
+    Open(f64),
+}
+
+use Bound::{Closed, Open};
+
+impl Scenario {
+    /// Parse and validate a scenario; `source_name` (usually the file path) names it in errors.
+    pub fn from_toml_str(text: &str, source_name: &str) -> Result<Self, ScenarioError> {
+        let s: Scenario = toml::from_str(text).map_err(|e| {
+            let missing = e
+                .message()
+                .strip_prefix("missing field `")
+                .and_then(|m| m.split_once('`'))
+                .map(|(k, _)| k.to_string());
+            let (line, column, byte, key) = match e.span() {
+                // A missing key has no place in the text; name it instead.
+                _ if missing.is_some() => (None, None, None, missing),
+                Some(span) => {
+                    let (l, c, k) = locate(text, span.start);
+                    (Some(l), Some(c), Some(span.start), k)
+                }
+                None => (None, None, None, None),
+            };
+            ScenarioError {
+                source: source_name.to_string(),
+                line,
+                column,
+                byte,
+                key,
+                message: e.message().trim().to_string(),
+            }
+        })?;
+        s.validate_text(source_name, text)?;
+        Ok(s)
+    }
+
+    /// Read, parse and validate a scenario file.
+    pub fn load(path: impl AsRef<Path>) -> Result<Self, ScenarioError> {
+        let path = path.as_ref();
+        let name = path.display().to_string();
+        let text = std::fs::read_to_string(path).map_err(|e| ScenarioError {
+            source: name.clone(),
+            line: None,
+            column: None,
+            byte: None,
+            key: None,
+            message: format!("cannot read: {e}"),
+        })?;
+        Self::from_toml_str(&text, &name)
+    }
+
+    /// The default demo scenario (BRIEF §6): 100 MHz time-bin bench link over 30 km.
+    pub fn default_bench() -> Self {
+        // The committed file is parsed by a unit test, so this cannot fail in a released build.
+        Self::from_toml_str(DEFAULT_BENCH_TOML, DEFAULT_BENCH_PATH)
+            .unwrap_or_else(|e| panic!("built-in scenario is invalid: {e}"))
+    }
+
+    /// Validate the values (ranges and consistency); errors carry `source_name` but no line.
+    pub fn validate(&self, source_name: &str) -> Result<(), ScenarioError> {
+        self.validate_text(source_name, "")
+    }
+
+    fn validate_text(&self, source: &str, text: &str) -> Result<(), ScenarioError> {
+        let c = Check { source, text };
+        if self.name.trim().is_empty() {
+            return Err(c.err("name", "must not be empty"));
+        }
+        c.range("duration_s", self.duration_s, Open(0.0), Closed(1000.0))?;
+        c.range("rep_rate_hz", self.rep_rate_hz, Closed(1e3), Closed(1e11))?;
+        c.range("p_z", self.p_z, Open(0.0), Open(1.0))?;
+        if self.protocol == Protocol::Bb84 && self.p_z != 0.5 {
+            return Err(c.err("p_z", "protocol \"bb84\" chooses bases with p_z = 0.5"));
+        }
+        let n = self.intensities.len();
+        if !(1..=3).contains(&n) {
+            return Err(c.err("intensities", format!("needs 1..=3 entries, got {n}")));
+        }
+        for (i, &mu) in self.intensities.iter().enumerate() {
+            if !(mu.is_finite() && (0.0..=10.0).contains(&mu)) {
+                return Err(c.err(
+                    "intensities",
+                    format!("entry {i} must lie in [0,10] photons, got {mu}"),
+                ));
+            }
+        }
+        if self.intensities.first().is_some_and(|&mu| mu <= 0.0) {
+            return Err(c.err("intensities", "entry 0 (signal) must be above 0"));
+        }
+        if self.intensity_probs.len() != n {
+            return Err(c.err(
+                "intensity_probs",
+                format!(
+                    "needs {n} entries (one per intensity), got {}",
+                    self.intensity_probs.len()
+                ),
+            ));
+        }
+        for (i, &p) in self.intensity_probs.iter().enumerate() {
+            if !(p.is_finite() && p > 0.0 && p <= 1.0) {
+                return Err(c.err(
+                    "intensity_probs",
+                    format!("entry {i} must lie in (0,1], got {p}"),
+                ));
+            }
+        }
+        let sum: f64 = self.intensity_probs.iter().sum();
+        if (sum - 1.0).abs() > 1e-9 {
+            return Err(c.err("intensity_probs", format!("must sum to 1, got {sum}")));
+        }
+        c.range("fiber_km", self.fiber_km, Closed(0.0), Closed(1000.0))?;
+        c.range(
+            "fiber_db_per_km",
+            self.fiber_db_per_km,
+            Closed(0.0),
+            Closed(10.0),
+        )?;
+        c.range(
+            "extra_loss_db",
+            self.extra_loss_db,
+            Closed(0.0),
+            Closed(100.0),
+        )?;
+        c.range(
+            "detector_efficiency",
+            self.detector_efficiency,
+            Open(0.0),
+            Closed(1.0),
+        )?;
+        c.range(
+            "dark_count_hz",
+            self.dark_count_hz,
+            Closed(0.0),
+            Closed(1e8),
+        )?;
+        c.range("dead_time_ns", self.dead_time_ns, Closed(0.0), Closed(1e6))?;
+        c.range("jitter_ps", self.jitter_ps, Closed(0.0), Closed(1e5))?;
+        c.range(
+            "afterpulse_prob",
+            self.afterpulse_prob,
+            Closed(0.0),
+            Open(1.0),
+        )?;
+        c.range(
+            "afterpulse_delay_ns",
+            self.afterpulse_delay_ns,
+            Open(0.0),
+            Closed(1e6),
+        )?;
+        c.range("misalignment", self.misalignment, Closed(0.0), Closed(0.5))?;
+        c.range(
+            "clock_offset_ppm",
+            self.clock_offset_ppm,
+            Closed(-1000.0),
+            Closed(1000.0),
+        )?;
+        c.finite("clock_drift_ppm_per_s", self.clock_drift_ppm_per_s)?;
+        if (self.clock_drift_ppm_per_s * self.duration_s).abs() > 1000.0 {
+            return Err(c.err(
+                "clock_drift_ppm_per_s",
+                "drift times duration_s must stay within ±1000 ppm",
+            ));
+        }
+        if !(32..=64).contains(&self.tdc_bits) {
+            return Err(c.err(
+                "tdc_bits",
+                format!("must lie in 32..=64, got {}", self.tdc_bits),
+            ));
+        }
+        if self.tdc_resolution_ps == 0 {
+            return Err(c.err("tdc_resolution_ps", "must be at least 1 ps"));
+        }
+        let w_ps = crate::sim::gate_half_width_ps(self);
+        if f64::from(self.tdc_resolution_ps) > w_ps {
+            return Err(c.err(
+                "tdc_resolution_ps",
+                format!("coarser than the gate half-width ({w_ps:.1} ps)"),
+            ));
+        }
+        if self.tdc_bits < 64 && self.tdc_start_ticks >> self.tdc_bits != 0 {
+            return Err(c.err(
+                "tdc_start_ticks",
+                "does not fit the counter width (tdc_bits)",
+            ));
+        }
+        let end_ps = self.start_offset() + self.duration_s * 1e12 * 1.002 + 1e9;
+        let end_ticks = self.tdc_start_ticks as f64 + end_ps / f64::from(self.tdc_resolution_ps);
+        if end_ticks * f64::from(self.tdc_resolution_ps) >= 1.8e19 {
+            return Err(c.err(
+                "tdc_start_ticks",
+                "counter value times resolution would overflow 64-bit picoseconds during the run",
+            ));
+        }
+        let channels = usize::from(crate::sim::channels(self));
+        if let Some(d) = &self.channel_delays_ps {
+            if d.len() != channels {
+                return Err(c.err(
+                    "channel_delays_ps",
+                    format!(
+                        "needs {channels} entries (one per detector), got {}",
+                        d.len()
+                    ),
+                ));
+            }
+            if let Some(x) = d.iter().find(|x| x.unsigned_abs() > 1_000_000) {
+                return Err(c.err("channel_delays_ps", format!("{x} ps exceeds ±1 µs")));
+            }
+        }
+        let earliest = crate::sim::earliest_click_offset_ps(self);
+        if self.start_offset() + earliest < 0.0 {
+            return Err(c.err(
+                "start_offset_ps",
+                "too small: the earliest skewed, jittered click of slot 0 would precede time 0",
+            ));
+        }
+        Ok(())
+    }
+
+    /// True time from the start of the capture to the start of slot 0, ps.
+    pub fn start_offset(&self) -> f64 {
+        match self.start_offset_ps {
+            Some(ps) => ps as f64,
+            None => BASE_START_OFFSET_PS + FIBER_DELAY_PS_PER_KM * self.fiber_km,
+        }
+    }
+
+    /// Nominal slot period, ps.
+    pub fn period_ps(&self) -> f64 {
+        1e12 / self.rep_rate_hz
+    }
+
+    /// Number of slots sent: `floor(duration_s · rep_rate_hz)`.
+    pub fn slots(&self) -> u64 {
+        (self.duration_s * self.rep_rate_hz).floor() as u64
+    }
+
+    /// Total channel loss (fibre plus extra), dB.
+    pub fn loss_db(&self) -> f64 {
+        self.fiber_km * self.fiber_db_per_km + self.extra_loss_db
+    }
+
+    /// Overall transmittance η = detector_efficiency · 10^(−loss/10) (dimensionless).
+    pub fn eta(&self) -> f64 {
+        self.detector_efficiency * 10f64.powf(-self.loss_db() / 10.0)
+    }
+
+    /// Per-detector skews, ps (zeros when not configured).
+    pub fn delays_ps(&self) -> Vec<i64> {
+        self.channel_delays_ps
+            .clone()
+            .unwrap_or_else(|| vec![0; usize::from(crate::sim::channels(self))])
+    }
+
+    /// Serialise back to TOML text.
+    pub fn to_toml_string(&self) -> String {
+        toml::to_string(self).unwrap_or_default()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn default_bench_matches_the_brief() {
+        let s = Scenario::default_bench();
+        assert_eq!(s.name, "bench-100mhz-30km");
+        assert_eq!(s.rep_rate_hz, 100e6);
+        assert_eq!(s.encoding, Encoding::TimeBin);
+        assert_eq!(s.protocol, Protocol::ThreeState);
+        assert_eq!(s.intensities, vec![0.5, 0.15]);
+        assert_eq!(s.intensity_probs, vec![0.7, 0.3]);
+        assert_eq!(s.p_z, 0.9);
+        assert_eq!(s.loss_db(), 14.0);
+        assert_eq!((s.detector_efficiency, s.dead_time_ns), (0.8, 40.0));
+        assert_eq!((s.dark_count_hz, s.jitter_ps), (100.0, 35.0));
+        assert_eq!((s.afterpulse_prob, s.misalignment), (0.005, 0.01));
+        assert_eq!((s.clock_offset_ppm, s.clock_drift_ppm_per_s), (37.0, 0.02));
+        assert_eq!((s.tdc_bits, s.tdc_resolution_ps), (48, 1));
+        assert_eq!(s.duration_s, 0.5);
+    }
+
+    #[test]
+    fn committed_scenarios_parse() {
+        let dir = concat!(env!("CARGO_MANIFEST_DIR"), "/../scenarios");
+        let mut n = 0;
+        for entry in std::fs::read_dir(dir).unwrap() {
+            let p = entry.unwrap().path();
+            if p.extension().is_some_and(|e| e == "toml") {
+                Scenario::load(&p).unwrap_or_else(|e| panic!("{e}"));
+                n += 1;
+            }
+        }
+        assert!(n >= 3, "{n} scenario files");
+    }
+
+    #[test]
+    fn out_of_range_value_names_file_line_and_key() {
+        let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 1.5");
+        let e = Scenario::from_toml_str(&text, "scenarios/x.toml").unwrap_err();
+        let msg = e.to_string();
+        assert!(msg.starts_with("scenarios/x.toml: line "), "{msg}");
+        assert!(msg.contains("key 'p_z': must lie in (0,1)"), "{msg}");
+        let line = text.lines().position(|l| l.starts_with("p_z")).unwrap() + 1;
+        assert_eq!(e.line, Some(line));
+    }
+
+    #[test]
+    fn unknown_key_is_refused_with_its_line() {
+        let text = format!("{DEFAULT_BENCH_TOML}\ncolour = \"blue\"\n");
+        let e = Scenario::from_toml_str(&text, "a.toml").unwrap_err();
+        assert!(e.message.contains("unknown field"), "{e}");
+        assert_eq!(e.line, Some(text.lines().count()), "{e}");
+        assert_eq!(e.key.as_deref(), Some("colour"), "{e}");
+    }
+
+    #[test]
+    fn missing_key_is_named() {
+        let text: String = DEFAULT_BENCH_TOML
+            .lines()
+            .filter(|l| !l.starts_with("seed"))
+            .map(|l| format!("{l}\n"))
+            .collect();
+        let e = Scenario::from_toml_str(&text, "c.toml").unwrap_err();
+        assert_eq!(e.to_string(), "c.toml: key 'seed': missing field `seed`");
+    }
+
+    #[test]
+    fn wrong_type_names_the_key() {
+        let text = DEFAULT_BENCH_TOML.replace("tdc_bits = 48", "tdc_bits = \"wide\"");
+        let e = Scenario::from_toml_str(&text, "b.toml").unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("tdc_bits"), "{e}");
+    }
+
+    #[test]
+    fn consistency_checks() {
+        let base = Scenario::default_bench();
+        let bad = |f: &dyn Fn(&mut Scenario), key: &str| {
+            let mut s = base.clone();
+            f(&mut s);
+            let e = s.validate("t").unwrap_err();
+            assert_eq!(e.key.as_deref(), Some(key), "{e}");
+        };
+        bad(&|s| s.intensity_probs = vec![0.7, 0.2], "intensity_probs");
+        bad(&|s| s.intensity_probs = vec![1.0], "intensity_probs");
+        bad(&|s| s.intensities = vec![], "intensities");
+        bad(&|s| s.intensities = vec![0.0, 0.1], "intensities");
+        bad(&|s| s.protocol = Protocol::Bb84, "p_z");
+        bad(&|s| s.tdc_bits = 31, "tdc_bits");
+        bad(&|s| s.tdc_start_ticks = 1 << 48, "tdc_start_ticks");
+        bad(
+            &|s| s.channel_delays_ps = Some(vec![0, 0]),
+            "channel_delays_ps",
+        );
+        bad(&|s| s.tdc_resolution_ps = 1000, "tdc_resolution_ps");
+        bad(&|s| s.duration_s = f64::NAN, "duration_s");
+        bad(&|s| s.clock_drift_ppm_per_s = 1e4, "clock_drift_ppm_per_s");
+        assert!(base.validate("t").is_ok());
+    }
+
+    #[test]
+    fn round_trips_through_toml() {
+        let s = Scenario::default_bench();
+        let back = Scenario::from_toml_str(&s.to_toml_string(), "rt").unwrap();
+        assert_eq!(back, s);
+    }
+}

@@ -1,0 +1,533 @@
+//! The physical link simulator: from a [`Scenario`] to a time-ordered stream of TDC events, each
+//! with its ground truth beside it.
+//!
+//! Per slot the transmitter prepares a state ([`TxChoices`]); the pulse's detected photon number is
+//! Poisson(μη), each photon is routed independently through the passive receiver optics
+//! ([`optics`]), and photons meeting on one detector at one arrival position make a single click
+//! (threshold detectors). Clicks get Gaussian jitter and the channel's skew. Dark counts arrive
+//! uniformly in time on every detector, every registered click is followed by an afterpulse with
+//! probability p_ap after an exponential delay, and each detector ignores clicks within its
+//! non-paralysable dead time after a registered one. The channels are merged in time order and
+//! read out by a wrapping TDC counter.
+//!
+//! Slots are not visited one by one: the next slot with any detection is drawn by geometric
+//! skipping with the largest per-slot detection probability p_max = 1 − e^(−μ_max η), and kept
+//! with probability p(slot)/p_max (thinning; Lewis & Shedler, Naval Res. Logist. Q. 26, 403,
+//! 1979). Both steps are exact. Memory stays bounded: only clicks not yet emitted are held.
+
+pub mod clock;
+pub mod model;
+pub mod optics;
+pub mod rng;
+pub mod tx;
+
+pub use clock::TxClock;
+pub use model::{channel_model, ChannelModel, IntensityModel};
+pub use optics::{
+    channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, receiver_gates, GateSpec,
+};
+pub use tx::{SimTransmitter, TxChoice, TxChoices};
+
+use crate::scenario::Scenario;
+use rng::{splitmix_at, stream_key, Stream};
+use slotwise::fixed::types::U32F32;
+use slotwise::{FixedClock, TdcEvent};
+use std::cmp::Ordering;
+use std::collections::BinaryHeap;
+use std::fmt;
+
+/// Stream number of the slot-skipping draws.
+const STREAM_SKIP: u64 = 2;
+/// Stream number whose outputs key the per-slot photon draws.
+const STREAM_PHOTONS: u64 = 3;
+/// First stream number of the per-detector dark counts.
+const STREAM_DARK: u64 = 16;
+/// First stream number of the per-detector afterpulses.
+const STREAM_AFTERPULSE: u64 = 48;
+
+/// What caused a click.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
+pub enum Kind {
+    /// A photon of a transmitted pulse.
+    Signal = 0,
+    /// A dark count.
+    Dark = 1,
+    /// An afterpulse of an earlier registered click.
+    Afterpulse = 2,
+}
+
+/// Ground truth of one emitted detection (never fed to the core).
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Truth {
+    /// True arrival time since the capture start, ps (skew and jitter included).
+    pub true_t_ps: f64,
+    /// Slot whose pulse caused the click; `None` for dark counts and afterpulses.
+    pub slot: Option<u64>,
+    /// What caused the click.
+    pub kind: Kind,
+}
+
+/// One detection: the TDC event and its ground truth.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SimEvent {
+    /// What the TDC reports.
+    pub event: TdcEvent,
+    /// What really happened.
+    pub truth: Truth,
+}
+
+/// Counters of what the simulator generated and where it went (indices by [`Kind`]).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct SimStats {
+    /// Slots in the run.
+    pub slots: u64,
+    /// Candidate slots drawn by geometric skipping.
+    pub candidate_slots: u64,
+    /// Slots with at least one detected photon (after thinning).
+    pub detected_pulses: u64,
+    /// Detected photons (before merging into clicks).
+    pub photons: u64,
+    /// Clicks generated, per kind.
+    pub generated: [u64; 3],
+    /// Clicks lost to dead time, per kind.
+    pub dead_time_lost: [u64; 3],
+    /// Clicks emitted as TDC events, per kind.
+    pub emitted: [u64; 3],
+    /// Afterpulses that would fall after the end of the run (not generated).
+    pub afterpulses_after_end: u64,
+}
+
+#[derive(Clone, Copy, Debug)]
+struct Candidate {
+    t_ps: f64,
+    detector: u8,
+    kind: Kind,
+    slot: Option<u64>,
+}
+
+impl PartialEq for Candidate {
+    fn eq(&self, other: &Self) -> bool {
+        self.cmp(other) == Ordering::Equal
+    }
+}
+impl Eq for Candidate {}
+impl PartialOrd for Candidate {
+    fn partial_cmp(&self, other: &Self) -> Option<Ordering> {
+        Some(self.cmp(other))
+    }
+}
+impl Ord for Candidate {
+    /// Reversed, so that `BinaryHeap` pops the earliest click first.
+    fn cmp(&self, other: &Self) -> Ordering {
+        other
+            .t_ps
+            .total_cmp(&self.t_ps)
+            .then(other.detector.cmp(&self.detector))
+            .then(other.kind.cmp(&self.kind))
+            .then(other.slot.cmp(&self.slot))
+    }
+}
+
+/// The streaming link simulator; iterate it (or call [`Simulator::next_block`]) for events in
+/// time order.
+#[derive(Clone, Debug)]
+pub struct Simulator {
+    scenario: Scenario,
+    tx: TxChoices,
+    clock: TxClock,
+    slots: u64,
+    end_ps: f64,
+    /// μ·η per intensity class.
+    mean_detected: Vec<f64>,
+    /// μ_max·η.
+    mean_max: f64,
+    skews_ps: Vec<f64>,
+    dead_ps: f64,
+    ap_mean_ps: f64,
+    dark_mean_ps: Option<f64>,
+    tdc_mask: u64,
+    /// Next candidate slot of the photon process.
+    next_slot: u64,
+    /// No photon click from `next_slot` onwards can come earlier than this, ps.
+    frontier_ps: f64,
+    earliest_offset_ps: f64,
+    skip_rng: Stream,
+    photon_key: u64,
+    dark_rng: Vec<Stream>,
+    ap_rng: Vec<Stream>,
+    last_registered_ps: Vec<f64>,
+    heap: BinaryHeap<Candidate>,
+    stats: SimStats,
+    /// Scratch for merging the photons of one pulse into clicks.
+    hits: Vec<optics::Hit>,
+}
+
+impl Simulator {
+    /// A simulator at the start of the run (the scenario must be valid).
+    pub fn new(s: &Scenario) -> Self {
+        let clock = TxClock::from_scenario(s);
+        let slots = s.slots();
+        let eta = s.eta();
+        let mean_detected: Vec<f64> = s.intensities.iter().map(|mu| mu * eta).collect();
+        let mean_max = mean_detected.iter().copied().fold(0.0, f64::max);
+        let channels = channels(s);
+        let skews_ps = s.delays_ps().iter().map(|&d| d as f64).collect();
+        let mut sim = Self {
+            tx: TxChoices::new(s),
+            end_ps: clock.slot_start_ps(slots),
+            clock,
+            slots,
+            mean_detected,
+            mean_max,
+            skews_ps,
+            dead_ps: s.dead_time_ns * 1e3,
+            ap_mean_ps: s.afterpulse_delay_ns * 1e3,
+            dark_mean_ps: (s.dark_count_hz > 0.0).then(|| 1e12 / s.dark_count_hz),
+            tdc_mask: if s.tdc_bits >= 64 {
+                u64::MAX
+            } else {
+                (1u64 << s.tdc_bits) - 1
+            },
+            next_slot: 0,
+            frontier_ps: 0.0,
+            earliest_offset_ps: earliest_click_offset_ps(s),
+            skip_rng: Stream::new(s.seed, STREAM_SKIP),
+            photon_key: stream_key(s.seed, STREAM_PHOTONS),
+            dark_rng: (0..channels)
+                .map(|d| Stream::new(s.seed, STREAM_DARK + u64::from(d)))
+                .collect(),
+            ap_rng: (0..channels)
+                .map(|d| Stream::new(s.seed, STREAM_AFTERPULSE + u64::from(d)))
+                .collect(),
+            last_registered_ps: vec![f64::NEG_INFINITY; usize::from(channels)],
+            heap: BinaryHeap::new(),
+            stats: SimStats {
+                slots,
+                ..SimStats::default()
+            },
+            hits: Vec::new(),
+            scenario: s.clone(),
+        };
+        for d in 0..channels {
+            sim.schedule_dark(d, 0.0);
+        }
+        sim.next_slot = sim.skip_from(0);
+        sim.update_frontier();
+        sim
+    }
+
+    /// The scenario being simulated.
+    pub fn scenario(&self) -> &Scenario {
+        &self.scenario
+    }
+
+    /// Number of slots in the run.
+    pub fn slots(&self) -> u64 {
+        self.slots
+    }
+
+    /// True time at which the run ends (start of slot `slots()`), ps.
+    pub fn end_ps(&self) -> f64 {
+        self.end_ps
+    }
+
+    /// The transmitter clock in use.
+    pub fn clock(&self) -> &TxClock {
+        &self.clock
+    }
+
+    /// What has been generated so far.
+    pub fn stats(&self) -> &SimStats {
+        &self.stats
+    }
+
+    /// Clear `out` and fill it with up to `max` events; returns how many (0 at the end).
+    pub fn next_block(&mut self, out: &mut Vec<SimEvent>, max: usize) -> usize {
+        out.clear();
+        while out.len() < max {
+            match self.next_event() {
+                Some(e) => out.push(e),
+                None => break,
+            }
+        }
+        out.len()
+    }
+
+    /// First slot ≥ `from` whose geometric skip lands (p_max per slot).
+    fn skip_from(&mut self, from: u64) -> u64 {
+        if self.mean_max <= 0.0 {
+            return u64::MAX;
+        }
+        // P(skip = g) = (1 − p_max)^g·p_max with ln(1 − p_max) = −μ_max·η.
+        let g = (-self.skip_rng.uniform_nonzero().ln() / self.mean_max).floor();
+        if g >= (self.slots - from.min(self.slots)) as f64 {
+            u64::MAX
+        } else {
+            from + g as u64
+        }
+    }
+
+    fn update_frontier(&mut self) {
+        self.frontier_ps = if self.next_slot < self.slots {
+            self.clock.slot_start_ps(self.next_slot) + self.earliest_offset_ps
+        } else {
+            f64::INFINITY
+        };
+    }
+
+    /// Handle the candidate slot `next_slot`: thin it, generate its clicks, draw the next one.
+    fn advance_photons(&mut self) {
+        let k = self.next_slot;
+        self.stats.candidate_slots += 1;
+        let choice = self.tx.choice(k);
+        let mean = self
+            .mean_detected
+            .get(usize::from(choice.intensity))
+            .copied()
+            .unwrap_or(0.0);
+        let keep = -(-mean).exp_m1() / -(-self.mean_max).exp_m1();
+        if self.skip_rng.uniform() < keep {
+            self.emit_pulse(k, choice, mean);
+        }
+        self.next_slot = self.skip_from(k + 1);
+        self.update_frontier();
+    }
+
+    fn emit_pulse(&mut self, k: u64, choice: TxChoice, mean: f64) {
+        self.stats.detected_pulses += 1;
+        let (encoding, p_z, e_d) = (
+            self.scenario.encoding,
+            self.scenario.p_z,
+            self.scenario.misalignment,
+        );
+        let jitter_ps = self.scenario.jitter_ps;
+        let mut rng = Stream::from_state(splitmix_at(self.photon_key, k));
+        let n = rng.poisson_nonzero(mean);
+        self.stats.photons += u64::from(n);
+        self.hits.clear();
+        for _ in 0..n {
+            let h = optics::route(encoding, p_z, e_d, choice, &mut rng);
+            if !self.hits.contains(&h) {
+                self.hits.push(h);
+            }
+        }
+        self.hits.sort_unstable();
+        let start = self.clock.slot_start_ps(k);
+        let period = self.clock.period_at_ps(start);
+        for i in 0..self.hits.len() {
+            let Some(h) = self.hits.get(i).copied() else {
+                continue;
+            };
+            let skew = self
+                .skews_ps
+                .get(usize::from(h.detector))
+                .copied()
+                .unwrap_or(0.0);
+            let jitter = jitter_ps * rng.normal();
+            let pos = optics::position_fraction(encoding, h.pos) * period;
+            self.push(Candidate {
+                t_ps: start + pos + skew + jitter,
+                detector: h.detector,
+                kind: Kind::Signal,
+                slot: Some(k),
+            });
+        }
+    }
+
+    fn push(&mut self, c: Candidate) {
+        if let Some(g) = self.stats.generated.get_mut(c.kind as usize) {
+            *g += 1;
+        }
+        self.heap.push(c);
+    }
+
+    fn schedule_dark(&mut self, d: u8, after_ps: f64) {
+        let Some(mean) = self.dark_mean_ps else {
+            return;
+        };
+        let Some(rng) = self.dark_rng.get_mut(usize::from(d)) else {
+            return;
+        };
+        let t = after_ps + rng.exponential(mean);
+        if t < self.end_ps {
+            self.push(Candidate {
+                t_ps: t,
+                detector: d,
+                kind: Kind::Dark,
+                slot: None,
+            });
+        }
+    }
+
+    /// The next detection in time order, or `None` at the end of the run.
+    pub fn next_event(&mut self) -> Option<SimEvent> {
+        loop {
+            while self.next_slot < self.slots
+                && self.heap.peek().is_none_or(|c| self.frontier_ps <= c.t_ps)
+            {
+                self.advance_photons();
+            }
+            let c = self.heap.pop()?;
+            let d = usize::from(c.detector);
+            if c.kind == Kind::Dark {
+                self.schedule_dark(c.detector, c.t_ps);
+            }
+            let last = self
+                .last_registered_ps
+                .get(d)
+                .copied()
+                .unwrap_or(f64::NEG_INFINITY);
+            if c.t_ps < last + self.dead_ps {
+                if let Some(x) = self.stats.dead_time_lost.get_mut(c.kind as usize) {
+                    *x += 1;
+                }
+                continue;
+            }
+            if let Some(l) = self.last_registered_ps.get_mut(d) {
+                *l = c.t_ps;
+            }
+            self.maybe_afterpulse(c);
+            if let Some(x) = self.stats.emitted.get_mut(c.kind as usize) {
+                *x += 1;
+            }
+            return Some(SimEvent {
+                event: TdcEvent {
+                    count: self.tdc_count(c.t_ps),
+                    channel: c.detector,
+                },
+                truth: Truth {
+                    true_t_ps: c.t_ps,
+                    slot: c.slot,
+                    kind: c.kind,
+                },
+            });
+        }
+    }
+
+    fn maybe_afterpulse(&mut self, c: Candidate) {
+        let p = self.scenario.afterpulse_prob;
+        let mean = self.ap_mean_ps;
+        let Some(rng) = self.ap_rng.get_mut(usize::from(c.detector)) else {
+            return;
+        };
+        if p <= 0.0 || !rng.bernoulli(p) {
+            return;
+        }
+        let t = c.t_ps + rng.exponential(mean);
+        if t < self.end_ps {
+            self.push(Candidate {
+                t_ps: t,
+                detector: c.detector,
+                kind: Kind::Afterpulse,
+                slot: None,
+            });
+        } else {
+            self.stats.afterpulses_after_end += 1;
+        }
+    }
+
+    /// Unbounded TDC tick count at true time `t_ps`: start + floor(t / resolution).
+    fn ticks(&self, t_ps: f64) -> u128 {
+        let res = f64::from(self.scenario.tdc_resolution_ps);
+        u128::from(self.scenario.tdc_start_ticks) + (t_ps.max(0.0) / res).floor() as u128
+    }
+
+    /// The counter value the TDC reports at true time `t_ps`.
+    pub fn tdc_count(&self, t_ps: f64) -> u64 {
+        (self.ticks(t_ps) as u64) & self.tdc_mask
+    }
+}
+
+impl Iterator for Simulator {
+    type Item = SimEvent;
+
+    fn next(&mut self) -> Option<SimEvent> {
+        self.next_event()
+    }
+}
+
+/// Why the true clock cannot be expressed on the core's time base.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum ClockTruthError {
+    /// The counter wrapped between slot 0 and the first event: slot 0 starts before the time base.
+    SlotZeroBeforeTimeBase,
+    /// The period lies outside what the core's clock accepts.
+    PeriodOutOfRange,
+}
+
+impl fmt::Display for ClockTruthError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::SlotZeroBeforeTimeBase => write!(
+                f,
+                "the TDC counter wraps between slot 0 and the first event; move tdc_start_ticks"
+            ),
+            Self::PeriodOutOfRange => write!(f, "slot period outside 2 ps ..= 2^31 ps"),
+        }
+    }
+}
+
+impl std::error::Error for ClockTruthError {}
+
+/// Where the transmitter's slot grid lies on the time base the core builds from a capture.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ClockTruth {
+    /// Slot period at slot 0, ps (offset included, drift not).
+    pub period_ps: f64,
+    /// Start of slot 0 on the core's unwrapped time base (first event's raw count taken as-is,
+    /// times the resolution), ps.
+    pub origin_ps_unwrapped: u64,
+    /// Start of slot 0 in true time since the capture start, ps.
+    pub origin_true_ps: f64,
+    /// Raw counter value of the first event, if there is one.
+    pub first_count: Option<u64>,
+    /// Counter wraps before the first event.
+    pub wraps_before_first: u64,
+    period_q32: U32F32,
+}
+
+impl ClockTruth {
+    /// The core's fixed clock for this grid (exact for drift 0; with drift the grid walks away
+    /// by ½·drift·t² of a slot).
+    pub fn fixed_clock(&self) -> FixedClock {
+        FixedClock::new(self.period_q32, self.origin_ps_unwrapped)
+            .unwrap_or_else(|e| panic!("period checked when the truth was built: {e}"))
+    }
+}
+
+/// The true slot grid on the core's time base for this scenario's capture.
+///
+/// The core's unwrapper starts from the first event's raw count, so the base is the unbounded tick
+/// count minus the wraps that happened before the first event; this runs the simulator up to its
+/// first event to find them.
+pub fn clock_truth(s: &Scenario) -> Result<ClockTruth, ClockTruthError> {
+    let mut sim = Simulator::new(s);
+    let first = sim.next_event();
+    let bits = u32::from(s.tdc_bits);
+    let res = i128::from(s.tdc_resolution_ps);
+    let (first_count, wraps) = match first {
+        Some(e) => (Some(e.event.count), sim.ticks(e.truth.true_t_ps) >> bits),
+        None => (None, 0),
+    };
+    let origin_true_ps = sim.clock().start_ps();
+    let base_ticks = i128::from(s.tdc_start_ticks) - ((wraps as i128) << bits);
+    let origin = base_ticks * res + origin_true_ps.round() as i128;
+    let origin_ps_unwrapped =
+        u64::try_from(origin).map_err(|_| ClockTruthError::SlotZeroBeforeTimeBase)?;
+    let period_ps = sim.clock().initial_period_ps();
+    let period_q32 =
+        U32F32::checked_from_num(period_ps).ok_or(ClockTruthError::PeriodOutOfRange)?;
+    FixedClock::new(period_q32, origin_ps_unwrapped)
+        .map_err(|_| ClockTruthError::PeriodOutOfRange)?;
+    Ok(ClockTruth {
+        period_ps,
+        origin_ps_unwrapped,
+        origin_true_ps,
+        first_count,
+        wraps_before_first: wraps as u64,
+        period_q32,
+    })
+}
+
+#[cfg(test)]
+mod tests;
