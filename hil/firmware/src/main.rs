@@ -122,7 +122,7 @@ fn run() -> Result<(), i32> {
     );
 
     let mut r: heapless::String<2048> = heapless::String::new();
-    let lines: [(&str, u64); 24] = [
+    let lines: [(&str, u64); 25] = [
         ("detections", totals.detections),
         ("blocks", totals.blocks),
         ("push_counts", meter.total),
@@ -141,6 +141,12 @@ fn run() -> Result<(), i32> {
         (
             "event_buffer_bytes",
             (BLOCK * core::mem::size_of::<TdcEvent>()) as u64,
+        ),
+        // What the recovered clock would add, with the host replay's capacities (not yet run
+        // here: the board build uses the configured clock).
+        (
+            "recovered_clock_bytes",
+            core::mem::size_of::<slotwise::RecoveredClock<2048, 8, 2>>() as u64,
         ),
         ("pending_capacity", slotwise_hil::PENDING as u64),
         ("key_bits_per_block", slotwise_hil::KEY_BITS as u64),

@@ -337,6 +337,7 @@ fn compare(
     line["receiver_bytes"] = json!(receiver);
     line["frame_out_bytes"] = json!(frame_out);
     line["sifted_bits"] = json!(num(&report, "sifted_bits")?);
+    line["recovered_clock_bytes"] = json!(num(&report, "recovered_clock_bytes").ok());
     line["replay_problems"] = json!(replay_bad);
     if let Some(e) = &decode_error {
         line["error"] = json!(e);
