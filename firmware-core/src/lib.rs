@@ -26,6 +26,8 @@
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
 //! 7. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
 //! 8. [`accounting`] — every detection ends in exactly one counter.
+//! 9. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//!    COBS-stuffed records for the post-processing host.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
 //!
@@ -50,6 +52,7 @@
 pub mod accounting;
 pub mod acquire;
 pub mod clock;
+pub mod frames;
 pub mod gates;
 mod log;
 pub mod receiver;
@@ -64,6 +67,7 @@ pub use acquire::fold::ArrivalPattern;
 pub use acquire::{AcquireConfig, AcquireParams, AcquiredLock, Acquirer};
 pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
 pub use fixed;
+pub use frames::{FrameOut, FrameSink};
 pub use gates::{Basis, Gate, GateTable, Lookup};
 pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
 pub use recovered::{RecoveredClock, RecoveredConfig};

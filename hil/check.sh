@@ -1,0 +1,170 @@
+#!/usr/bin/env bash
+# The HIL check: the slotwise core built as firmware for a Cortex-M4F and a RISC-V soft core, run
+# under QEMU on two captures, and compared frame by frame with the same core on the host.
+#
+# Prints one JSON line per target x capture and exits non-zero on any mismatch, on a firmware
+# that does not finish, or on a fault handler that does not exit with its own code. Installs the
+# rustup targets, llvm-tools and QEMU when they are missing. Regenerates size-report.txt and
+# shows how it changed (a changed size is reported, not a failure).
+set -euo pipefail
+cd "$(dirname "$0")"
+HIL="$(pwd)"
+TARGETS=(thumbv7em-none-eabihf riscv32imc-unknown-none-elf)
+RUNS="${HIL_RUN_DIR:-$HIL/target/hil-runs}"
+export HIL_QEMU_TIMEOUT="${HIL_QEMU_TIMEOUT:-120}"
+
+step() { printf '\n== hil: %s\n' "$*"; }
+as_root() { if [ "$(id -u)" = 0 ]; then "$@"; else sudo "$@"; fi; }
+
+step "tools"
+installed="$(rustup target list --installed 2>/dev/null || true)"
+for t in "${TARGETS[@]}"; do
+  grep -qx "$t" <<<"$installed" || rustup target add "$t"
+done
+rustup component list --installed 2>/dev/null | grep -q '^llvm-tools' || rustup component add llvm-tools
+if ! command -v qemu-system-arm >/dev/null || ! command -v qemu-system-riscv32 >/dev/null; then
+  as_root apt-get update
+  as_root env DEBIAN_FRONTEND=noninteractive apt-get install -y --no-install-recommends \
+    qemu-system-arm qemu-system-misc
+fi
+qemu-system-arm --version | head -1
+LLVM_SIZE="$(find "$(rustc --print sysroot)" -name llvm-size -type f | head -1)"
+[ -n "$LLVM_SIZE" ] || { echo "llvm-size not found in the toolchain" >&2; exit 1; }
+
+step "format and lints"
+cargo fmt --all -- --check
+cargo clippy -p slotwise-hil -p slotwise-hil-host --all-targets -- -D warnings
+for t in "${TARGETS[@]}"; do
+  cargo clippy -p slotwise-hil-firmware --target "$t" --release -- -D warnings
+done
+
+step "tests (shared driver)"
+cargo test -p slotwise-hil
+
+step "build"
+cargo build --release -p slotwise-hil-host
+for t in "${TARGETS[@]}"; do
+  cargo build --release -p slotwise-hil-firmware --target "$t"
+done
+HOST_TOOL="$HIL/target/release/hil-host"
+failures=0
+# The defmt build has its own target dir so it never replaces the measured binaries. A failure
+# is counted, and the rest of the check still runs.
+defmt_built=1
+if ! cargo build --release -p slotwise-hil-firmware --target thumbv7em-none-eabihf \
+  --features defmt --target-dir target/defmt; then
+  echo "the defmt build of the firmware failed (see above)" >&2
+  defmt_built=0
+  failures=$((failures + 1))
+fi
+elf() { echo "$HIL/target/$1/release/slotwise-hil-firmware"; }
+profile_elf() { echo "$HIL/target/$1/release/slotwise-hil-profile"; }
+
+step "fault handlers exit with their own code"
+for t in "${TARGETS[@]}"; do
+  d="$RUNS/fault-exit-$t"
+  rm -rf "$d" && mkdir -p "$d" && touch "$d/fault.trigger"
+  set +e
+  ./qemu-run.sh "$(elf "$t")" "$d" >/dev/null 2>&1
+  rc=$?
+  set -e
+  if [ "$rc" = 71 ]; then echo "$t: exit 71 as expected"; else
+    echo "$t: fault exit code $rc, expected 71" >&2; failures=$((failures + 1)); fi
+done
+
+step "captures"
+declare -A SLOTS=([default]=20000000 [fault]=10000000)
+for c in default fault; do
+  "$HOST_TOOL" prepare --capture "$c" --slots "${SLOTS[$c]}" --out "$RUNS/$c"
+  echo "$c: $(cat "$RUNS/$c/host-summary.json")"
+done
+
+step "QEMU runs, compared with the host byte for byte"
+results=()
+for t in "${TARGETS[@]}"; do
+  for c in default fault; do
+    d="$RUNS/$t-$c"
+    rm -rf "$d" && mkdir -p "$d"
+    cp "$RUNS/$c"/{setup.bin,events.bin,answers.bin,frames-host.bin} "$d/"
+    set +e
+    ./qemu-run.sh "$(elf "$t")" "$d" >"$d/qemu-stdout.txt" 2>"$d/qemu-stderr.txt"
+    rc=$?
+    line="$("$HOST_TOOL" compare --dir "$d" --target "$t" --capture "$c" --elf "$(elf "$t")" \
+      --qemu-exit "$rc")"
+    cmp_rc=$?
+    set -e
+    echo "$line"
+    results+=("$line")
+    if [ "$cmp_rc" != 0 ]; then
+      failures=$((failures + 1))
+      echo "  mismatch or failure; QEMU stderr:" >&2
+      sed 's/^/    /' "$d/qemu-stderr.txt" >&2
+    fi
+  done
+done
+
+step "where the instructions go (default capture)"
+for t in "${TARGETS[@]}"; do
+  d="$RUNS/$t-profile"
+  rm -rf "$d" && mkdir -p "$d" && cp "$RUNS/default"/{setup.bin,events.bin} "$d/"
+  full="$(printf '%s\n' "${results[@]}" | grep "\"target\":\"$t\"" | grep '"capture":"default"' |
+    sed -n 's/.*"instructions_per_detection":\([0-9.]*\).*/\1/p')"
+  if ./qemu-run.sh "$(profile_elf "$t")" "$d" >/dev/null 2>&1; then
+    "$HOST_TOOL" profile --dir "$d" --target "$t" ${full:+--full "$full"}
+  else
+    echo "$t: profile run failed" >&2; failures=$((failures + 1))
+  fi
+done
+
+step "defmt logs"
+if [ "$defmt_built" = 1 ]; then
+  d="$RUNS/defmt"
+  rm -rf "$d" && mkdir -p "$d" && cp "$RUNS/fault"/{setup.bin,events.bin,answers.bin} "$d/"
+  DEFMT_ELF="$HIL/target/defmt/thumbv7em-none-eabihf/release/slotwise-hil-firmware"
+  set +e
+  ./qemu-run.sh "$DEFMT_ELF" "$d" >"$d/defmt.bin"
+  rc=$?
+  set -e
+  if [ "$rc" != 0 ]; then
+    echo "defmt firmware exited with $rc" >&2; failures=$((failures + 1))
+  elif command -v defmt-print >/dev/null; then
+    defmt-print -e "$DEFMT_ELF" stdin <"$d/defmt.bin"
+  else
+    echo "defmt-print not installed: the defmt build ran ($(wc -c <"$d/defmt.bin") bytes of" \
+      "frames in $d/defmt.bin); 'cargo install defmt-print --locked' to decode them"
+  fi
+else
+  echo "skipped: the defmt build failed"
+fi
+
+step "size report"
+size_line() {
+  # Allocated sections by kind; the stack and heap regions reserve RAM but are not program data.
+  "$LLVM_SIZE" -A "$(elf "$1")" | awk -v t="$1" '
+    $1 ~ /^\.(vector_table|text|rodata|srodata|init|trap|eh_frame|got)/ { text += $2 }
+    $1 ~ /^\.(data|sdata)/ { data += $2 }
+    $1 ~ /^\.(bss|sbss|uninit)/ { bss += $2 }
+    END { printf "%-30s %8d %8d %8d\n", t, text, data, bss }'
+}
+new="$(mktemp)"
+{
+  echo "# HIL firmware sizes in bytes (release build), regenerated by hil/check.sh."
+  echo "# text = code + read-only data + vector table; bss excludes the stack and heap regions."
+  printf '%-30s %8s %8s %8s\n' "# target" text data bss
+  for t in "${TARGETS[@]}"; do size_line "$t"; done
+} >"$new"
+if [ -f size-report.txt ] && ! diff -q size-report.txt "$new" >/dev/null; then
+  echo "size report changed:"
+  diff -u size-report.txt "$new" || true
+fi
+cp "$new" size-report.txt && rm -f "$new"
+cat size-report.txt
+
+step "budgets (reported, not enforced)"
+printf '%s\n' "${results[@]}" | "$HOST_TOOL" budgets
+
+if [ "$failures" != 0 ]; then
+  step "FAILED: $failures problem(s)"
+  exit 1
+fi
+step "all HIL checks passed"

@@ -1,0 +1,188 @@
+use crate::setup::MAX_SETUP_LEN;
+use crate::transport::{decode_event, encode_event, RecordReader, ANSWER_LEN, NOT_REVEALED};
+use crate::*;
+use slotwise::fixed::types::{U0F32, U32F32};
+use slotwise::{
+    Announcement, Basis, Gate, GateTable, OverflowPolicy, TdcEvent, Transmitter, UnwrapConfig,
+};
+
+fn setup() -> Setup {
+    let g = |channel, a: f64, b: f64, basis, bit| Gate {
+        channel,
+        start: U0F32::from_num(a),
+        end: U0F32::from_num(b),
+        basis,
+        bit,
+    };
+    Setup {
+        tdc: UnwrapConfig::new(48, 4).unwrap(),
+        gates: GateTable::new(
+            &[0, -1230],
+            &[
+                g(0, 0.1, 0.2, Basis::Z, 0),
+                g(0, 0.6, 0.7, Basis::Z, 1),
+                g(1, 0.3, 0.4, Basis::X, 1),
+            ],
+        )
+        .unwrap(),
+        period_ps: U32F32::from_num(9999.63),
+        origin_ps: 123_456_789,
+        intensities: 3,
+        answer_timeout_slots: 50_000,
+        overflow: OverflowPolicy::DropNewest,
+        squash_seed: 42,
+    }
+}
+
+fn encoded() -> Vec<u8> {
+    let mut b = vec![0u8; MAX_SETUP_LEN];
+    let n = setup().encode(&mut b).unwrap();
+    b.truncate(n);
+    b
+}
+
+/// Recompute the CRC after editing a field (to reach the checks behind the CRC).
+fn reseal(b: &mut [u8]) {
+    let n = b.len() - 4;
+    let crc = slotwise::frames::crc32c(&b[..n]).to_le_bytes();
+    b[n..].copy_from_slice(&crc);
+}
+
+#[test]
+fn setup_round_trip_and_documented_offsets() {
+    let b = encoded();
+    assert_eq!(b.len(), 46 + 8 * 2 + 11 * 3 + 4);
+    assert_eq!(&b[0..4], b"SWHL");
+    assert_eq!(b[5], 48);
+    assert_eq!(u32::from_le_bytes(b[6..10].try_into().unwrap()), 4);
+    assert_eq!(b[26], 3);
+    assert_eq!(b[35], 0);
+    assert_eq!(b[44], 2);
+    assert_eq!(i64::from_le_bytes(b[53..61].try_into().unwrap()), -1230);
+    assert_eq!(b[61], 3);
+    assert_eq!(Setup::decode(&b), Ok(setup()));
+}
+
+#[test]
+fn setup_errors_name_offset_and_field() {
+    let b = encoded();
+    assert_eq!(
+        Setup::decode(&b[..30]),
+        Err(SetupError::Truncated {
+            offset: 27,
+            field: "answer_timeout_slots"
+        })
+    );
+    let mut bad = b.clone();
+    bad[12] ^= 1;
+    assert_eq!(
+        Setup::decode(&bad),
+        Err(SetupError::BadCrc {
+            offset: b.len() - 4
+        })
+    );
+    let mut bad = b.clone();
+    bad[35] = 7;
+    reseal(&mut bad);
+    assert_eq!(
+        Setup::decode(&bad),
+        Err(SetupError::BadField {
+            offset: 35,
+            field: "overflow_policy"
+        })
+    );
+    let mut bad = b.clone();
+    bad[0] = b'X';
+    assert!(matches!(
+        Setup::decode(&bad),
+        Err(SetupError::BadField {
+            offset: 0,
+            field: "magic"
+        })
+    ));
+    // Gate 0's end before its start: refused by the core's gate table.
+    let mut bad = b.clone();
+    bad[67..71].copy_from_slice(&0u32.to_le_bytes());
+    reseal(&mut bad);
+    assert!(matches!(Setup::decode(&bad), Err(SetupError::Gates(_))));
+    let mut long = b.clone();
+    long.push(0);
+    assert_eq!(
+        Setup::decode(&long),
+        Err(SetupError::TrailingBytes { offset: b.len() })
+    );
+}
+
+#[test]
+fn record_layouts_by_hand() {
+    let ev = TdcEvent {
+        count: 0x0102_0304_0506_0708,
+        channel: 9,
+    };
+    assert_eq!(encode_event(&ev), [8, 7, 6, 5, 4, 3, 2, 1, 9]);
+    assert_eq!(decode_event(&encode_event(&ev)), ev);
+    let r = AnswerRecord {
+        slot: 0x1122,
+        basis: 1,
+        intensity: 2,
+        bit: NOT_REVEALED,
+    };
+    let b = r.encode();
+    assert_eq!(b, [0x22, 0x11, 0, 0, 0, 0, 0, 0, 1, 2, 0xFF]);
+    assert_eq!(AnswerRecord::decode(&b), r);
+    let a = r.answer().unwrap();
+    assert_eq!((a.basis, a.bit), (Basis::X, None));
+    assert_eq!(AnswerRecord::of(&a), r);
+    assert_eq!(AnswerRecord { basis: 2, ..r }.answer(), None);
+}
+
+#[test]
+fn a_stream_ending_inside_a_record_is_an_error() {
+    let bytes = [0u8; ANSWER_LEN + 5];
+    let mut rd = RecordReader::<&[u8], 16>::new(&bytes[..]);
+    assert!(matches!(rd.record::<ANSWER_LEN>(), Ok(Some(_))));
+    assert_eq!(
+        rd.record::<ANSWER_LEN>(),
+        Err(StreamError::PartialRecord {
+            offset: ANSWER_LEN as u64
+        })
+    );
+    let mut empty = RecordReader::<&[u8], 16>::new(&[][..]);
+    assert_eq!(empty.record::<ANSWER_LEN>(), Ok(None));
+}
+
+#[test]
+fn replay_counts_a_slot_mismatch_and_withholds_the_answer() {
+    let recs: Vec<u8> = [5u64, 9]
+        .iter()
+        .flat_map(|&slot| {
+            AnswerRecord {
+                slot,
+                basis: 0,
+                intensity: 0,
+                bit: 1,
+            }
+            .encode()
+        })
+        .collect();
+    let mut tx = ReplayTx::new(IoAnswers::new(&recs[..]));
+    tx.announce(Announcement {
+        slot: 5,
+        basis: Basis::Z,
+    });
+    assert_eq!(
+        tx.poll_answer().map(|a| (a.slot, a.bit)),
+        Some((5, Some(1)))
+    );
+    tx.announce(Announcement {
+        slot: 8,
+        basis: Basis::Z,
+    });
+    assert_eq!(tx.poll_answer(), None);
+    tx.announce(Announcement {
+        slot: 10,
+        basis: Basis::Z,
+    });
+    let s = *tx.stats();
+    assert_eq!((s.announced, s.mismatched, s.missing), (3, 1, 1));
+}

@@ -1,0 +1,352 @@
+//! `hil-host`: the host side of the HIL check.
+//!
+//! - `prepare` makes a capture, runs it through the core on the host (answering each
+//!   announcement and recording the answers), and writes the firmware's input files and the
+//!   host's frames into a run directory;
+//! - `compare` reads the firmware's frames and report from that directory after QEMU ran,
+//!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch.
+
+mod capture;
+mod synth;
+
+use capture::{check_stream, host_replay, split_frames, write_inputs, Capture};
+use clap::{Parser, Subcommand, ValueEnum};
+use serde_json::{json, Value};
+use std::collections::BTreeMap;
+use std::fs;
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+#[derive(Parser)]
+#[command(about = "Host side of the slotwise HIL check")]
+struct Cli {
+    #[command(subcommand)]
+    cmd: Cmd,
+}
+
+/// Where a capture comes from.
+#[derive(Clone, Copy, Debug, ValueEnum)]
+enum CaptureSource {
+    /// Synthetic bench link, clean.
+    Default,
+    /// Synthetic bench link with blackout, reordered neighbours, unknown channel, too-wide counts.
+    Fault,
+    // A capture recorded by `slotwise simulate` plugs in here: read its events and scenario
+    // with the simulator's capture reader, build the `Setup` from the scenario, and answer from
+    // the transmitter states the simulator recorded; then `capture::host_replay` as below.
+}
+
+#[derive(Subcommand)]
+enum Cmd {
+    /// Make a capture, replay it on the host, write the firmware inputs and the host's frames.
+    Prepare {
+        /// Which capture.
+        #[arg(long, value_enum)]
+        capture: CaptureSource,
+        /// Number of slots to simulate.
+        #[arg(long, default_value_t = 20_000_000)]
+        slots: u64,
+        /// Run directory to fill.
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Compare the firmware's frames with the host's and print one JSON line.
+    Compare {
+        /// Run directory (after QEMU).
+        #[arg(long)]
+        dir: PathBuf,
+        /// Target triple of the firmware.
+        #[arg(long)]
+        target: String,
+        /// Capture name for the report.
+        #[arg(long)]
+        capture: String,
+        /// The firmware ELF (for its flash image size).
+        #[arg(long)]
+        elf: PathBuf,
+        /// QEMU's exit code.
+        #[arg(long)]
+        qemu_exit: i32,
+    },
+    /// Read `compare` JSON lines on stdin and print each budget as met or missed.
+    Budgets,
+    /// Turn the firmware's stage-by-stage profile into one JSON line (instructions per event).
+    Profile {
+        /// Run directory of a profile run.
+        #[arg(long)]
+        dir: PathBuf,
+        /// Target triple of the firmware.
+        #[arg(long)]
+        target: String,
+        /// The full run's instructions per detection (from `compare`), for the replay share.
+        #[arg(long)]
+        full: Option<f64>,
+    },
+}
+
+/// Budgets of the board build (thumbv7em, default capture): name, JSON field, limit.
+const BUDGETS: [(&str, &str, f64); 3] = [
+    ("core state RAM, bytes", "ram_bytes", 16.0 * 1024.0),
+    ("flash image, bytes", "flash_bytes", 64.0 * 1024.0),
+    (
+        "instructions per detection",
+        "instructions_per_detection",
+        150.0,
+    ),
+];
+
+fn budgets() -> Result<bool, String> {
+    for line in std::io::stdin().lines() {
+        let line = line.map_err(|e| format!("stdin: {e}"))?;
+        let Ok(r) = serde_json::from_str::<Value>(&line) else {
+            continue;
+        };
+        let (Some(target), Some(capture)) = (r["target"].as_str(), r["capture"].as_str()) else {
+            continue;
+        };
+        for (name, field, limit) in BUDGETS {
+            let value = r[field].as_f64();
+            let verdict = match value {
+                Some(v) if v <= limit => "met",
+                Some(_) => "MISSED",
+                None => "not measured",
+            };
+            let shown = value.map_or("-".to_string(), |v| v.to_string());
+            let scope = if target.starts_with("thumbv7em") {
+                "budget"
+            } else {
+                "for reference"
+            };
+            println!("{target} {capture}: {name} {shown} ({scope} {limit}) {verdict}");
+        }
+    }
+    Ok(true)
+}
+
+fn main() -> ExitCode {
+    let result = match Cli::parse().cmd {
+        Cmd::Prepare {
+            capture,
+            slots,
+            out,
+        } => prepare(capture, slots, &out),
+        Cmd::Compare {
+            dir,
+            target,
+            capture,
+            elf,
+            qemu_exit,
+        } => compare(&dir, &target, &capture, &elf, qemu_exit),
+        Cmd::Budgets => budgets(),
+        Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
+    };
+    match result {
+        Ok(true) => ExitCode::SUCCESS,
+        Ok(false) => ExitCode::from(1),
+        Err(e) => {
+            eprintln!("hil-host: {e}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+fn prepare(source: CaptureSource, slots: u64, out: &Path) -> Result<bool, String> {
+    let mut cap: Capture = match source {
+        CaptureSource::Default => synth::capture(synth::Variant::Default, slots),
+        CaptureSource::Fault => synth::capture(synth::Variant::Fault, slots),
+    };
+    let host = host_replay(&mut cap).map_err(|e| format!("host replay: {e}"))?;
+    write_inputs(out, &cap, &host).map_err(|e| format!("{}: {e}", out.display()))?;
+    let s = &host.summary;
+    let acc: BTreeMap<_, _> = s.accounting.fields().into_iter().collect();
+    let line = json!({
+        "capture": cap.name,
+        "detections": s.detections_in,
+        "sifted_bits": s.sifted_bits,
+        "frames": host.frames.frames,
+        "accounting": acc,
+        "answers": host.answers.len(),
+        "answer_errors": {
+            "unmatched": s.answer_errors.unmatched,
+            "malformed": s.answer_errors.malformed,
+        },
+        "multi_click_events": {
+            "sifted": s.multi.sifted,
+            "basis_mismatch": s.multi.basis_mismatch,
+            "unanswered": s.multi.unanswered,
+            "cross_basis": s.multi.cross_basis,
+        },
+    });
+    fs::write(out.join("host-summary.json"), format!("{line}\n"))
+        .map_err(|e| format!("{}: {e}", out.display()))?;
+    if s.accounting.total() != s.detections_in {
+        return Err(format!(
+            "host accounting sums to {} for {} detections",
+            s.accounting.total(),
+            s.detections_in
+        ));
+    }
+    Ok(true)
+}
+
+/// The firmware's `key value` report lines.
+fn read_report(path: &Path) -> Result<BTreeMap<String, String>, String> {
+    let text = fs::read_to_string(path).map_err(|e| format!("{}: {e}", path.display()))?;
+    let mut m = BTreeMap::new();
+    for (i, line) in text.lines().enumerate() {
+        let (k, v) = line
+            .split_once(' ')
+            .ok_or_else(|| format!("{}: line {}: no value", path.display(), i + 1))?;
+        m.insert(k.to_string(), v.to_string());
+    }
+    Ok(m)
+}
+
+fn num(report: &BTreeMap<String, String>, key: &str) -> Result<u64, String> {
+    report
+        .get(key)
+        .ok_or_else(|| format!("report-fw.txt: field {key} missing"))?
+        .parse()
+        .map_err(|e| format!("report-fw.txt: field {key}: {e}"))
+}
+
+/// Bytes a programmer writes to flash: the file contents of the ELF's PT_LOAD segments.
+fn flash_image_bytes(elf: &Path) -> Result<u64, String> {
+    let b = fs::read(elf).map_err(|e| format!("{}: {e}", elf.display()))?;
+    let bad = |what: &str| format!("{}: {what}", elf.display());
+    if b.len() < 52 || &b[..4] != b"\x7fELF" || b[4] != 1 || b[5] != 1 {
+        return Err(bad("not a little-endian ELF32 file"));
+    }
+    let u16_at = |o: usize| u16::from_le_bytes([b[o], b[o + 1]]) as usize;
+    let u32_at = |o: usize| u32::from_le_bytes([b[o], b[o + 1], b[o + 2], b[o + 3]]);
+    let phoff = u32_at(28) as usize;
+    let (phentsize, phnum) = (u16_at(42), u16_at(44));
+    if phoff + phentsize * phnum > b.len() || phentsize < 32 {
+        return Err(bad("program headers past the end of the file"));
+    }
+    Ok((0..phnum)
+        .map(|i| phoff + i * phentsize)
+        .filter(|&o| u32_at(o) == 1)
+        .map(|o| u64::from(u32_at(o + 16)))
+        .sum())
+}
+
+fn profile(dir: &Path, target: &str, full: Option<f64>) -> Result<bool, String> {
+    let p = read_report(&dir.join("profile-fw.txt"))?;
+    let n = |k: &str| -> Result<f64, String> {
+        let v = p
+            .get(k)
+            .ok_or_else(|| format!("profile-fw.txt: field {k} missing"))?;
+        v.parse::<f64>()
+            .map_err(|e| format!("profile-fw.txt: field {k}: {e}"))
+    };
+    // Instructions per counter unit, from the firmware's loop of known length.
+    let scale = n("calib_instructions")? / n("calib_counts")?.max(1.0);
+    let events = n("events")?;
+    let per =
+        |k: &str| -> Result<f64, String> { Ok((n(k)? * scale / events * 10.0).round() / 10.0) };
+    let receiver = per("receiver_echo_tx_null_sink_counts")?;
+    let with_frames = per("receiver_echo_tx_frames_counts")?;
+    let stages =
+        per("unwrap_counts")? + per("delay_and_locate_counts")? + per("gate_lookup_counts")?;
+    let line = json!({
+        "target": target,
+        "profile": "instructions per event, default capture",
+        "unwrap": per("unwrap_counts")?,
+        "delay_and_locate": per("delay_and_locate_counts")?,
+        "gate_lookup": per("gate_lookup_counts")?,
+        "slots_sifting_tally": ((receiver - stages) * 10.0).round() / 10.0,
+        "receiver_total": receiver,
+        "frame_out": ((with_frames - receiver) * 10.0).round() / 10.0,
+        "frame_out_per_sifted_bit": (n("frame_out_sifted_only_counts")? * scale
+            / n("sifted_bits_echo")? * 10.0).round() / 10.0,
+        "answer_replay": full.map(|f| ((f - with_frames) * 10.0).round() / 10.0),
+    });
+    println!("{line}");
+    Ok(true)
+}
+
+fn compare(
+    dir: &Path,
+    target: &str,
+    capture: &str,
+    elf: &Path,
+    qemu_exit: i32,
+) -> Result<bool, String> {
+    let read = |name: &str| fs::read(dir.join(name)).map_err(|e| format!("{name}: {e}"));
+    let host = read("frames-host.bin")?;
+    let flash = flash_image_bytes(elf)?;
+    let mut line = json!({
+        "target": target,
+        "capture": capture,
+        "qemu_exit": qemu_exit,
+        "flash_bytes": flash,
+        "instructions_acquisition": Value::Null,
+    });
+    if qemu_exit != 0 {
+        line["error"] = json!(format!("firmware exited with code {qemu_exit}"));
+        println!("{line}");
+        return Ok(false);
+    }
+    let fw = read("frames-fw.bin")?;
+    let report = read_report(&dir.join("report-fw.txt"))?;
+    let hf = split_frames(&host);
+    let ff = split_frames(&fw);
+    let mismatched = (0..hf.len().max(ff.len()))
+        .filter(|&i| hf.get(i).map(|f| f.1) != ff.get(i).map(|f| f.1))
+        .count();
+    let host_summary = check_stream("frames-host.bin", &host)?;
+    let decode_error = check_stream("frames-fw.bin", &fw).err();
+    let detections = num(&report, "detections")?;
+    let calib_instr = num(&report, "calib_instructions")? as f64;
+    let calib_counts = num(&report, "calib_counts")? as f64;
+    let per_count = if calib_counts > 0.0 {
+        calib_instr / calib_counts
+    } else {
+        0.0
+    };
+    let push = num(&report, "push_counts")? as f64 * per_count;
+    let ipd = if detections > 0 {
+        push / detections as f64
+    } else {
+        0.0
+    };
+    let receiver = num(&report, "receiver_bytes")?;
+    let frame_out = num(&report, "frame_out_bytes")?;
+    let replay_bad = [
+        "replay_mismatched",
+        "replay_missing",
+        "replay_bad_records",
+        "replay_queue_full",
+        "replay_io_errors",
+        "answers_unused",
+        "frame_write_errors",
+        "frame_build_errors",
+    ]
+    .iter()
+    .map(|k| num(&report, k))
+    .sum::<Result<u64, String>>()?;
+    line["detections"] = json!(detections);
+    line["frames"] = json!(ff.len());
+    line["host_frames"] = json!(hf.len());
+    line["mismatched_frames"] = json!(mismatched);
+    line["instructions_per_detection"] = json!((ipd * 10.0).round() / 10.0);
+    line["instructions_per_count"] = json!((per_count * 1000.0).round() / 1000.0);
+    line["counter"] = json!(report.get("counter"));
+    line["ram_bytes"] = json!(receiver + frame_out);
+    line["receiver_bytes"] = json!(receiver);
+    line["frame_out_bytes"] = json!(frame_out);
+    line["sifted_bits"] = json!(num(&report, "sifted_bits")?);
+    line["recovered_clock_bytes"] = json!(num(&report, "recovered_clock_bytes").ok());
+    line["replay_problems"] = json!(replay_bad);
+    if let Some(e) = &decode_error {
+        line["error"] = json!(e);
+    }
+    println!("{line}");
+    let ok = mismatched == 0
+        && hf.len() == ff.len()
+        && decode_error.is_none()
+        && replay_bad == 0
+        && detections == host_summary.detections_in;
+    Ok(ok)
+}
