@@ -59,7 +59,7 @@ use fold::{ArrivalPattern, Fold};
 
 /// A confirmed acquisition: the slot grid and the evidence for it.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+// No defmt::Format: the fixed-point fields have none.
 pub struct AcquiredLock {
     /// Period estimate in ps (Q32.32).
     pub period_ps: U32F32,

@@ -312,7 +312,9 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             trace.stage = Stage::OutsideGates;
             return trace;
         };
-        if pos.slot < self.next_open_slot {
+        // A reordered neighbour from a slot before the open one cannot reopen it: the queue and
+        // the announcements stay in slot order.
+        if pos.slot < self.next_open_slot || self.open.is_some_and(|o| pos.slot < o.slot) {
             self.accounting.late += 1;
             trace.stage = Stage::Late;
             return trace;

@@ -60,7 +60,7 @@ impl core::error::Error for RecoveredConfigError {}
 
 /// Validated settings of a recovered clock.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+// No defmt::Format: the fixed-point fields have none.
 pub struct RecoveredConfig {
     acquire: AcquireConfig,
     track: TrackConfig,

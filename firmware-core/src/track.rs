@@ -54,7 +54,7 @@ use fixed::types::{U0F32, U0F64, U32F32};
 
 /// Tracking settings before validation.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+// No defmt::Format: the fixed-point fields have none.
 pub struct TrackParams {
     /// Loop noise bandwidth B_n in mHz.
     pub bandwidth_mhz: u32,
@@ -126,7 +126,7 @@ impl core::error::Error for TrackConfigError {}
 
 /// Validated tracking settings with the loop gains.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+// No defmt::Format: the fixed-point fields have none.
 pub struct TrackConfig {
     p: TrackParams,
     k1: u64,

@@ -169,3 +169,29 @@ fn answers_in_any_order_and_bad_answers_are_counted() {
     // Z0 detected, Z1 sent: both are errors in the Z basis, intensity 1.
     assert_eq!(rx.tally().qber_ppm(Basis::Z, Some(1)), Some(1_000_000));
 }
+
+#[test]
+fn reordered_neighbour_before_the_open_slot_is_late_not_reopened() {
+    let mut rx = receiver::<8>(OverflowPolicy::DropNewest);
+    let mut tx = ManualTx::default();
+    let mut bits = Bits::default();
+    // Slots 5, 7, then 6 (arrived after 7), then 9.
+    let events = [ev(5_150, 0), ev(7_150, 0), ev(6_150, 0), ev(9_150, 0)];
+    rx.push_block(&events, &mut tx, &mut bits);
+    let slots: Vec<u64> = tx.announced.iter().map(|a| a.slot).collect();
+    assert_eq!(slots, vec![5, 7]);
+    assert_eq!(rx.accounting().late, 1);
+    for s in [5, 7] {
+        rx.answer(
+            Answer {
+                slot: s,
+                basis: Basis::Z,
+                intensity: 0,
+                bit: Some(0),
+            },
+            &mut bits,
+        );
+    }
+    assert_eq!(rx.answer_errors().unmatched, 0);
+    assert_eq!(rx.accounting().sifted, 2);
+}

@@ -301,7 +301,11 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     )?);
     let tx_clock = sim::TxClock::from_scenario(&s);
     let truth_period = |t_s: f64| tx_clock.period_at_ps(tx_clock.start_ps() + t_s * 1e12);
-    files.extend(plots::clock_series(&a.out, &res.buckets, Some(&truth_period))?);
+    files.extend(plots::clock_series(
+        &a.out,
+        &res.buckets,
+        Some(&truth_period),
+    )?);
     files.extend(plots::qber_and_rate(
         &a.out,
         &res.buckets,

@@ -2,9 +2,9 @@
 //! collect what a person debugging the link wants to see — the summary, time series for plots,
 //! the fold profile, and optionally a per-detection trace.
 
+use crate::clocks::HostClock;
 use serde::Serialize;
 use slotwise::fixed::types::U0F32;
-use crate::clocks::HostClock;
 use slotwise::{
     Basis, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, Stage, TdcEvent, Trace,
     Transmitter,

@@ -1,10 +1,10 @@
 //! The JSON summary of a run: where every detection went, sifted bits, QBER, the clock, and (for
 //! simulated runs) the truth to compare against.
 
+use crate::clocks::LockReport;
 use crate::replay::SessionResult;
 use serde::Serialize;
 use slotwise::gates::MAX_INTENSITIES;
-use crate::clocks::LockReport;
 use slotwise::{Basis, Tally, Transmitter};
 use std::collections::BTreeMap;
 
@@ -184,10 +184,9 @@ pub fn summarize<T: Transmitter>(
             }
         },
         phase_residual_rms_ps: {
-            let (n, ss) = res
-                .buckets
-                .iter()
-                .fold((0u64, 0.0), |(n, s), b| (n + b.residual.0, s + b.residual.1));
+            let (n, ss) = res.buckets.iter().fold((0u64, 0.0), |(n, s), b| {
+                (n + b.residual.0, s + b.residual.1)
+            });
             (n > 0).then(|| (ss / n as f64).sqrt())
         },
         truth: truth_qber.map(|(qz, qx)| Truth {

@@ -6,7 +6,7 @@ use fixed::types::{U0F32, U32F32};
 
 /// Acquisition settings before validation (plain integers and fixed-point values).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+// No defmt::Format: the fixed-point fields have none.
 pub struct AcquireParams {
     /// Nominal slot period T0 in ps (Q32.32).
     pub nominal_period_ps: U32F32,
@@ -80,7 +80,7 @@ impl core::error::Error for AcquireConfigError {}
 
 /// Validated acquisition settings.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+// No defmt::Format: the fixed-point fields have none.
 pub struct AcquireConfig {
     pub(crate) p: AcquireParams,
     pub(crate) nu0: u64,
