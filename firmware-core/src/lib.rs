@@ -12,12 +12,14 @@
 //!    monotonic picosecond time base; slightly reordered neighbours are handled.
 //! 2. [`clock`] — the slot grid: period in Q32.32 ps and a phase origin map each delay-corrected
 //!    time to a slot index and a position in the slot (Q0.32 fraction), division-free.
-//! 3. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
+//! 3. [`frame`] — frame alignment: a public marker (every 64th slot, vacuum or a Z pulse by two
+//!    m-sequences) gives the transmitter's absolute slot numbers; marker slots are never sifted.
+//! 4. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
 //!    express time-bin and polarization receivers alike.
-//! 4. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
+//! 5. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
-//! 5. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
-//! 6. [`accounting`] — every detection ends in exactly one counter.
+//! 6. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
+//! 7. [`accounting`] — every detection ends in exactly one counter.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
 //!
@@ -41,6 +43,7 @@
 
 pub mod accounting;
 pub mod clock;
+pub mod frame;
 pub mod gates;
 mod log;
 pub mod receiver;
@@ -51,6 +54,7 @@ pub mod timestamps;
 pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
 pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
 pub use fixed;
+pub use frame::{AlignState, FrameAligner, FrameConfig, MarkerSpec, MarkerState, SlotHint};
 pub use gates::{Basis, Gate, GateTable, Lookup};
 pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
 pub use sift::{

@@ -21,7 +21,11 @@ impl Transmitter for ManualTx {
         if self.auto {
             self.ready.push_back(Answer {
                 slot: a.slot,
-                basis: if a.slot % 2 == 0 { Basis::Z } else { Basis::X },
+                basis: if a.slot.is_multiple_of(2) {
+                    Basis::Z
+                } else {
+                    Basis::X
+                },
                 intensity: 0,
                 bit: Some(0),
             });

@@ -31,7 +31,7 @@ impl Transmitter for LagTx {
     fn announce(&mut self, a: Announcement) {
         self.announced += 1;
         let h = mix(a.slot);
-        if h % 11 != 0 {
+        if !h.is_multiple_of(11) {
             self.waiting.push_back(Answer {
                 slot: a.slot,
                 basis: if h & 2 == 0 { Basis::Z } else { Basis::X },
