@@ -18,14 +18,14 @@
 //! 2. **Search**: on the candidate residue, one counter per cyclic shift of each sequence counts
 //!    the detections that shift contradicts (a detection where it predicts vacuum; a Z bit other
 //!    than the one it predicts). The m-sequence's two-valued autocorrelation (Golomb 1967) makes
-//!    every wrong shift contradict half of the true pulses. A shift φ is accepted when
-//!    `gain·V₂ − loss·V_φ ≥ search_bits + log2 N` (bits), V_φ its count and V₂ the next lowest.
-//!    That score is a lower bound on log2 of a likelihood ratio whose value at the ends of the
-//!    sequence's periods is a non-negative supermartingale whenever φ is not better than its
-//!    rival, so by Ville's inequality (Ville 1939 [from memory]) a wrong φ is ever accepted with
-//!    probability at most (N − 1)·2^−(search_bits + log2 N) < 2^−search_bits, however long the
-//!    search runs; tests run only at period ends for that reason. `docs/marker.md` has the
-//!    derivation and numbers.
+//!    every wrong shift contradict half of the true pulses. A shift φ with count V_φ is accepted
+//!    when `gain·V₂ − loss·V_φ ≥ search_bits + log2 N + 2` bits, V₂ being the next lowest count and
+//!    (gain, loss) = (log2 2(1−e), −log2 2e) for one of e = 1/16, 1/8, 1/4, 3/8 (the 2 extra bits
+//!    pay for trying four). The score bounds from below log2 of a likelihood ratio that, sampled
+//!    at the ends of the sequence's periods, is a non-negative supermartingale whenever φ is not
+//!    better than its rival; by Ville's inequality (Ville 1939 [from memory]) a wrong φ is ever
+//!    accepted with probability below 2^−search_bits, however long the search runs. Tests run
+//!    only at period ends for that reason. `docs/marker.md` has the derivation and numbers.
 //! 3. **Confirmation**: counters restart on fresh detections; each found shift must beat every
 //!    rival again by `confirm_bits` (the same bound with one fixed rival, the true shift, so a
 //!    wrong offset survives with probability at most 2^−confirm_bits). A rival winning by the
@@ -42,7 +42,7 @@ pub mod mseq;
 
 pub use aligner::{FrameAligner, StandardAligner};
 use core::fmt;
-use evidence::{ceil_log2, gcd, mod_inverse, Weights, ONE_BIT_Q16};
+use evidence::{ceil_log2, gcd, mod_inverse, Weights, GRID_BITS, ONE_BIT_Q16};
 use fixed::types::U0F16;
 pub use mseq::{Lfsr, Prbs, SeqBits, PRBS11, PRBS15, PRBS20, PRBS23, PRBS31, PRBS7, PRBS9};
 
@@ -60,8 +60,8 @@ pub const DEFAULT_SEARCH_BITS: u8 = 10;
 pub const DEFAULT_CONFIRM_BITS: u8 = 20;
 /// Default `monitor_bits`: CUSUM threshold (bits) of the misalignment check after lock.
 pub const DEFAULT_MONITOR_BITS: u8 = 20;
-/// Default share of marker-residue detections expected to contradict the true offset (darks,
-/// bit errors), as a Q0.16 fraction: 1/8.
+/// Default share of marker-slot detections expected after lock to contradict the marker (dark
+/// counts in vacuum slots, wrong Z bits), as a Q0.16 fraction: 1/8. Only the lock monitor uses it.
 pub const DEFAULT_NOISE_SHARE: U0F16 = U0F16::from_bits(8_192);
 
 /// Why a marker description or aligner configuration was refused.
@@ -252,7 +252,7 @@ const fn table(degree: u8) -> Option<SeqBits> {
     }
 }
 
-/// Validated aligner settings: the marker and the error budget of the tests.
+/// Validated aligner settings: the marker, the error budget of the tests and the monitor's model.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct FrameConfig {
@@ -265,8 +265,8 @@ pub struct FrameConfig {
 }
 
 impl FrameConfig {
-    /// Check the settings: search and confirmation error exponents (bits), the CUSUM threshold
-    /// (bits), and the expected share of marker-residue detections contradicting the truth.
+    /// Check the settings: search and confirmation error exponents (bits, 1..=40), the lock
+    /// monitor's CUSUM threshold (bits) and its expected share of contradicting detections.
     pub const fn new(
         spec: MarkerSpec,
         search_bits: u8,
@@ -319,19 +319,19 @@ impl FrameConfig {
         self.spec.is_marker_slot(abs_slot)
     }
 
-    /// The test weights (Q16 bits per event).
+    /// The lock monitor's CUSUM weights (Q16 bits per event).
     pub const fn weights(&self) -> Weights {
         self.weights
     }
 
     /// Search acceptance threshold for a sequence of period `n`, in Q16 bits.
     pub const fn search_threshold_q16(&self, n: u64) -> i64 {
-        (self.search_bits as i64 + ceil_log2(n) as i64) * ONE_BIT_Q16
+        (self.search_bits as i64 + ceil_log2(n) as i64 + GRID_BITS) * ONE_BIT_Q16
     }
 
     /// Confirmation threshold in Q16 bits.
     pub const fn confirm_threshold_q16(&self) -> i64 {
-        self.confirm_bits as i64 * ONE_BIT_Q16
+        (self.confirm_bits as i64 + GRID_BITS) * ONE_BIT_Q16
     }
 
     /// Misalignment CUSUM threshold in Q16 bits.
@@ -339,7 +339,7 @@ impl FrameConfig {
         self.monitor_bits as i64 * ONE_BIT_Q16
     }
 
-    /// Expected share of contradicting detections, Q0.16.
+    /// The monitor's expected share of contradicting detections, Q0.16.
     pub const fn noise_share(&self) -> U0F16 {
         U0F16::from_bits(self.noise_share_q16)
     }
@@ -438,5 +438,99 @@ impl FrameStats {
             marker_bits: 0,
             marker_bit_errors: 0,
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn standard_marker_is_valid() {
+        let s = MarkerSpec::new(MARKER_SPACING, INNER_DEGREE, Some(OUTER_DEGREE)).unwrap();
+        assert_eq!(MarkerSpec::standard(), s);
+        assert_eq!(s.period_slots(), MARKER_PERIOD_SLOTS);
+        assert_eq!(
+            (s.spacing(), s.inner_period(), s.outer_period()),
+            (64, 127, 511)
+        );
+        let c = FrameConfig::new(
+            s,
+            DEFAULT_SEARCH_BITS,
+            DEFAULT_CONFIRM_BITS,
+            DEFAULT_MONITOR_BITS,
+            DEFAULT_NOISE_SHARE,
+        )
+        .unwrap();
+        assert_eq!(FrameConfig::standard(), c);
+    }
+
+    #[test]
+    fn bad_parameters_are_named() {
+        assert_eq!(MarkerSpec::new(48, 7, None), Err(FrameError::Spacing(48)));
+        assert_eq!(MarkerSpec::new(4, 7, None), Err(FrameError::Spacing(4)));
+        assert_eq!(MarkerSpec::new(64, 8, None), Err(FrameError::Degree(8)));
+        assert_eq!(
+            MarkerSpec::new(64, 7, Some(11)),
+            Err(FrameError::Degree(11))
+        );
+        assert_eq!(
+            MarkerSpec::new(64, 7, Some(7)),
+            Err(FrameError::NotCoprime(7, 7))
+        );
+        let s = MarkerSpec::standard();
+        let share = DEFAULT_NOISE_SHARE;
+        assert_eq!(
+            FrameConfig::new(s, 0, 20, 20, share),
+            Err(FrameError::Bits("search_bits", 0))
+        );
+        assert_eq!(
+            FrameConfig::new(s, 10, 41, 20, share),
+            Err(FrameError::Bits("confirm_bits", 41))
+        );
+        assert_eq!(
+            FrameConfig::new(s, 10, 20, 20, U0F16::from_bits(30_000)),
+            Err(FrameError::NoiseShare(30_000))
+        );
+        let e = StandardAligner::new(FrameConfig::standard()).map(|_| ());
+        assert_eq!(e, Ok(()));
+        let small = FrameAligner::<64, 127, 255>::new(FrameConfig::standard()).map(|_| ());
+        assert_eq!(small, Err(FrameError::Capacity("N2", 511)));
+        let msg = format!("{}", FrameError::Capacity("N2", 511));
+        assert!(msg.contains("N2") && msg.contains("511"), "{msg}");
+    }
+
+    #[test]
+    fn chinese_remainder_round_trip() {
+        let s = MarkerSpec::standard();
+        for q in (0..127 * 511u64)
+            .step_by(97)
+            .chain([0, 1, 126, 127, 510, 511, 64_896])
+        {
+            assert_eq!(s.combine(q % 127, q % 511), q);
+        }
+        let inner_only = MarkerSpec::new(64, 9, None).unwrap();
+        assert_eq!(inner_only.combine(600, 0), 600 % 511);
+    }
+
+    #[test]
+    fn marker_states_follow_the_sequences() {
+        let s = MarkerSpec::standard();
+        let inner = SeqBits::new(PRBS7).unwrap();
+        let outer = SeqBits::new(PRBS9).unwrap();
+        for j in [0u64, 1, 2, 126, 127, 510, 511, 64_896, 64_897, 1 << 40] {
+            let expect = if inner.bit((j % 127) as usize) == 0 {
+                MarkerState::Vacuum
+            } else {
+                MarkerState::Pulse {
+                    z_bit: outer.bit((j % 511) as usize),
+                }
+            };
+            assert_eq!(s.state(j * 64), Some(expect), "marker slot {j}");
+            assert_eq!(s.state(j * 64 + 1), None);
+            assert!(s.is_marker_slot(j * 64) && !s.is_marker_slot(j * 64 + 63));
+        }
+        // Bit 0 of both sequences is 1 ^ 1 = 0 from the all-ones seed: slot 0 is vacuum.
+        assert_eq!(s.state(0), Some(MarkerState::Vacuum));
     }
 }

@@ -170,7 +170,10 @@ fn aligns_at_every_rate() {
             let offset = rng.next() >> 24;
             let mut s = Stream::new(Link::at(p), spec, offset, seed);
             let mut a = StandardAligner::new(FrameConfig::standard()).unwrap();
-            a.set_hint(hint(offset, (rng.next() % p_slots as u64) as i64 - p_slots / 2 + 1));
+            a.set_hint(hint(
+                offset,
+                (rng.next() % p_slots as u64) as i64 - p_slots / 2 + 1,
+            ));
             let n = run(&mut a, &mut s, 400_000, aligned);
             assert_eq!(
                 a.state(),
@@ -181,7 +184,7 @@ fn aligns_at_every_rate() {
             );
             for local in [0u64, 1, 63, 64, 1 << 40] {
                 assert_eq!(a.to_absolute(local), Some(local + offset));
-                assert_eq!(a.is_marker_local(local), Some((local + offset) % 64 == 0));
+                assert_eq!(a.is_marker_local(local), Some((local + offset).is_multiple_of(64)));
             }
             worst = worst.max(n);
             println!("{p:<8} {seed:<5} {offset:<15} {n}");

@@ -2,7 +2,7 @@
 //!
 //! See the parent module for the method and `docs/marker.md` for the numbers.
 
-use super::evidence::Weights;
+use super::evidence::grid_passes;
 use super::{AlignState, FrameConfig, FrameError, FrameStats, MarkerState, SeqBits, SlotHint};
 
 /// Mismatch counters of one sequence against all its cyclic shifts.
@@ -106,16 +106,15 @@ impl<const N: usize> Correlator<N> {
     }
 
     /// Search test: the lowest shift, if it beats the next lowest by `threshold_q16`.
-    fn accept(&self, w: &Weights, threshold_q16: i64) -> Option<u16> {
+    fn accept(&self, threshold_q16: i64) -> Option<u16> {
         if self.events == 0 {
             return None;
         }
-        let score = w.gain_q16 * i64::from(self.second) - w.loss_q16 * i64::from(self.best);
-        (score >= threshold_q16).then_some(self.best_at)
+        grid_passes(self.second, self.best, threshold_q16).then_some(self.best_at)
     }
 
     /// Confirmation test of a fixed `target` shift.
-    fn judge(&self, target: u16, w: &Weights, confirm_q16: i64, search_q16: i64) -> Verdict {
+    fn judge(&self, target: u16, confirm_q16: i64, search_q16: i64) -> Verdict {
         if self.events == 0 {
             return Verdict::Open;
         }
@@ -129,9 +128,9 @@ impl<const N: usize> Correlator<N> {
         } else {
             self.best
         };
-        if w.gain_q16 * i64::from(rival) - w.loss_q16 * i64::from(own) >= confirm_q16 {
+        if grid_passes(rival, own, confirm_q16) {
             Verdict::Pass
-        } else if self.best_at != target && self.accept(w, search_q16).is_some() {
+        } else if self.best_at != target && self.accept(search_q16).is_some() {
             Verdict::Fail
         } else {
             Verdict::Open
@@ -420,15 +419,14 @@ impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
         let Some(residue) = self.candidate else {
             return;
         };
-        let w = self.cfg.weights;
         let has_outer = self.cfg.spec.has_outer();
         if self.inner.found.is_none() && self.inner.crossed(slot) {
             let t = self.cfg.search_threshold_q16(self.cfg.spec.inner_period());
-            self.inner.found = self.inner.accept(&w, t);
+            self.inner.found = self.inner.accept(t);
         }
         if has_outer && self.outer.found.is_none() && self.outer.crossed(slot) {
             let t = self.cfg.search_threshold_q16(self.cfg.spec.outer_period());
-            self.outer.found = self.outer.accept(&w, t);
+            self.outer.found = self.outer.accept(t);
         }
         let outer = if has_outer { self.outer.found } else { Some(0) };
         if let (Some(inner), Some(outer)) = (self.inner.found, outer) {
@@ -474,12 +472,11 @@ impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
         if self.count_residue(slot) && self.candidate != Some(residue) {
             return self.fail(slot);
         }
-        let w = self.cfg.weights;
         let cq = self.cfg.confirm_threshold_q16();
         let has_outer = self.cfg.spec.has_outer();
         if self.inner.found.is_none() && self.inner.crossed(slot) {
             let sq = self.cfg.search_threshold_q16(self.cfg.spec.inner_period());
-            match self.inner.judge(inner, &w, cq, sq) {
+            match self.inner.judge(inner, cq, sq) {
                 Verdict::Pass => self.inner.found = Some(inner),
                 Verdict::Fail => return self.fail(slot),
                 Verdict::Open => {}
@@ -487,7 +484,7 @@ impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
         }
         if has_outer && self.outer.found.is_none() && self.outer.crossed(slot) {
             let sq = self.cfg.search_threshold_q16(self.cfg.spec.outer_period());
-            match self.outer.judge(outer, &w, cq, sq) {
+            match self.outer.judge(outer, cq, sq) {
                 Verdict::Pass => self.outer.found = Some(outer),
                 Verdict::Fail => return self.fail(slot),
                 Verdict::Open => {}
@@ -556,4 +553,98 @@ fn resolve(hint: SlotHint, offset_mod_period: u64, period: u64) -> Option<i64> {
         d -= p;
     }
     i64::try_from(approx + d).ok()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::super::{evidence::ONE_BIT_Q16, PRBS7};
+    use super::*;
+
+    struct Rng(u64);
+    impl Rng {
+        /// SplitMix64 (Steele, Lea, Flood, OOPSLA 2014).
+        fn next(&mut self) -> u64 {
+            self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+            let mut z = self.0;
+            z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+            z ^ (z >> 31)
+        }
+    }
+
+    /// Share of attempts in which a correlator fed `periods` periods of marker slots accepts a
+    /// shift: a detection with probability 1/2 in every marker slot (`signal` false), or in the
+    /// pulsed slots of shift 5 only (`signal` true); also whether every acceptance was shift 5.
+    fn acceptance(search_bits: i64, signal: bool, attempts: u64, periods: u64) -> (f64, bool) {
+        let seq = SeqBits::new(PRBS7).unwrap();
+        let thr = (search_bits + 7 + 2) * ONE_BIT_Q16;
+        let mut rng = Rng(search_bits as u64 + 1);
+        let (mut accepted, mut right) = (0, true);
+        for _ in 0..attempts {
+            let mut c = Correlator::<127>::new(127, 64 * 127);
+            c.reset(0);
+            'attempt: for j in 127..127 * periods {
+                let slot = 64 * j;
+                if c.crossed(slot) {
+                    if let Some(phi) = c.accept(thr) {
+                        accepted += 1;
+                        right &= phi == 5;
+                        break 'attempt;
+                    }
+                }
+                let on = seq.bit(((j + 5) % 127) as usize) == 1;
+                if (!signal || on) && rng.next() >> 63 == 1 {
+                    c.add(slot, (j % 127) as usize, &seq, 0);
+                }
+            }
+        }
+        (accepted as f64 / attempts as f64, right)
+    }
+
+    #[test]
+    fn pair_likelihood_ratio_obeys_ville() {
+        // Under noise (every marker slot alike) the likelihood ratio of shift 0 against shift 1,
+        // sampled at period ends, is a non-negative supermartingale starting at 1; Ville's
+        // inequality bounds the chance that it ever reaches 2^t by 2^-t. Step sizes of the
+        // 3/8 alternative are small, so the bound is nearly attained: the check is tight.
+        let seq = SeqBits::new(PRBS7).unwrap();
+        let w = super::super::evidence::GRID[3];
+        let mut rng = Rng(7);
+        for t in [2i64, 4] {
+            let (attempts, mut crossed) = (2_000, 0);
+            for _ in 0..attempts {
+                let (mut u, mut d) = (0i64, 0i64);
+                for j in 0..127 * 60u64 {
+                    if j % 127 == 0 && w.gain_q16 * u - w.loss_q16 * d >= t * ONE_BIT_Q16 {
+                        crossed += 1;
+                        break;
+                    }
+                    if rng.next() >> 62 != 0 {
+                        continue;
+                    }
+                    let m = (j % 127) as usize;
+                    match (seq.bit(m), seq.bit(m + 1)) {
+                        (1, 0) => u += 1,
+                        (0, 1) => d += 1,
+                        _ => {}
+                    }
+                }
+            }
+            let rate = f64::from(crossed) / f64::from(attempts);
+            let bound = 0.5f64.powi(t as i32);
+            println!("t = {t} bits: crossed {rate}, bound {bound}");
+            // Binomial slack of three standard deviations over 2000 attempts.
+            assert!(
+                rate <= bound + 3.0 * (bound / 2000.0).sqrt(),
+                "{rate} > {bound}"
+            );
+            assert!(rate > bound / 16.0, "bound far from tight: {rate}");
+        }
+    }
+
+    #[test]
+    fn search_accepts_the_right_shift_with_a_marker() {
+        let (rate, right) = acceptance(10, true, 50, 30);
+        assert!(rate == 1.0 && right, "{rate} {right}");
+    }
 }

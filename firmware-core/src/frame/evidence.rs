@@ -130,6 +130,27 @@ impl Weights {
     }
 }
 
+/// The alternatives the search and confirmation tests try at once: a share of 1/16, 1/8, 1/4 or
+/// 3/8 of contradicting events. A test passes when any of them reaches its threshold, which
+/// therefore carries [`GRID_BITS`] extra bits (union bound over the grid).
+pub const GRID: [Weights; 4] = [
+    Weights::for_share(4_096),
+    Weights::for_share(8_192),
+    Weights::for_share(16_384),
+    Weights::for_share(24_576),
+];
+
+/// log2 of the number of alternatives in [`GRID`].
+pub const GRID_BITS: i64 = 2;
+
+/// Whether `gain·for_count − loss·against_count` reaches `threshold_q16` for some weights of
+/// [`GRID`] (counts of events for and against the hypothesis).
+pub fn grid_passes(for_count: u16, against_count: u16, threshold_q16: i64) -> bool {
+    GRID.iter().any(|w| {
+        w.gain_q16 * i64::from(for_count) - w.loss_q16 * i64::from(against_count) >= threshold_q16
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
