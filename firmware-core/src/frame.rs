@@ -68,10 +68,10 @@ pub const DEFAULT_NOISE_SHARE: U0F16 = U0F16::from_bits(8_192);
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub enum FrameError {
-    /// `spacing` is not a power of two in 8..=4096.
+    /// Field `spacing` is not a power of two in 8..=4096.
     Spacing(u64),
-    /// No sequence table for this register length (`inner_degree`/`outer_degree`: 7 or 9).
-    Degree(u8),
+    /// No sequence table for this register length (field `inner_degree` or `outer_degree`; 7 or 9).
+    Degree(&'static str, u8),
     /// Inner and outer periods share a factor (the register lengths must be coprime).
     NotCoprime(u8, u8),
     /// A threshold field (`search_bits`, `confirm_bits`, `monitor_bits`) outside 1..=40.
@@ -85,8 +85,8 @@ pub enum FrameError {
 impl fmt::Display for FrameError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
-            Self::Spacing(d) => write!(f, "spacing {d}: must be a power of two in 8..=4096"),
-            Self::Degree(n) => write!(f, "degree {n}: sequence register length must be 7 or 9"),
+            Self::Spacing(d) => write!(f, "spacing = {d}: must be a power of two in 8..=4096"),
+            Self::Degree(field, n) => write!(f, "{field} = {n}: must be 7 or 9"),
             Self::NotCoprime(a, b) => {
                 write!(f, "inner degree {a} and outer degree {b} must be coprime")
             }
@@ -145,13 +145,13 @@ impl MarkerSpec {
             return Err(FrameError::Spacing(spacing));
         }
         let Some(inner) = table(inner_degree) else {
-            return Err(FrameError::Degree(inner_degree));
+            return Err(FrameError::Degree("inner_degree", inner_degree));
         };
         let (outer, inv) = match outer_degree {
             None => (None, 0),
             Some(deg) => {
                 let Some(t) = table(deg) else {
-                    return Err(FrameError::Degree(deg));
+                    return Err(FrameError::Degree("outer_degree", deg));
                 };
                 // gcd(2^a − 1, 2^b − 1) = 2^gcd(a, b) − 1.
                 let n1 = inner.len() as u64;
@@ -469,10 +469,13 @@ mod tests {
     fn bad_parameters_are_named() {
         assert_eq!(MarkerSpec::new(48, 7, None), Err(FrameError::Spacing(48)));
         assert_eq!(MarkerSpec::new(4, 7, None), Err(FrameError::Spacing(4)));
-        assert_eq!(MarkerSpec::new(64, 8, None), Err(FrameError::Degree(8)));
+        assert_eq!(
+            MarkerSpec::new(64, 8, None),
+            Err(FrameError::Degree("inner_degree", 8))
+        );
         assert_eq!(
             MarkerSpec::new(64, 7, Some(11)),
-            Err(FrameError::Degree(11))
+            Err(FrameError::Degree("outer_degree", 11))
         );
         assert_eq!(
             MarkerSpec::new(64, 7, Some(7)),

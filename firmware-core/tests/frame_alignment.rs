@@ -184,7 +184,10 @@ fn aligns_at_every_rate() {
             );
             for local in [0u64, 1, 63, 64, 1 << 40] {
                 assert_eq!(a.to_absolute(local), Some(local + offset));
-                assert_eq!(a.is_marker_local(local), Some((local + offset).is_multiple_of(64)));
+                assert_eq!(
+                    a.is_marker_local(local),
+                    Some((local + offset).is_multiple_of(64))
+                );
             }
             worst = worst.max(n);
             println!("{p:<8} {seed:<5} {offset:<15} {n}");

@@ -2,6 +2,7 @@
 //! firmware core, and the reports behind the `slotwise` command.
 #![allow(missing_docs)]
 
+pub mod marker;
 pub mod plots;
 pub mod replay;
 pub mod summary;
