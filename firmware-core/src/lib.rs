@@ -20,13 +20,15 @@
 //!    comes from configuration ([`FixedClock`]) or from the detections themselves
 //!    ([`recovered::RecoveredClock`]: acquisition and tracking with lock states and numbering
 //!    epochs).
-//! 5. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
+//! 5. [`frame`] — frame alignment: a public marker (every 64th slot, vacuum or a Z pulse by two
+//!    m-sequences) gives the transmitter's absolute slot numbers; marker slots are never sifted.
+//! 6. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
 //!    express time-bin and polarization receivers alike.
-//! 6. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
+//! 7. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
-//! 7. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
-//! 8. [`accounting`] — every detection ends in exactly one counter.
-//! 9. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
+//! 9. [`accounting`] — every detection ends in exactly one counter.
+//! 10. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
 //!    COBS-stuffed records for the post-processing host.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
@@ -52,6 +54,7 @@
 pub mod accounting;
 pub mod acquire;
 pub mod clock;
+pub mod frame;
 pub mod frames;
 pub mod gates;
 mod log;
@@ -67,6 +70,7 @@ pub use acquire::fold::ArrivalPattern;
 pub use acquire::{AcquireConfig, AcquireParams, AcquiredLock, Acquirer};
 pub use clock::{Clock, FixedClock, Located, SlotGrid, SlotPos};
 pub use fixed;
+pub use frame::{AlignState, FrameAligner, FrameConfig, MarkerSpec, MarkerState, SlotHint};
 pub use frames::{FrameOut, FrameSink};
 pub use gates::{Basis, Gate, GateTable, Lookup};
 pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
