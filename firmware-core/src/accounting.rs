@@ -18,6 +18,10 @@ pub struct Accounting {
     pub late: u64,
     /// On a known channel, outside every gate window.
     pub outside_gates: u64,
+    /// Gated while the clock was locked but the absolute numbering not yet established.
+    pub unaligned: u64,
+    /// In a marker slot (public, never sifted).
+    pub marker: u64,
     /// Part of a slot with two or more gated detections (resolved by the squashing rule).
     pub multi_click: u64,
     /// Single click whose basis matched the transmitter's: a sifted bit.
@@ -41,6 +45,8 @@ impl Accounting {
             no_clock: 0,
             late: 0,
             outside_gates: 0,
+            unaligned: 0,
+            marker: 0,
             multi_click: 0,
             sifted: 0,
             basis_mismatch: 0,
@@ -57,6 +63,8 @@ impl Accounting {
             + self.no_clock
             + self.late
             + self.outside_gates
+            + self.unaligned
+            + self.marker
             + self.multi_click
             + self.sifted
             + self.basis_mismatch
@@ -66,13 +74,15 @@ impl Accounting {
     }
 
     /// Counters as (name, value) pairs, in a fixed order, for reports.
-    pub const fn fields(&self) -> [(&'static str, u64); 11] {
+    pub const fn fields(&self) -> [(&'static str, u64); 13] {
         [
             ("rejected_time", self.rejected_time),
             ("rejected_channel", self.rejected_channel),
             ("no_clock", self.no_clock),
             ("late", self.late),
             ("outside_gates", self.outside_gates),
+            ("unaligned", self.unaligned),
+            ("marker", self.marker),
             ("multi_click", self.multi_click),
             ("sifted", self.sifted),
             ("basis_mismatch", self.basis_mismatch),

@@ -33,6 +33,18 @@ pub enum Located {
     NotLocked,
 }
 
+/// What the numbering stage says about a located, gated detection.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Numbered {
+    /// The transmitter's absolute slot number.
+    Slot(u64),
+    /// A marker slot: public, never sifted.
+    Marker,
+    /// The clock is locked but the absolute numbering is not yet established.
+    Unaligned,
+}
+
 /// The seam between the time base and the gates: maps a delay-corrected time to a slot.
 pub trait Clock {
     /// Locate a delay-corrected detection time `t_ps` on the slot grid.
@@ -43,6 +55,19 @@ pub trait Clock {
     fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
         let _ = channel;
         self.locate(t_ps)
+    }
+
+    /// Give a located, gated detection its absolute slot number; `z_bit` is its bit when the gate
+    /// is in the Z basis. The default: the clock's own numbering is already absolute.
+    fn number(&mut self, pos: SlotPos, z_bit: Option<u8>) -> Numbered {
+        let _ = z_bit;
+        Numbered::Slot(pos.slot)
+    }
+
+    /// A coarse hint from the classical channel: at receiver time `t_ps` the transmitter's slot
+    /// counter read about `tx_slot`. Clocks whose numbering is already absolute ignore it.
+    fn hint(&mut self, t_ps: u64, tx_slot: u64) {
+        let _ = (t_ps, tx_slot);
     }
 }
 

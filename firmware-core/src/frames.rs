@@ -29,7 +29,9 @@ pub const HEADER_LEN: usize = 6;
 /// Bytes of the CRC after the payload.
 pub const CRC_LEN: usize = 4;
 /// Number of u64 counters in a [`Summary`] payload.
-pub const SUMMARY_WORDS: usize = 2 + 11 + 5 + 2 + 2 * TALLY_WORDS + 2;
+pub const SUMMARY_WORDS: usize = 2 + ACCOUNTING_WORDS + 5 + 2 + 2 * TALLY_WORDS + 2;
+/// Words of the accounting block in a summary record (one per counter).
+pub const ACCOUNTING_WORDS: usize = 13;
 /// Bytes of a [`Summary`] payload.
 pub const SUMMARY_LEN: usize = 8 * SUMMARY_WORDS;
 /// Largest payload any record type uses, in bytes.
@@ -489,9 +491,9 @@ impl Summary {
         let mut next = || words.next().unwrap_or(0);
         let detections_in = next();
         let sifted_bits = next();
-        let mut a = [0u64; 11];
+        let mut a = [0u64; ACCOUNTING_WORDS];
         a.iter_mut().for_each(|v| *v = next());
-        let [rejected_time, rejected_channel, no_clock, late, outside_gates, multi_click, sifted, basis_mismatch, queue_overflow, unanswered, in_flight] =
+        let [rejected_time, rejected_channel, no_clock, late, outside_gates, unaligned, marker, multi_click, sifted, basis_mismatch, queue_overflow, unanswered, in_flight] =
             a;
         let multi = MultiClickEvents {
             sifted: next(),
@@ -515,6 +517,8 @@ impl Summary {
                 no_clock,
                 late,
                 outside_gates,
+                unaligned,
+                marker,
                 multi_click,
                 sifted,
                 basis_mismatch,

@@ -5,7 +5,7 @@
 //! [`Receiver::finish`]), announced to the [`Transmitter`], and resolved when answered.
 
 use crate::accounting::{Accounting, AnswerErrors, MultiClickEvents};
-use crate::clock::{Clock, Located};
+use crate::clock::{Clock, Located, Numbered, SlotPos};
 use crate::gates::{Basis, GateTable, Lookup, MAX_INTENSITIES};
 use crate::sift::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
@@ -112,6 +112,10 @@ pub enum Stage {
     OutsideGates,
     /// Its slot was already closed.
     Late,
+    /// Gated, but the absolute slot numbering is not yet established.
+    Unaligned,
+    /// In a marker slot.
+    Marker,
     /// In a gate; the slot's outcome follows when it is resolved.
     Gated,
 }
@@ -240,6 +244,12 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         self.pending.len()
     }
 
+    /// Pass a coarse hint from the classical channel to the clock: at receiver time `t_ps` (on
+    /// this receiver's time base) the transmitter's slot counter read about `tx_slot`.
+    pub fn hint(&mut self, t_ps: u64, tx_slot: u64) {
+        self.clock.hint(t_ps, tx_slot);
+    }
+
     /// Process a block of TDC events, then take any answers that have arrived.
     pub fn push_block(
         &mut self,
@@ -312,6 +322,22 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             trace.stage = Stage::OutsideGates;
             return trace;
         };
+        let z_bit = (g.basis == Basis::Z).then_some(g.bit);
+        let slot = match self.clock.number(pos, z_bit) {
+            Numbered::Slot(s) => s,
+            Numbered::Marker => {
+                self.accounting.marker += 1;
+                trace.stage = Stage::Marker;
+                return trace;
+            }
+            Numbered::Unaligned => {
+                self.accounting.unaligned += 1;
+                trace.stage = Stage::Unaligned;
+                return trace;
+            }
+        };
+        let pos = SlotPos { slot, ..pos };
+        trace.slot = Some((pos.slot, pos.phase));
         // A reordered neighbour from a slot before the open one cannot reopen it: the queue and
         // the announcements stay in slot order.
         if pos.slot < self.next_open_slot || self.open.is_some_and(|o| pos.slot < o.slot) {

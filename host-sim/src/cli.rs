@@ -78,7 +78,7 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
 pub struct ClockArgs {
     /// `recovered`: find period and phase from the detections (no clock cable);
     /// `reference`: use the scenario's true clock, as a link with a distributed reference would.
-    #[arg(long, value_enum, default_value_t = ClockMode::Reference)]
+    #[arg(long, value_enum, default_value_t = ClockMode::Recovered)]
     pub clock: ClockMode,
     /// Prior on the transmitter's period for recovery: nominal ± this many ppm (1..=1000).
     #[arg(long, default_value_t = 500)]
@@ -253,6 +253,8 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         true,
         None,
     )?;
+    let (hint_t, hint_slot) = clocks::simulated_hint(&s)?;
+    session.hint(hint_t, hint_slot);
     let mut writer = CaptureWriter::new(
         BufWriter::new(File::create(&cap_path)?),
         capture_header(&s)?,
@@ -403,6 +405,8 @@ pub fn replay_capture(
         false,
         trace,
     )?;
+    let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
+    session.hint(hint_t, hint_slot);
     let mut skipped = Vec::new();
     let pb = progress(size, "replaying");
     if path.extension().is_some_and(|e| e == "csv") {

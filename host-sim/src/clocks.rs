@@ -7,12 +7,20 @@ use crate::sim;
 use serde::Serialize;
 use slotwise::acquire::{AcquireConfig, AcquireParams};
 use slotwise::fixed::types::U32F32;
+use slotwise::frame::{FrameConfig, MarkerSpec};
 use slotwise::recovered::{RecoveredClock, RecoveredConfig};
 use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackParams};
-use slotwise::{Clock, FixedClock, GateTable, Located};
+use slotwise::{Clock, FixedClock, GateTable, Located, MarkedClock, Numbered, SlotPos};
 
 /// The recovered clock's shape on the host: 2048 stored detections, 8 candidates, Z²_2.
 pub type HostRecovered = RecoveredClock<2048, 8, 2>;
+
+/// The recovered clock with marker alignment, as the host runs it.
+pub type HostMarked = MarkedClock<2048, 8, 2>;
+
+/// Uncertainty of the simulated classical-channel hint (the transmitter's slot counter announced
+/// at link start), in seconds: the hint is off by this much worth of slots.
+pub const HINT_ERROR_S: f64 = 3e-4;
 
 /// Which clock the receiver uses.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum, Default)]
@@ -27,24 +35,38 @@ pub enum ClockMode {
 /// The clock stage as the host runs it.
 #[derive(Debug)]
 pub enum HostClock {
-    /// Fixed by configuration.
-    Reference(FixedClock),
-    /// Recovered from the data.
-    Recovered(Box<HostRecovered>),
+    /// Fixed by configuration; marker slots (when the scenario has a marker) are excluded.
+    Reference(FixedClock, Option<MarkerSpec>),
+    /// Recovered from the data and aligned to the transmitter's numbering by the marker.
+    Recovered(Box<HostMarked>),
 }
 
 impl Clock for HostClock {
     fn locate(&mut self, t_ps: u64) -> Located {
         match self {
-            Self::Reference(c) => c.locate(t_ps),
+            Self::Reference(c, _) => c.locate(t_ps),
             Self::Recovered(c) => c.locate(t_ps),
         }
     }
 
     fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
         match self {
-            Self::Reference(c) => c.locate_on(channel, t_ps),
+            Self::Reference(c, _) => c.locate_on(channel, t_ps),
             Self::Recovered(c) => c.locate_on(channel, t_ps),
+        }
+    }
+
+    fn number(&mut self, pos: SlotPos, z_bit: Option<u8>) -> Numbered {
+        match self {
+            Self::Reference(_, Some(m)) if m.is_marker_slot(pos.slot) => Numbered::Marker,
+            Self::Reference(c, _) => c.number(pos, z_bit),
+            Self::Recovered(c) => c.number(pos, z_bit),
+        }
+    }
+
+    fn hint(&mut self, t_ps: u64, tx_slot: u64) {
+        if let Self::Recovered(c) = self {
+            c.hint(t_ps, tx_slot);
         }
     }
 }
@@ -72,31 +94,27 @@ impl HostClock {
     /// The period the clock uses now, in ps (`None` while not locked).
     pub fn period_ps(&self) -> Option<f64> {
         match self {
-            Self::Reference(c) => Some(c.period_ps().to_num()),
-            Self::Recovered(c) => c.period_ps().map(|p| p.to_num()),
+            Self::Reference(c, _) => Some(c.period_ps().to_num()),
+            Self::Recovered(c) => c.recovered().period_ps().map(|p| p.to_num()),
         }
     }
 
     /// Whether the clock gives slots now.
     pub fn locked(&self) -> bool {
         match self {
-            Self::Reference(_) => true,
-            Self::Recovered(c) => c.state() == LockState::Locked,
+            Self::Reference(..) => true,
+            Self::Recovered(c) => c.recovered().state() == LockState::Locked,
         }
     }
 
     /// Lock counters (a reference clock is always locked).
     pub fn counters(&self) -> (u32, u32, u32, String) {
         match self {
-            Self::Reference(_) => (0, 0, 0, "reference".into()),
+            Self::Reference(..) => (0, 0, 0, "reference".into()),
             Self::Recovered(c) => {
-                let k = c.counters();
-                (
-                    k.losses,
-                    k.relocks,
-                    k.bridged,
-                    format!("{:?}", c.state()).to_lowercase(),
-                )
+                let k = c.recovered().counters();
+                let state = format!("{:?}", c.recovered().state()).to_lowercase();
+                (k.losses, k.relocks, k.bridged, state)
             }
         }
     }
@@ -122,7 +140,10 @@ pub fn build(
     prior_ppm: u32,
 ) -> Result<HostClock, Box<dyn std::error::Error>> {
     match mode {
-        ClockMode::Reference => Ok(HostClock::Reference(sim::clock_truth(s)?.fixed_clock())),
+        ClockMode::Reference => Ok(HostClock::Reference(
+            sim::clock_truth(s)?.fixed_clock(),
+            s.marker.then(MarkerSpec::standard),
+        )),
         ClockMode::Recovered => {
             let period = s.period_ps();
             let mut a = AcquireParams::new(U32F32::from_num(period), prior_ppm);
@@ -137,10 +158,40 @@ pub fn build(
             let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
             let t = TrackParams::new(b.max(1), rate_u, blackout_ps);
             let cfg = RecoveredConfig::new(AcquireConfig::new(a)?, TrackConfig::new(t)?, 20)?;
+            if !s.marker {
+                return Err(format!(
+                    "scenario '{}': the recovered clock needs the public marker to number slots \
+                     as the transmitter does (set `marker = true`, or use --clock reference)",
+                    s.name
+                )
+                .into());
+            }
             let pattern = slotwise::acquire::fold::ArrivalPattern::from_gates(gates);
-            Ok(HostClock::Recovered(Box::new(HostRecovered::new(
-                cfg, pattern,
+            let clock = HostRecovered::new(cfg, pattern)?;
+            Ok(HostClock::Recovered(Box::new(MarkedClock::new(
+                clock,
+                FrameConfig::standard(),
             )?)))
+        }
+    }
+}
+
+/// The simulated hello message of the classical channel: a receiver time (on the core's time
+/// base) and the transmitter's slot counter then, off by [`HINT_ERROR_S`] worth of slots.
+pub fn simulated_hint(s: &Scenario) -> Result<(u64, u64), Box<dyn std::error::Error>> {
+    let truth = sim::clock_truth(s)?;
+    let t_ps = truth.origin_ps_unwrapped.saturating_add(1_000_000_000);
+    let slots = (t_ps - truth.origin_ps_unwrapped) as f64 / truth.period_ps;
+    let error = HINT_ERROR_S * s.rep_rate_hz;
+    Ok((t_ps, (slots + error).max(0.0) as u64))
+}
+
+impl HostClock {
+    /// The marker aligner's state, when the clock is recovered.
+    pub fn alignment(&self) -> Option<slotwise::AlignState> {
+        match self {
+            Self::Reference(..) => None,
+            Self::Recovered(c) => Some(c.aligner().state()),
         }
     }
 }

@@ -171,6 +171,11 @@ impl<T: Transmitter> Session<T> {
         })
     }
 
+    /// Pass the classical channel's coarse hint to the core (see `Receiver::hint`).
+    pub fn hint(&mut self, t_ps: u64, tx_slot: u64) {
+        self.rx.hint(t_ps, tx_slot);
+    }
+
     /// Push one event (with the simulator's truth when known).
     pub fn push(&mut self, ev: TdcEvent, truth: Option<TruthTag>) {
         let tr = self.rx.push(ev, &mut self.tx, &mut self.sink);
@@ -335,6 +340,8 @@ pub fn stage_name(s: Stage) -> &'static str {
         Stage::NoClock => "no_clock",
         Stage::OutsideGates => "outside_gates",
         Stage::Late => "late",
+        Stage::Unaligned => "unaligned",
+        Stage::Marker => "marker",
         Stage::Gated => "gated",
     }
 }

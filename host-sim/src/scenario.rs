@@ -107,6 +107,14 @@ pub struct Scenario {
     /// 4.9 µs per km of fibre).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub start_offset_ps: Option<u64>,
+    /// Whether the transmitter embeds the public marker of `docs/marker.md` (default true): every
+    /// 64th slot is vacuum or a Z pulse at the signal intensity, and carries no key.
+    #[serde(default = "default_true")]
+    pub marker: bool,
+}
+
+fn default_true() -> bool {
+    true
 }
 
 /// A scenario that could not be read: which file, where, which key, and why.

@@ -128,6 +128,8 @@ fn summary_words_sit_at_documented_offsets() {
             no_clock: next(),
             late: next(),
             outside_gates: next(),
+            unaligned: next(),
+            marker: next(),
             multi_click: next(),
             sifted: next(),
             basis_mismatch: next(),
@@ -154,15 +156,15 @@ fn summary_words_sit_at_documented_offsets() {
     let mut p = [0u8; SUMMARY_LEN];
     assert_eq!(s.encode(&mut p), Ok(SUMMARY_LEN));
     let word = |k: usize| u64::from_le_bytes(p[8 * k..8 * k + 8].try_into().unwrap());
-    // docs/frames.md: words 0..20 are the counters in declaration order.
-    for k in 0..20 {
+    // docs/frames.md: words 0..22 are the counters in declaration order.
+    for k in 0..22 {
         assert_eq!(word(k), k as u64 + 1, "word {k}");
     }
-    // tally.counts[tx_basis][tx_bit][intensity][rx_basis][rx_bit], row-major, from word 20.
+    // tally.counts[tx_basis][tx_bit][intensity][rx_basis][rx_bit], row-major, from word 22.
     let (tx_basis, tx_bit, intensity, rx_basis, rx_bit) = (1, 0, 2, 0, 1);
     let idx = (((tx_basis * 2 + tx_bit) * 3 + intensity) * 2 + rx_basis) * 2 + rx_bit;
-    assert_eq!(word(20 + idx), 77);
-    assert_eq!(word(20 + 48 + 2 * 2 + 1), 88);
+    assert_eq!(word(22 + idx), 77);
+    assert_eq!(word(22 + 48 + 2 * 2 + 1), 88);
     assert_eq!(word(SUMMARY_WORDS - 2), 5);
     assert_eq!(word(SUMMARY_WORDS - 1), 6);
     assert_eq!(Summary::decode(&p), Ok(s));

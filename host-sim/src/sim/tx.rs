@@ -5,11 +5,15 @@
 
 use super::rng::{splitmix_at, stream_key, unit_f64};
 use crate::scenario::{Protocol, Scenario};
+use slotwise::frame::{MarkerSpec, MarkerState};
 use slotwise::{Announcement, Answer, Basis, Transmitter};
 use std::collections::VecDeque;
 
 /// Stream number of the transmitter's choices.
 pub const STREAM_TX: u64 = 1;
+
+/// Intensity index of a vacuum marker slot (no light; matches no intensity class).
+pub const MARKER_VACUUM: u8 = u8::MAX;
 
 /// The state prepared in one slot.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
@@ -25,6 +29,7 @@ pub struct TxChoice {
 /// The transmitter's random choices for every slot, computed on demand.
 #[derive(Clone, Debug, PartialEq)]
 pub struct TxChoices {
+    marker: Option<MarkerSpec>,
     key: u64,
     protocol: Protocol,
     p_z: f64,
@@ -45,6 +50,7 @@ impl TxChoices {
             })
             .collect();
         Self {
+            marker: s.marker.then(MarkerSpec::standard),
             key: stream_key(s.seed, STREAM_TX),
             protocol: s.protocol,
             p_z: s.p_z,
@@ -54,6 +60,23 @@ impl TxChoices {
 
     /// The state sent in slot `slot`.
     pub fn choice(&self, slot: u64) -> TxChoice {
+        match self.marker.and_then(|m| m.state(slot)) {
+            Some(MarkerState::Vacuum) => {
+                return TxChoice {
+                    basis: Basis::Z,
+                    bit: 0,
+                    intensity: MARKER_VACUUM,
+                }
+            }
+            Some(MarkerState::Pulse { z_bit: bit }) => {
+                return TxChoice {
+                    basis: Basis::Z,
+                    bit,
+                    intensity: 0,
+                }
+            }
+            None => {}
+        }
         let h = splitmix_at(self.key, slot);
         let u_basis = unit_f64(splitmix_at(h, 0));
         let bit = (splitmix_at(h, 1) >> 63) as u8;
@@ -87,9 +110,17 @@ impl TxChoices {
     }
 
     /// Number of slots of each intensity class among `slots` (index = class; unused classes 0).
+    /// Whether `slot` is a marker slot (never announced, never counted as sent key material).
+    pub fn is_marker_slot(&self, slot: u64) -> bool {
+        self.marker.is_some_and(|m| m.is_marker_slot(slot))
+    }
+
     pub fn count_sent(&self, slots: std::ops::Range<u64>) -> [u64; 3] {
         let mut n = [0u64; 3];
         for k in slots {
+            if self.is_marker_slot(k) {
+                continue;
+            }
             if let Some(c) = n.get_mut(usize::from(self.choice(k).intensity)) {
                 *c += 1;
             }
