@@ -331,7 +331,8 @@ impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
     }
 
     /// Take one detection: its slot on the receiver's numbering and, for a Z-basis gate, its bit.
-    /// Call it for every gated detection, in (nearly) increasing slot order.
+    /// Call it for every gated detection, in (nearly) increasing slot order; if the local
+    /// numbering restarts (clock re-acquired), call [`Self::restart`] first.
     pub fn observe(&mut self, local_slot: u64, z_bit: Option<u8>) {
         self.stats.observed += 1;
         self.last_slot = self.last_slot.max(local_slot);
