@@ -297,6 +297,20 @@ fn slips_after_lock_raise_misaligned() {
 }
 
 #[test]
+fn assumed_offsets_are_monitored() {
+    let spec = MarkerSpec::standard();
+    let offset = 77_777_777u64;
+    for (assumed, holds) in [(offset as i64, true), (offset as i64 - 64, false)] {
+        let mut s = Stream::new(Link::at(1e-3), spec, offset, 5);
+        let mut a = StandardAligner::new(FrameConfig::standard()).unwrap();
+        a.assume_offset(assumed);
+        assert_eq!(a.state(), AlignState::Aligned { offset: assumed });
+        let n = run(&mut a, &mut s, 100_000, |st| !aligned(st));
+        assert_eq!(n == 100_000, holds, "assumed {assumed}: {:?}", a.state());
+    }
+}
+
+#[test]
 fn hint_errors_below_half_a_period_resolve() {
     let spec = MarkerSpec::standard();
     let half = spec.period_slots() as i64 / 2;

@@ -179,6 +179,9 @@ pub struct FrameAligner<const D: usize, const N1: usize, const N2: usize> {
 /// The aligner sized for the standard marker: D = 64, PRBS7 inner, PRBS9 outer.
 pub type StandardAligner = FrameAligner<64, 127, 511>;
 
+// The standard aligner's whole state stays within 2 KiB on every target this builds for.
+const _: () = assert!(core::mem::size_of::<StandardAligner>() <= 2048);
+
 impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
     /// An aligner at the start of the search; fails if the capacities are below the marker's.
     pub const fn new(cfg: FrameConfig) -> Result<Self, FrameError> {
@@ -298,6 +301,23 @@ impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
         }
     }
 
+    /// Take an offset known by construction (`absolute = local + offset`), skipping the search;
+    /// the lock monitor still checks it against the marker.
+    pub fn assume_offset(&mut self, offset: i64) {
+        let spec = &self.cfg.spec;
+        let p = i128::from(spec.period_slots());
+        let offset_mod_period = i128::from(offset).rem_euclid(p) as u64;
+        let d = spec.spacing();
+        self.phase = Phase::Locked {
+            residue: ((d - offset_mod_period % d) % d) as u16,
+            offset_mod_period,
+            offset: Some(offset),
+        };
+        self.stats.locked_after = Some(self.stats.observed);
+        self.cusum_inner_q16 = 0;
+        self.cusum_outer_q16 = 0;
+    }
+
     /// Start a new search (after [`AlignState::Misaligned`]); the hint is kept.
     pub fn restart(&mut self) {
         self.residues.iter_mut().for_each(|c| *c = 0);
@@ -311,7 +331,8 @@ impl<const D: usize, const N1: usize, const N2: usize> FrameAligner<D, N1, N2> {
     }
 
     /// Take one detection: its slot on the receiver's numbering and, for a Z-basis gate, its bit.
-    /// Call it for every gated detection, in (nearly) increasing slot order.
+    /// Call it for every gated detection, in (nearly) increasing slot order; if the local
+    /// numbering restarts (clock re-acquired), call [`Self::restart`] first.
     pub fn observe(&mut self, local_slot: u64, z_bit: Option<u8>) {
         self.stats.observed += 1;
         self.last_slot = self.last_slot.max(local_slot);

@@ -182,7 +182,11 @@ mod tests {
 
     #[test]
     fn three_state_frequencies() {
-        let s = Scenario::default_bench();
+        // Key slots only: marker slots follow the public marker, not the protocol's choices.
+        let s = Scenario {
+            marker: false,
+            ..Scenario::default_bench()
+        };
         let c = TxChoices::new(&s);
         let n = 200_000u64;
         let (mut z0, mut z1, mut x0, mut x1, mut sig) = (0u64, 0u64, 0u64, 0u64, 0u64);
@@ -209,6 +213,24 @@ mod tests {
         );
         assert!(near(sig, 0.7), "{sig}");
         assert_eq!(c.count_sent(0..n)[0], sig);
+    }
+
+    #[test]
+    fn marker_slots_follow_the_public_marker() {
+        let s = Scenario::default_bench();
+        let c = TxChoices::new(&s);
+        let spec = MarkerSpec::standard();
+        for k in (0..200_000u64).step_by(64) {
+            let ch = c.choice(k);
+            match spec.state(k) {
+                Some(MarkerState::Vacuum) => assert_eq!(ch.intensity, MARKER_VACUUM),
+                Some(MarkerState::Pulse { z_bit }) => {
+                    assert_eq!((ch.basis, ch.bit, ch.intensity), (Basis::Z, z_bit, 0))
+                }
+                None => panic!("slot {k} should be a marker slot"),
+            }
+        }
+        assert_eq!(c.count_sent(0..64), c.count_sent(1..64));
     }
 
     #[test]
