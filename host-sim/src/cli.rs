@@ -4,7 +4,7 @@ use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWr
 use crate::clocks::{self, ClockMode, HostClock};
 use crate::csv_io;
 use crate::plots;
-use crate::replay::{Session, TraceRequest, TruthTag};
+use crate::replay::{Session, SessionResult, TraceRequest, TruthTag};
 use crate::scenario::Scenario;
 use crate::sim::{self, SimTransmitter, Simulator};
 use crate::summary::{summarize, Summary};
@@ -238,28 +238,35 @@ fn bucket_s(s: &Scenario) -> f64 {
     (s.duration_s / 50.0).max(1e-6)
 }
 
-fn demo(a: DemoArgs) -> Result<(), AnyErr> {
-    let s = load_scenario(a.scenario.as_deref(), a.duration_s)?;
-    std::fs::create_dir_all(&a.out)?;
-    let cap_path = a.out.join("demo.swcap");
+/// Simulate a scenario and push every detection through the core with the simulator's truth
+/// beside it; optionally write the capture too. The function behind `slotwise demo` and the
+/// end-to-end tests.
+pub fn run_simulated(
+    s: &Scenario,
+    clock: &ClockArgs,
+    capture: Option<&Path>,
+) -> Result<(Summary, SessionResult<SimTransmitter>), AnyErr> {
     let started = Instant::now();
-    let (cfg, clock) = receiver_setup(&s, &a.clock)?;
-    let truth = sim::clock_truth(&s)?;
+    let (cfg, host_clock) = receiver_setup(s, clock)?;
+    let truth = sim::clock_truth(s)?;
     let mut session = Session::new(
         cfg,
-        clock,
-        SimTransmitter::new(&s),
-        bucket_s(&s),
+        host_clock,
+        SimTransmitter::new(s),
+        bucket_s(s),
         true,
         None,
     )?;
-    let (hint_t, hint_slot) = clocks::simulated_hint(&s)?;
+    let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
-    let mut writer = CaptureWriter::new(
-        BufWriter::new(File::create(&cap_path)?),
-        capture_header(&s)?,
-    )?;
-    let mut simulator = Simulator::new(&s);
+    let mut writer = match capture {
+        Some(p) => Some(CaptureWriter::new(
+            BufWriter::new(File::create(p).map_err(|e| format!("{}: {e}", p.display()))?),
+            capture_header(s)?,
+        )?),
+        None => None,
+    };
+    let mut simulator = Simulator::new(s);
     let pb = progress(1000, "simulating");
     let mut block = Vec::with_capacity(4096);
     loop {
@@ -268,7 +275,9 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
             break;
         }
         for e in &block {
-            writer.push(e.event)?;
+            if let Some(w) = writer.as_mut() {
+                w.push(e.event)?;
+            }
             session.push(e.event, Some(TruthTag { slot: e.truth.slot }));
         }
         if let Some(last) = block.last() {
@@ -276,18 +285,27 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         }
     }
     pb.finish_and_clear();
-    writer.finish()?.flush()?;
+    if let Some(w) = writer {
+        w.finish()?.flush()?;
+    }
     let res = session.finish()?;
-    let secs = started.elapsed().as_secs_f64();
-    let model_qber = model_qber(&s);
     let summary = summarize(
         &s.name,
         &res,
         res.rx.clock().period_ps().unwrap_or(f64::NAN),
         Some(truth.period_ps),
-        Some(model_qber),
-        secs,
+        Some(model_qber(s)),
+        started.elapsed().as_secs_f64(),
     );
+    Ok((summary, res))
+}
+
+fn demo(a: DemoArgs) -> Result<(), AnyErr> {
+    let s = load_scenario(a.scenario.as_deref(), a.duration_s)?;
+    std::fs::create_dir_all(&a.out)?;
+    let cap_path = a.out.join("demo.swcap");
+    let (summary, res) = run_simulated(&s, &a.clock, Some(&cap_path))?;
+    let cfg = *res.rx.config();
     // The capture must replay to exactly the same result through the same core.
     let (cfg2, clock2) = receiver_setup(&s, &a.clock)?;
     let again = replay_capture(&cap_path, cfg2, clock2, &s, false, None, None)?;

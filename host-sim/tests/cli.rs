@@ -47,7 +47,7 @@ fn accounting_sums(v: &serde_json::Value) {
 fn demo_writes_summary_capture_and_plots() {
     let out = tmp("demo");
     let o = out.to_str().unwrap();
-    let text = ok(&["demo", "--out", o, "--duration-s", "0.02"]);
+    let text = ok(&["demo", "--out", o, "--duration-s", "0.1"]);
     assert!(text.contains("QBER Z"), "{text}");
     assert!(text.contains("capture replay identical"), "{text}");
     let v = json(&out.join("summary.json"));
@@ -55,6 +55,9 @@ fn demo_writes_summary_capture_and_plots() {
     assert!(v["sifted_bits"].as_u64().unwrap() > 1000);
     assert_eq!(v["truth"]["misassigned_sifted"].as_u64(), Some(0));
     assert!(v["period_ps"]["truth"].as_f64().is_some());
+    // The clock was recovered from the data and the numbering aligned on the marker.
+    assert_eq!(v["lock"]["acquired"].as_bool(), Some(true));
+    assert!(v["accounting"]["marker"].as_u64().unwrap() > 0);
     assert!(out.join("fold.svg").exists() && out.join("qber_rate.svg").exists());
 }
 
@@ -90,6 +93,8 @@ fn simulate_inspect_replay_trace_and_csv() {
         "1",
         "--plots",
         dir.join("plots").to_str().unwrap(),
+        "--clock",
+        "reference",
     ]);
     let v = json(&sj);
     accounting_sums(&v);
@@ -119,6 +124,8 @@ fn simulate_inspect_replay_trace_and_csv() {
         scen,
         "--json",
         cj.to_str().unwrap(),
+        "--clock",
+        "reference",
     ]);
     let c = json(&cj);
     assert_eq!(c["detections_in"], v["detections_in"]);
