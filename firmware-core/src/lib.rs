@@ -29,7 +29,7 @@
 //! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
 //! 9. [`accounting`] — every detection ends in exactly one counter.
 //! 10. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
-//!    COBS-stuffed records for the post-processing host.
+//!     COBS-stuffed records for the post-processing host.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
 //!
