@@ -88,6 +88,11 @@ pub struct LockReport {
     pub bridged: u32,
     /// Final lock state.
     pub state: String,
+    /// Marker alignment of the slot numbering: `aligned`, `searching`, `confirming`,
+    /// `awaiting-hint`, `misaligned`, or `reference` (numbering given by the clock).
+    pub numbering: String,
+    /// Alignment restarts after the first (new clock epochs, misalignments).
+    pub realignments: u32,
 }
 
 impl HostClock {
@@ -187,11 +192,21 @@ pub fn simulated_hint(s: &Scenario) -> Result<(u64, u64), Box<dyn std::error::Er
 }
 
 impl HostClock {
-    /// The marker aligner's state, when the clock is recovered.
-    pub fn alignment(&self) -> Option<slotwise::AlignState> {
+    /// How the slot numbering stands, and how often it was re-established.
+    pub fn numbering(&self) -> (String, u32) {
+        use slotwise::AlignState as A;
         match self {
-            Self::Reference(..) => None,
-            Self::Recovered(c) => Some(c.aligner().state()),
+            Self::Reference(..) => ("reference".into(), 0),
+            Self::Recovered(c) => {
+                let s = match c.aligner().state() {
+                    A::Searching { .. } => "searching",
+                    A::Confirming { .. } => "confirming",
+                    A::AwaitingHint { .. } => "awaiting-hint",
+                    A::Aligned { .. } => "aligned",
+                    A::Misaligned { .. } => "misaligned",
+                };
+                (s.into(), c.realignments())
+            }
         }
     }
 }

@@ -173,7 +173,10 @@ pub fn summarize<T: Transmitter>(
         },
         lock: {
             let (losses, relocks, bridged, state) = rx.clock().counters();
+            let (numbering, realignments) = rx.clock().numbering();
             LockReport {
+                numbering,
+                realignments,
                 acquired: res.first_lock.is_some(),
                 after_detections: res.first_lock.map(|l| l.0),
                 after_s: res.first_lock.map(|l| l.1),
@@ -267,6 +270,11 @@ impl std::fmt::Display for Summary {
             )?,
             None => writeln!(f, "clock          never locked ({})", l.state)?,
         }
+        writeln!(
+            f,
+            "numbering      {} ({} realignments)",
+            l.numbering, l.realignments
+        )?;
         if let Some(t) = truth {
             writeln!(
                 f,
