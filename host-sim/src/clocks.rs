@@ -93,6 +93,9 @@ pub struct LockReport {
     pub numbering: String,
     /// Alignment restarts after the first (new clock epochs, misalignments).
     pub realignments: u32,
+    /// Per channel: delay correction measured from the data since the latest lock, ps (relative
+    /// to the loop; `null` where the channel had too few detections).
+    pub delay_corrections_ps: Vec<Option<i64>>,
 }
 
 impl HostClock {
@@ -192,6 +195,20 @@ pub fn simulated_hint(s: &Scenario) -> Result<(u64, u64), Box<dyn std::error::Er
 }
 
 impl HostClock {
+    /// Per-channel delay corrections measured since the latest lock (recovered clock only).
+    pub fn delay_corrections_ps(&self, channels: u8) -> Vec<Option<i64>> {
+        match self {
+            Self::Reference(..) => Vec::new(),
+            Self::Recovered(c) => c
+                .recovered()
+                .delay_corrections_ps()
+                .iter()
+                .take(usize::from(channels))
+                .copied()
+                .collect(),
+        }
+    }
+
     /// How the slot numbering stands, and how often it was re-established.
     pub fn numbering(&self) -> (String, u32) {
         use slotwise::AlignState as A;

@@ -177,6 +177,9 @@ pub fn summarize<T: Transmitter>(
             LockReport {
                 numbering,
                 realignments,
+                delay_corrections_ps: rx
+                    .clock()
+                    .delay_corrections_ps(rx.config().gates().channels()),
                 acquired: res.first_lock.is_some(),
                 after_detections: res.first_lock.map(|l| l.0),
                 after_s: res.first_lock.map(|l| l.1),

@@ -27,9 +27,11 @@ fn scenario(file: &str) -> Scenario {
     .unwrap_or_else(|e| panic!("{e}"))
 }
 
-/// The model's assumptions: no dead time, no afterpulses, no drift.
+/// The model's assumptions: no dead time, no afterpulses, no drift; every slot a key slot (the
+/// public marker's vacuum and fixed-state slots are not part of the channel model).
 fn ideal(mut s: Scenario, duration_s: f64) -> Scenario {
     s.duration_s = duration_s;
+    s.marker = false;
     s.dead_time_ns = 0.0;
     s.afterpulse_prob = 0.0;
     s.clock_drift_ppm_per_s = 0.0;
@@ -297,6 +299,7 @@ fn default_bench_with_dead_time_matches_the_corrected_gain() {
     // to 0.1 s: the fixed clock walks only ½·0.02e-6·0.1² s = 0.1 ns against 200 ps windows.
     let mut s = Scenario::default_bench();
     s.duration_s = 0.1;
+    s.marker = false;
     let r = run(&s);
     r.check_bookkeeping();
     let m = channel_model(&s);
