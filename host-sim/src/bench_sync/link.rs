@@ -55,7 +55,7 @@ pub fn mix(x: u64) -> u64 {
 
 /// Transmitter offset of seed `seed`, ppm: uniform in ±(`prior_ppm` − 10).
 pub fn offset_for_seed(seed: u64, prior_ppm: u32) -> f64 {
-    let u = (mix(seed ^ 0x0FF5_E7) >> 11) as f64 / (1u64 << 53) as f64;
+    let u = (mix(seed ^ 0x000F_F5E7) >> 11) as f64 / (1u64 << 53) as f64;
     (2.0 * u - 1.0) * (f64::from(prior_ppm) - 10.0).max(0.0)
 }
 

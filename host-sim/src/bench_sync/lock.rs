@@ -408,7 +408,7 @@ mod tests {
         let exact = 900.0 * 12.0 / (n * (n * n - 1.0) * 1e6);
         assert!((v / exact - 1.0).abs() < 1e-9);
         // BRIEF §4's example: T = 1 ns, σ = 30 ps, W = 1e6, N = 1e3 → σ_T = 3.29e-18 s.
-        let sigma_t_s = (12.0 * 900.0 / (1e3 * 1e12)).sqrt() * 1e-12;
+        let sigma_t_s = (12.0f64 * 900.0 / (1e3 * 1e12)).sqrt() * 1e-12;
         assert!((sigma_t_s / 3.29e-18 - 1.0).abs() < 2e-3);
         assert_eq!(slope_crb(&[7, 7], 1.0), None);
     }
