@@ -57,7 +57,7 @@ pub enum Figure {
 }
 
 /// Options of `slotwise bench sync`.
-#[derive(clap::Args, Debug, Clone, Default)]
+#[derive(clap::Args, Debug, Clone)]
 pub struct BenchSyncArgs {
     /// Seeds per figure cell [default: 100; 20 with --quick].
     #[arg(long)]
@@ -89,6 +89,23 @@ pub struct BenchSyncArgs {
     /// Print the report as JSON instead of tables.
     #[arg(long)]
     pub json: bool,
+}
+
+impl Default for BenchSyncArgs {
+    /// The command line's defaults (the full run).
+    fn default() -> Self {
+        Self {
+            seeds: None,
+            false_lock_attempts: None,
+            reps: None,
+            prior_ppm: 200,
+            threads: None,
+            cost_p_slot: Vec::new(),
+            only: Vec::new(),
+            quick: false,
+            json: false,
+        }
+    }
 }
 
 /// The settings a report was made with.
@@ -454,36 +471,99 @@ impl fmt::Display for BenchSyncReport {
         if !self.cost.is_empty() {
             writeln!(
                 w,
-                "\n5. Host time per detection (median of {} repetitions over the same buffer)",
+                "\n5. Host time per detection (median of {} repetitions over the same buffer; single calls timed on their own)",
                 s.reps
             )?;
             writeln!(
                 w,
-                "   {:<10} | {:>8} {:>9} {:>10} {:>11} | {:>8} {:>9} {:>11}",
+                "   {:<10} | {:>8} {:>9} {:>10} {:>9} {:>9} | {:>8} {:>9} {:>9} {:>9}",
                 "p   noise",
                 "acq dets",
                 "ns/det",
                 "total µs",
-                "slowest µs",
+                "p99.9 µs",
+                "max µs",
                 "locked",
                 "ns/det",
-                "slowest µs"
+                "p99.9 µs",
+                "max µs"
             )?;
             for r in &self.cost {
                 writeln!(
                     w,
-                    "   {:<10} | {:>8} {:>9.1} {:>10.0} {:>11.1} | {:>8} {:>9.1} {:>11.2}",
+                    "   {:<10} | {:>8} {:>9.1} {:>10.0} {:>9.2} {:>9.1} | {:>8} {:>9.1} {:>9.3} {:>9.1}",
                     cell(&r.point),
                     r.acquire_detections,
                     r.acquire_ns_per_detection,
                     r.acquire_total_us,
+                    r.acquire_p999_call_us,
                     r.acquire_slowest_call_us,
                     r.locked_detections,
                     r.locked_ns_per_detection,
+                    r.locked_p999_call_us,
                     r.locked_slowest_call_us,
                 )?;
             }
         }
         writeln!(w, "\nwall time {:.1} s", self.wall_s)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use clap::{Parser, Subcommand};
+
+    /// The shape `slotwise bench sync` takes in the command line.
+    #[derive(Parser, Debug)]
+    struct Cli {
+        #[command(subcommand)]
+        command: Command,
+    }
+
+    #[derive(Subcommand, Debug)]
+    enum Command {
+        /// Benchmarks of the core on simulated links.
+        #[command(subcommand)]
+        Bench(BenchCommand),
+    }
+
+    #[derive(Subcommand, Debug)]
+    enum BenchCommand {
+        /// Clock recovery.
+        Sync(BenchSyncArgs),
+    }
+
+    #[test]
+    fn parses_as_a_bench_subcommand() {
+        let cli = Cli::try_parse_from([
+            "slotwise",
+            "bench",
+            "sync",
+            "--quick",
+            "--json",
+            "--seeds",
+            "3",
+            "--only",
+            "lock,false-lock",
+            "--cost-p-slot",
+            "1e-4",
+        ])
+        .unwrap();
+        let Command::Bench(BenchCommand::Sync(a)) = cli.command;
+        assert!(a.quick && a.json);
+        assert_eq!(a.seeds, Some(3));
+        assert_eq!(a.only, vec![Figure::Lock, Figure::FalseLock]);
+        assert_eq!(a.cost_p_slot, vec![1e-4]);
+        assert_eq!(a.prior_ppm, BenchSyncArgs::default().prior_ppm);
+    }
+
+    #[test]
+    fn refuses_a_prior_outside_the_core_range() {
+        let a = BenchSyncArgs {
+            prior_ppm: 0,
+            ..BenchSyncArgs::default()
+        };
+        assert!(run(&a).unwrap_err().to_string().contains("--prior-ppm"));
     }
 }

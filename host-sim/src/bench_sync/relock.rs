@@ -41,6 +41,9 @@ pub enum RelockEvent {
 impl RelockEvent {
     fn name(&self) -> String {
         match self {
+            Self::Blackout { length_ps } if length_ps % 1_000_000_000_000 == 0 => {
+                format!("blackout {} s", length_ps / 1_000_000_000_000)
+            }
             Self::Blackout { length_ps } => format!("blackout {} ms", length_ps / 1_000_000_000),
             Self::PhaseJump { slots } => format!("phase jump {slots} slot"),
         }
