@@ -59,7 +59,7 @@ pub enum Figure {
 /// Options of `slotwise bench sync`.
 #[derive(clap::Args, Debug, Clone)]
 pub struct BenchSyncArgs {
-    /// Seeds per figure cell [default: 100; 20 with --quick].
+    /// Seeds per figure cell [default: 100; 10 with --quick].
     #[arg(long)]
     pub seeds: Option<u64>,
     /// Noise-only acquisition attempts for the false-lock count [default: 10000; 2000 with
@@ -165,7 +165,7 @@ pub fn run(args: &BenchSyncArgs) -> Result<BenchSyncReport, Box<dyn Error>> {
         base_scenario: crate::scenario::DEFAULT_BENCH_PATH,
         seeds: args
             .seeds
-            .unwrap_or(if args.quick { 20 } else { 100 })
+            .unwrap_or(if args.quick { 10 } else { 100 })
             .max(1),
         false_lock_attempts: args.false_lock_attempts.unwrap_or(if args.quick {
             2_000
