@@ -12,8 +12,8 @@ if ! command -v valgrind >/dev/null || ! command -v callgrind_annotate >/dev/nul
   echo "skipped: valgrind (callgrind) is not installed"
   exit 0
 fi
-cargo build --release -q -p slotwise-sim --example bench_sync
-bin=target/release/examples/bench_sync
+cargo build --release -q -p slotwise-sim --bin slotwise
+bin=target/release/slotwise
 out="$(mktemp -d)"
 trap 'rm -rf "$out"' EXIT
 
@@ -29,7 +29,7 @@ for p in "${links[@]}"; do
     valgrind --tool=callgrind --collect-atstart=no \
       --toggle-collect="*bench_sync::cost::$loop*" \
       --callgrind-out-file="$out/cg.out" \
-      "$bin" --only cost --reps 1 --cost-p-slot "$p" --json >"$out/report.json" 2>"$out/log"
+      "$bin" bench sync --only cost --reps 1 --cost-p-slot "$p" --json >"$out/report.json" 2>"$out/log"
     ir="$(callgrind_annotate "$out/cg.out" | grep 'PROGRAM TOTALS' | grep -o '^[0-9,]*' | tr -d ,)"
     if [ "$loop" = feed_until_locked ]; then
       n="$(field acquire_detections "$out/report.json")"

@@ -44,6 +44,11 @@ impl<const N: usize, const K: usize, const H: usize> MarkedClock<N, K, H> {
         &self.clock
     }
 
+    /// The recovered clock alone, without the alignment.
+    pub fn into_recovered(self) -> RecoveredClock<N, K, H> {
+        self.clock
+    }
+
     /// The frame aligner.
     pub const fn aligner(&self) -> &StandardAligner {
         &self.aligner

@@ -71,6 +71,17 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
     Replay(ReplayArgs),
     /// Show a capture's header and block statistics and check every CRC.
     Inspect(InspectArgs),
+    /// Benchmarks of the core on simulated links (figures come from here, not from tests).
+    #[command(subcommand)]
+    Bench(BenchCommand),
+}
+
+/// What `slotwise bench` measures.
+#[derive(Subcommand, Debug)]
+pub enum BenchCommand {
+    /// Clock recovery: period error against the Cramér-Rao bound, detections to lock, false locks
+    /// on noise, relock after a blackout and a phase jump, cost per detection.
+    Sync(crate::bench_sync::BenchSyncArgs),
 }
 
 /// How the receiver gets its clock.
@@ -160,6 +171,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Simulate(a) => simulate(a),
         Command::Replay(a) => replay(a),
         Command::Inspect(a) => inspect(a),
+        Command::Bench(BenchCommand::Sync(a)) => bench_sync(&a),
     }
 }
 
@@ -544,6 +556,16 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
 
 fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
     let report = capture::inspect(&a.capture)?;
+    if a.json {
+        println!("{}", serde_json::to_string_pretty(&report)?);
+    } else {
+        print!("{report}");
+    }
+    Ok(())
+}
+
+fn bench_sync(a: &crate::bench_sync::BenchSyncArgs) -> Result<(), AnyErr> {
+    let report = crate::bench_sync::run(a)?;
     if a.json {
         println!("{}", serde_json::to_string_pretty(&report)?);
     } else {

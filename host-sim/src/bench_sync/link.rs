@@ -135,8 +135,8 @@ pub fn cold_clock(
     prior_ppm: u32,
 ) -> Result<HostRecovered, Box<dyn Error>> {
     match clocks::build(s, gates, ClockMode::Recovered, prior_ppm)? {
-        HostClock::Recovered(c) => Ok(*c),
-        HostClock::Reference(_) => Err("clocks::build returned a reference clock".into()),
+        HostClock::Recovered(c) => Ok(c.into_recovered()),
+        HostClock::Reference(..) => Err("clocks::build returned a reference clock".into()),
     }
 }
 
