@@ -1,12 +1,13 @@
 //! `hil-host`: the host side of the HIL check.
 //!
-//! - `prepare` makes a capture, runs it through the core on the host (answering each
-//!   announcement and recording the answers), and writes the firmware's input files and the
-//!   host's frames into a run directory;
+//! - `prepare` reads a capture of `slotwise simulate` (or makes a synthetic one), runs it through
+//!   the core on the host (answering each announcement and recording the answers), and writes the
+//!   firmware's input files and the host's frames into a run directory;
 //! - `compare` reads the firmware's frames and report from that directory after QEMU ran,
 //!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch.
 
 mod capture;
+mod simulated;
 mod synth;
 
 use capture::{check_stream, host_replay, split_frames, write_inputs, Capture};
@@ -24,26 +25,29 @@ struct Cli {
     cmd: Cmd,
 }
 
-/// Where a capture comes from.
+/// Which synthetic capture to make.
 #[derive(Clone, Copy, Debug, ValueEnum)]
-enum CaptureSource {
+enum SyntheticSource {
     /// Synthetic bench link, clean.
     Default,
     /// Synthetic bench link with blackout, reordered neighbours, unknown channel, too-wide counts.
     Fault,
-    // A capture recorded by `slotwise simulate` plugs in here: read its events and scenario
-    // with the simulator's capture reader, build the `Setup` from the scenario, and answer from
-    // the transmitter states the simulator recorded; then `capture::host_replay` as below.
 }
 
 #[derive(Subcommand)]
 enum Cmd {
     /// Make a capture, replay it on the host, write the firmware inputs and the host's frames.
     Prepare {
-        /// Which capture.
+        /// A capture written by `slotwise simulate` (its scenario comes from the header).
+        #[arg(long, conflicts_with = "synthetic", required_unless_present = "synthetic")]
+        from: Option<PathBuf>,
+        /// Make a synthetic capture instead (transport faults the simulator does not model).
         #[arg(long, value_enum)]
-        capture: CaptureSource,
-        /// Number of slots to simulate.
+        synthetic: Option<SyntheticSource>,
+        /// Capture name in reports.
+        #[arg(long)]
+        name: String,
+        /// Number of slots of a synthetic capture.
         #[arg(long, default_value_t = 20_000_000)]
         slots: u64,
         /// Run directory to fill.
@@ -126,10 +130,12 @@ fn budgets() -> Result<bool, String> {
 fn main() -> ExitCode {
     let result = match Cli::parse().cmd {
         Cmd::Prepare {
-            capture,
+            from,
+            synthetic,
+            name,
             slots,
             out,
-        } => prepare(capture, slots, &out),
+        } => prepare(from.as_deref(), synthetic, &name, slots, &out),
         Cmd::Compare {
             dir,
             target,
@@ -150,10 +156,20 @@ fn main() -> ExitCode {
     }
 }
 
-fn prepare(source: CaptureSource, slots: u64, out: &Path) -> Result<bool, String> {
-    let mut cap: Capture = match source {
-        CaptureSource::Default => synth::capture(synth::Variant::Default, slots),
-        CaptureSource::Fault => synth::capture(synth::Variant::Fault, slots),
+fn prepare(
+    from: Option<&Path>,
+    synthetic: Option<SyntheticSource>,
+    name: &str,
+    slots: u64,
+    out: &Path,
+) -> Result<bool, String> {
+    let mut cap: Capture = match (from, synthetic) {
+        (Some(path), _) => simulated::capture(path, name)?,
+        (None, Some(SyntheticSource::Default)) => {
+            synth::capture(synth::Variant::Default, slots, name)
+        }
+        (None, Some(SyntheticSource::Fault)) => synth::capture(synth::Variant::Fault, slots, name),
+        (None, None) => return Err("prepare: give --from CAPTURE or --synthetic".into()),
     };
     let host = host_replay(&mut cap).map_err(|e| format!("host replay: {e}"))?;
     write_inputs(out, &cap, &host).map_err(|e| format!("{}: {e}", out.display()))?;

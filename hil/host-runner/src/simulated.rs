@@ -1,0 +1,98 @@
+//! Captures written by `slotwise simulate`: events and scenario from the capture file, the
+//! receiver setup the link simulator's host replay uses with its reference clock, and the
+//! simulated transmitter's answers.
+//!
+//! The board build runs the configured `FixedClock`, which numbers every slot; the simulator's
+//! reference clock excludes the public marker's slots. Both agree only when the scenario has no
+//! marker, so a capture made with `marker = true` is refused here rather than compared against
+//! a different numbering.
+
+use crate::capture::Capture;
+use slotwise::{Answer, GateTable, OverflowPolicy, UnwrapConfig};
+use slotwise_hil::Setup;
+use slotwise_sim::capture::read_all;
+use slotwise_sim::cli::{receiver_setup, ClockArgs};
+use slotwise_sim::clocks::ClockMode;
+use slotwise_sim::scenario::Scenario;
+use slotwise_sim::sim::{clock_truth, receiver_gates, TxChoices};
+use std::path::Path;
+
+/// Squashing-rule seed of the simulator's host replay: the scenario seed xor this.
+const SQUASH_SEED_XOR: u64 = 0x5351_5541_5348;
+
+/// The receiver setup of a scenario, with the scenario's true clock (`--clock reference`).
+pub fn setup(s: &Scenario, source: &str) -> Result<Setup, String> {
+    let (delays, gates) = receiver_gates(s);
+    let gates = GateTable::new(&delays, &gates)
+        .map_err(|e| format!("{source}: scenario gate table: {e}"))?;
+    let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)
+        .map_err(|e| format!("{source}: scenario field tdc_bits / tdc_resolution_ps: {e}"))?;
+    let truth = clock_truth(s).map_err(|e| format!("{source}: scenario clock: {e}"))?;
+    let clock = truth.fixed_clock();
+    let setup = Setup {
+        tdc,
+        gates,
+        period_ps: clock.period_ps(),
+        origin_ps: truth.origin_ps_unwrapped,
+        intensities: u8::try_from(s.intensities.len())
+            .map_err(|_| format!("{source}: scenario field intensities: too many classes"))?,
+        // As the simulator's host replay (`slotwise_sim::cli::receiver_setup`): 10 ms of slots.
+        answer_timeout_slots: (s.rep_rate_hz * 0.01).max(1.0) as u64,
+        overflow: OverflowPolicy::DropNewest,
+        squash_seed: s.seed ^ SQUASH_SEED_XOR,
+    };
+    // The same receiver the simulator's own replay builds, field for field.
+    let args = ClockArgs {
+        clock: ClockMode::Reference,
+        prior_ppm: 500,
+    };
+    let (cfg, _) = receiver_setup(s, &args).map_err(|e| format!("{source}: {e}"))?;
+    let ours = setup
+        .receiver_config()
+        .map_err(|e| format!("{source}: {e}"))?;
+    if ours != cfg {
+        return Err(format!(
+            "{source}: HIL setup differs from the simulator's receiver setup"
+        ));
+    }
+    Ok(setup)
+}
+
+/// Read a capture of `slotwise simulate` and build the comparison input from it.
+pub fn capture(path: &Path, name: &str) -> Result<Capture, String> {
+    let source = path.display().to_string();
+    let (header, events) = read_all(path).map_err(|e| e.to_string())?;
+    let s = Scenario::from_toml_str(&header.metadata, &format!("{source}: header metadata"))
+        .map_err(|e| e.to_string())?;
+    if s.marker {
+        return Err(format!(
+            "{source}: header metadata: scenario '{}' field marker: the board's configured clock \
+             numbers marker slots as key slots; make the HIL capture with `marker = false`",
+            s.name
+        ));
+    }
+    let setup = setup(&s, &source)?;
+    if header.counter_bits != s.tdc_bits || header.resolution_ps != s.tdc_resolution_ps {
+        return Err(format!(
+            "{source}: header counter_bits/resolution_ps ({}, {}) differ from the scenario's \
+             ({}, {})",
+            header.counter_bits, header.resolution_ps, s.tdc_bits, s.tdc_resolution_ps
+        ));
+    }
+    let choices = TxChoices::new(&s);
+    Ok(Capture {
+        name: name.to_string(),
+        setup,
+        events,
+        // As `SimTransmitter`: basis, intensity and the bit, for every announced slot.
+        answer: Box::new(move |a| {
+            let c = choices.choice(a.slot);
+            Answer {
+                slot: a.slot,
+                basis: c.basis,
+                intensity: c.intensity,
+                bit: Some(c.bit),
+            }
+        }),
+    })
+}
