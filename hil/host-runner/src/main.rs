@@ -39,7 +39,11 @@ enum Cmd {
     /// Make a capture, replay it on the host, write the firmware inputs and the host's frames.
     Prepare {
         /// A capture written by `slotwise simulate` (its scenario comes from the header).
-        #[arg(long, conflicts_with = "synthetic", required_unless_present = "synthetic")]
+        #[arg(
+            long,
+            conflicts_with = "synthetic",
+            required_unless_present = "synthetic"
+        )]
         from: Option<PathBuf>,
         /// Make a synthetic capture instead (transport faults the simulator does not model).
         #[arg(long, value_enum)]
