@@ -60,6 +60,7 @@ if ! cargo build --release -p slotwise-hil-firmware --target thumbv7em-none-eabi
 fi
 elf() { echo "$HIL/target/$1/release/slotwise-hil-firmware"; }
 profile_elf() { echo "$HIL/target/$1/release/slotwise-hil-profile"; }
+acquire_elf() { echo "$HIL/target/$1/release/slotwise-hil-acquire"; }
 
 step "fault handlers exit with their own code"
 for t in "${TARGETS[@]}"; do
@@ -112,6 +113,12 @@ for t in "${TARGETS[@]}"; do
     set +e
     ./qemu-run.sh "$(elf "$t")" "$d" >"$d/qemu-stdout.txt" 2>"$d/qemu-stderr.txt"
     rc=$?
+    if [ "$c" = default ] && [ "$rc" = 0 ]; then
+      # Clock acquisition: the recovered clock from a cold start until it first locks.
+      cp "$RUNS/$c/acquire.bin" "$d/"
+      ./qemu-run.sh "$(acquire_elf "$t")" "$d" >>"$d/qemu-stdout.txt" 2>>"$d/qemu-stderr.txt"
+      rc=$?
+    fi
     line="$("$HOST_TOOL" compare --dir "$d" --target "$t" --capture "$c" --elf "$(elf "$t")" \
       --qemu-exit "$rc")"
     cmp_rc=$?

@@ -177,6 +177,11 @@ fn prepare(
     };
     let host = host_replay(&mut cap).map_err(|e| format!("host replay: {e}"))?;
     write_inputs(out, &cap, &host).map_err(|e| format!("{}: {e}", out.display()))?;
+    if let Some(path) = from {
+        let params = simulated::acquire_params(&simulated::scenario_of(path)?);
+        fs::write(out.join("acquire.bin"), params)
+            .map_err(|e| format!("{}: {e}", out.display()))?;
+    }
     let s = &host.summary;
     let acc: BTreeMap<_, _> = s.accounting.fields().into_iter().collect();
     let line = json!({
@@ -358,12 +363,34 @@ fn compare(
     line["frame_out_bytes"] = json!(frame_out);
     line["sifted_bits"] = json!(num(&report, "sifted_bits")?);
     line["recovered_clock_bytes"] = json!(num(&report, "recovered_clock_bytes").ok());
+    let mut acquisition_ok = true;
+    let acq_path = dir.join("acquire-fw.txt");
+    if acq_path.exists() {
+        let a = read_report(&acq_path)?;
+        let field = |k: &str| -> Result<u64, String> {
+            a.get(k)
+                .ok_or_else(|| format!("acquire-fw.txt: field {k} missing"))?
+                .parse()
+                .map_err(|e| format!("acquire-fw.txt: field {k}: {e}"))
+        };
+        let scale = field("calib_instructions")? as f64 / (field("calib_counts")? as f64).max(1.0);
+        let locked = field("locked")? == 1;
+        acquisition_ok = locked;
+        line["instructions_acquisition"] = if locked {
+            json!((field("acquisition_counts")? as f64 * scale).round() as u64)
+        } else {
+            Value::Null
+        };
+        line["detections_to_lock"] = json!(field("events_to_lock")?);
+        line["recovered_clock_bytes"] = json!(field("recovered_clock_bytes")?);
+    }
     line["replay_problems"] = json!(replay_bad);
     if let Some(e) = &decode_error {
         line["error"] = json!(e);
     }
     println!("{line}");
-    let ok = mismatched == 0
+    let ok = acquisition_ok
+        && mismatched == 0
         && hf.len() == ff.len()
         && decode_error.is_none()
         && replay_bad == 0
