@@ -93,13 +93,18 @@ enum Cmd {
 }
 
 /// Budgets of the board build (thumbv7em, default capture): name, JSON field, limit.
-const BUDGETS: [(&str, &str, f64); 3] = [
+const BUDGETS: [(&str, &str, f64); 4] = [
     ("core state RAM, bytes", "ram_bytes", 16.0 * 1024.0),
     ("flash image, bytes", "flash_bytes", 64.0 * 1024.0),
     (
         "instructions per detection",
         "instructions_per_detection",
         150.0,
+    ),
+    (
+        "instructions to the first clock lock",
+        "instructions_acquisition",
+        20e6,
     ),
 ];
 
@@ -375,13 +380,25 @@ fn compare(
         };
         let scale = field("calib_instructions")? as f64 / (field("calib_counts")? as f64).max(1.0);
         let locked = field("locked")? == 1;
-        acquisition_ok = locked;
         line["instructions_acquisition"] = if locked {
             json!((field("acquisition_counts")? as f64 * scale).round() as u64)
         } else {
             Value::Null
         };
         line["detections_to_lock"] = json!(field("events_to_lock")?);
+        // The period at the first lock against the scenario's true period (the setup's clock).
+        let setup_bytes = read("setup.bin")?;
+        let setup =
+            slotwise_hil::Setup::decode(&setup_bytes).map_err(|e| format!("setup.bin: {e}"))?;
+        let truth = setup.period_ps.to_num::<f64>();
+        let got = slotwise::fixed::types::U32F32::from_bits(field("locked_period_ps_q32")?)
+            .to_num::<f64>();
+        // A lock more than 1 ppm off the true period is a wrong lock, not an acquisition.
+        let error_ppm = (got / truth - 1.0) * 1e6;
+        acquisition_ok = locked && error_ppm.abs() <= 1.0;
+        if locked {
+            line["acquired_period_error_ppm"] = json!((error_ppm * 1000.0).round() / 1000.0);
+        }
         line["recovered_clock_bytes"] = json!(field("recovered_clock_bytes")?);
     }
     line["replay_problems"] = json!(replay_bad);

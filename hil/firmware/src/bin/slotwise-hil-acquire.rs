@@ -139,12 +139,14 @@ fn acquire() -> Result<(), i32> {
 
     let (calib_instructions, calib_counts) = arch::calibrate();
     let mut r: heapless::String<512> = heapless::String::new();
-    let rows: [(&str, u64); 6] = [
+    let period_bits = rx.clock().period_ps().map_or(0, |p| p.to_bits());
+    let rows: [(&str, u64); 7] = [
         ("calib_instructions", calib_instructions),
         ("calib_counts", calib_counts),
         ("locked", u64::from(locked)),
         ("events_to_lock", taken),
         ("acquisition_counts", counts),
+        ("locked_period_ps_q32", period_bits),
         (
             "recovered_clock_bytes",
             core::mem::size_of::<AcqClock>() as u64,
