@@ -1,6 +1,7 @@
 #!/usr/bin/env bash
 # The HIL check: the slotwise core built as firmware for a Cortex-M4F and a RISC-V soft core, run
-# under QEMU on two captures, and compared frame by frame with the same core on the host.
+# under QEMU on captures made by `slotwise simulate` (and one synthetic capture), and compared
+# frame by frame with the same core on the host.
 #
 # Prints one JSON line per target x capture and exits non-zero on any mismatch, on a firmware
 # that does not finish, or on a fault handler that does not exit with its own code. Installs the
@@ -59,6 +60,7 @@ if ! cargo build --release -p slotwise-hil-firmware --target thumbv7em-none-eabi
 fi
 elf() { echo "$HIL/target/$1/release/slotwise-hil-firmware"; }
 profile_elf() { echo "$HIL/target/$1/release/slotwise-hil-profile"; }
+acquire_elf() { echo "$HIL/target/$1/release/slotwise-hil-acquire"; }
 
 step "fault handlers exit with their own code"
 for t in "${TARGETS[@]}"; do
@@ -72,23 +74,51 @@ for t in "${TARGETS[@]}"; do
     echo "$t: fault exit code $rc, expected 71" >&2; failures=$((failures + 1)); fi
 done
 
-step "captures"
-declare -A SLOTS=([default]=20000000 [fault]=10000000)
+step "captures (slotwise simulate)"
+# The root workspace's simulator makes the captures: the default scenario, shortened, and a fault
+# scenario (32-bit TDC wrapping every 4.3 ms, heavy afterpulsing, noisy detectors, channel
+# skews). The board runs the configured clock, which numbers every slot, so the default scenario
+# is simulated without its public marker (the simulator's reference clock would skip those slots).
+(cd "$HIL/.." && cargo build --release -p slotwise-sim --bin slotwise)
+ROOT="$(cd "$HIL/.." && pwd)"
+SLOTWISE="$ROOT/target/release/slotwise"
+mkdir -p "$RUNS/scenarios"
+DEFAULT_SCENARIO="$ROOT/scenarios/bench-100mhz-30km.toml"
+if grep -q '^marker' "$DEFAULT_SCENARIO"; then
+  sed 's/^marker.*/marker = false/' "$DEFAULT_SCENARIO" >"$RUNS/scenarios/default.toml"
+else
+  { cat "$DEFAULT_SCENARIO"; echo; echo "marker = false"; } >"$RUNS/scenarios/default.toml"
+fi
+"$SLOTWISE" simulate "$RUNS/scenarios/default.toml" -o "$RUNS/default.cap" --duration-s 0.1
+"$SLOTWISE" simulate "$ROOT/scenarios/fault-wrap-32bit-afterpulse.toml" -o "$RUNS/fault.cap" \
+  --duration-s 0.05
+CAPTURES=(default fault synthetic-fault)
 for c in default fault; do
-  "$HOST_TOOL" prepare --capture "$c" --slots "${SLOTS[$c]}" --out "$RUNS/$c"
+  "$HOST_TOOL" prepare --from "$RUNS/$c.cap" --name "$c" --out "$RUNS/$c"
   echo "$c: $(cat "$RUNS/$c/host-summary.json")"
 done
+# Transport faults the simulator does not model: a detector blackout, reordered neighbours, an
+# unknown channel and counter values wider than the TDC.
+"$HOST_TOOL" prepare --synthetic fault --slots 10000000 --name synthetic-fault \
+  --out "$RUNS/synthetic-fault"
+echo "synthetic-fault: $(cat "$RUNS/synthetic-fault/host-summary.json")"
 
 step "QEMU runs, compared with the host byte for byte"
 results=()
 for t in "${TARGETS[@]}"; do
-  for c in default fault; do
+  for c in "${CAPTURES[@]}"; do
     d="$RUNS/$t-$c"
     rm -rf "$d" && mkdir -p "$d"
     cp "$RUNS/$c"/{setup.bin,events.bin,answers.bin,frames-host.bin} "$d/"
     set +e
     ./qemu-run.sh "$(elf "$t")" "$d" >"$d/qemu-stdout.txt" 2>"$d/qemu-stderr.txt"
     rc=$?
+    if [ "$c" = default ] && [ "$rc" = 0 ]; then
+      # Clock acquisition: the recovered clock from a cold start until it first locks.
+      cp "$RUNS/$c/acquire.bin" "$d/"
+      ./qemu-run.sh "$(acquire_elf "$t")" "$d" >>"$d/qemu-stdout.txt" 2>>"$d/qemu-stderr.txt"
+      rc=$?
+    fi
     line="$("$HOST_TOOL" compare --dir "$d" --target "$t" --capture "$c" --elf "$(elf "$t")" \
       --qemu-exit "$rc")"
     cmp_rc=$?

@@ -1,9 +1,8 @@
 //! One capture through the core on the host, and the firmware's input files made from it.
 //!
 //! A [`Capture`] is all the comparison needs: the receiver setup, the TDC events, and the
-//! transmitter's answer to each announcement. Synthetic captures come from `synth`; a capture
-//! recorded by the link simulator plugs in by building a `Capture` from its events and scenario
-//! (see `main.rs`, `CaptureSource`).
+//! transmitter's answer to each announcement. Captures of `slotwise simulate` come from
+//! `simulated`, synthetic ones from `synth`.
 
 use slotwise::frames::{self, RecordType, Summary};
 use slotwise::{Announcement, Answer, FrameSink, TdcEvent};

@@ -1,12 +1,13 @@
 //! `hil-host`: the host side of the HIL check.
 //!
-//! - `prepare` makes a capture, runs it through the core on the host (answering each
-//!   announcement and recording the answers), and writes the firmware's input files and the
-//!   host's frames into a run directory;
+//! - `prepare` reads a capture of `slotwise simulate` (or makes a synthetic one), runs it through
+//!   the core on the host (answering each announcement and recording the answers), and writes the
+//!   firmware's input files and the host's frames into a run directory;
 //! - `compare` reads the firmware's frames and report from that directory after QEMU ran,
 //!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch.
 
 mod capture;
+mod simulated;
 mod synth;
 
 use capture::{check_stream, host_replay, split_frames, write_inputs, Capture};
@@ -24,26 +25,33 @@ struct Cli {
     cmd: Cmd,
 }
 
-/// Where a capture comes from.
+/// Which synthetic capture to make.
 #[derive(Clone, Copy, Debug, ValueEnum)]
-enum CaptureSource {
+enum SyntheticSource {
     /// Synthetic bench link, clean.
     Default,
     /// Synthetic bench link with blackout, reordered neighbours, unknown channel, too-wide counts.
     Fault,
-    // A capture recorded by `slotwise simulate` plugs in here: read its events and scenario
-    // with the simulator's capture reader, build the `Setup` from the scenario, and answer from
-    // the transmitter states the simulator recorded; then `capture::host_replay` as below.
 }
 
 #[derive(Subcommand)]
 enum Cmd {
     /// Make a capture, replay it on the host, write the firmware inputs and the host's frames.
     Prepare {
-        /// Which capture.
+        /// A capture written by `slotwise simulate` (its scenario comes from the header).
+        #[arg(
+            long,
+            conflicts_with = "synthetic",
+            required_unless_present = "synthetic"
+        )]
+        from: Option<PathBuf>,
+        /// Make a synthetic capture instead (transport faults the simulator does not model).
         #[arg(long, value_enum)]
-        capture: CaptureSource,
-        /// Number of slots to simulate.
+        synthetic: Option<SyntheticSource>,
+        /// Capture name in reports.
+        #[arg(long)]
+        name: String,
+        /// Number of slots of a synthetic capture.
         #[arg(long, default_value_t = 20_000_000)]
         slots: u64,
         /// Run directory to fill.
@@ -85,13 +93,18 @@ enum Cmd {
 }
 
 /// Budgets of the board build (thumbv7em, default capture): name, JSON field, limit.
-const BUDGETS: [(&str, &str, f64); 3] = [
+const BUDGETS: [(&str, &str, f64); 4] = [
     ("core state RAM, bytes", "ram_bytes", 16.0 * 1024.0),
     ("flash image, bytes", "flash_bytes", 64.0 * 1024.0),
     (
         "instructions per detection",
         "instructions_per_detection",
         150.0,
+    ),
+    (
+        "instructions to the first clock lock",
+        "instructions_acquisition",
+        20e6,
     ),
 ];
 
@@ -126,10 +139,12 @@ fn budgets() -> Result<bool, String> {
 fn main() -> ExitCode {
     let result = match Cli::parse().cmd {
         Cmd::Prepare {
-            capture,
+            from,
+            synthetic,
+            name,
             slots,
             out,
-        } => prepare(capture, slots, &out),
+        } => prepare(from.as_deref(), synthetic, &name, slots, &out),
         Cmd::Compare {
             dir,
             target,
@@ -150,13 +165,28 @@ fn main() -> ExitCode {
     }
 }
 
-fn prepare(source: CaptureSource, slots: u64, out: &Path) -> Result<bool, String> {
-    let mut cap: Capture = match source {
-        CaptureSource::Default => synth::capture(synth::Variant::Default, slots),
-        CaptureSource::Fault => synth::capture(synth::Variant::Fault, slots),
+fn prepare(
+    from: Option<&Path>,
+    synthetic: Option<SyntheticSource>,
+    name: &str,
+    slots: u64,
+    out: &Path,
+) -> Result<bool, String> {
+    let mut cap: Capture = match (from, synthetic) {
+        (Some(path), _) => simulated::capture(path, name)?,
+        (None, Some(SyntheticSource::Default)) => {
+            synth::capture(synth::Variant::Default, slots, name)
+        }
+        (None, Some(SyntheticSource::Fault)) => synth::capture(synth::Variant::Fault, slots, name),
+        (None, None) => return Err("prepare: give --from CAPTURE or --synthetic".into()),
     };
     let host = host_replay(&mut cap).map_err(|e| format!("host replay: {e}"))?;
     write_inputs(out, &cap, &host).map_err(|e| format!("{}: {e}", out.display()))?;
+    if let Some(path) = from {
+        let params = simulated::acquire_params(&simulated::scenario_of(path)?);
+        fs::write(out.join("acquire.bin"), params)
+            .map_err(|e| format!("{}: {e}", out.display()))?;
+    }
     let s = &host.summary;
     let acc: BTreeMap<_, _> = s.accounting.fields().into_iter().collect();
     let line = json!({
@@ -338,12 +368,46 @@ fn compare(
     line["frame_out_bytes"] = json!(frame_out);
     line["sifted_bits"] = json!(num(&report, "sifted_bits")?);
     line["recovered_clock_bytes"] = json!(num(&report, "recovered_clock_bytes").ok());
+    let mut acquisition_ok = true;
+    let acq_path = dir.join("acquire-fw.txt");
+    if acq_path.exists() {
+        let a = read_report(&acq_path)?;
+        let field = |k: &str| -> Result<u64, String> {
+            a.get(k)
+                .ok_or_else(|| format!("acquire-fw.txt: field {k} missing"))?
+                .parse()
+                .map_err(|e| format!("acquire-fw.txt: field {k}: {e}"))
+        };
+        let scale = field("calib_instructions")? as f64 / (field("calib_counts")? as f64).max(1.0);
+        let locked = field("locked")? == 1;
+        line["instructions_acquisition"] = if locked {
+            json!((field("acquisition_counts")? as f64 * scale).round() as u64)
+        } else {
+            Value::Null
+        };
+        line["detections_to_lock"] = json!(field("events_to_lock")?);
+        // The period at the first lock against the scenario's true period (the setup's clock).
+        let setup_bytes = read("setup.bin")?;
+        let setup =
+            slotwise_hil::Setup::decode(&setup_bytes).map_err(|e| format!("setup.bin: {e}"))?;
+        let truth = setup.period_ps.to_num::<f64>();
+        let got = slotwise::fixed::types::U32F32::from_bits(field("locked_period_ps_q32")?)
+            .to_num::<f64>();
+        // A lock more than 1 ppm off the true period is a wrong lock, not an acquisition.
+        let error_ppm = (got / truth - 1.0) * 1e6;
+        acquisition_ok = locked && error_ppm.abs() <= 1.0;
+        if locked {
+            line["acquired_period_error_ppm"] = json!((error_ppm * 1000.0).round() / 1000.0);
+        }
+        line["recovered_clock_bytes"] = json!(field("recovered_clock_bytes")?);
+    }
     line["replay_problems"] = json!(replay_bad);
     if let Some(e) = &decode_error {
         line["error"] = json!(e);
     }
     println!("{line}");
-    let ok = mismatched == 0
+    let ok = acquisition_ok
+        && mismatched == 0
         && hf.len() == ff.len()
         && decode_error.is_none()
         && replay_bad == 0

@@ -1,5 +1,5 @@
-//! Deterministic synthetic captures for the HIL check, made here until the link simulator's
-//! captures are plugged in (see `capture::Capture`).
+//! Deterministic synthetic captures for the HIL check, beside the link simulator's captures: the
+//! fault variant has transport faults the simulator does not model.
 //!
 //! An invented 100 MHz time-bin link: transmitter clock +37 ppm, three-state protocol (Z0, Z1, X+)
 //! with p_Z = 0.9, signal and decoy classes (0.7 / 0.3), an arrival-time detector (channel 0)
@@ -149,7 +149,7 @@ pub fn setup() -> Setup {
 }
 
 /// Make one synthetic capture of `slots` slots.
-pub fn capture(variant: Variant, slots: u64) -> Capture {
+pub fn capture(variant: Variant, slots: u64, name: &str) -> Capture {
     let seed: u64 = match variant {
         Variant::Default => 0x1001,
         Variant::Fault => 0x2002,
@@ -254,10 +254,7 @@ pub fn capture(variant: Variant, slots: u64) -> Capture {
         inject_faults(&mut events, &times, &mut rng);
     }
     Capture {
-        name: match variant {
-            Variant::Default => "synthetic-bench-100mhz".into(),
-            Variant::Fault => "synthetic-bench-100mhz-faults".into(),
-        },
+        name: name.to_string(),
         setup,
         events,
         answer: Box::new(move |a| answer(seed, a)),

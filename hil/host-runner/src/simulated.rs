@@ -1,0 +1,145 @@
+//! Captures written by `slotwise simulate`: events and scenario from the capture file, the
+//! receiver setup the link simulator's host replay uses with its reference clock, and the
+//! simulated transmitter's answers.
+//!
+//! The board build runs the configured `FixedClock`, which numbers every slot; the simulator's
+//! reference clock excludes the public marker's slots. Both agree only when the scenario has no
+//! marker, so a capture made with `marker = true` is refused here rather than compared against
+//! a different numbering.
+
+use crate::capture::Capture;
+use slotwise::{Answer, GateTable, OverflowPolicy, UnwrapConfig};
+use slotwise_hil::Setup;
+use slotwise_sim::capture::read_all;
+use slotwise_sim::cli::{receiver_setup, ClockArgs};
+use slotwise_sim::clocks::ClockMode;
+use slotwise_sim::scenario::Scenario;
+use slotwise_sim::sim::{clock_truth, receiver_gates, TxChoices};
+use std::path::Path;
+
+/// Squashing-rule seed of the simulator's host replay: the scenario seed xor this.
+const SQUASH_SEED_XOR: u64 = 0x5351_5541_5348;
+
+/// The receiver setup of a scenario, with the scenario's true clock (`--clock reference`).
+pub fn setup(s: &Scenario, source: &str) -> Result<Setup, String> {
+    let (delays, gates) = receiver_gates(s);
+    let gates = GateTable::new(&delays, &gates)
+        .map_err(|e| format!("{source}: scenario gate table: {e}"))?;
+    let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)
+        .map_err(|e| format!("{source}: scenario field tdc_bits / tdc_resolution_ps: {e}"))?;
+    let truth = clock_truth(s).map_err(|e| format!("{source}: scenario clock: {e}"))?;
+    let clock = truth.fixed_clock();
+    let setup = Setup {
+        tdc,
+        gates,
+        period_ps: clock.period_ps(),
+        origin_ps: truth.origin_ps_unwrapped,
+        intensities: u8::try_from(s.intensities.len())
+            .map_err(|_| format!("{source}: scenario field intensities: too many classes"))?,
+        // As the simulator's host replay (`slotwise_sim::cli::receiver_setup`): 10 ms of slots.
+        answer_timeout_slots: (s.rep_rate_hz * 0.01).max(1.0) as u64,
+        overflow: OverflowPolicy::DropNewest,
+        squash_seed: s.seed ^ SQUASH_SEED_XOR,
+    };
+    // The same receiver the simulator's own replay builds, field for field.
+    let args = ClockArgs {
+        clock: ClockMode::Reference,
+        prior_ppm: 500,
+    };
+    let (cfg, _) = receiver_setup(s, &args).map_err(|e| format!("{source}: {e}"))?;
+    let ours = setup
+        .receiver_config()
+        .map_err(|e| format!("{source}: {e}"))?;
+    if ours != cfg {
+        return Err(format!(
+            "{source}: HIL setup differs from the simulator's receiver setup"
+        ));
+    }
+    Ok(setup)
+}
+
+/// Read a capture of `slotwise simulate` and build the comparison input from it.
+pub fn capture(path: &Path, name: &str) -> Result<Capture, String> {
+    let source = path.display().to_string();
+    let (header, events) = read_all(path).map_err(|e| e.to_string())?;
+    let s = Scenario::from_toml_str(&header.metadata, &format!("{source}: header metadata"))
+        .map_err(|e| e.to_string())?;
+    if s.marker {
+        return Err(format!(
+            "{source}: header metadata: scenario '{}' field marker: the board's configured clock \
+             numbers marker slots as key slots; make the HIL capture with `marker = false`",
+            s.name
+        ));
+    }
+    let setup = setup(&s, &source)?;
+    if header.counter_bits != s.tdc_bits || header.resolution_ps != s.tdc_resolution_ps {
+        return Err(format!(
+            "{source}: header counter_bits/resolution_ps ({}, {}) differ from the scenario's \
+             ({}, {})",
+            header.counter_bits, header.resolution_ps, s.tdc_bits, s.tdc_resolution_ps
+        ));
+    }
+    let choices = TxChoices::new(&s);
+    Ok(Capture {
+        name: name.to_string(),
+        setup,
+        events,
+        // As `SimTransmitter`: basis, intensity and the bit, for every announced slot.
+        answer: Box::new(move |a| {
+            let c = choices.choice(a.slot);
+            Answer {
+                slot: a.slot,
+                basis: c.basis,
+                intensity: c.intensity,
+                bit: Some(c.bit),
+            }
+        }),
+    })
+}
+
+/// Bytes of `acquire.bin`.
+pub const ACQUIRE_LEN: usize = 40;
+
+/// `acquire.bin` for the acquisition run: the recovered clock's settings as the simulator's host
+/// replay derives them from the scenario (`slotwise_sim::clocks::build`, prior ±500 ppm).
+///
+/// Layout (little-endian): nominal period ps Q32.32 u64, prior ppm u32, work per call u32, loop
+/// bandwidth mHz u32, signal rate per s u64, blackout ps u64, reacquisition prior ppm u32.
+pub fn acquire_params(s: &Scenario) -> [u8; ACQUIRE_LEN] {
+    use slotwise::fixed::types::U32F32;
+    // The same arithmetic as `slotwise_sim::clocks::build` (recovered mode).
+    let period = s.period_ps();
+    let rate = slotwise_sim::clocks::signal_rate_per_s(s);
+    let drift_ppb = (s.clock_drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
+    let w = 1.0 / 16.0;
+    let window_sigma2 = 2.0 * w * (w * period).powi(2) / 3.0;
+    let sigma = (s.jitter_ps.powi(2) + window_sigma2).sqrt().max(1.0) as u64;
+    let rate_u = rate.max(1.0) as u64;
+    let b =
+        slotwise::track::bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
+    let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
+    let mut out = [0u8; ACQUIRE_LEN];
+    let fields: [&[u8]; 7] = [
+        &U32F32::from_num(period).to_bits().to_le_bytes(),
+        &500u32.to_le_bytes(),
+        &4096u32.to_le_bytes(),
+        &b.max(1).to_le_bytes(),
+        &rate_u.to_le_bytes(),
+        &blackout_ps.to_le_bytes(),
+        &20u32.to_le_bytes(),
+    ];
+    let mut at = 0;
+    for f in fields {
+        out[at..at + f.len()].copy_from_slice(f);
+        at += f.len();
+    }
+    out
+}
+
+/// The scenario in a capture's header.
+pub fn scenario_of(path: &Path) -> Result<Scenario, String> {
+    let source = path.display().to_string();
+    let (header, _) = read_all(path).map_err(|e| e.to_string())?;
+    Scenario::from_toml_str(&header.metadata, &format!("{source}: header metadata"))
+        .map_err(|e| e.to_string())
+}
