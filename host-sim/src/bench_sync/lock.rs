@@ -12,16 +12,16 @@
 //! attempt discards its buffer) and evaluates the bound over the *signal* detections among them,
 //! with σ² = jitter² + tick²/12 (TDC quantisation, common practice). Noise detections that fall
 //! inside ±w enter the fit with a uniform residual (variance w²/3) and no information, so with
-//! noise the ratio rms/√CRB exceeds one by about √(1 + n_w·w²/(3·N·σ²)) [der].
+//! noise the ratio rms/√CRB exceeds one by about √(1 + n_w·w²/(3·N·σ²)) (derived here).
 //!
 //! ## The loop's bound
 //! The loop's period is the integrator of a type-II PLL; with white phase noise of σ² per
 //! detection at R detections/s its fractional variance is σ²·ω_n³/(4ζR)/f² (the integrator's
-//! noise bandwidth, as in the recovered-clock tests) [der], σ² including the in-window noise
+//! noise bandwidth, as in the recovered-clock tests) (derived here), σ² including the in-window noise
 //! term of track.rs. The integrator lags a frequency ramp by 2ζ/ω_n seconds; a least-squares
 //! fit over a window τ lags it by τ/2, so the window with the same drift lag is τ = 4ζ/ω_n. The
 //! CRB of that window, 12σ_j²/(R·τ³)/f², is the "bound" quoted for the loop; loop theory sits at
-//! √(4ζ²/3) = 0.82 of it for ζ = 0.707 (the loop also uses older detections) [der].
+//! √(4ζ²/3) = 0.82 of it for ζ = 0.707 (the loop also uses older detections) (derived here).
 
 use super::link::{self, Feed, LinkPoint};
 use serde::Serialize;
