@@ -123,6 +123,10 @@ struct Eval<const H: usize> {
     fold: Fold<H>,
 }
 
+/// Final fits repeated after the first one over both batches (each costs one unit per stored
+/// detection).
+pub const EXTRA_FINAL_PASSES: u8 = 3;
+
 /// Sums of a straight-line fit y = c0 + c1·x (x slots, y Q0.32 slot fractions).
 #[derive(Clone, Copy, Debug, Default)]
 struct LsSums {
@@ -697,6 +701,9 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
                 self.n_confirm = 0;
                 self.step = Step::Confirm;
             }
+            // In-window noise is uniform around the current model, so one pass corrects only
+            // part of the previous error: repeat the final fit until it has converged.
+            p if p < 2 + EXTRA_FINAL_PASSES => self.begin_fit(p + 1),
             _ => self.build_lock(sums),
         }
     }
