@@ -135,12 +135,31 @@ pub fn signal_rate_per_s(s: &Scenario) -> f64 {
     (gain - m.y0).max(1e-12) * s.rep_rate_hz
 }
 
-/// Build the scenario's clock in the chosen mode.
+/// Prior (ppm) of a narrow reacquisition around the last good period, after a loss.
+pub const REACQUIRE_PPM: u32 = 20;
+
+/// The recovered clock's settings for a scenario's hardware.
 ///
-/// Recovered mode: prior ±`prior_ppm` around the nominal period; loop bandwidth from the core's
-/// rule ([`bandwidth_for_mhz`]) with the expected signal rate, a drift allowance of
+/// Prior ±`prior_ppm` around the nominal period; loop bandwidth from the core's rule
+/// ([`bandwidth_for_mhz`]) with the expected signal rate, a drift allowance of
 /// max(|drift|, 0.1 ppm/s), and σ² = jitter² + the window's uniform-noise share; blackout after
 /// the longer of 1 ms and 50 expected detections.
+pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackParams) {
+    let period = s.period_ps();
+    let mut a = AcquireParams::new(U32F32::from_num(period), prior_ppm);
+    a.work_per_call = 4096;
+    let rate = signal_rate_per_s(s);
+    let drift_ppb = (s.clock_drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
+    let w = 1.0 / 16.0;
+    let window_sigma2 = 2.0 * w * (w * period).powi(2) / 3.0;
+    let sigma = (s.jitter_ps.powi(2) + window_sigma2).sqrt().max(1.0) as u64;
+    let rate_u = rate.max(1.0) as u64;
+    let b = bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
+    let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
+    (a, TrackParams::new(b.max(1), rate_u, blackout_ps))
+}
+
+/// Build the scenario's clock in the chosen mode (recovered: [`recovered_params`]).
 pub fn build(
     s: &Scenario,
     gates: &GateTable,
@@ -153,19 +172,9 @@ pub fn build(
             s.marker.then(MarkerSpec::standard),
         )),
         ClockMode::Recovered => {
-            let period = s.period_ps();
-            let mut a = AcquireParams::new(U32F32::from_num(period), prior_ppm);
-            a.work_per_call = 4096;
-            let rate = signal_rate_per_s(s);
-            let drift_ppb = (s.clock_drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
-            let w = 1.0 / 16.0;
-            let window_sigma2 = 2.0 * w * (w * period).powi(2) / 3.0;
-            let sigma = (s.jitter_ps.powi(2) + window_sigma2).sqrt().max(1.0) as u64;
-            let rate_u = rate.max(1.0) as u64;
-            let b = bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
-            let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
-            let t = TrackParams::new(b.max(1), rate_u, blackout_ps);
-            let cfg = RecoveredConfig::new(AcquireConfig::new(a)?, TrackConfig::new(t)?, 20)?;
+            let (a, t) = recovered_params(s, prior_ppm);
+            let cfg =
+                RecoveredConfig::new(AcquireConfig::new(a)?, TrackConfig::new(t)?, REACQUIRE_PPM)?;
             if !s.marker {
                 return Err(format!(
                     "scenario '{}': the recovered clock needs the public marker to number slots \

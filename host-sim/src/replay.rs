@@ -46,7 +46,7 @@ pub struct Bucket {
     pub detections: [u64; 8],
     /// Gated detections: count and sum of squared distance to their gate's centre (ps²).
     pub residual: (u64, f64),
-    /// The clock's period at the end of the bucket (ps), when locked.
+    /// The clock's period at the bucket's last gated detection (ps), when locked.
     pub period_ps: Option<f64>,
 }
 
@@ -191,7 +191,6 @@ impl<T: Transmitter> Session<T> {
     }
 
     fn observe(&mut self, tr: &Trace, truth: Option<TruthTag>) {
-        let period = self.rx.clock().period_ps();
         if let Some(t) = tr.t_ps {
             let first = *self.first_t_ps.get_or_insert(t);
             let rel = t.saturating_sub(first);
@@ -199,17 +198,21 @@ impl<T: Transmitter> Session<T> {
             if self.first_lock.is_none() && self.rx.clock().locked() {
                 self.first_lock = Some((self.rx.detections_in(), rel as f64 * 1e-12));
             }
-            let centre = tr
+            // Only gated detections carry a residual; the clock's period is read for those alone.
+            let gated = tr
                 .gate
                 .and_then(|g| self.cfg.gates().gate(g))
-                .map(|g| g.centre().to_num::<f64>());
+                .zip(tr.slot)
+                .and_then(|(g, (_, phase))| {
+                    let p = self.rx.clock().period_ps()?;
+                    Some((p, (phase.to_num::<f64>() - g.centre().to_num::<f64>()) * p))
+                });
             let b = self.sink.bucket(rel);
             if let Some(d) = b.detections.get_mut(usize::from(tr.channel)) {
                 *d += 1;
             }
-            b.period_ps = period;
-            if let (Some(c), Some((_, phase)), Some(p)) = (centre, tr.slot, period) {
-                let r = (phase.to_num::<f64>() - c) * p;
+            if let Some((p, r)) = gated {
+                b.period_ps = Some(p);
                 b.residual.0 += 1;
                 b.residual.1 += r * r;
             }

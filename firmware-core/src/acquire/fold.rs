@@ -349,7 +349,6 @@ impl<const H: usize> Fold<H> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::gates::{Basis, Gate};
 
     #[test]
     fn table_matches_libm_cos() {
@@ -391,24 +390,7 @@ mod tests {
 
     #[test]
     fn time_bin_patterns_choose_harmonics() {
-        let g = |channel, a: f64, b: f64| Gate {
-            channel,
-            start: U0F32::from_num(a),
-            end: U0F32::from_num(b),
-            basis: Basis::Z,
-            bit: 0,
-        };
-        let t = GateTable::new(
-            &[0, 0],
-            &[
-                g(0, 0.05, 0.2),
-                g(0, 0.55, 0.7),
-                g(1, 0.05, 0.2),
-                g(1, 0.3, 0.45),
-                g(1, 0.55, 0.7),
-            ],
-        )
-        .unwrap();
+        let t = crate::acquire::synth::time_bin_table();
         let pat = ArrivalPattern::from_gates(&t);
         // Two peaks half a slot apart cancel every odd harmonic.
         let z = pat.channel(Some(0));

@@ -5,6 +5,32 @@
 //! Noise: a Poisson process, uniform in time. The transmitter's frequency is f0·(1 + y0 + D·t)
 //! with optional frequency steps, arrival phase jumps, and blackouts.
 
+use crate::gates::{Basis, Gate, GateTable};
+use fixed::types::U0F32;
+
+/// The time-bin receiver the clock tests use: channel 0 sees the early and late bins, channel 1
+/// the three interferometer positions (every window tagged Z0: only positions matter here).
+pub(crate) fn time_bin_table() -> GateTable {
+    let g = |channel, a: f64, b: f64| Gate {
+        channel,
+        start: U0F32::from_num(a),
+        end: U0F32::from_num(b),
+        basis: Basis::Z,
+        bit: 0,
+    };
+    let windows = [
+        g(0, 0.05, 0.2),
+        g(0, 0.55, 0.7),
+        g(1, 0.05, 0.2),
+        g(1, 0.3, 0.45),
+        g(1, 0.55, 0.7),
+    ];
+    match GateTable::new(&[0, 0], &windows) {
+        Ok(t) => t,
+        Err(e) => panic!("test gate table: {e}"),
+    }
+}
+
 /// Something that happens to the link at a given time.
 #[derive(Clone, Copy, Debug)]
 pub enum Event {

@@ -155,25 +155,7 @@ fn period_error_matches_crb_over_seeds() {
 
 #[test]
 fn time_bin_three_peaks_lock_with_four_harmonics() {
-    use crate::gates::{Basis, Gate, GateTable};
-    let g = |channel, a: f64, b: f64| Gate {
-        channel,
-        start: U0F32::from_num(a),
-        end: U0F32::from_num(b),
-        basis: Basis::Z,
-        bit: 0,
-    };
-    let table = GateTable::new(
-        &[0, 0],
-        &[
-            g(0, 0.05, 0.2),
-            g(0, 0.55, 0.7),
-            g(1, 0.05, 0.2),
-            g(1, 0.3, 0.45),
-            g(1, 0.55, 0.7),
-        ],
-    )
-    .unwrap();
+    let table = super::synth::time_bin_table();
     let pat = ArrivalPattern::from_gates(&table);
     let mut sc = Scenario::simple(10_000.0, -300.0, 1e-3, 0.5, 5);
     sc.channels = vec![

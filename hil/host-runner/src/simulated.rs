@@ -101,32 +101,23 @@ pub fn capture(path: &Path, name: &str) -> Result<Capture, String> {
 pub const ACQUIRE_LEN: usize = 40;
 
 /// `acquire.bin` for the acquisition run: the recovered clock's settings as the simulator's host
-/// replay derives them from the scenario (`slotwise_sim::clocks::build`, prior ±500 ppm).
+/// replay derives them from the scenario (`slotwise_sim::clocks::recovered_params`, prior
+/// ±500 ppm).
 ///
 /// Layout (little-endian): nominal period ps Q32.32 u64, prior ppm u32, work per call u32, loop
 /// bandwidth mHz u32, signal rate per s u64, blackout ps u64, reacquisition prior ppm u32.
 pub fn acquire_params(s: &Scenario) -> [u8; ACQUIRE_LEN] {
-    use slotwise::fixed::types::U32F32;
-    // The same arithmetic as `slotwise_sim::clocks::build` (recovered mode).
-    let period = s.period_ps();
-    let rate = slotwise_sim::clocks::signal_rate_per_s(s);
-    let drift_ppb = (s.clock_drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
-    let w = 1.0 / 16.0;
-    let window_sigma2 = 2.0 * w * (w * period).powi(2) / 3.0;
-    let sigma = (s.jitter_ps.powi(2) + window_sigma2).sqrt().max(1.0) as u64;
-    let rate_u = rate.max(1.0) as u64;
-    let b =
-        slotwise::track::bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
-    let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
+    use slotwise_sim::clocks::{recovered_params, REACQUIRE_PPM};
+    let (a, t) = recovered_params(s, 500);
     let mut out = [0u8; ACQUIRE_LEN];
     let fields: [&[u8]; 7] = [
-        &U32F32::from_num(period).to_bits().to_le_bytes(),
-        &500u32.to_le_bytes(),
-        &4096u32.to_le_bytes(),
-        &b.max(1).to_le_bytes(),
-        &rate_u.to_le_bytes(),
-        &blackout_ps.to_le_bytes(),
-        &20u32.to_le_bytes(),
+        &a.nominal_period_ps.to_bits().to_le_bytes(),
+        &a.prior_ppm.to_le_bytes(),
+        &a.work_per_call.to_le_bytes(),
+        &t.bandwidth_mhz.to_le_bytes(),
+        &t.rate_per_s.to_le_bytes(),
+        &t.blackout_ps.to_le_bytes(),
+        &REACQUIRE_PPM.to_le_bytes(),
     ];
     let mut at = 0;
     for f in fields {

@@ -205,17 +205,23 @@ impl<R: Read> CaptureReader<R> {
         self.events
     }
 
+    /// Clear `out` and say whether a record may follow: the stored fault again after a failure,
+    /// `false` after the end record.
+    fn begin_record(&self, out: &mut Vec<TdcEvent>) -> Result<bool, CaptureError> {
+        out.clear();
+        match &self.failed {
+            Some(e) => Err(e.clone()),
+            None => Ok(!self.done),
+        }
+    }
+
     /// The next block's events into `out` (cleared first); `None` after a verified end record.
     /// Any fault ends the capture: later calls return the same error.
     pub fn next_block(
         &mut self,
         out: &mut Vec<TdcEvent>,
     ) -> Result<Option<BlockInfo>, CaptureError> {
-        out.clear();
-        if let Some(e) = &self.failed {
-            return Err(e.clone());
-        }
-        if self.done {
+        if !self.begin_record(out)? {
             return Ok(None);
         }
         let start = self.win.offset;
@@ -251,11 +257,7 @@ impl<R: Read> CaptureReader<R> {
         &mut self,
         out: &mut Vec<TdcEvent>,
     ) -> Result<Option<BlockOutcome>, CaptureError> {
-        out.clear();
-        if let Some(e) = &self.failed {
-            return Err(e.clone());
-        }
-        if self.done {
+        if !self.begin_record(out)? {
             return Ok(None);
         }
         let start = self.win.offset;
