@@ -42,6 +42,8 @@ pub const MAX_RAW: usize = HEADER_LEN + MAX_PAYLOAD + CRC_LEN;
 pub const MAX_FRAME: usize = cobs::max_encoded_len(MAX_RAW) + 1;
 /// Most sifted bits one key block can carry.
 pub const MAX_KEY_BITS: usize = 1024;
+/// Largest payload [`FrameOut::record`] frames, in bytes (alarm and statistics records fit).
+pub const SMALL_RECORD: usize = 256;
 /// Bytes before the bitmaps in a key block: first slot, last slot, bit count.
 pub const KEY_BLOCK_FIXED: usize = 18;
 
@@ -69,6 +71,10 @@ pub enum RecordType {
     KeyBlock = 1,
     /// Every counter of the receiver, at the end of a run.
     Summary = 2,
+    /// An alarm raised or cleared ([`crate::alarms::AlarmEvent`]).
+    Alarm = 5,
+    /// Window statistics at the end of a block ([`crate::stats::Snapshot`]).
+    Stats = 6,
 }
 
 impl RecordType {
@@ -77,6 +83,8 @@ impl RecordType {
         match code {
             1 => Some(Self::KeyBlock),
             2 => Some(Self::Summary),
+            5 => Some(Self::Alarm),
+            6 => Some(Self::Stats),
             _ => None,
         }
     }
@@ -657,6 +665,19 @@ impl<S: FrameSink, const BITS: usize> FrameOut<S, BITS> {
             write_header(head, record, self.seq, len);
         }
         match seal(&mut self.raw, HEADER_LEN + len + CRC_LEN, &mut self.enc) {
+            Ok(n) => {
+                self.seq = self.seq.wrapping_add(1);
+                self.sink.frame(self.enc.get(..n).unwrap_or(&[]));
+            }
+            Err(_) => self.frame_errors += 1,
+        }
+    }
+
+    /// Emit one small record (payload at most [`SMALL_RECORD`] bytes: alarms, statistics) now,
+    /// between key blocks; key bits buffered so far stay buffered.
+    pub fn record(&mut self, record: RecordType, payload: &[u8]) {
+        let mut raw = [0u8; HEADER_LEN + SMALL_RECORD + CRC_LEN];
+        match encode_frame(record, self.seq, payload, &mut raw, &mut self.enc) {
             Ok(n) => {
                 self.seq = self.seq.wrapping_add(1);
                 self.sink.frame(self.enc.get(..n).unwrap_or(&[]));

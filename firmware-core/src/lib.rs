@@ -27,9 +27,14 @@
 //! 7. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
 //! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
-//! 9. [`accounting`] — every detection ends in exactly one counter.
-//! 10. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
-//!     COBS-stuffed records for the post-processing host.
+//! 9. [`stats`] — live statistics in bounded memory: a sliding window of block tallies (QBER per
+//!    basis and intensity, rates, dead time, off-gate noise, multi-clicks) and since start, with
+//!    confidence bounds in fixed point ([`bounds`]: Hoeffding, Wilson, binary entropy) and
+//!    [`alarms`] (QBER bound above the Shor-Preskill ceiling, lock lost, rate collapse,
+//!    saturation); fed from the receiver's traces and sifted bits, off its hot path.
+//! 10. [`accounting`] — every detection ends in exactly one counter.
+//! 11. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//!     COBS-stuffed records for the post-processing host, alarms and statistics snapshots.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
 //!
@@ -53,6 +58,8 @@
 
 pub mod accounting;
 pub mod acquire;
+pub mod alarms;
+pub mod bounds;
 pub mod clock;
 pub mod frame;
 pub mod frames;
@@ -62,6 +69,7 @@ pub mod marked;
 pub mod receiver;
 pub mod recovered;
 pub mod sift;
+pub mod stats;
 pub mod tally;
 pub mod timestamps;
 pub mod track;
@@ -69,6 +77,7 @@ pub mod track;
 pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
 pub use acquire::fold::ArrivalPattern;
 pub use acquire::{AcquireConfig, AcquireParams, AcquiredLock, Acquirer};
+pub use alarms::{AlarmConfig, AlarmEvent, AlarmKind, BoundKind};
 pub use clock::{Clock, FixedClock, Located, Numbered, SlotGrid, SlotPos};
 pub use fixed;
 pub use frame::{AlignState, FrameAligner, FrameConfig, MarkerSpec, MarkerState, SlotHint};
@@ -80,6 +89,7 @@ pub use recovered::{RecoveredClock, RecoveredConfig};
 pub use sift::{
     Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftedBit, Transmitter,
 };
+pub use stats::{Counts, Monitor, Snapshot, StatsConfig, Tap};
 pub use tally::Tally;
 pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
 pub use track::{LockState, TrackConfig, TrackParams, Tracker};
