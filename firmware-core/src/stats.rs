@@ -357,6 +357,14 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
         t
     }
 
+    /// The block closed most recently.
+    pub fn last_block(&self) -> Option<&Counts> {
+        if self.len == 0 {
+            return None;
+        }
+        self.ring.get((self.head + BLOCKS - 1) % BLOCKS)
+    }
+
     /// Sum of the closed blocks in the window.
     pub fn window(&self) -> Counts {
         let mut w = Counts::new();

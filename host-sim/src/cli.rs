@@ -268,7 +268,11 @@ pub fn run_simulated(
         bucket_s(s),
         true,
         None,
-    )?;
+    )?
+    .with_monitor(
+        crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
+        slotwise::AlarmConfig::DEFAULT,
+    );
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
     let mut writer = match capture {
@@ -294,6 +298,9 @@ pub fn run_simulated(
         }
         if let Some(last) = block.last() {
             pb.set_position((last.truth.true_t_ps * 1e-12 / s.duration_s * 1000.0) as u64);
+        }
+        if !pb.is_hidden() {
+            pb.set_message(format!("simulating {}", session.live_status()));
         }
     }
     pb.finish_and_clear();
@@ -434,7 +441,11 @@ pub fn replay_capture(
         bucket_s(s),
         false,
         trace,
-    )?;
+    )?
+    .with_monitor(
+        crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
+        slotwise::AlarmConfig::DEFAULT,
+    );
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
     let mut skipped = Vec::new();
@@ -466,6 +477,9 @@ pub fn replay_capture(
                 break;
             }
             pb.set_position(r.offset());
+            if !pb.is_hidden() {
+                pb.set_message(format!("replaying {}", session.live_status()));
+            }
         }
     }
     pb.finish_and_clear();

@@ -12,4 +12,5 @@ pub mod plots;
 pub mod replay;
 pub mod scenario;
 pub mod sim;
+pub mod stats;
 pub mod summary;

@@ -3,8 +3,11 @@
 //! the fold profile, and optionally a per-detection trace.
 
 use crate::clocks::HostClock;
+use crate::stats::{BlockPoint, HostMonitor, LiveLog};
 use serde::Serialize;
 use slotwise::fixed::types::U0F32;
+use slotwise::frames::{encode_frame, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, SMALL_RECORD};
+use slotwise::{AlarmConfig, StatsConfig};
 use slotwise::{
     Basis, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, Stage, TdcEvent, Trace,
     Transmitter,
@@ -126,6 +129,9 @@ pub struct Session<T: Transmitter> {
     cfg: ReceiverConfig,
     first_t_ps: Option<u64>,
     first_lock: Option<(u64, f64)>,
+    monitor: Box<HostMonitor>,
+    live: LiveLog,
+    frame_seq: u16,
 }
 
 impl<T: Transmitter> Session<T> {
@@ -168,7 +174,90 @@ impl<T: Transmitter> Session<T> {
             cfg,
             first_t_ps: None,
             first_lock: None,
+            monitor: Box::new(HostMonitor::new(
+                StatsConfig::new((bucket_s * 1e12).max(1.0) as u64, 0, cfg.gates())
+                    .map_err(std::io::Error::other)?,
+                AlarmConfig::DEFAULT,
+            )),
+            live: LiveLog::default(),
+            frame_seq: 0,
         })
+    }
+
+    /// Run the live-statistics monitor with these settings (before the first detection).
+    pub fn with_monitor(mut self, stats: StatsConfig, alarms: AlarmConfig) -> Self {
+        self.monitor = Box::new(HostMonitor::new(stats, alarms));
+        self
+    }
+
+    /// The live-statistics monitor.
+    pub fn monitor(&self) -> &HostMonitor {
+        &self.monitor
+    }
+
+    /// One line for a terminal: window QBER per basis with the board's bound, active alarms.
+    pub fn live_status(&self) -> String {
+        let w = self.monitor.window();
+        let cfg = self.monitor.alarms().config();
+        let q = |b: Basis| {
+            let (e, n) = w.errors(b, Some(cfg.intensity()));
+            if n == 0 {
+                return format!("{} -", basis_name(b));
+            }
+            let ub = f64::from(cfg.upper_ppm(e, n)) * 1e-4;
+            format!(
+                "{} {:.2}% (≤{ub:.2}%)",
+                basis_name(b),
+                1e2 * e as f64 / n as f64
+            )
+        };
+        format!(
+            "{} {} alarms {:#07b}",
+            q(Basis::Z),
+            q(Basis::X),
+            self.monitor.alarms().active()
+        )
+    }
+
+    /// Take the monitor's alarm events and block snapshot into the log, as frames too.
+    fn drain(&mut self) {
+        let first = self.first_t_ps.unwrap_or(0);
+        while let Some(ev) = self.monitor.pop_event() {
+            let mut p = [0u8; slotwise::alarms::ALARM_LEN];
+            if let Some(n) = ev.encode(&mut p) {
+                self.frame(RecordType::Alarm, &p[..n]);
+                self.live.frame_counts.0 += 1;
+            }
+            self.live.events.push(ev);
+        }
+        if let Some(snap) = self.monitor.take_snapshot() {
+            let mut p = [0u8; slotwise::stats::SNAPSHOT_LEN];
+            if let Some(n) = snap.encode(&mut p) {
+                self.frame(RecordType::Stats, &p[..n]);
+                self.live.frame_counts.1 += 1;
+            }
+            let channels = usize::from(self.cfg.gates().channels());
+            self.live.blocks.push(BlockPoint {
+                t_s: snap.t_ps.saturating_sub(first) as f64 * 1e-12,
+                snapshot: snap,
+                block_detections: self
+                    .monitor
+                    .last_block()
+                    .map(|b| b.detections.iter().take(channels).copied().collect())
+                    .unwrap_or_default(),
+                block_s: self.monitor.config().block_ps() as f64 * 1e-12,
+            });
+        }
+    }
+
+    fn frame(&mut self, record: RecordType, payload: &[u8]) {
+        let mut raw = [0u8; HEADER_LEN + SMALL_RECORD + CRC_LEN];
+        let mut out = vec![0u8; MAX_FRAME];
+        if let Ok(n) = encode_frame(record, self.frame_seq, payload, &mut raw, &mut out) {
+            out.truncate(n);
+            self.live.frames.push(out);
+            self.frame_seq = self.frame_seq.wrapping_add(1);
+        }
     }
 
     /// Pass the classical channel's coarse hint to the core (see `Receiver::hint`).
@@ -178,8 +267,12 @@ impl<T: Transmitter> Session<T> {
 
     /// Push one event (with the simulator's truth when known).
     pub fn push(&mut self, ev: TdcEvent, truth: Option<TruthTag>) {
-        let tr = self.rx.push(ev, &mut self.tx, &mut self.sink);
+        let tr = self
+            .rx
+            .push(ev, &mut self.tx, &mut self.monitor.tap(&mut self.sink));
+        self.monitor.observe(&tr, self.rx.clock().locked());
         self.observe(&tr, truth);
+        self.drain();
     }
 
     /// Push a block of events without truth.
@@ -187,7 +280,9 @@ impl<T: Transmitter> Session<T> {
         for &ev in events {
             self.push(ev, None);
         }
-        self.rx.service(&mut self.tx, &mut self.sink);
+        self.rx
+            .service(&mut self.tx, &mut self.monitor.tap(&mut self.sink));
+        self.drain();
     }
 
     fn observe(&mut self, tr: &Trace, truth: Option<TruthTag>) {
@@ -280,7 +375,9 @@ impl<T: Transmitter> Session<T> {
 
     /// End of stream: resolve everything and hand back the results.
     pub fn finish(mut self) -> std::io::Result<SessionResult<T>> {
-        self.rx.finish(&mut self.tx, &mut self.sink);
+        self.rx
+            .finish(&mut self.tx, &mut self.monitor.tap(&mut self.sink));
+        self.drain();
         let rest: Vec<u64> = self.sink.trace_pending.keys().copied().collect();
         for s in rest {
             self.sink.flush_trace(s, "multi_click");
@@ -297,6 +394,9 @@ impl<T: Transmitter> Session<T> {
             buckets: self.sink.buckets,
             fold: self.fold,
             first_lock: self.first_lock,
+            monitor: self.monitor,
+            live: self.live,
+            first_t_ps: self.first_t_ps.unwrap_or(0),
             misassigned_sifted: if self.sink.truth_checked {
                 Some(self.sink.misassigned_sifted)
             } else {
@@ -325,6 +425,12 @@ pub struct SessionResult<T: Transmitter> {
     pub fold: Vec<[u64; FOLD_BINS]>,
     /// Sifted bits whose slot differs from the simulator's truth (simulated runs only).
     pub misassigned_sifted: Option<u64>,
+    /// The live-statistics monitor in its final state.
+    pub monitor: Box<HostMonitor>,
+    /// Closed blocks, alarm events and their frames.
+    pub live: LiveLog,
+    /// Receiver time of the first detection, ps (the origin of every `t_s`).
+    pub first_t_ps: u64,
 }
 
 /// Short name of a basis for reports.

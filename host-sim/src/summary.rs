@@ -92,6 +92,8 @@ pub struct Summary {
     pub tally: BTreeMap<String, u64>,
     /// Wall-clock seconds the replay took, and detections per second.
     pub run: BTreeMap<&'static str, f64>,
+    /// Live statistics: window and since-start QBER with bounds, rates, dead time, alarms.
+    pub stats: crate::stats::StatsReport,
 }
 
 /// Build the summary of a finished session.
@@ -214,6 +216,7 @@ pub fn summarize<T: Transmitter>(
         ]
         .into_iter()
         .collect(),
+        stats: crate::stats::report(&res.monitor, &res.live, res.first_t_ps, n_int),
     }
 }
 
@@ -288,6 +291,6 @@ impl std::fmt::Display for Summary {
         if let Some(s) = self.run.get("seconds") {
             writeln!(f, "replay time    {s:.2} s")?;
         }
-        Ok(())
+        write!(f, "{}", self.stats)
     }
 }
