@@ -287,6 +287,7 @@ pub struct Monitor<const BLOCKS: usize> {
     last_gated_slot: Option<u64>,
     last_gated_multi: bool,
     snapshot: Option<Snapshot>,
+    snapshots_replaced: u64,
 }
 
 impl<const BLOCKS: usize> Monitor<BLOCKS> {
@@ -309,6 +310,7 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
             last_gated_slot: None,
             last_gated_multi: false,
             snapshot: None,
+            snapshots_replaced: 0,
         }
     }
 
@@ -330,6 +332,12 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
     /// Take the snapshot of the latest closed block, once.
     pub fn take_snapshot(&mut self) -> Option<Snapshot> {
         self.snapshot.take()
+    }
+
+    /// Snapshots replaced before they were taken (one detection closing several blocks, e.g.
+    /// after a blackout, leaves only the last block's; the window's counts are unaffected).
+    pub const fn snapshots_replaced(&self) -> u64 {
+        self.snapshots_replaced
     }
 
     /// Closed blocks held in the window (≤ `BLOCKS`).
@@ -455,7 +463,7 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
         }
         let elapsed = (t_ps - start) / block;
         // Past a full window of empty blocks every further one looks the same: close BLOCKS + 1
-        // (the first with the open block's counts) and count the rest.
+        // (the first with the open block's counts) and count the rest (their snapshots too).
         let closes = elapsed.min(BLOCKS as u64 + 1);
         for i in 0..closes {
             let counts = if i == 0 {
@@ -467,6 +475,7 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
             self.close(end, counts);
         }
         self.blocks_closed += elapsed - closes;
+        self.snapshots_replaced += elapsed - closes;
         self.block_start_ps = Some(start.saturating_add(elapsed.saturating_mul(block)));
     }
 
@@ -480,6 +489,9 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
         self.blocks_closed += 1;
         let w = self.window();
         self.alarms.evaluate(end_ps, &w, &counts, &self.cfg);
+        if self.snapshot.is_some() {
+            self.snapshots_replaced += 1;
+        }
         self.snapshot = Some(Snapshot::of(
             end_ps,
             self.blocks_closed,

@@ -350,6 +350,14 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         &res.buckets,
         usize::from(cfg.gates().channels()),
     )?);
+    files.extend(plots::stats::live_stats(
+        &a.out,
+        &res.live,
+        res.first_t_ps,
+        usize::from(cfg.gates().channels()),
+        res.monitor.alarms().config().intensity(),
+        summary.stats.qber_ceiling,
+    )?);
     print!("{summary}");
     println!(
         "capture replay {} (the written capture replays to the same counters)",
@@ -510,6 +518,14 @@ pub fn replay_capture(
             dir,
             &res.buckets,
             usize::from(cfg.gates().channels()),
+        )?);
+        files.extend(plots::stats::live_stats(
+            dir,
+            &res.live,
+            res.first_t_ps,
+            usize::from(cfg.gates().channels()),
+            res.monitor.alarms().config().intensity(),
+            summary.stats.qber_ceiling,
         )?);
         for f in files {
             eprintln!("wrote {}", f.display());

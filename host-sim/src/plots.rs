@@ -2,6 +2,8 @@
 //! rate over time. Every plot is written as SVG; a PNG is added when a TrueType font is found on
 //! the machine (bitmap text needs one; SVG text does not).
 
+pub mod stats;
+
 use crate::replay::{Bucket, FOLD_BINS};
 use plotters::coord::Shift;
 use plotters::prelude::*;

@@ -265,6 +265,9 @@ pub struct StatsReport {
     pub alarm_events_dropped: u64,
     /// Frames built: alarm records (type 5) and statistics records (type 6).
     pub frames: BTreeMap<&'static str, u64>,
+    /// Block snapshots replaced before they were framed (several blocks closed by one
+    /// detection, as after a blackout; only the last one's snapshot is sent).
+    pub snapshots_replaced: u64,
 }
 
 /// The monitor's settings for a scenario: blocks of `block_s`, the scenario's dead time, the
@@ -382,6 +385,7 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
         frames: [("alarm", log.frame_counts.0), ("stats", log.frame_counts.1)]
             .into_iter()
             .collect(),
+        snapshots_replaced: m.snapshots_replaced(),
     }
 }
 
@@ -469,7 +473,7 @@ impl std::fmt::Display for StatsReport {
             .collect();
         writeln!(
             f,
-            "  alarms raised: {}; active at end: {}; frames: {} alarm, {} stats",
+            "  alarms raised: {}; active at end: {}; frames: {} alarm, {} stats ({} block snapshots replaced)",
             raised.join(", "),
             if self.alarms_active.is_empty() {
                 "none".into()
@@ -477,7 +481,8 @@ impl std::fmt::Display for StatsReport {
                 self.alarms_active.join(", ")
             },
             self.frames.get("alarm").unwrap_or(&0),
-            self.frames.get("stats").unwrap_or(&0)
+            self.frames.get("stats").unwrap_or(&0),
+            self.snapshots_replaced
         )?;
         for e in &self.alarm_events {
             writeln!(

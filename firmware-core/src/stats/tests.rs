@@ -137,6 +137,8 @@ fn window_holds_at_most_blocks_and_gaps_close_empty_blocks() {
     // A gap of 100 blocks: the window empties, every block is counted.
     m.observe(&trace(109 * BLOCK_PS, 0, Stage::NoClock, 0), false);
     assert_eq!(m.blocks_closed(), 109);
+    // 109 blocks closed and no snapshot taken: all but the last one replaced.
+    assert_eq!(m.snapshots_replaced(), 108);
     assert_eq!(m.window().detections_in, 0);
     assert_eq!(m.since_start().detections_in, 11);
 }
