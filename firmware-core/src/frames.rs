@@ -11,6 +11,10 @@
 //! flags, emitted every `BITS` bits and at the end; [`RecordType::Summary`] carries every counter
 //! of the receiver at the end. [`FrameOut`] is a [`KeySink`] that builds both in fixed buffers and
 //! hands each finished frame to a [`FrameSink`] (a UART, a USB endpoint, a file).
+//!
+//! The live monitor adds [`RecordType::Alarm`] (an alarm raised or cleared,
+//! [`crate::alarms::AlarmEvent`]) and [`RecordType::Stats`] (the window's statistics at the end
+//! of a block, [`crate::stats::Snapshot`]); [`FrameOut::record`] sends either between key blocks.
 
 pub mod cobs;
 

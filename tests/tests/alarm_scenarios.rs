@@ -2,8 +2,9 @@
 //! - the default bench link (BRIEF §6) raises none;
 //! - a misaligned encoder (20 % error) raises the QBER alarm: its upper bound passes the
 //!   Shor-Preskill ceiling of 11.0028 % (Shor & Preskill, PRL 85, 441, 2000);
-//! - a 50 ms blackout raises "lock lost" (and the rate collapse), both cleared after relock;
-//! and the alarm and statistics frames decode back to the events and snapshots.
+//! - a 50 ms blackout raises "lock lost" (and the rate collapse), both cleared after relock.
+//!
+//! The alarm and statistics frames decode back to the events and snapshots.
 
 use slotwise::alarms::AlarmEvent;
 use slotwise::frames::{decode_frame, RecordType, MAX_FRAME};

@@ -291,3 +291,22 @@ proptest! {
         check_frame_out::<13>(&input);
     }
 }
+
+#[test]
+fn small_records_interleave_with_key_blocks() {
+    let mut out = FrameOut::<Frames, 4>::new(Frames::default());
+    out.sifted(sifted(10, 1, false, 0, false, false));
+    out.record(RecordType::Alarm, &[7; 20]);
+    out.record(RecordType::Stats, &[0; SMALL_RECORD + 1]);
+    assert_eq!(out.frame_errors(), 1);
+    out.sifted(sifted(11, 0, true, 1, false, true));
+    out.finish(&Summary::default());
+    let frames = &out.sink().0;
+    let got: Vec<_> = frames.iter().map(|f| decode(f).unwrap()).collect();
+    assert_eq!(got[0], (RecordType::Alarm, 0, vec![7; 20]));
+    assert_eq!((got[1].0, got[1].1), (RecordType::KeyBlock, 1));
+    // The key bit buffered before the alarm is still in the block.
+    let kb = KeyBlock::parse(&got[1].2).unwrap();
+    assert_eq!((kb.first_slot, kb.last_slot, kb.n_bits), (10, 11, 2));
+    assert_eq!((got[2].0, got[2].1), (RecordType::Summary, 2));
+}

@@ -8,6 +8,9 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 use std::path::{Path, PathBuf};
 
+/// Window QBER, board upper bound and Clopper-Pearson upper bound of one basis at one block.
+type QberBounds = Option<(f64, f64, f64)>;
+
 /// One raised span of one alarm: (row name, from s, to s).
 type Span = (String, f64, f64);
 
@@ -57,7 +60,7 @@ pub fn live_stats(
             let b = &self.log.blocks;
             let t_end = b.last().map(|p| p.t_s).unwrap_or(1.0).max(1e-9) * 1.02;
             // Per block, per basis: (QBER, board upper, Clopper-Pearson upper) of the window.
-            let q: Vec<(f64, [Option<(f64, f64, f64)>; 2])> = b
+            let q: Vec<(f64, [QberBounds; 2])> = b
                 .iter()
                 .map(|p| {
                     let f = |basis: usize| {
