@@ -355,7 +355,11 @@ impl Alarms {
             value_ppm,
             threshold_ppm,
         };
-        crate::log::debug!("alarm {}", ev);
+        if on {
+            crate::log::warning!("alarm raised {}", ev);
+        } else {
+            crate::log::debug!("alarm cleared {}", ev);
+        }
         if self.events.push_back(ev).is_err() {
             self.dropped += 1;
         }

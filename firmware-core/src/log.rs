@@ -1,6 +1,6 @@
 #![allow(unused_macros)]
-//! The one logging shim of the core: `trace!`/`debug!` go to `defmt` when the `defmt` feature is
-//! on, and compile to nothing otherwise. The core never prints.
+//! The one logging shim of the core: `trace!`/`debug!`/`warning!` go to `defmt` when the `defmt`
+//! feature is on, and compile to nothing otherwise. The core never prints.
 
 #[cfg(feature = "defmt")]
 macro_rules! debug {
@@ -18,5 +18,13 @@ macro_rules! trace {
 macro_rules! trace {
     ($($arg:tt)*) => {{}};
 }
+#[cfg(feature = "defmt")]
+macro_rules! warning {
+    ($($arg:tt)*) => { defmt::warn!($($arg)*) };
+}
+#[cfg(not(feature = "defmt"))]
+macro_rules! warning {
+    ($($arg:tt)*) => {{}};
+}
 #[allow(unused_imports)]
-pub(crate) use {debug, trace};
+pub(crate) use {debug, trace, warning};

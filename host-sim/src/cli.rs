@@ -350,14 +350,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         &res.buckets,
         usize::from(cfg.gates().channels()),
     )?);
-    files.extend(plots::stats::live_stats(
-        &a.out,
-        &res.live,
-        res.first_t_ps,
-        usize::from(cfg.gates().channels()),
-        res.monitor.alarms().config().intensity(),
-        summary.stats.qber_ceiling,
-    )?);
+    files.extend(plots::stats::live_stats(&a.out, &res)?);
     print!("{summary}");
     println!(
         "capture replay {} (the written capture replays to the same counters)",
@@ -519,14 +512,7 @@ pub fn replay_capture(
             &res.buckets,
             usize::from(cfg.gates().channels()),
         )?);
-        files.extend(plots::stats::live_stats(
-            dir,
-            &res.live,
-            res.first_t_ps,
-            usize::from(cfg.gates().channels()),
-            res.monitor.alarms().config().intensity(),
-            summary.stats.qber_ceiling,
-        )?);
+        files.extend(plots::stats::live_stats(dir, &res)?);
         for f in files {
             eprintln!("wrote {}", f.display());
         }

@@ -3,9 +3,11 @@
 //! axis (raised spans as bars, one row per alarm).
 
 use super::{both, colour, legend, line, DynErr, Plot};
+use crate::replay::SessionResult;
 use crate::stats::{alarm_name, clopper_pearson, LiveLog, EPSILON};
 use plotters::coord::Shift;
 use plotters::prelude::*;
+use slotwise::Transmitter;
 use std::path::{Path, PathBuf};
 
 /// Window QBER, board upper bound and Clopper-Pearson upper bound of one basis at one block.
@@ -31,15 +33,11 @@ fn spans(log: &LiveLog, first_t_ps: u64, t_end: f64) -> Vec<Span> {
     out
 }
 
-/// `live_stats.svg` (and `.png`): QBER with bounds, rate per channel, alarms; `intensity` is the
-/// class the QBER alarm watches, `ceiling` its threshold (fraction).
-pub fn live_stats(
+/// `live_stats.svg` (and `.png`) of a finished session: window QBER of the class the QBER alarm
+/// watches with both upper bounds and the alarm's ceiling, rate per channel, alarms.
+pub fn live_stats<T: Transmitter>(
     dir: &Path,
-    log: &LiveLog,
-    first_t_ps: u64,
-    channels: usize,
-    intensity: u8,
-    ceiling: f64,
+    res: &SessionResult<T>,
 ) -> Result<Vec<PathBuf>, DynErr> {
     struct Pic<'a> {
         log: &'a LiveLog,
@@ -192,12 +190,13 @@ pub fn live_stats(
             Ok(())
         }
     }
+    let alarms = res.monitor.alarms().config();
     let pic = Pic {
-        log,
-        first_t_ps,
-        channels,
-        intensity: usize::from(intensity),
-        ceiling,
+        log: &res.live,
+        first_t_ps: res.first_t_ps,
+        channels: usize::from(res.rx.config().gates().channels()),
+        intensity: usize::from(alarms.intensity()),
+        ceiling: f64::from(alarms.qber_ceiling_ppm()) * 1e-6,
     };
     both(dir, "live_stats", (1000, 900), &pic)
 }
