@@ -177,8 +177,15 @@ pub fn wilson_ppm(k: u64, n: u64, z_q16: u32) -> (u32, u32) {
     // Everything in Q32 (values × 2^32).
     let z2_q32 = u128::from(z_q16) * u128::from(z_q16);
     let centre_q32 = (k << 32) + z2_q32 / 2;
-    // k(n − k)/n + z²/4 in Q32; its root in Q32 is √(v·2^32).
-    let inner_q32 = ((k * (n - k)) << 32) / n + z2_q32 / 4;
+    // k(n − k)/n + z²/4 in Q32; its root in Q32 is √(v·2^32). Past 2^40 tested bits the shift
+    // would overflow: divide first (the lost fraction is below 2^-32 of a count's worth there).
+    let spread = k * (n - k);
+    let spread_q32 = if n < 1 << 40 {
+        (spread << 32) / n
+    } else {
+        (spread / n) << 32
+    };
+    let inner_q32 = spread_q32 + z2_q32 / 4;
     let mut root_q32 = (inner_q32 << 32).isqrt();
     if root_q32 * root_q32 < inner_q32 << 32 {
         root_q32 += 1;
@@ -273,6 +280,14 @@ mod tests {
             );
         }
         assert_eq!(wilson_ppm(0, 0, Z_ONE_SIDED_1E_10_Q16), (0, 1_000_000));
+        // Huge counts take the divide-first path without overflow: 1 % of 2^50.
+        let n = 1u64 << 50;
+        let (lo, hi) = wilson_ppm(n / 100, n, Z_ONE_SIDED_1E_10_Q16);
+        assert!(lo <= 10_000 && hi >= 10_000 && hi - lo <= 2, "{lo} {hi}");
+        assert_eq!(
+            hoeffding_upper_ppm(u64::MAX, u64::MAX, eps_1e10()),
+            1_000_000
+        );
     }
 
     #[test]
@@ -289,6 +304,21 @@ mod tests {
         assert!(shor_preskill_rate_ppb(SHOR_PRESKILL_QBER_PPM).abs() < 5_000);
         assert!(shor_preskill_rate_ppb(SHOR_PRESKILL_QBER_PPM - 1) > 0);
         assert!(shor_preskill_rate_ppb(SHOR_PRESKILL_QBER_PPM + 1) < 0);
+    }
+
+    proptest::proptest! {
+        #[test]
+        fn bounds_bracket_the_estimate(k in proptest::prelude::any::<u64>(),
+                                       n in proptest::prelude::any::<u64>(),
+                                       z in 1u32..2_000_000, one_in in 2u64..u64::MAX) {
+            let k = if n == 0 { 0 } else { k % (n + 1).max(1) };
+            let p = fraction_ppm(k, n);
+            let (lo, hi) = wilson_ppm(k, n, z);
+            proptest::prop_assert!(lo <= p && p <= hi, "{k}/{n}: {lo} {p} {hi}");
+            proptest::prop_assert!(hi <= 1_000_000);
+            let eps = Epsilon::one_in(one_in).unwrap();
+            proptest::prop_assert!(hoeffding_upper_ppm(k, n, eps) >= p);
+        }
     }
 
     #[test]
