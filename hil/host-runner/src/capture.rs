@@ -155,6 +155,14 @@ pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
                         .map_err(|e| format!("{name}: summary {k} at byte {offset}: {e}"))?,
                 );
             }
+            RecordType::Alarm => {
+                slotwise::alarms::AlarmEvent::decode(fr.payload)
+                    .ok_or_else(|| format!("{name}: alarm record {k} at byte {offset} invalid"))?;
+            }
+            RecordType::Stats => {
+                slotwise::stats::Snapshot::decode(fr.payload)
+                    .ok_or_else(|| format!("{name}: stats record {k} at byte {offset} invalid"))?;
+            }
         }
     }
     summary.ok_or_else(|| format!("{name}: no summary frame"))
