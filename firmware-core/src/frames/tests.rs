@@ -203,6 +203,7 @@ fn read_back(frames: &[Vec<u8>]) -> (Blocks, Option<Summary>) {
                 blocks.push((kb.first_slot, kb.last_slot, bits));
             }
             RecordType::Summary => summary = Some(Summary::decode(&payload).unwrap()),
+            other => panic!("link record {other:?} on the key-block stream"),
         }
     }
     (blocks, summary)

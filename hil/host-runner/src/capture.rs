@@ -155,6 +155,11 @@ pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
                         .map_err(|e| format!("{name}: summary {k} at byte {offset}: {e}"))?,
                 );
             }
+            RecordType::Announce | RecordType::Answers => {
+                return Err(format!(
+                    "{name}: frame {k} at byte {offset}: a link record on the key-block stream"
+                ));
+            }
         }
     }
     summary.ok_or_else(|| format!("{name}: no summary frame"))
