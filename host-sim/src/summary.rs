@@ -92,6 +92,9 @@ pub struct Summary {
     pub tally: BTreeMap<String, u64>,
     /// Wall-clock seconds the replay took, and detections per second.
     pub run: BTreeMap<&'static str, f64>,
+    /// The framed link to the transmitter, when the exchange ran through frames.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub link: Option<crate::link::report::LinkSummary>,
 }
 
 /// Build the summary of a finished session.
@@ -214,6 +217,7 @@ pub fn summarize<T: Transmitter>(
         ]
         .into_iter()
         .collect(),
+        link: None,
     }
 }
 
@@ -284,6 +288,9 @@ impl std::fmt::Display for Summary {
                 "misassigned    {} sifted bits (against the simulator's truth)",
                 t.misassigned_sifted
             )?;
+        }
+        if let Some(l) = &self.link {
+            write!(f, "{l}")?;
         }
         if let Some(s) = self.run.get("seconds") {
             writeln!(f, "replay time    {s:.2} s")?;
