@@ -354,9 +354,12 @@ pub fn run_simulated(
 fn host_tx(s: &Scenario, link: Option<LinkModel>) -> Result<HostTx, AnyErr> {
     Ok(match link {
         Some(m) => HostTx::Framed(Box::new(FramedLink::new(s, m)?)),
-        None => HostTx::Direct(SimTransmitter::new(s)),
+        None => HostTx::Direct(Box::new(SimTransmitter::new(s))),
     })
 }
+
+/// A finished session, the receiver's sifted bits, and key blocks written (when a file was asked).
+type Finished = (SessionResult<HostTx>, Vec<SiftedBit>, Option<u64>);
 
 /// End a session: let the link's last frames arrive, finish the receiver, close the link,
 /// write the key file. Returns the result and the receiver's sifted bits in emission order.
@@ -364,7 +367,7 @@ fn finish_session(
     mut session: Session<HostTx>,
     tap: &KeyTap,
     key_out: Option<&Path>,
-) -> Result<(SessionResult<HostTx>, Vec<SiftedBit>, Option<u64>), AnyErr> {
+) -> Result<Finished, AnyErr> {
     if let Some(l) = session.tx_mut().framed_mut() {
         l.drain();
         session.service();

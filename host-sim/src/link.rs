@@ -376,7 +376,7 @@ impl Transmitter for FramedLink {
 /// The transmitter a host session talks to: in memory, or over the framed link.
 pub enum HostTx {
     /// Answers handed over at once, without loss ([`SimTransmitter`]).
-    Direct(SimTransmitter),
+    Direct(Box<SimTransmitter>),
     /// Answers as frames over the simulated link.
     Framed(Box<FramedLink>),
 }

@@ -503,3 +503,76 @@ proptest! {
         }
     }
 }
+
+fn hex(b: &[u8]) -> String {
+    b.iter()
+        .map(|x| format!("{x:02X}"))
+        .collect::<Vec<_>>()
+        .join(" ")
+}
+
+// The worked example of docs/wire-protocol.md, byte for byte.
+#[test]
+fn documented_example_frames() {
+    let entries = [ann(1000, false), ann(1003, true), ann(1300, false)];
+    let report = Report {
+        resolved_below: 4,
+        answered_map: 0b1011,
+    };
+    let mut p = [0u8; 64];
+    let n = encode_announce(&entries, report, 0, &mut p).unwrap();
+    let a = frame_bytes(RecordType::Announce, 5, &p[..n]);
+    let e = [
+        AnswerEntry {
+            basis_match: true,
+            intensity: 0,
+            bit: Some(1),
+        },
+        AnswerEntry {
+            basis_match: false,
+            intensity: 1,
+            bit: None,
+        },
+        AnswerEntry {
+            basis_match: true,
+            intensity: 0,
+            bit: None,
+        },
+    ];
+    let n = encode_answers(5, 1000, &e, &mut p).unwrap();
+    let b = frame_bytes(RecordType::Answers, 9, &p[..n]);
+    let unstuff = |f: &[u8]| {
+        let mut raw = [0u8; 64];
+        let k = cobs::decode(&f[..f.len() - 1], &mut raw).unwrap();
+        raw[..k].to_vec()
+    };
+    let (ra, rb) = (unstuff(&a), unstuff(&b));
+    assert_eq!(
+        hex(&ra),
+        "01 03 05 00 19 00 E8 03 00 00 00 00 00 00 03 00 04 00 0B 00 00 00 00 00 00 00 00 03 \
+         A9 02 02 D5 D3 B1 4B"
+            .split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ")
+    );
+    assert_eq!(
+        hex(&a),
+        "04 01 03 05 02 19 03 E8 03 01 01 01 01 01 02 03 02 04 02 0B 01 01 01 01 01 01 01 09 \
+         03 A9 02 02 D5 D3 B1 4B 00"
+            .split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ")
+    );
+    assert_eq!(
+        hex(&rb),
+        "01 04 09 00 0F 00 05 00 03 00 E8 03 00 00 00 00 00 00 07 08 01 62 5A 15 7F"
+    );
+    assert_eq!(
+        hex(&b),
+        "04 01 04 09 02 0F 02 05 02 03 03 E8 03 01 01 01 01 01 08 07 08 01 62 5A 15 7F 00"
+    );
+    // The CRC fields checked with the `crc` crate's CRC-32/ISCSI (Cook's catalogue parameters).
+    let crc = crc::Crc::<u32>::new(&crc::CRC_32_ISCSI);
+    assert_eq!(crc.checksum(&ra[..ra.len() - 4]), 0x4BB1_D3D5);
+    assert_eq!(crc.checksum(&rb[..rb.len() - 4]), 0x7F15_5A62);
+}

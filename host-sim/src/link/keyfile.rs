@@ -262,3 +262,58 @@ impl fmt::Display for KeyFileReport {
         Ok(())
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn bit(slot: u64, b: u8) -> SiftedBit {
+        SiftedBit {
+            slot,
+            basis: if slot % 7 == 0 { Basis::X } else { Basis::Z },
+            bit: b,
+            intensity: (slot % 2) as u8,
+            multi_click: false,
+            tx_bit: (slot % 3 == 0).then_some(b),
+        }
+    }
+
+    #[test]
+    fn key_file_reads_back_and_damage_is_reported_with_its_offset() {
+        let dir = std::env::temp_dir().join(format!("slotwise-keyfile-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("k.swkey");
+        let mut tap = KeyTap::new();
+        for k in 0..600u64 {
+            tap.sifted(bit(100 + 2 * k, (k % 2) as u8));
+        }
+        let summary = Summary {
+            sifted_bits: 600,
+            ..Summary::default()
+        };
+        assert_eq!(tap.write(&path, &summary).unwrap(), 3);
+        let r = inspect(&path).unwrap();
+        assert_eq!(r.blocks.len(), 3);
+        assert_eq!(r.total_bits, 600);
+        assert_eq!(r.blocks[0].slots, (100, 100 + 2 * 255));
+        assert_eq!(r.blocks[2].bits, 600 - 512);
+        assert_eq!(r.summary, Some((600, 3)));
+        assert!(r.bad_frames.is_empty());
+        // Damage one byte of the second block: that block alone is refused, at its offset.
+        let mut bytes = std::fs::read(&path).unwrap();
+        let off = r.blocks[1].offset as usize;
+        bytes[off + 40] ^= 0x10;
+        std::fs::write(&path, &bytes).unwrap();
+        let r2 = inspect(&path).unwrap();
+        assert_eq!(r2.blocks.len(), 2);
+        assert_eq!(r2.bad_frames.len(), 1);
+        assert_eq!(r2.bad_frames[0].offset, off as u64);
+        assert!(
+            r2.bad_frames[0].reason.contains("crc"),
+            "{}",
+            r2.bad_frames[0].reason
+        );
+        assert_eq!(r2.seq_gaps, 1);
+        std::fs::remove_dir_all(&dir).ok();
+    }
+}

@@ -232,6 +232,23 @@ mod tests {
     use slotwise::GateTable;
 
     #[test]
+    fn outcome_reads_the_positions_as_the_gate_table_does() {
+        for encoding in [Encoding::TimeBin, Encoding::Polarization] {
+            let s = Scenario {
+                encoding,
+                ..Scenario::default_bench()
+            };
+            for g in gate_specs(&s) {
+                let pos = (0..3u8)
+                    .find(|&p| (position_fraction(encoding, p) - g.centre).abs() < 1e-12)
+                    .unwrap();
+                assert_eq!(outcome(encoding, g.channel, pos), Some((g.basis, g.bit)));
+            }
+        }
+        assert_eq!(outcome(Encoding::TimeBin, 0, 2), None);
+    }
+
+    #[test]
     fn default_gates_form_a_valid_table() {
         let s = Scenario::default_bench();
         assert_eq!(channels(&s), 3);
