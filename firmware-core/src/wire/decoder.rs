@@ -1,7 +1,7 @@
 //! A streaming frame decoder: bytes in, in any chunking; whole checked frames out.
 //!
 //! Bytes collect until a 0x00 delimiter; the collected piece is then unstuffed and checked by
-//! [`decode_frame`](crate::frames::decode_frame). A piece longer than the largest frame is given
+//! [`decode_frame`]. A piece longer than the largest frame is given
 //! up on at once (counted as [`FrameError::Overlong`] when its delimiter arrives), so garbage on
 //! the line costs at most one frame and the decoder resynchronises at the next 0x00.
 

@@ -8,6 +8,12 @@
 //! announced slot; then they are final, and [`Transmitter::answers_final_below`] lets the
 //! receiver expire what the link will no longer answer. Each frame's fate goes back to the
 //! transmitter in the [`Report`] of every later announce frame.
+//!
+//! The link, not the receiver, decides when answers expire: give the receiver an answer timeout
+//! longer than any wait the link allows (the host uses `u64::MAX / 4`), so that every answer the
+//! link accepts still finds its slot pending. A shorter one still loses nothing silently (such
+//! answers count as `unmatched` in [`AnswerErrors`](crate::AnswerErrors)), but both sides' keys
+//! may then differ.
 
 use super::codec::{
     put_announce_fixed, put_varint, varint_len, AnswerEntry, AnswersView, Report, ANNOUNCE_FIXED,

@@ -576,3 +576,48 @@ fn documented_example_frames() {
     assert_eq!(crc.checksum(&ra[..ra.len() - 4]), 0x4BB1_D3D5);
     assert_eq!(crc.checksum(&rb[..rb.len() - 4]), 0x7F15_5A62);
 }
+
+proptest! {
+    #[test]
+    fn endpoint_takes_any_bytes_and_accounts_for_every_announcement(
+        garbage in proptest::collection::vec(proptest::collection::vec(any::<u8>(), 0..300), 0..12),
+        valid_after in any::<usize>(),
+        n in 1u64..60,
+    ) {
+        let (mut l, down, up) = link(10_000);
+        let slots: Vec<u64> = (0..n).map(|k| 10 + 3 * k).collect();
+        for &s in &slots {
+            l.announce(ann(s, s.is_multiple_of(2)));
+        }
+        l.flush();
+        let answers = answer_all(&drain(&up), 0, |_| Basis::Z);
+        let at = valid_after % (garbage.len() + 1);
+        for (i, g) in garbage.iter().enumerate() {
+            if i == at {
+                down.0.borrow_mut().push_back(0);
+                down.0.borrow_mut().extend(&answers);
+            }
+            down.0.borrow_mut().extend(g);
+        }
+        if at == garbage.len() {
+            down.0.borrow_mut().push_back(0);
+            down.0.borrow_mut().extend(&answers);
+        }
+        let got = poll_all(&mut l);
+        let c = *l.counters();
+        // Garbage costs nothing but itself: every answer behind a delimiter gets through.
+        prop_assert_eq!(got.len() as u64, n);
+        prop_assert_eq!(got.len() as u64, c.answers_in);
+        let mut seen = std::collections::HashSet::new();
+        for a in &got {
+            prop_assert!(slots.contains(&a.slot) && seen.insert(a.slot), "slot {}", a.slot);
+        }
+        prop_assert_eq!(
+            c.announcements,
+            c.answers_in + c.expired_announcements + l.waiting_announcements()
+        );
+        l.close();
+        let c = *l.counters();
+        prop_assert_eq!(c.announcements, c.answers_in + c.expired_announcements);
+    }
+}

@@ -89,6 +89,9 @@ pub struct KeyComparison {
 pub struct LinkSummary {
     /// The link model.
     pub model: LinkModel,
+    /// RAM of the core's endpoint as the host instantiates it (64-announcement batches, 1024
+    /// open announcements), bytes (`core::mem::size_of`).
+    pub endpoint_ram_bytes: usize,
     /// What the model did to frames from the receiver.
     pub channel_up: ChannelStats,
     /// What the model did to frames from the transmitter.
@@ -149,6 +152,7 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
     });
     LinkSummary {
         model: *link.model(),
+        endpoint_ram_bytes: std::mem::size_of::<super::HostEndpoint>(),
         channel_up: up,
         channel_down: down,
         receiver: ReceiverSide {
@@ -236,6 +240,11 @@ impl std::fmt::Display for LinkSummary {
                 "DIFFERENT slots"
             },
             k.bit_differences
+        )?;
+        writeln!(
+            f,
+            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 64, 1024>)",
+            self.endpoint_ram_bytes
         )?;
         if let (Some(n), Some(p)) = (self.key_blocks_written, &self.key_file) {
             writeln!(f, "  key file     {p}: {n} key blocks")?;
