@@ -270,11 +270,15 @@ mod tests {
     fn bit(slot: u64, b: u8) -> SiftedBit {
         SiftedBit {
             slot,
-            basis: if slot % 7 == 0 { Basis::X } else { Basis::Z },
+            basis: if slot.is_multiple_of(7) {
+                Basis::X
+            } else {
+                Basis::Z
+            },
             bit: b,
             intensity: (slot % 2) as u8,
             multi_click: false,
-            tx_bit: (slot % 3 == 0).then_some(b),
+            tx_bit: slot.is_multiple_of(3).then_some(b),
         }
     }
 
