@@ -53,7 +53,12 @@ capture, push every detection through the firmware core with the simulated trans
 then print the summary and write summary.json, the capture and plots into --out.
 
 The summary shows where every detection went (the counters sum to the detections taken in), the
-sifted bits, and the QBER per basis next to the channel model's expectation.")]
+sifted bits, and the QBER per basis next to the channel model's expectation.
+
+The sifting exchange runs as real frames (docs/wire-protocol.md) over a simulated link with mild
+faults (--link-* options; --link direct to hand answers over in memory): the summary lists the
+frames sent each way, refused by reason, the answers lost, and both sides' sifted keys. The
+receiver's sifted key blocks go to DIR/sifted.swkey (`slotwise inspect` reads them).")]
     Demo(DemoArgs),
     /// Run a scenario through the link simulator and write a capture (or CSV).
     #[command(long_about = "\
@@ -122,10 +127,13 @@ pub struct LinkArgs {
     /// Probability that the link delivers a frame twice.
     #[arg(long, default_value_t = 0.01, value_name = "P")]
     pub link_dup: f64,
-    /// Probability that the link holds a frame back behind later ones (by up to
-    /// 2 x latency + 1000 slots).
+    /// Probability that the link holds a frame back behind later ones (see --link-reorder-slots).
     #[arg(long, default_value_t = 0.01, value_name = "P")]
     pub link_reorder: f64,
+    /// How far a reordered frame is held back: uniform 1..=SLOTS extra slots (a duplicate
+    /// arrives up to a quarter of that after the first copy).
+    #[arg(long, default_value_t = 50_000, value_name = "SLOTS")]
+    pub link_reorder_slots: u64,
     /// Probability that the link overwrites 1 to 3 bytes of a frame (the CRC catches it).
     #[arg(long, default_value_t = 0.001, value_name = "P")]
     pub link_corrupt: f64,
@@ -139,7 +147,8 @@ pub struct LinkArgs {
     #[arg(long, default_value_t = 1.0, value_name = "F")]
     pub test_fraction: f64,
     /// Write the receiver's sifted key blocks to this file (key-block frames, see
-    /// docs/wire-protocol.md; read it back with `slotwise inspect FILE.swkey`).
+    /// docs/wire-protocol.md; read it back with `slotwise inspect FILE.swkey`). `demo` writes
+    /// DIR/sifted.swkey unless told otherwise.
     #[arg(long, value_name = "FILE.swkey")]
     pub key_out: Option<PathBuf>,
 }
@@ -157,6 +166,7 @@ impl LinkArgs {
             reorder: self.link_reorder,
             corrupt: self.link_corrupt,
             latency_slots: self.link_latency_slots,
+            reorder_slots: self.link_reorder_slots,
             seed: self.link_seed.unwrap_or(base.seed),
             test_fraction: self.test_fraction,
             ..base

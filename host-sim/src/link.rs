@@ -41,6 +41,8 @@ pub struct LinkModel {
     pub corrupt: f64,
     /// One-way delay in slots.
     pub latency_slots: u64,
+    /// A reordered frame is held back by a uniform 1..=this many slots more.
+    pub reorder_slots: u64,
     /// Seed of the model's random choices.
     pub seed: u64,
     /// Share of answered slots whose transmitted bit is revealed for testing.
@@ -60,6 +62,7 @@ impl LinkModel {
             reorder: 0.0,
             corrupt: 0.0,
             latency_slots: 0,
+            reorder_slots: 50_000,
             seed: s.seed ^ 0x4C49_4E4B,
             test_fraction: 1.0,
             answer_timeout_slots: (s.rep_rate_hz * 0.01).max(1.0) as u64,
@@ -125,8 +128,7 @@ impl Channel {
     }
 
     fn hold_slots(&mut self) -> u64 {
-        let span = 2 * self.model.latency_slots + 1000;
-        1 + (self.rng.uniform() * span as f64) as u64
+        1 + (self.rng.uniform() * self.model.reorder_slots as f64) as u64
     }
 
     fn send(&mut self, now: u64, mut frame: Vec<u8>) {
