@@ -133,6 +133,8 @@ impl fmt::Display for Reject {
     }
 }
 
+impl core::error::Error for Reject {}
+
 /// Refused frames by reason (index = position in [`Reject::ALL`]).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]

@@ -247,3 +247,83 @@ impl HostTransmitter {
         self.enc.get(..m).map(<[u8]>::to_vec)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use slotwise::frames::decode_frame;
+    use slotwise::wire::codec::{encode_announce, FLAG_FINAL};
+    use slotwise::wire::AnswersView;
+    use slotwise::Announcement;
+
+    fn announce_frame(seq: u16, slots: &[(u64, Basis)], report: Report, flags: u8) -> Vec<u8> {
+        let a: Vec<Announcement> = slots
+            .iter()
+            .map(|&(slot, basis)| Announcement { slot, basis })
+            .collect();
+        let mut p = vec![0u8; MAX_PAYLOAD];
+        let n = encode_announce(&a, report, flags, &mut p).unwrap();
+        let (mut raw, mut out) = (vec![0u8; MAX_RAW], vec![0u8; MAX_FRAME]);
+        let m = encode_frame(RecordType::Announce, seq, &p[..n], &mut raw, &mut out).unwrap();
+        out.truncate(m);
+        out
+    }
+
+    #[test]
+    fn answers_from_its_choices_and_keeps_only_reported_frames() {
+        let s = Scenario::default_bench();
+        let mut tx = HostTransmitter::new(&s, 1.0);
+        let choices = TxChoices::new(&s);
+        // Key slots only (not on the 64-slot marker grid), in both bases.
+        let slots: Vec<(u64, Basis)> = (1..40u64)
+            .filter(|k| !choices.is_marker_slot(*k))
+            .map(|k| (k, if k % 3 == 0 { Basis::X } else { Basis::Z }))
+            .collect();
+        let (first, second) = slots.split_at(20);
+        let out = tx.receive(&announce_frame(0, first, Report::default(), 0));
+        assert_eq!(out.len(), 1);
+        let mut scratch = vec![0u8; MAX_RAW];
+        let f = decode_frame(&out[0], &mut scratch).unwrap();
+        assert_eq!((f.record, f.seq), (RecordType::Answers, 0));
+        let v = AnswersView::parse(f.payload).unwrap();
+        assert_eq!(
+            (v.ann_seq, v.first_slot, v.count()),
+            (0, first[0].0, first.len())
+        );
+        for (e, &(slot, basis)) in v.iter().zip(first) {
+            let c = choices.choice(slot);
+            assert_eq!(e.basis_match, c.basis == basis, "slot {slot}");
+            assert_eq!((e.intensity, e.bit), (c.intensity, Some(c.bit)));
+        }
+        // A duplicate announce frame is not answered again.
+        assert!(tx
+            .receive(&announce_frame(0, first, Report::default(), 0))
+            .is_empty());
+        assert_eq!(tx.counters().rejected.get(Reject::DuplicateFrame), 1);
+        // Frame 1 is answered but the receiver reports it expired; frame 0 answered.
+        assert_eq!(
+            tx.receive(&announce_frame(1, second, Report::default(), 0))
+                .len(),
+            1
+        );
+        assert!(tx.key().is_empty());
+        let report = Report {
+            resolved_below: 2,
+            answered_map: 0b10,
+        };
+        tx.receive(&announce_frame(2, &[], report, FLAG_FINAL));
+        let want: Vec<u64> = first
+            .iter()
+            .filter(|&&(k, b)| choices.choice(k).basis == b)
+            .map(|&(k, _)| k)
+            .collect();
+        assert!(!want.is_empty());
+        assert_eq!(tx.key().keys().copied().collect::<Vec<_>>(), want);
+        let c = tx.counters();
+        assert_eq!(
+            (c.confirmed_frames, c.expired_frames, c.fate_unknown),
+            (1, 1, 0)
+        );
+        assert!(tx.closed() && tx.unresolved_frames() == 0);
+    }
+}
