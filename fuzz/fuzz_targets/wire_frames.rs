@@ -33,6 +33,9 @@ fuzz_target!(|data: &[u8]| {
         }
         let n = encode_frame(f.record, f.seq, f.payload, &mut raw, &mut out).unwrap();
         let again = decode_frame(&out[..n], &mut scratch).unwrap();
-        assert_eq!((again.record, again.seq, again.payload), (f.record, f.seq, f.payload));
+        assert_eq!(
+            (again.record, again.seq, again.payload),
+            (f.record, f.seq, f.payload)
+        );
     }
 });
