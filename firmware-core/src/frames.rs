@@ -75,6 +75,10 @@ pub enum RecordType {
     KeyBlock = 1,
     /// Every counter of the receiver, at the end of a run.
     Summary = 2,
+    /// Receiver to transmitter: a batch of detected slots with the receiver's basis (`wire`).
+    Announce = 3,
+    /// Transmitter to receiver: the answers to one announce frame (`wire`).
+    Answers = 4,
     /// An alarm raised or cleared ([`crate::alarms::AlarmEvent`]).
     Alarm = 5,
     /// Window statistics at the end of a block ([`crate::stats::Snapshot`]).
@@ -87,6 +91,8 @@ impl RecordType {
         match code {
             1 => Some(Self::KeyBlock),
             2 => Some(Self::Summary),
+            3 => Some(Self::Announce),
+            4 => Some(Self::Answers),
             5 => Some(Self::Alarm),
             6 => Some(Self::Stats),
             _ => None,
@@ -138,6 +144,11 @@ pub enum FrameError {
         /// Payload bytes present.
         actual: usize,
     },
+    /// More stuffed bytes than the largest frame before a 0x00 delimiter.
+    Overlong {
+        /// Stuffed bytes taken before giving up on the frame.
+        bytes: usize,
+    },
     /// A record field holds a value outside its range.
     BadField {
         /// Byte offset of the field in the payload.
@@ -167,6 +178,12 @@ impl fmt::Display for FrameError {
             Self::Oversized(n) => write!(f, "len field {n} exceeds {MAX_PAYLOAD}"),
             Self::LengthMismatch { declared, actual } => {
                 write!(f, "len field {declared} but {actual} payload bytes present")
+            }
+            Self::Overlong { bytes } => {
+                write!(
+                    f,
+                    "{bytes} stuffed bytes without a delimiter; at most {MAX_FRAME}"
+                )
             }
             Self::BadField { offset, field } => {
                 write!(f, "field {field} at payload byte {offset} out of range")
@@ -220,6 +237,25 @@ fn write_header(head: &mut [u8], record: RecordType, seq: u16, len: usize) {
     {
         *d = b;
     }
+}
+
+/// Frame a payload already placed at `raw[HEADER_LEN..HEADER_LEN + len]`: header, CRC, COBS and
+/// delimiter into `out`. Returns bytes written.
+pub fn seal_in_place(
+    record: RecordType,
+    seq: u16,
+    len: usize,
+    raw: &mut [u8],
+    out: &mut [u8],
+) -> Result<usize, FrameError> {
+    if len > MAX_PAYLOAD {
+        return Err(FrameError::PayloadTooLong { len });
+    }
+    let head = raw
+        .get_mut(..HEADER_LEN)
+        .ok_or(FrameError::BufferTooSmall { needed: HEADER_LEN })?;
+    write_header(head, record, seq, len);
+    seal(raw, HEADER_LEN + len + CRC_LEN, out)
 }
 
 /// CRC over `raw[..total - 4]` into its last 4 bytes, then COBS into `out` with the delimiter.

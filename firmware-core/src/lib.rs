@@ -35,6 +35,9 @@
 //! 10. [`accounting`] — every detection ends in exactly one counter.
 //! 11. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
 //!     COBS-stuffed records for the post-processing host, alarms and statistics snapshots.
+//! 12. [`wire`] — the sifting conversation over a framed byte link (`embedded-io`): batched
+//!     announcements out, answers in, every bad frame counted by reason; [`ReceiverLink`] is the
+//!     [`Transmitter`] a board hands to the receiver.
 //!
 //! [`receiver`] strings the stages together behind [`Receiver::push_block`].
 //!
@@ -73,6 +76,7 @@ pub mod stats;
 pub mod tally;
 pub mod timestamps;
 pub mod track;
+pub mod wire;
 
 pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
 pub use acquire::fold::ArrivalPattern;
@@ -93,3 +97,4 @@ pub use stats::{Counts, Monitor, Snapshot, StatsConfig, Tap};
 pub use tally::Tally;
 pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
 pub use track::{LockState, TrackConfig, TrackParams, Tracker};
+pub use wire::{LinkConfig, LinkCounters, ReceiverLink};

@@ -268,6 +268,23 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         while let Some(a) = tx.poll_answer() {
             self.answer(a, key);
         }
+        if let Some(below) = tx.answers_final_below() {
+            self.expire_below(below, key);
+        }
+    }
+
+    /// Expire every waiting entry below `below` (the link will not answer it any more).
+    fn expire_below(&mut self, below: u64, key: &mut impl KeySink) {
+        while let Some(&p) = self.pending.oldest() {
+            if !p.done && p.slot >= below {
+                break;
+            }
+            self.pending.pop_oldest();
+            if !p.done {
+                self.count_outcome(p.multi_click, Outcome::Unanswered);
+                key.resolved(p.slot, Outcome::Unanswered);
+            }
+        }
     }
 
     /// Process one TDC event and say what was decided for it.

@@ -44,6 +44,11 @@ pub trait Transmitter {
     fn announce(&mut self, a: Announcement);
     /// Take the next answer that has arrived, if any.
     fn poll_answer(&mut self) -> Option<Answer>;
+    /// Slot below which the link will deliver no more answers: the receiver expires what still
+    /// waits there as unanswered. `None` (the default) leaves expiry to the receiver's timeout.
+    fn answers_final_below(&self) -> Option<u64> {
+        None
+    }
 }
 
 /// One sifted key bit.

@@ -3,6 +3,9 @@
 use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter};
 use crate::clocks::{self, ClockMode, HostClock};
 use crate::csv_io;
+use crate::link::keyfile::{self, KeyTap};
+use crate::link::report::link_summary;
+use crate::link::{FramedLink, HostTx, LinkModel};
 use crate::plots;
 use crate::replay::{Session, SessionResult, TraceRequest, TruthTag};
 use crate::scenario::Scenario;
@@ -10,7 +13,7 @@ use crate::sim::{self, SimTransmitter, Simulator};
 use crate::summary::{summarize, Summary};
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressStyle};
-use slotwise::{OverflowPolicy, ReceiverConfig, UnwrapConfig};
+use slotwise::{OverflowPolicy, ReceiverConfig, SiftedBit, UnwrapConfig};
 use std::fs::File;
 use std::io::{BufReader, BufWriter, IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -50,7 +53,12 @@ capture, push every detection through the firmware core with the simulated trans
 then print the summary and write summary.json, the capture and plots into --out.
 
 The summary shows where every detection went (the counters sum to the detections taken in), the
-sifted bits, and the QBER per basis next to the channel model's expectation.")]
+sifted bits, and the QBER per basis next to the channel model's expectation.
+
+The sifting exchange runs as real frames (docs/wire-protocol.md) over a simulated link with mild
+faults (--link-* options; --link direct to hand answers over in memory): the summary lists the
+frames sent each way, refused by reason, the answers lost, and both sides' sifted keys. The
+receiver's sifted key blocks go to DIR/sifted.swkey (`slotwise inspect` reads them).")]
     Demo(DemoArgs),
     /// Run a scenario through the link simulator and write a capture (or CSV).
     #[command(long_about = "\
@@ -69,7 +77,7 @@ writes one CSV line per detection in a time range saying where it went and why.
 Damaged blocks stop the replay with an error naming the file, byte offset and field, unless
 --skip-damaged is given: then they are stepped over and listed.")]
     Replay(ReplayArgs),
-    /// Show a capture's header and block statistics and check every CRC.
+    /// Show a capture's header and block statistics, or a key file's blocks, and check every CRC.
     Inspect(InspectArgs),
     /// Benchmarks of the core on simulated links (figures come from here, not from tests).
     #[command(subcommand)]
@@ -96,10 +104,84 @@ pub struct ClockArgs {
     pub prior_ppm: u32,
 }
 
+/// How the transmitter's answers reach the receiver.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum LinkMode {
+    /// Real frames (docs/wire-protocol.md) through the core's link endpoint and a simulated link.
+    Framed,
+    /// Handed over in memory at once, without loss.
+    Direct,
+}
+
+/// The classical link between receiver and transmitter.
+#[derive(Args, Debug, Clone)]
+pub struct LinkArgs {
+    /// `framed`: run the sifting exchange as frames through the core's link endpoint, a
+    /// simulated link with the faults below, and a host transmitter; `direct`: answers in memory.
+    /// Default: framed for `demo`, direct for `replay`.
+    #[arg(long, value_enum)]
+    pub link: Option<LinkMode>,
+    /// Probability that the link loses a frame (each direction, each frame).
+    #[arg(long, default_value_t = 0.01, value_name = "P")]
+    pub link_loss: f64,
+    /// Probability that the link delivers a frame twice.
+    #[arg(long, default_value_t = 0.01, value_name = "P")]
+    pub link_dup: f64,
+    /// Probability that the link holds a frame back behind later ones (see --link-reorder-slots).
+    #[arg(long, default_value_t = 0.01, value_name = "P")]
+    pub link_reorder: f64,
+    /// How far a reordered frame is held back: uniform 1..=SLOTS extra slots (a duplicate
+    /// arrives up to a quarter of that after the first copy).
+    #[arg(long, default_value_t = 50_000, value_name = "SLOTS")]
+    pub link_reorder_slots: u64,
+    /// Probability that the link overwrites 1 to 3 bytes of a frame (the CRC catches it).
+    #[arg(long, default_value_t = 0.001, value_name = "P")]
+    pub link_corrupt: f64,
+    /// One-way delay of the link, in slots of the transmitter's clock.
+    #[arg(long, default_value_t = 2000, value_name = "SLOTS")]
+    pub link_latency_slots: u64,
+    /// Seed of the link's faults (default: derived from the scenario's seed).
+    #[arg(long, value_name = "N")]
+    pub link_seed: Option<u64>,
+    /// Share of answered slots whose transmitted bit is revealed for the QBER (0..=1).
+    #[arg(long, default_value_t = 1.0, value_name = "F")]
+    pub test_fraction: f64,
+    /// Write the receiver's sifted key blocks to this file (key-block frames, see
+    /// docs/wire-protocol.md; read it back with `slotwise inspect FILE.swkey`). `demo` writes
+    /// DIR/sifted.swkey unless told otherwise.
+    #[arg(long, value_name = "FILE.swkey")]
+    pub key_out: Option<PathBuf>,
+}
+
+impl LinkArgs {
+    /// The link model for scenario `s`, or `None` for the direct exchange.
+    pub fn model(&self, s: &Scenario, default: LinkMode) -> Result<Option<LinkModel>, AnyErr> {
+        if self.link.unwrap_or(default) == LinkMode::Direct {
+            return Ok(None);
+        }
+        let base = LinkModel::perfect(s);
+        let m = LinkModel {
+            loss: self.link_loss,
+            dup: self.link_dup,
+            reorder: self.link_reorder,
+            corrupt: self.link_corrupt,
+            latency_slots: self.link_latency_slots,
+            reorder_slots: self.link_reorder_slots,
+            seed: self.link_seed.unwrap_or(base.seed),
+            test_fraction: self.test_fraction,
+            ..base
+        };
+        m.validate()?;
+        Ok(Some(m))
+    }
+}
+
 #[derive(Args, Debug)]
 pub struct DemoArgs {
     #[command(flatten)]
     pub clock: ClockArgs,
+    #[command(flatten)]
+    pub link: LinkArgs,
     /// Output folder for the capture, summary.json and plots.
     #[arg(long, default_value = "out/demo")]
     pub out: PathBuf,
@@ -130,6 +212,8 @@ pub struct SimulateArgs {
 pub struct ReplayArgs {
     #[command(flatten)]
     pub clock: ClockArgs,
+    #[command(flatten)]
+    pub link: LinkArgs,
     /// Capture file, or a CSV file (`.csv`) of `t_ps,channel` lines.
     pub capture: PathBuf,
     /// Scenario describing the link (default: the one stored in the capture header).
@@ -157,7 +241,7 @@ pub struct ReplayArgs {
 
 #[derive(Args, Debug)]
 pub struct InspectArgs {
-    /// Capture file.
+    /// Capture file, or a sifted-key file (`.swkey`).
     pub capture: PathBuf,
     /// Print the report as JSON.
     #[arg(long)]
@@ -192,10 +276,24 @@ pub fn receiver_setup(
     s: &Scenario,
     clock: &ClockArgs,
 ) -> Result<(ReceiverConfig, HostClock), AnyErr> {
+    receiver_setup_for(s, clock, false)
+}
+
+/// As [`receiver_setup`]; with `framed`, the link endpoint decides when answers expire (its
+/// timeout is the scenario's 10 ms of slots) and the receiver's own timeout only backs it up.
+pub fn receiver_setup_for(
+    s: &Scenario,
+    clock: &ClockArgs,
+    framed: bool,
+) -> Result<(ReceiverConfig, HostClock), AnyErr> {
     let (delays, gates) = sim::receiver_gates(s);
     let table = slotwise::GateTable::new(&delays, &gates)?;
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
-    let timeout_slots = (s.rep_rate_hz * 0.01).max(1.0) as u64;
+    let timeout_slots = if framed {
+        u64::MAX / 4
+    } else {
+        (s.rep_rate_hz * 0.01).max(1.0) as u64
+    };
     let cfg = ReceiverConfig::new(
         tdc,
         table,
@@ -252,27 +350,87 @@ fn bucket_s(s: &Scenario) -> f64 {
 
 /// Simulate a scenario and push every detection through the core with the simulator's truth
 /// beside it; optionally write the capture too. The function behind `slotwise demo` and the
-/// end-to-end tests.
+/// end-to-end tests (answers handed over directly; see [`run_simulated_linked`] for frames).
 pub fn run_simulated(
     s: &Scenario,
     clock: &ClockArgs,
     capture: Option<&Path>,
-) -> Result<(Summary, SessionResult<SimTransmitter>), AnyErr> {
+) -> Result<(Summary, SessionResult<HostTx>), AnyErr> {
+    let (summary, res, _) = run_simulated_linked(s, clock, capture, None, None)?;
+    Ok((summary, res))
+}
+
+/// The host transmitter for a run: over the framed link when `link` is given.
+fn host_tx(s: &Scenario, link: Option<LinkModel>) -> Result<HostTx, AnyErr> {
+    Ok(match link {
+        Some(m) => HostTx::Framed(Box::new(FramedLink::new(s, m)?)),
+        None => HostTx::Direct(Box::new(SimTransmitter::new(s))),
+    })
+}
+
+/// A finished session, the receiver's sifted bits, and key blocks written (when a file was asked).
+type Finished = (SessionResult<HostTx>, Vec<SiftedBit>, Option<u64>);
+
+/// End a session: let the link's last frames arrive, finish the receiver, close the link,
+/// write the key file. Returns the result and the receiver's sifted bits in emission order.
+fn finish_session(
+    mut session: Session<HostTx>,
+    tap: &KeyTap,
+    key_out: Option<&Path>,
+) -> Result<Finished, AnyErr> {
+    if let Some(l) = session.tx_mut().framed_mut() {
+        l.drain();
+        session.service();
+    }
+    let mut res = session.finish()?;
+    if let Some(l) = res.tx.framed_mut() {
+        l.close();
+    }
+    let blocks = match key_out {
+        Some(p) => Some(tap.write(p, &slotwise::frames::Summary::of(&res.rx))?),
+        None => None,
+    };
+    let bits = std::mem::take(&mut tap.0.borrow_mut().bits);
+    Ok((res, bits, blocks))
+}
+
+/// Fill the summary's `link` object (framed runs) and print where the key file went.
+fn add_link(
+    summary: &mut Summary,
+    res: &SessionResult<HostTx>,
+    bits: &[SiftedBit],
+    blocks: Option<u64>,
+    key_out: Option<&Path>,
+) {
+    if let Some(l) = res.tx.framed() {
+        let mut ls = link_summary(l, bits);
+        ls.key_blocks_written = blocks;
+        ls.key_file = key_out.map(|p| p.display().to_string());
+        summary.link = Some(ls);
+    } else if let (Some(n), Some(p)) = (blocks, key_out) {
+        eprintln!("wrote {} ({n} key blocks)", p.display());
+    }
+}
+
+/// As [`run_simulated`], with the exchange over the framed link `link` (when given) and the
+/// sifted key blocks written to `key_out`. Also returns the receiver's sifted bits.
+pub fn run_simulated_linked(
+    s: &Scenario,
+    clock: &ClockArgs,
+    capture: Option<&Path>,
+    link: Option<LinkModel>,
+    key_out: Option<&Path>,
+) -> Result<(Summary, SessionResult<HostTx>, Vec<SiftedBit>), AnyErr> {
     let started = Instant::now();
-    let (cfg, host_clock) = receiver_setup(s, clock)?;
+    let (cfg, host_clock) = receiver_setup_for(s, clock, link.is_some())?;
     let truth = sim::clock_truth(s)?;
-    let mut session = Session::new(
-        cfg,
-        host_clock,
-        SimTransmitter::new(s),
-        bucket_s(s),
-        true,
-        None,
-    )?
-    .with_monitor(
-        crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-        slotwise::AlarmConfig::DEFAULT,
-    );
+    let mut session = Session::new(cfg, host_clock, host_tx(s, link)?, bucket_s(s), true, None)?
+        .with_monitor(
+            crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
+            slotwise::AlarmConfig::DEFAULT,
+        );
+    let tap = KeyTap::new();
+    session.set_key_tap(Box::new(tap.clone()));
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
     let mut writer = match capture {
@@ -307,8 +465,8 @@ pub fn run_simulated(
     if let Some(w) = writer {
         w.finish()?.flush()?;
     }
-    let res = session.finish()?;
-    let summary = summarize(
+    let (res, bits, blocks) = finish_session(session, &tap, key_out)?;
+    let mut summary = summarize(
         &s.name,
         &res,
         res.rx.clock().period_ps().unwrap_or(f64::NAN),
@@ -316,22 +474,30 @@ pub fn run_simulated(
         Some(model_qber(s)),
         started.elapsed().as_secs_f64(),
     );
-    Ok((summary, res))
+    add_link(&mut summary, &res, &bits, blocks, key_out);
+    Ok((summary, res, bits))
 }
 
 fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let s = load_scenario(a.scenario.as_deref(), a.duration_s)?;
     std::fs::create_dir_all(&a.out)?;
     let cap_path = a.out.join("demo.swcap");
-    let (summary, res) = run_simulated(&s, &a.clock, Some(&cap_path))?;
+    let link = a.link.model(&s, LinkMode::Framed)?;
+    let key_path = a
+        .link
+        .key_out
+        .clone()
+        .unwrap_or_else(|| a.out.join("sifted.swkey"));
+    let (summary, res, _) =
+        run_simulated_linked(&s, &a.clock, Some(&cap_path), link, Some(&key_path))?;
     let cfg = *res.rx.config();
-    // The capture must replay to exactly the same result through the same core.
-    let (cfg2, clock2) = receiver_setup(&s, &a.clock)?;
-    let again = replay_capture(&cap_path, cfg2, clock2, &s, false, None, None)?;
+    // The capture must replay to exactly the same result through the same core (and link).
+    let (cfg2, clock2) = receiver_setup_for(&s, &a.clock, link.is_some())?;
+    let again = replay_capture(&cap_path, cfg2, clock2, &s, false, None, None, link, None)?;
     let same = again.accounting == summary.accounting && again.sifted_bits == summary.sifted_bits;
     let json = a.out.join("summary.json");
     std::fs::write(&json, serde_json::to_string_pretty(&summary)? + "\n")?;
-    let mut files = vec![cap_path.clone(), json];
+    let mut files = vec![cap_path.clone(), json, key_path];
     files.extend(plots::fold_profile(
         &a.out,
         &res.fold,
@@ -421,7 +587,9 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
     Ok(())
 }
 
-/// Replay a capture file through the core; returns the summary.
+/// Replay a capture file through the core (answers over the framed link `link` when given,
+/// sifted key blocks to `key_out`); returns the summary.
+#[allow(clippy::too_many_arguments)]
 pub fn replay_capture(
     path: &Path,
     cfg: ReceiverConfig,
@@ -430,23 +598,20 @@ pub fn replay_capture(
     skip_damaged: bool,
     trace: Option<TraceRequest>,
     plots_dir: Option<&Path>,
+    link: Option<LinkModel>,
+    key_out: Option<&Path>,
 ) -> Result<Summary, AnyErr> {
     let started = Instant::now();
     let name = path.display().to_string();
     let file = File::open(path).map_err(|e| format!("{name}: {e}"))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
-    let mut session = Session::new(
-        cfg,
-        clock,
-        SimTransmitter::new(s),
-        bucket_s(s),
-        false,
-        trace,
-    )?
-    .with_monitor(
-        crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-        slotwise::AlarmConfig::DEFAULT,
-    );
+    let mut session = Session::new(cfg, clock, host_tx(s, link)?, bucket_s(s), false, trace)?
+        .with_monitor(
+            crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
+            slotwise::AlarmConfig::DEFAULT,
+        );
+    let tap = KeyTap::new();
+    session.set_key_tap(Box::new(tap.clone()));
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
     let mut skipped = Vec::new();
@@ -484,11 +649,11 @@ pub fn replay_capture(
         }
     }
     pb.finish_and_clear();
-    let res = session.finish()?;
+    let (res, bits, blocks) = finish_session(session, &tap, key_out)?;
     for sk in &skipped {
         eprintln!("skipped damaged data: {sk:?}");
     }
-    let summary = summarize(
+    let mut summary = summarize(
         &name,
         &res,
         res.rx.clock().period_ps().unwrap_or(f64::NAN),
@@ -496,6 +661,7 @@ pub fn replay_capture(
         None,
         started.elapsed().as_secs_f64(),
     );
+    add_link(&mut summary, &res, &bits, blocks, key_out);
     if let Some(dir) = plots_dir {
         std::fs::create_dir_all(dir)?;
         let mut files = plots::fold_profile(
@@ -537,7 +703,8 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
             Scenario::from_toml_str(meta, &format!("{name} (header metadata)"))?
         }
     };
-    let (cfg, clock) = receiver_setup(&s, &a.clock)?;
+    let link = a.link.model(&s, LinkMode::Direct)?;
+    let (cfg, clock) = receiver_setup_for(&s, &a.clock, link.is_some())?;
     let trace = match &a.trace {
         Some(p) => {
             let from_ps = (a.trace_from_s * 1e12) as u64;
@@ -561,6 +728,8 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
         a.skip_damaged,
         trace,
         a.plots.as_deref(),
+        link,
+        a.link.key_out.as_deref(),
     )?;
     print!("{summary}");
     if let Some(j) = &a.json {
@@ -571,6 +740,15 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
 }
 
 fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
+    if keyfile::is_key_file(&a.capture) {
+        let report = keyfile::inspect(&a.capture)?;
+        if a.json {
+            println!("{}", serde_json::to_string_pretty(&report)?);
+        } else {
+            print!("{report}");
+        }
+        return Ok(());
+    }
     let report = capture::inspect(&a.capture)?;
     if a.json {
         println!("{}", serde_json::to_string_pretty(&report)?);

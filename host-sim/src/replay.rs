@@ -64,6 +64,8 @@ struct Sink {
     trace_pending: BTreeMap<u64, Vec<String>>,
     trace_out: Option<Box<dyn Write>>,
     io_error: Option<std::io::Error>,
+    /// Where sifted bits are copied to as well (a key-block file), when set.
+    tap: Option<Box<dyn KeySink>>,
 }
 
 impl Sink {
@@ -94,6 +96,9 @@ impl Sink {
 
 impl KeySink for Sink {
     fn sifted(&mut self, bit: SiftedBit) {
+        if let Some(t) = self.tap.as_mut() {
+            t.sifted(bit);
+        }
         if self.truth_checked && self.wrong_slot.get(&bit.slot).copied().unwrap_or(false) {
             self.misassigned_sifted += 1;
         }
@@ -168,6 +173,7 @@ impl<T: Transmitter> Session<T> {
                 trace_pending: BTreeMap::new(),
                 trace_out,
                 io_error: None,
+                tap: None,
             },
             fold: vec![[0; FOLD_BINS]; usize::from(cfg.gates().channels())],
             trace_range,
@@ -263,6 +269,21 @@ impl<T: Transmitter> Session<T> {
     /// Pass the classical channel's coarse hint to the core (see `Receiver::hint`).
     pub fn hint(&mut self, t_ps: u64, tx_slot: u64) {
         self.rx.hint(t_ps, tx_slot);
+    }
+
+    /// Copy every sifted bit to `tap` as well (e.g. a key-block file writer).
+    pub fn set_key_tap(&mut self, tap: Box<dyn KeySink>) {
+        self.sink.tap = Some(tap);
+    }
+
+    /// The transmitter, mutably (to drain a link before the end).
+    pub fn tx_mut(&mut self) -> &mut T {
+        &mut self.tx
+    }
+
+    /// Take every answer that has arrived.
+    pub fn service(&mut self) {
+        self.rx.service(&mut self.tx, &mut self.sink);
     }
 
     /// Push one event (with the simulator's truth when known).

@@ -65,6 +65,9 @@ pub struct Truth {
     pub slot: Option<u64>,
     /// What caused the click.
     pub kind: Kind,
+    /// Arrival position number of a signal photon (see [`optics::position_fraction`]); with the
+    /// channel it gives the outcome the optics produced ([`optics::outcome`]). `None` for noise.
+    pub position: Option<u8>,
 }
 
 /// One detection: the TDC event and its ground truth.
@@ -103,6 +106,7 @@ struct Candidate {
     detector: u8,
     kind: Kind,
     slot: Option<u64>,
+    position: Option<u8>,
 }
 
 impl PartialEq for Candidate {
@@ -330,6 +334,7 @@ impl Simulator {
                 detector: h.detector,
                 kind: Kind::Signal,
                 slot: Some(k),
+                position: Some(h.pos),
             });
         }
     }
@@ -355,6 +360,7 @@ impl Simulator {
                 detector: d,
                 kind: Kind::Dark,
                 slot: None,
+                position: None,
             });
         }
     }
@@ -399,6 +405,7 @@ impl Simulator {
                     true_t_ps: c.t_ps,
                     slot: c.slot,
                     kind: c.kind,
+                    position: c.position,
                 },
             });
         }
@@ -420,6 +427,7 @@ impl Simulator {
                 detector: c.detector,
                 kind: Kind::Afterpulse,
                 slot: None,
+                position: None,
             });
         } else {
             self.stats.afterpulses_after_end += 1;

@@ -94,6 +94,9 @@ pub struct Summary {
     pub run: BTreeMap<&'static str, f64>,
     /// Live statistics: window and since-start QBER with bounds, rates, dead time, alarms.
     pub stats: crate::stats::StatsReport,
+    /// The framed link to the transmitter, when the exchange ran through frames.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub link: Option<crate::link::report::LinkSummary>,
 }
 
 /// Build the summary of a finished session.
@@ -217,6 +220,7 @@ pub fn summarize<T: Transmitter>(
         .into_iter()
         .collect(),
         stats: crate::stats::report(&res.monitor, &res.live, res.first_t_ps, n_int),
+        link: None,
     }
 }
 
@@ -287,6 +291,9 @@ impl std::fmt::Display for Summary {
                 "misassigned    {} sifted bits (against the simulator's truth)",
                 t.misassigned_sifted
             )?;
+        }
+        if let Some(l) = &self.link {
+            write!(f, "{l}")?;
         }
         if let Some(s) = self.run.get("seconds") {
             writeln!(f, "replay time    {s:.2} s")?;

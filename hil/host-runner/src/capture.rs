@@ -163,6 +163,11 @@ pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
                 slotwise::stats::Snapshot::decode(fr.payload)
                     .ok_or_else(|| format!("{name}: stats record {k} at byte {offset} invalid"))?;
             }
+            RecordType::Announce | RecordType::Answers => {
+                return Err(format!(
+                    "{name}: frame {k} at byte {offset}: a link record on the key-block stream"
+                ));
+            }
         }
     }
     summary.ok_or_else(|| format!("{name}: no summary frame"))

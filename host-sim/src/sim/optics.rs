@@ -146,6 +146,23 @@ pub struct Hit {
     pub pos: u8,
 }
 
+/// The (basis, bit) a click on `detector` at arrival position `pos` stands for, as the gate table
+/// of [`gate_specs`] reads it.
+pub fn outcome(encoding: Encoding, detector: u8, pos: u8) -> Option<(Basis, u8)> {
+    match (encoding, detector, pos) {
+        (Encoding::TimeBin, 0, 0) => Some((Basis::Z, 0)),
+        (Encoding::TimeBin, 0, 1) => Some((Basis::Z, 1)),
+        (Encoding::TimeBin, 1 | 2, 0) => Some((Basis::Z, 0)),
+        (Encoding::TimeBin, 1 | 2, 2) => Some((Basis::Z, 1)),
+        (Encoding::TimeBin, 1, 1) => Some((Basis::X, 0)),
+        (Encoding::TimeBin, 2, 1) => Some((Basis::X, 1)),
+        (Encoding::Polarization, 0..=3, 0) => {
+            Some((if detector < 2 { Basis::Z } else { Basis::X }, detector & 1))
+        }
+        _ => None,
+    }
+}
+
 /// Route one detected photon of the prepared state `tx` through the passive optics.
 pub fn route(encoding: Encoding, p_z: f64, e_d: f64, tx: TxChoice, rng: &mut Stream) -> Hit {
     let z_port = rng.bernoulli(p_z);
@@ -213,6 +230,23 @@ pub fn route(encoding: Encoding, p_z: f64, e_d: f64, tx: TxChoice, rng: &mut Str
 mod tests {
     use super::*;
     use slotwise::GateTable;
+
+    #[test]
+    fn outcome_reads_the_positions_as_the_gate_table_does() {
+        for encoding in [Encoding::TimeBin, Encoding::Polarization] {
+            let s = Scenario {
+                encoding,
+                ..Scenario::default_bench()
+            };
+            for g in gate_specs(&s) {
+                let pos = (0..3u8)
+                    .find(|&p| (position_fraction(encoding, p) - g.centre).abs() < 1e-12)
+                    .unwrap();
+                assert_eq!(outcome(encoding, g.channel, pos), Some((g.basis, g.bit)));
+            }
+        }
+        assert_eq!(outcome(Encoding::TimeBin, 0, 2), None);
+    }
 
     #[test]
     fn default_gates_form_a_valid_table() {

@@ -1,0 +1,676 @@
+//! The receiver's end of the link: a [`Transmitter`] on top of `embedded-io` reader and writer.
+//!
+//! Announcements collect in one fixed buffer and leave as one announce frame when `BATCH` are
+//! held, when the payload would outgrow [`MAX_PAYLOAD`], when a new slot lies more than
+//! `flush_age_slots` after the batch's first, or on [`ReceiverLink::flush`]. Sent frames wait
+//! (at most [`MAX_OPEN_FRAMES`], their slots in a ring of `OUT` entries of 8 bytes) until their
+//! answers frame arrives or their last slot falls `answer_timeout_slots` behind the newest
+//! announced slot; then they are final, and [`Transmitter::answers_final_below`] lets the
+//! receiver expire what the link will no longer answer. Each frame's fate goes back to the
+//! transmitter in the [`Report`] of every later announce frame.
+//!
+//! The link, not the receiver, decides when answers expire: give the receiver an answer timeout
+//! longer than any wait the link allows (the host uses `u64::MAX / 4`), so that every answer the
+//! link accepts still finds its slot pending. A shorter one still loses nothing silently (such
+//! answers count as `unmatched` in [`AnswerErrors`](crate::AnswerErrors)), but both sides' keys
+//! may then differ.
+
+use super::codec::{
+    put_announce_fixed, put_varint, varint_len, AnswerEntry, AnswersView, Report, ANNOUNCE_FIXED,
+    FLAG_FINAL, MAX_ENTRIES,
+};
+use super::decoder::FrameDecoder;
+use super::seqwin::{SeqClass, SeqWindow};
+use super::{Reject, RejectCounts};
+use crate::frames::{seal_in_place, RecordType, HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
+use crate::gates::Basis;
+use crate::sift::{Announcement, Answer, Transmitter};
+use core::fmt;
+use embedded_io::{Read, ReadReady, Write};
+use heapless::Deque;
+
+/// Announce frames that may wait for their answers at once.
+pub const MAX_OPEN_FRAMES: usize = 32;
+/// Bytes read from the link per call to `read`.
+pub const READ_CHUNK: usize = 64;
+
+/// Why a link configuration was refused.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum LinkConfigError {
+    /// Answer timeout of zero slots.
+    ZeroTimeout,
+}
+
+impl fmt::Display for LinkConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::ZeroTimeout => write!(f, "answer_timeout_slots must be at least 1"),
+        }
+    }
+}
+
+impl core::error::Error for LinkConfigError {}
+
+/// Validated settings of a [`ReceiverLink`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LinkConfig {
+    answer_timeout_slots: u64,
+    flush_age_slots: u64,
+}
+
+impl LinkConfig {
+    /// `answer_timeout_slots`: a frame expires when the newest announced slot is more than this
+    /// after its last slot; `flush_age_slots`: a batch leaves before a slot this far after its
+    /// first joins it.
+    pub const fn new(
+        answer_timeout_slots: u64,
+        flush_age_slots: u64,
+    ) -> Result<Self, LinkConfigError> {
+        if answer_timeout_slots == 0 {
+            return Err(LinkConfigError::ZeroTimeout);
+        }
+        Ok(Self {
+            answer_timeout_slots,
+            flush_age_slots,
+        })
+    }
+
+    /// Slots after which an unanswered frame expires.
+    pub const fn answer_timeout_slots(&self) -> u64 {
+        self.answer_timeout_slots
+    }
+
+    /// Largest slot span of one batch.
+    pub const fn flush_age_slots(&self) -> u64 {
+        self.flush_age_slots
+    }
+}
+
+/// What the receiver's end of the link did; announcements sent = answered + expired + waiting.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LinkCounters {
+    /// Frames written (announce frames and final reports).
+    pub frames_out: u64,
+    /// Bytes written, delimiters included.
+    pub bytes_out: u64,
+    /// Frames the writer refused (they count as sent and lost).
+    pub write_errors: u64,
+    /// Announcements put into sent frames.
+    pub announcements: u64,
+    /// Announcements not sent (slot ≥ 2^63, out of order, after close, or no room).
+    pub refused_announcements: u64,
+    /// Bytes read.
+    pub bytes_in: u64,
+    /// Calls to the reader that failed.
+    pub read_errors: u64,
+    /// Answers frames with a good CRC and payload (before sequence and content checks).
+    pub frames_in: u64,
+    /// Refused frames and contents, by reason.
+    pub rejected: RejectCounts,
+    /// Sequence numbers skipped over (frames missing at the time; late arrivals fill some).
+    pub seq_gaps: u64,
+    /// Frames arriving behind the highest sequence number (reordered).
+    pub late_frames: u64,
+    /// Frames older than the sequence window (checked on content only).
+    pub too_old_frames: u64,
+    /// Announce frames answered (their answers handed to the receiver).
+    pub answered_frames: u64,
+    /// Answers handed to the receiver.
+    pub answers_in: u64,
+    /// Announce frames expired unanswered.
+    pub expired_frames: u64,
+    /// Announcements in expired frames.
+    pub expired_announcements: u64,
+    /// Expired frames that were pushed out early for room (included in `expired_frames`).
+    pub evicted_frames: u64,
+}
+
+impl LinkCounters {
+    /// Sequence numbers never seen: gaps not filled by late frames.
+    pub const fn missing_frames(&self) -> u64 {
+        self.seq_gaps.saturating_sub(self.late_frames)
+    }
+}
+
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum FrameState {
+    Waiting,
+    Answered,
+    Expired,
+}
+
+#[derive(Clone, Copy, Debug)]
+struct OpenFrame {
+    seq: u16,
+    /// Running index of the frame's first announcement.
+    start: u64,
+    count: u16,
+    first_slot: u64,
+    last_slot: u64,
+    state: FrameState,
+}
+
+/// An incoming frame reduced to what the endpoint checks (so the decoder's borrow ends).
+enum Got {
+    Answers {
+        seq: u16,
+        ann_seq: u16,
+        first_slot: u64,
+        count: usize,
+    },
+    Refused(Reject),
+}
+
+/// The receiver's end of the link: batches announcements into frames of up to `BATCH`
+/// (1..=512), keeps the slots of up to `OUT` (≥ `BATCH`) unanswered announcements.
+pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize> {
+    cfg: LinkConfig,
+    reader: R,
+    writer: W,
+    dec: FrameDecoder,
+    rbuf: [u8; READ_CHUNK],
+    rpos: usize,
+    rlen: usize,
+    raw: [u8; MAX_RAW],
+    enc: [u8; MAX_FRAME],
+    batch_n: usize,
+    batch_first: u64,
+    batch_prev: u64,
+    batch_deltas: usize,
+    bases: [u8; MAX_ENTRIES / 8],
+    next_seq: u16,
+    /// Slot << 1 | basis of every announcement in an open frame or the batch.
+    slots: Deque<u64, OUT>,
+    /// Running index of `slots`' front.
+    front: u64,
+    open: Deque<OpenFrame, MAX_OPEN_FRAMES>,
+    report: Report,
+    newest_slot: Option<u64>,
+    seen: SeqWindow,
+    cur: [u8; MAX_ENTRIES],
+    cur_n: usize,
+    cur_pos: usize,
+    cur_start: u64,
+    cur_seq: Option<u16>,
+    closed: bool,
+    counters: LinkCounters,
+}
+
+impl<R, W, const BATCH: usize, const OUT: usize> ReceiverLink<R, W, BATCH, OUT>
+where
+    R: Read + ReadReady,
+    W: Write,
+{
+    /// An endpoint reading answers from `reader` and writing announcements to `writer`.
+    pub const fn new(cfg: LinkConfig, reader: R, writer: W) -> Self {
+        const {
+            assert!(
+                BATCH > 0 && BATCH <= MAX_ENTRIES,
+                "BATCH must lie in 1..=512"
+            );
+            assert!(OUT >= BATCH, "OUT must hold at least one full batch");
+        };
+        Self {
+            cfg,
+            reader,
+            writer,
+            dec: FrameDecoder::new(),
+            rbuf: [0; READ_CHUNK],
+            rpos: 0,
+            rlen: 0,
+            raw: [0; MAX_RAW],
+            enc: [0; MAX_FRAME],
+            batch_n: 0,
+            batch_first: 0,
+            batch_prev: 0,
+            batch_deltas: 0,
+            bases: [0; MAX_ENTRIES / 8],
+            next_seq: 0,
+            slots: Deque::new(),
+            front: 0,
+            open: Deque::new(),
+            report: Report {
+                resolved_below: 0,
+                answered_map: 0,
+            },
+            newest_slot: None,
+            seen: SeqWindow::new(),
+            cur: [0; MAX_ENTRIES],
+            cur_n: 0,
+            cur_pos: 0,
+            cur_start: 0,
+            cur_seq: None,
+            closed: false,
+            counters: LinkCounters {
+                frames_out: 0,
+                bytes_out: 0,
+                write_errors: 0,
+                announcements: 0,
+                refused_announcements: 0,
+                bytes_in: 0,
+                read_errors: 0,
+                frames_in: 0,
+                rejected: RejectCounts::new(),
+                seq_gaps: 0,
+                late_frames: 0,
+                too_old_frames: 0,
+                answered_frames: 0,
+                answers_in: 0,
+                expired_frames: 0,
+                expired_announcements: 0,
+                evicted_frames: 0,
+            },
+        }
+    }
+
+    /// What the endpoint did so far.
+    pub const fn counters(&self) -> &LinkCounters {
+        &self.counters
+    }
+
+    /// The settings in use.
+    pub const fn config(&self) -> &LinkConfig {
+        &self.cfg
+    }
+
+    /// The reader, mutably (to inspect or drive a transport).
+    pub fn reader_mut(&mut self) -> &mut R {
+        &mut self.reader
+    }
+
+    /// The writer, mutably (to inspect or drive a transport).
+    pub fn writer_mut(&mut self) -> &mut W {
+        &mut self.writer
+    }
+
+    /// Announcements sent and still waiting for their answers.
+    pub fn waiting_announcements(&self) -> u64 {
+        self.open
+            .iter()
+            .filter(|f| f.state == FrameState::Waiting)
+            .map(|f| u64::from(f.count))
+            .sum()
+    }
+
+    /// Announcements held in the batch, not yet sent.
+    pub const fn batched(&self) -> usize {
+        self.batch_n
+    }
+
+    /// The report the next announce frame will carry.
+    pub const fn report(&self) -> Report {
+        self.report
+    }
+
+    /// Send the batch now (nothing when it is empty), then flush the writer.
+    pub fn flush(&mut self) {
+        self.send_batch();
+        if self.writer.flush().is_err() {
+            self.counters.write_errors += 1;
+        }
+    }
+
+    /// End of the session: send the batch, expire every waiting frame, and send the final report
+    /// (an announce frame without announcements, flag [`FLAG_FINAL`]). Later announcements and
+    /// answers are refused. Call [`Self::send_final_report`] again to repeat the report.
+    pub fn close(&mut self) {
+        self.send_batch();
+        self.cur_pos = self.cur_n;
+        self.cur_seq = None;
+        for f in self.open.iter_mut() {
+            if f.state == FrameState::Waiting {
+                f.state = FrameState::Expired;
+                self.counters.expired_frames += 1;
+                self.counters.expired_announcements += u64::from(f.count);
+            }
+        }
+        self.pop_resolved();
+        self.closed = true;
+        self.send_final_report();
+    }
+
+    /// Send the final report once more (after [`Self::close`]; before it, nothing happens).
+    pub fn send_final_report(&mut self) {
+        if !self.closed {
+            return;
+        }
+        let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
+        if put_announce_fixed(area, 0, 0, self.report, FLAG_FINAL).is_ok() {
+            self.emit(ANNOUNCE_FIXED);
+        }
+        if self.writer.flush().is_err() {
+            self.counters.write_errors += 1;
+        }
+    }
+
+    fn emit(&mut self, len: usize) {
+        let seq = self.next_seq;
+        self.next_seq = seq.wrapping_add(1);
+        self.counters.frames_out += 1;
+        match seal_in_place(RecordType::Announce, seq, len, &mut self.raw, &mut self.enc) {
+            Ok(n) => {
+                self.counters.bytes_out += n as u64;
+                let bytes = self.enc.get(..n).unwrap_or_default();
+                if self.writer.write_all(bytes).is_err() {
+                    self.counters.write_errors += 1;
+                }
+            }
+            Err(_) => self.counters.write_errors += 1,
+        }
+    }
+
+    fn batch_fits(&self, slot: u64) -> bool {
+        if self.batch_n == 0 {
+            return true;
+        }
+        let d = slot.wrapping_sub(self.batch_prev);
+        self.batch_n < BATCH
+            && ANNOUNCE_FIXED + self.batch_deltas + varint_len(d) + (self.batch_n + 1).div_ceil(8)
+                <= MAX_PAYLOAD
+    }
+
+    fn send_batch(&mut self) {
+        let n = self.batch_n;
+        if n == 0 {
+            return;
+        }
+        if self.open.is_full() {
+            self.evict_oldest();
+        }
+        let start = self.front + self.slots.len() as u64 - n as u64;
+        if self.open.is_full() {
+            // Only while answers are being handed over; the caller expires these slots.
+            for _ in 0..n {
+                self.slots.pop_back();
+            }
+            self.counters.refused_announcements += n as u64;
+            self.reset_batch();
+            return;
+        }
+        let m = n.div_ceil(8);
+        let at = HEADER_LEN + ANNOUNCE_FIXED + self.batch_deltas;
+        if let (Some(d), Some(s)) = (self.raw.get_mut(at..at + m), self.bases.get(..m)) {
+            d.copy_from_slice(s);
+        }
+        let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
+        let fixed = put_announce_fixed(area, self.batch_first, n as u16, self.report, 0);
+        let rec = OpenFrame {
+            seq: self.next_seq,
+            start,
+            count: n as u16,
+            first_slot: self.batch_first,
+            last_slot: self.batch_prev,
+            state: FrameState::Waiting,
+        };
+        if fixed.is_ok() && self.open.push_back(rec).is_ok() {
+            self.emit(ANNOUNCE_FIXED + self.batch_deltas + m);
+            self.counters.announcements += n as u64;
+        }
+        self.reset_batch();
+    }
+
+    fn reset_batch(&mut self) {
+        self.batch_n = 0;
+        self.batch_deltas = 0;
+        self.bases.fill(0);
+    }
+
+    /// Expire the oldest open frame (if waiting) and drop what is final; false if none could go.
+    fn evict_oldest(&mut self) -> bool {
+        let Some(f) = self.open.front_mut() else {
+            return false;
+        };
+        if Some(f.seq) == self.cur_seq {
+            return false;
+        }
+        if f.state == FrameState::Waiting {
+            f.state = FrameState::Expired;
+            self.counters.expired_frames += 1;
+            self.counters.evicted_frames += 1;
+            self.counters.expired_announcements += u64::from(f.count);
+        }
+        self.pop_resolved();
+        true
+    }
+
+    fn expire_old(&mut self, now_slot: u64) {
+        let timeout = self.cfg.answer_timeout_slots;
+        for f in self.open.iter_mut() {
+            if f.state != FrameState::Waiting {
+                continue;
+            }
+            if f.last_slot.saturating_add(timeout) >= now_slot {
+                break;
+            }
+            f.state = FrameState::Expired;
+            self.counters.expired_frames += 1;
+            self.counters.expired_announcements += u64::from(f.count);
+        }
+        self.pop_resolved();
+    }
+
+    fn pop_resolved(&mut self) {
+        while let Some(f) = self.open.front().copied() {
+            if f.state == FrameState::Waiting || Some(f.seq) == self.cur_seq {
+                break;
+            }
+            self.open.pop_front();
+            for _ in 0..f.count {
+                if self.slots.pop_front().is_some() {
+                    self.front += 1;
+                }
+            }
+            let answered = u64::from(f.state == FrameState::Answered);
+            self.report.answered_map = self.report.answered_map << 1 | answered;
+            self.report.resolved_below = f.seq.wrapping_add(1);
+        }
+    }
+
+    fn next_answer(&mut self) -> Option<Answer> {
+        while self.cur_pos < self.cur_n {
+            let i = self.cur_pos;
+            self.cur_pos += 1;
+            let e = self.cur.get(i).copied().and_then(AnswerEntry::from_byte);
+            let at = (self.cur_start + i as u64).checked_sub(self.front);
+            let packed = at.and_then(|k| self.slots.get(k as usize)).copied();
+            if let (Some(e), Some(p)) = (e, packed) {
+                let rx = if p & 1 == 1 { Basis::X } else { Basis::Z };
+                let other = if rx == Basis::X { Basis::Z } else { Basis::X };
+                self.counters.answers_in += 1;
+                return Some(Answer {
+                    slot: p >> 1,
+                    basis: if e.basis_match { rx } else { other },
+                    intensity: e.intensity,
+                    bit: e.bit,
+                });
+            }
+        }
+        None
+    }
+
+    fn next_byte(&mut self) -> Option<u8> {
+        if self.rpos >= self.rlen {
+            match self.reader.read_ready() {
+                Ok(true) => {}
+                Ok(false) => return None,
+                Err(_) => {
+                    self.counters.read_errors += 1;
+                    return None;
+                }
+            }
+            match self.reader.read(&mut self.rbuf) {
+                Ok(0) => return None,
+                Ok(n) => {
+                    self.rpos = 0;
+                    self.rlen = n.min(READ_CHUNK);
+                    self.counters.bytes_in += self.rlen as u64;
+                }
+                Err(_) => {
+                    self.counters.read_errors += 1;
+                    return None;
+                }
+            }
+        }
+        let b = self.rbuf.get(self.rpos).copied();
+        self.rpos += 1;
+        b
+    }
+
+    /// Check one decoded answers frame against the open frames; true when it was taken.
+    fn take(&mut self, seq: u16, ann_seq: u16, first_slot: u64, count: usize) -> bool {
+        self.counters.frames_in += 1;
+        match self.seen.observe(seq) {
+            SeqClass::Duplicate => {
+                self.counters.rejected.add(Reject::DuplicateFrame);
+                return false;
+            }
+            SeqClass::Ahead { missing } => self.counters.seq_gaps += u64::from(missing),
+            SeqClass::Late => self.counters.late_frames += 1,
+            SeqClass::TooOld => self.counters.too_old_frames += 1,
+            SeqClass::First => {}
+        }
+        let Some(f) = self.open.iter_mut().find(|f| f.seq == ann_seq) else {
+            let reason = if ann_seq.wrapping_sub(self.next_seq) < 0x8000 {
+                Reject::NeverAnnounced
+            } else if self.report.fate(ann_seq) == Some(true) {
+                Reject::DuplicateAnswers
+            } else {
+                Reject::LateAnswers
+            };
+            self.counters.rejected.add(reason);
+            return false;
+        };
+        let reason = match f.state {
+            FrameState::Answered => Reject::DuplicateAnswers,
+            FrameState::Expired => Reject::LateAnswers,
+            FrameState::Waiting if usize::from(f.count) != count || f.first_slot != first_slot => {
+                Reject::SlotMismatch
+            }
+            FrameState::Waiting => {
+                f.state = FrameState::Answered;
+                self.cur_seq = Some(f.seq);
+                self.cur_start = f.start;
+                self.cur_n = count;
+                self.cur_pos = 0;
+                self.counters.answered_frames += 1;
+                return true;
+            }
+        };
+        self.counters.rejected.add(reason);
+        false
+    }
+}
+
+impl<R, W, const BATCH: usize, const OUT: usize> Transmitter for ReceiverLink<R, W, BATCH, OUT>
+where
+    R: Read + ReadReady,
+    W: Write,
+{
+    fn announce(&mut self, a: Announcement) {
+        let in_order = self.batch_n == 0 || a.slot > self.batch_prev;
+        let after_open = self
+            .open
+            .back()
+            .is_none_or(|f| a.slot > f.last_slot || self.batch_n > 0);
+        if self.closed || a.slot >= 1 << 63 || !in_order || !after_open {
+            self.counters.refused_announcements += 1;
+            return;
+        }
+        self.newest_slot = Some(self.newest_slot.map_or(a.slot, |s| s.max(a.slot)));
+        self.expire_old(a.slot);
+        let too_old = self.batch_n > 0 && a.slot - self.batch_first > self.cfg.flush_age_slots;
+        if self.batch_n > 0 && (too_old || !self.batch_fits(a.slot)) {
+            self.send_batch();
+        }
+        while self.slots.is_full() {
+            if !self.evict_oldest() {
+                self.send_batch();
+                if !self.evict_oldest() {
+                    self.counters.refused_announcements += 1;
+                    return;
+                }
+            }
+        }
+        if self.batch_n > 0 {
+            let at = HEADER_LEN + ANNOUNCE_FIXED + self.batch_deltas;
+            let area = self.raw.get_mut(at..).unwrap_or_default();
+            self.batch_deltas += put_varint(a.slot - self.batch_prev, area);
+        } else {
+            self.batch_first = a.slot;
+        }
+        if a.basis == Basis::X {
+            if let Some(b) = self.bases.get_mut(self.batch_n / 8) {
+                *b |= 1 << (self.batch_n % 8);
+            }
+        }
+        self.batch_prev = a.slot;
+        self.batch_n += 1;
+        if self.slots.push_back(a.slot << 1 | a.basis as u64).is_err() {
+            self.counters.refused_announcements += 1;
+        }
+        if self.batch_n >= BATCH {
+            self.send_batch();
+        }
+    }
+
+    fn poll_answer(&mut self) -> Option<Answer> {
+        loop {
+            if let Some(a) = self.next_answer() {
+                return Some(a);
+            }
+            if self.cur_seq.take().is_some() {
+                self.pop_resolved();
+            }
+            if self.closed {
+                return None;
+            }
+            let b = self.next_byte()?;
+            let got = match self.dec.push(b) {
+                None => continue,
+                Some(Err(e)) => Got::Refused(e.into()),
+                Some(Ok(f)) if f.record != RecordType::Answers => {
+                    Got::Refused(Reject::UnexpectedType)
+                }
+                Some(Ok(f)) => match AnswersView::parse(f.payload) {
+                    Err(e) => Got::Refused(e.into()),
+                    Ok(v) => {
+                        let count = v.count();
+                        if let Some(d) = self.cur.get_mut(..count) {
+                            d.copy_from_slice(v.entry_bytes());
+                        }
+                        Got::Answers {
+                            seq: f.seq,
+                            ann_seq: v.ann_seq,
+                            first_slot: v.first_slot,
+                            count,
+                        }
+                    }
+                },
+            };
+            match got {
+                Got::Refused(r) => self.counters.rejected.add(r),
+                Got::Answers {
+                    seq,
+                    ann_seq,
+                    first_slot,
+                    count,
+                } => {
+                    self.take(seq, ann_seq, first_slot, count);
+                }
+            }
+        }
+    }
+
+    fn answers_final_below(&self) -> Option<u64> {
+        if let Some(f) = self.open.iter().find(|f| f.state == FrameState::Waiting) {
+            return Some(f.first_slot);
+        }
+        if self.batch_n > 0 {
+            return Some(self.batch_first);
+        }
+        self.newest_slot.map(|s| s.saturating_add(1))
+    }
+}

@@ -1,0 +1,425 @@
+//! The classical link to the transmitter, in memory: the core's [`ReceiverLink`] writes and reads
+//! real frames through byte pipes, a link model loses, repeats, reorders, delays and damages them,
+//! and a host transmitter ([`tx::HostTransmitter`]) answers from the scenario's choices.
+//!
+//! Time on the link is the newest slot the receiver announced: a frame sent at slot `s` arrives
+//! at slot `s + latency`. Every random choice of the model comes from one seeded stream per
+//! direction, so a run is reproducible.
+
+pub mod keyfile;
+pub mod report;
+pub mod tx;
+
+use crate::scenario::Scenario;
+use crate::sim::rng::Stream;
+use crate::sim::SimTransmitter;
+use serde::Serialize;
+use slotwise::wire::{LinkConfig, LinkCounters, ReceiverLink};
+use slotwise::{Announcement, Answer, Transmitter};
+use std::cell::RefCell;
+use std::cmp::Reverse;
+use std::collections::{BinaryHeap, VecDeque};
+use std::convert::Infallible;
+use std::rc::Rc;
+use tx::HostTransmitter;
+
+/// Announcements per announce frame on the host link.
+pub const HOST_BATCH: usize = 64;
+/// Unanswered announcements the host endpoint keeps.
+pub const HOST_OUT: usize = 1024;
+
+/// How the simulated link treats frames (probabilities per frame and direction).
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct LinkModel {
+    /// Probability that a frame is lost.
+    pub loss: f64,
+    /// Probability that a frame arrives twice.
+    pub dup: f64,
+    /// Probability that a frame is held back behind later ones.
+    pub reorder: f64,
+    /// Probability that 1–3 bytes of a frame are overwritten with random values.
+    pub corrupt: f64,
+    /// One-way delay in slots.
+    pub latency_slots: u64,
+    /// A reordered frame is held back by a uniform 1..=this many slots more.
+    pub reorder_slots: u64,
+    /// Seed of the model's random choices.
+    pub seed: u64,
+    /// Share of answered slots whose transmitted bit is revealed for testing.
+    pub test_fraction: f64,
+    /// Slots after which the receiver gives up on an announce frame's answers.
+    pub answer_timeout_slots: u64,
+    /// Largest slot span of one announce batch.
+    pub flush_age_slots: u64,
+}
+
+impl LinkModel {
+    /// A perfect link with the scenario's timeout (no loss, no delay, every bit revealed).
+    pub fn perfect(s: &Scenario) -> Self {
+        Self {
+            loss: 0.0,
+            dup: 0.0,
+            reorder: 0.0,
+            corrupt: 0.0,
+            latency_slots: 0,
+            reorder_slots: 50_000,
+            seed: s.seed ^ 0x4C49_4E4B,
+            test_fraction: 1.0,
+            answer_timeout_slots: (s.rep_rate_hz * 0.01).max(1.0) as u64,
+            flush_age_slots: 5000,
+        }
+    }
+
+    /// Check probabilities and sizes; the error names the option.
+    pub fn validate(&self) -> Result<(), String> {
+        for (name, p) in [
+            ("--link-loss", self.loss),
+            ("--link-dup", self.dup),
+            ("--link-reorder", self.reorder),
+            ("--link-corrupt", self.corrupt),
+            ("--test-fraction", self.test_fraction),
+        ] {
+            if !(0.0..=1.0).contains(&p) {
+                return Err(format!("{name} {p}: expected a probability in 0..=1"));
+            }
+        }
+        if self.loss >= 1.0 {
+            return Err("--link-loss 1: nothing would ever arrive".into());
+        }
+        LinkConfig::new(self.answer_timeout_slots, self.flush_age_slots)
+            .map_err(|e| format!("link timeout: {e}"))?;
+        Ok(())
+    }
+}
+
+/// What the model did to the frames of one direction.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Serialize)]
+pub struct ChannelStats {
+    /// Frames handed to the link.
+    pub frames: u64,
+    /// Frames lost.
+    pub lost: u64,
+    /// Frames delivered twice.
+    pub duplicated: u64,
+    /// Frames held back behind later ones.
+    pub reordered: u64,
+    /// Frames with overwritten bytes.
+    pub corrupted: u64,
+}
+
+struct Channel {
+    model: LinkModel,
+    rng: Stream,
+    /// (arrival slot, order) → frame bytes.
+    queue: BinaryHeap<Reverse<(u64, u64, Vec<u8>)>>,
+    order: u64,
+    stats: ChannelStats,
+}
+
+impl Channel {
+    fn new(model: LinkModel, stream: u64) -> Self {
+        Self {
+            model,
+            rng: Stream::new(model.seed, stream),
+            queue: BinaryHeap::new(),
+            order: 0,
+            stats: ChannelStats::default(),
+        }
+    }
+
+    fn hold_slots(&mut self) -> u64 {
+        1 + (self.rng.uniform() * self.model.reorder_slots as f64) as u64
+    }
+
+    fn send(&mut self, now: u64, mut frame: Vec<u8>) {
+        let m = self.model;
+        self.stats.frames += 1;
+        if self.rng.bernoulli(m.loss) {
+            self.stats.lost += 1;
+            return;
+        }
+        if self.rng.bernoulli(m.corrupt) && frame.len() > 1 {
+            self.stats.corrupted += 1;
+            let hits = 1 + (self.rng.uniform() * 3.0) as usize;
+            for _ in 0..hits {
+                let at = (self.rng.uniform() * (frame.len() - 1) as f64) as usize;
+                frame[at] = (self.rng.uniform() * 256.0) as u8;
+            }
+        }
+        let mut at = now + m.latency_slots;
+        if self.rng.bernoulli(m.reorder) {
+            self.stats.reordered += 1;
+            at += self.hold_slots();
+        }
+        if self.rng.bernoulli(m.dup) {
+            self.stats.duplicated += 1;
+            let again = at + self.hold_slots() / 4;
+            self.push(again, frame.clone());
+        }
+        self.push(at, frame);
+    }
+
+    fn push(&mut self, at: u64, frame: Vec<u8>) {
+        self.order += 1;
+        self.queue.push(Reverse((at, self.order, frame)));
+    }
+
+    fn due(&mut self, now: u64) -> Vec<Vec<u8>> {
+        let mut out = Vec::new();
+        while self
+            .queue
+            .peek()
+            .is_some_and(|Reverse((at, _, _))| *at <= now)
+        {
+            if let Some(Reverse((_, _, f))) = self.queue.pop() {
+                out.push(f);
+            }
+        }
+        out
+    }
+
+    fn last_arrival(&self) -> Option<u64> {
+        self.queue.iter().map(|Reverse((at, _, _))| *at).max()
+    }
+}
+
+struct Shared {
+    now: u64,
+    up: Channel,
+    down: Channel,
+    /// Bytes the endpoint wrote since the last delimiter.
+    partial: Vec<u8>,
+    /// Bytes arrived for the endpoint to read.
+    inbox: VecDeque<u8>,
+    tx: HostTransmitter,
+}
+
+impl Shared {
+    fn pump(&mut self) {
+        let now = self.now;
+        for f in self.up.due(now) {
+            for answer in self.tx.receive(&f) {
+                self.down.send(now, answer);
+            }
+        }
+        for f in self.down.due(now) {
+            self.inbox.extend(f);
+        }
+    }
+}
+
+/// The endpoint's reading half: bytes the link delivered from the transmitter.
+pub struct DownReader(Rc<RefCell<Shared>>);
+/// The endpoint's writing half: bytes to the transmitter.
+pub struct UpWriter(Rc<RefCell<Shared>>);
+
+impl embedded_io::ErrorType for DownReader {
+    type Error = Infallible;
+}
+impl embedded_io::ErrorType for UpWriter {
+    type Error = Infallible;
+}
+
+impl embedded_io::ReadReady for DownReader {
+    fn read_ready(&mut self) -> Result<bool, Infallible> {
+        let mut s = self.0.borrow_mut();
+        s.pump();
+        Ok(!s.inbox.is_empty())
+    }
+}
+
+impl embedded_io::Read for DownReader {
+    fn read(&mut self, buf: &mut [u8]) -> Result<usize, Infallible> {
+        let mut s = self.0.borrow_mut();
+        let n = buf.len().min(s.inbox.len());
+        for (d, b) in buf.iter_mut().zip(s.inbox.drain(..n)) {
+            *d = b;
+        }
+        Ok(n)
+    }
+}
+
+impl embedded_io::Write for UpWriter {
+    fn write(&mut self, buf: &[u8]) -> Result<usize, Infallible> {
+        let mut s = self.0.borrow_mut();
+        for &b in buf {
+            s.partial.push(b);
+            if b == 0 {
+                let frame = std::mem::take(&mut s.partial);
+                let now = s.now;
+                s.up.send(now, frame);
+            }
+        }
+        Ok(buf.len())
+    }
+    fn flush(&mut self) -> Result<(), Infallible> {
+        Ok(())
+    }
+}
+
+/// The core's endpoint type on the host.
+pub type HostEndpoint = ReceiverLink<DownReader, UpWriter, HOST_BATCH, HOST_OUT>;
+
+/// The receiver's transmitter as a framed link: the core's endpoint, the link model and the host
+/// transmitter behind it.
+pub struct FramedLink {
+    ep: HostEndpoint,
+    shared: Rc<RefCell<Shared>>,
+    model: LinkModel,
+    final_reports: u64,
+}
+
+impl FramedLink {
+    /// A link with model `model` to a transmitter that knows the scenario's choices.
+    pub fn new(s: &Scenario, model: LinkModel) -> Result<Self, String> {
+        model.validate()?;
+        let cfg = LinkConfig::new(model.answer_timeout_slots, model.flush_age_slots)
+            .map_err(|e| e.to_string())?;
+        let shared = Rc::new(RefCell::new(Shared {
+            now: 0,
+            up: Channel::new(model, 0x5550),
+            down: Channel::new(model, 0x444F),
+            partial: Vec::new(),
+            inbox: VecDeque::new(),
+            tx: HostTransmitter::new(s, model.test_fraction),
+        }));
+        let ep = HostEndpoint::new(cfg, DownReader(shared.clone()), UpWriter(shared.clone()));
+        Ok(Self {
+            ep,
+            shared,
+            model,
+            final_reports: 0,
+        })
+    }
+
+    /// The model in use.
+    pub fn model(&self) -> &LinkModel {
+        &self.model
+    }
+
+    /// The core endpoint's counters.
+    pub fn counters(&self) -> &LinkCounters {
+        self.ep.counters()
+    }
+
+    /// Final reports sent (the closing report is repeated until the transmitter has one).
+    pub fn final_reports(&self) -> u64 {
+        self.final_reports
+    }
+
+    fn settle(&mut self) {
+        let mut s = self.shared.borrow_mut();
+        let last =
+            s.up.last_arrival()
+                .into_iter()
+                .chain(s.down.last_arrival())
+                .max();
+        if let Some(t) = last {
+            s.now = s.now.max(t);
+        }
+        s.pump();
+        let last = s.down.last_arrival();
+        if let Some(t) = last {
+            s.now = s.now.max(t);
+            s.pump();
+        }
+    }
+
+    /// End of input: send the batch and let every frame in flight arrive (one round trip), so
+    /// that the receiver can take the last answers before it finishes.
+    pub fn drain(&mut self) {
+        self.ep.flush();
+        self.settle();
+    }
+
+    /// After the receiver finished: close the endpoint and repeat the final report until the
+    /// transmitter has one (at most 64 tries).
+    pub fn close(&mut self) {
+        self.ep.close();
+        self.final_reports = 1;
+        self.settle();
+        while !self.shared.borrow().tx.closed() && self.final_reports < 64 {
+            self.ep.send_final_report();
+            self.final_reports += 1;
+            self.settle();
+        }
+    }
+
+    /// Run `f` on the host transmitter.
+    pub fn with_tx<R>(&self, f: impl FnOnce(&HostTransmitter) -> R) -> R {
+        f(&self.shared.borrow().tx)
+    }
+
+    /// What the model did: (receiver → transmitter, transmitter → receiver).
+    pub fn channel_stats(&self) -> (ChannelStats, ChannelStats) {
+        let s = self.shared.borrow();
+        (s.up.stats, s.down.stats)
+    }
+}
+
+impl Transmitter for FramedLink {
+    fn announce(&mut self, a: Announcement) {
+        {
+            let mut s = self.shared.borrow_mut();
+            s.now = s.now.max(a.slot);
+        }
+        self.ep.announce(a);
+    }
+
+    fn poll_answer(&mut self) -> Option<Answer> {
+        self.ep.poll_answer()
+    }
+
+    fn answers_final_below(&self) -> Option<u64> {
+        self.ep.answers_final_below()
+    }
+}
+
+/// The transmitter a host session talks to: in memory, or over the framed link.
+pub enum HostTx {
+    /// Answers handed over at once, without loss ([`SimTransmitter`]).
+    Direct(Box<SimTransmitter>),
+    /// Answers as frames over the simulated link.
+    Framed(Box<FramedLink>),
+}
+
+impl HostTx {
+    /// The framed link, when there is one.
+    pub fn framed(&self) -> Option<&FramedLink> {
+        match self {
+            Self::Framed(l) => Some(l),
+            Self::Direct(_) => None,
+        }
+    }
+
+    /// The framed link, mutably, when there is one.
+    pub fn framed_mut(&mut self) -> Option<&mut FramedLink> {
+        match self {
+            Self::Framed(l) => Some(l),
+            Self::Direct(_) => None,
+        }
+    }
+}
+
+impl Transmitter for HostTx {
+    fn announce(&mut self, a: Announcement) {
+        match self {
+            Self::Direct(t) => t.announce(a),
+            Self::Framed(l) => l.announce(a),
+        }
+    }
+
+    fn poll_answer(&mut self) -> Option<Answer> {
+        match self {
+            Self::Direct(t) => t.poll_answer(),
+            Self::Framed(l) => l.poll_answer(),
+        }
+    }
+
+    fn answers_final_below(&self) -> Option<u64> {
+        match self {
+            Self::Direct(t) => t.answers_final_below(),
+            Self::Framed(l) => l.answers_final_below(),
+        }
+    }
+}

@@ -1,0 +1,329 @@
+//! The transmitter's half of the link on the host, built on the core's codec: decode announce
+//! frames, look up its own choices, answer, and keep the bits of the frames the receiver reports
+//! as answered — its own sifted key.
+
+use crate::scenario::Scenario;
+use crate::sim::rng::{splitmix_at, stream_key, unit_f64};
+use crate::sim::TxChoices;
+use slotwise::frames::{encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
+use slotwise::wire::codec::encode_answers;
+use slotwise::wire::{
+    AnnounceView, AnswerEntry, FrameDecoder, Reject, RejectCounts, Report, SeqClass, SeqWindow,
+};
+use slotwise::Basis;
+use std::collections::BTreeMap;
+
+/// Stream number of the test-bit choices.
+const STREAM_REVEAL: u64 = 7;
+
+/// One bit of the transmitter's sifted key.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct TxKeyBit {
+    /// The transmitted bit.
+    pub bit: u8,
+    /// Basis of both sides.
+    pub basis: Basis,
+    /// Intensity class.
+    pub intensity: u8,
+    /// Revealed for testing (public).
+    pub revealed: bool,
+}
+
+#[derive(Clone, Debug)]
+struct Answered {
+    ann_seq: u16,
+    /// Matched-basis slots with their bits.
+    matched: Vec<(u64, TxKeyBit)>,
+}
+
+/// What the host transmitter did.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct TxCounters {
+    /// Announce frames with a good CRC.
+    pub frames_in: u64,
+    /// Refused frames by reason.
+    pub rejected: RejectCounts,
+    /// Sequence numbers skipped over.
+    pub seq_gaps: u64,
+    /// Frames behind the highest sequence number.
+    pub late_frames: u64,
+    /// Announcements taken.
+    pub announcements: u64,
+    /// Announcements of marker slots (answered as a basis mismatch: never key).
+    pub marker_announcements: u64,
+    /// Answers frames sent.
+    pub frames_out: u64,
+    /// Bytes sent.
+    pub bytes_out: u64,
+    /// Answered frames the receiver reported as used: their matched bits are key.
+    pub confirmed_frames: u64,
+    /// Answered frames the receiver reported as expired: their bits are dropped.
+    pub expired_frames: u64,
+    /// Answered frames whose fate fell out of the report window unseen (dropped, counted).
+    pub fate_unknown: u64,
+    /// Reports marked final seen.
+    pub final_reports: u64,
+}
+
+/// The transmitter behind the link.
+pub struct HostTransmitter {
+    choices: TxChoices,
+    reveal_key: u64,
+    test_fraction: f64,
+    dec: FrameDecoder,
+    seen: SeqWindow,
+    next_seq: u16,
+    waiting: Vec<Answered>,
+    key: BTreeMap<u64, TxKeyBit>,
+    closed: bool,
+    counters: TxCounters,
+    raw: Vec<u8>,
+    enc: Vec<u8>,
+}
+
+impl HostTransmitter {
+    /// A transmitter with the scenario's choices revealing `test_fraction` of the answered bits.
+    pub fn new(s: &Scenario, test_fraction: f64) -> Self {
+        Self {
+            choices: TxChoices::new(s),
+            reveal_key: stream_key(s.seed, STREAM_REVEAL),
+            test_fraction,
+            dec: FrameDecoder::new(),
+            seen: SeqWindow::new(),
+            next_seq: 0,
+            waiting: Vec::new(),
+            key: BTreeMap::new(),
+            closed: false,
+            counters: TxCounters::default(),
+            raw: vec![0; MAX_RAW],
+            enc: vec![0; MAX_FRAME],
+        }
+    }
+
+    /// Whether a final report arrived.
+    pub fn closed(&self) -> bool {
+        self.closed
+    }
+
+    /// Counters.
+    pub fn counters(&self) -> &TxCounters {
+        &self.counters
+    }
+
+    /// The transmitter's sifted key: confirmed matched-basis slots and their bits.
+    pub fn key(&self) -> &BTreeMap<u64, TxKeyBit> {
+        &self.key
+    }
+
+    /// Answered frames whose fate is still open.
+    pub fn unresolved_frames(&self) -> usize {
+        self.waiting.len()
+    }
+
+    fn revealed(&self, slot: u64) -> bool {
+        self.test_fraction >= 1.0
+            || unit_f64(splitmix_at(self.reveal_key, slot)) < self.test_fraction
+    }
+
+    fn apply(&mut self, report: Report, is_final: bool) {
+        let mut keep = Vec::new();
+        for a in std::mem::take(&mut self.waiting) {
+            match report.fate(a.ann_seq) {
+                Some(true) => {
+                    self.counters.confirmed_frames += 1;
+                    self.key.extend(a.matched);
+                }
+                Some(false) => self.counters.expired_frames += 1,
+                None if is_final || report.beyond_window(a.ann_seq) => {
+                    self.counters.fate_unknown += 1
+                }
+                None => keep.push(a),
+            }
+        }
+        self.waiting = keep;
+    }
+
+    /// Take bytes from the link; returns the answers frames to send back.
+    pub fn receive(&mut self, bytes: &[u8]) -> Vec<Vec<u8>> {
+        let mut out = Vec::new();
+        for &b in bytes {
+            let Some(r) = self.dec.push(b) else {
+                continue;
+            };
+            let (seq, payload) = match r {
+                Err(e) => {
+                    self.counters.rejected.add(Reject::from(e));
+                    continue;
+                }
+                Ok(f) if f.record != RecordType::Announce => {
+                    self.counters.rejected.add(Reject::UnexpectedType);
+                    continue;
+                }
+                Ok(f) => (f.seq, f.payload.to_vec()),
+            };
+            if let Some(frame) = self.announce_frame(seq, &payload) {
+                out.push(frame);
+            }
+        }
+        out
+    }
+
+    fn announce_frame(&mut self, seq: u16, payload: &[u8]) -> Option<Vec<u8>> {
+        let v = match AnnounceView::parse(payload) {
+            Ok(v) => v,
+            Err(e) => {
+                self.counters.rejected.add(Reject::from(e));
+                return None;
+            }
+        };
+        self.counters.frames_in += 1;
+        match self.seen.observe(seq) {
+            SeqClass::Duplicate => {
+                self.counters.rejected.add(Reject::DuplicateFrame);
+                return None;
+            }
+            SeqClass::Ahead { missing } => self.counters.seq_gaps += u64::from(missing),
+            SeqClass::Late => self.counters.late_frames += 1,
+            SeqClass::TooOld | SeqClass::First => {}
+        }
+        self.apply(v.report, v.is_final());
+        if v.is_final() {
+            self.counters.final_reports += 1;
+            self.closed = true;
+        }
+        if v.count == 0 || self.closed {
+            return None;
+        }
+        let mut entries = Vec::with_capacity(usize::from(v.count));
+        let mut matched = Vec::new();
+        for a in v.iter() {
+            self.counters.announcements += 1;
+            let c = self.choices.choice(a.slot);
+            if c.intensity > 3 || self.choices.is_marker_slot(a.slot) {
+                self.counters.marker_announcements += 1;
+                entries.push(AnswerEntry {
+                    basis_match: false,
+                    intensity: 0,
+                    bit: None,
+                });
+                continue;
+            }
+            let revealed = self.revealed(a.slot);
+            let basis_match = c.basis == a.basis;
+            if basis_match {
+                matched.push((
+                    a.slot,
+                    TxKeyBit {
+                        bit: c.bit,
+                        basis: c.basis,
+                        intensity: c.intensity,
+                        revealed,
+                    },
+                ));
+            }
+            entries.push(AnswerEntry {
+                basis_match,
+                intensity: c.intensity,
+                bit: revealed.then_some(c.bit),
+            });
+        }
+        let mut p = vec![0u8; MAX_PAYLOAD];
+        let n = encode_answers(seq, v.first_slot, &entries, &mut p).ok()?;
+        let m = encode_frame(
+            RecordType::Answers,
+            self.next_seq,
+            p.get(..n)?,
+            &mut self.raw,
+            &mut self.enc,
+        )
+        .ok()?;
+        self.next_seq = self.next_seq.wrapping_add(1);
+        self.counters.frames_out += 1;
+        self.counters.bytes_out += m as u64;
+        self.waiting.push(Answered {
+            ann_seq: seq,
+            matched,
+        });
+        self.enc.get(..m).map(<[u8]>::to_vec)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use slotwise::frames::decode_frame;
+    use slotwise::wire::codec::{encode_announce, FLAG_FINAL};
+    use slotwise::wire::AnswersView;
+    use slotwise::Announcement;
+
+    fn announce_frame(seq: u16, slots: &[(u64, Basis)], report: Report, flags: u8) -> Vec<u8> {
+        let a: Vec<Announcement> = slots
+            .iter()
+            .map(|&(slot, basis)| Announcement { slot, basis })
+            .collect();
+        let mut p = vec![0u8; MAX_PAYLOAD];
+        let n = encode_announce(&a, report, flags, &mut p).unwrap();
+        let (mut raw, mut out) = (vec![0u8; MAX_RAW], vec![0u8; MAX_FRAME]);
+        let m = encode_frame(RecordType::Announce, seq, &p[..n], &mut raw, &mut out).unwrap();
+        out.truncate(m);
+        out
+    }
+
+    #[test]
+    fn answers_from_its_choices_and_keeps_only_reported_frames() {
+        let s = Scenario::default_bench();
+        let mut tx = HostTransmitter::new(&s, 1.0);
+        let choices = TxChoices::new(&s);
+        // Key slots only (not on the 64-slot marker grid), in both bases.
+        let slots: Vec<(u64, Basis)> = (1..40u64)
+            .filter(|k| !choices.is_marker_slot(*k))
+            .map(|k| (k, if k % 3 == 0 { Basis::X } else { Basis::Z }))
+            .collect();
+        let (first, second) = slots.split_at(20);
+        let out = tx.receive(&announce_frame(0, first, Report::default(), 0));
+        assert_eq!(out.len(), 1);
+        let mut scratch = vec![0u8; MAX_RAW];
+        let f = decode_frame(&out[0], &mut scratch).unwrap();
+        assert_eq!((f.record, f.seq), (RecordType::Answers, 0));
+        let v = AnswersView::parse(f.payload).unwrap();
+        assert_eq!(
+            (v.ann_seq, v.first_slot, v.count()),
+            (0, first[0].0, first.len())
+        );
+        for (e, &(slot, basis)) in v.iter().zip(first) {
+            let c = choices.choice(slot);
+            assert_eq!(e.basis_match, c.basis == basis, "slot {slot}");
+            assert_eq!((e.intensity, e.bit), (c.intensity, Some(c.bit)));
+        }
+        // A duplicate announce frame is not answered again.
+        assert!(tx
+            .receive(&announce_frame(0, first, Report::default(), 0))
+            .is_empty());
+        assert_eq!(tx.counters().rejected.get(Reject::DuplicateFrame), 1);
+        // Frame 1 is answered but the receiver reports it expired; frame 0 answered.
+        assert_eq!(
+            tx.receive(&announce_frame(1, second, Report::default(), 0))
+                .len(),
+            1
+        );
+        assert!(tx.key().is_empty());
+        let report = Report {
+            resolved_below: 2,
+            answered_map: 0b10,
+        };
+        tx.receive(&announce_frame(2, &[], report, FLAG_FINAL));
+        let want: Vec<u64> = first
+            .iter()
+            .filter(|&&(k, b)| choices.choice(k).basis == b)
+            .map(|&(k, _)| k)
+            .collect();
+        assert!(!want.is_empty());
+        assert_eq!(tx.key().keys().copied().collect::<Vec<_>>(), want);
+        let c = tx.counters();
+        assert_eq!(
+            (c.confirmed_frames, c.expired_frames, c.fate_unknown),
+            (1, 1, 0)
+        );
+        assert!(tx.closed() && tx.unresolved_frames() == 0);
+    }
+}
