@@ -19,6 +19,9 @@ use std::io::{BufReader, BufWriter, IsTerminal, Write};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
+mod alarm_args;
+pub use alarm_args::AlarmArgs;
+
 type AnyErr = Box<dyn std::error::Error>;
 
 const ABOUT: &str = "Receiver-side slot synchronisation, gating, sifting and QBER for QKD links";
@@ -182,6 +185,8 @@ pub struct DemoArgs {
     pub clock: ClockArgs,
     #[command(flatten)]
     pub link: LinkArgs,
+    #[command(flatten)]
+    pub alarms: AlarmArgs,
     /// Output folder for the capture, summary.json and plots.
     #[arg(long, default_value = "out/demo")]
     pub out: PathBuf,
@@ -214,6 +219,8 @@ pub struct ReplayArgs {
     pub clock: ClockArgs,
     #[command(flatten)]
     pub link: LinkArgs,
+    #[command(flatten)]
+    pub alarms: AlarmArgs,
     /// Capture file, or a CSV file (`.csv`) of `t_ps,channel` lines.
     pub capture: PathBuf,
     /// Scenario describing the link (default: the one stored in the capture header).
@@ -427,7 +434,7 @@ pub fn run_simulated_linked(
     let mut session = Session::new(cfg, host_clock, host_tx(s, link)?, bucket_s(s), true, None)?
         .with_monitor(
             crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-            slotwise::AlarmConfig::DEFAULT,
+            s.alarm_config()?,
         );
     let tap = KeyTap::new();
     session.set_key_tap(Box::new(tap.clone()));
@@ -479,7 +486,8 @@ pub fn run_simulated_linked(
 }
 
 fn demo(a: DemoArgs) -> Result<(), AnyErr> {
-    let s = load_scenario(a.scenario.as_deref(), a.duration_s)?;
+    let mut s = load_scenario(a.scenario.as_deref(), a.duration_s)?;
+    a.alarms.apply(&mut s)?;
     std::fs::create_dir_all(&a.out)?;
     let cap_path = a.out.join("demo.swcap");
     let link = a.link.model(&s, LinkMode::Framed)?;
@@ -608,7 +616,7 @@ pub fn replay_capture(
     let mut session = Session::new(cfg, clock, host_tx(s, link)?, bucket_s(s), false, trace)?
         .with_monitor(
             crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-            slotwise::AlarmConfig::DEFAULT,
+            s.alarm_config()?,
         );
     let tap = KeyTap::new();
     session.set_key_tap(Box::new(tap.clone()));
@@ -688,7 +696,7 @@ pub fn replay_capture(
 
 fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
     let name = a.capture.display().to_string();
-    let s = match &a.scenario {
+    let mut s = match &a.scenario {
         Some(p) => Scenario::load(p)?,
         None => {
             let f = File::open(&a.capture).map_err(|e| format!("{name}: {e}"))?;
@@ -703,6 +711,7 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
             Scenario::from_toml_str(meta, &format!("{name} (header metadata)"))?
         }
     };
+    a.alarms.apply(&mut s)?;
     let link = a.link.model(&s, LinkMode::Direct)?;
     let (cfg, clock) = receiver_setup_for(&s, &a.clock, link.is_some())?;
     let trace = match &a.trace {

@@ -7,6 +7,9 @@ use serde::{Deserialize, Serialize};
 use std::fmt;
 use std::path::Path;
 
+mod alarms;
+pub use alarms::{AlarmsToml, BoundName};
+
 /// The default scenario's text (BRIEF §6), committed as `scenarios/bench-100mhz-30km.toml`.
 pub const DEFAULT_BENCH_TOML: &str = include_str!("../../scenarios/bench-100mhz-30km.toml");
 
@@ -111,6 +114,9 @@ pub struct Scenario {
     /// 64th slot is vacuum or a Z pulse at the signal intensity, and carries no key.
     #[serde(default = "default_true")]
     pub marker: bool,
+    /// Alarm thresholds, the `[alarms]` table (default: the board's defaults).
+    #[serde(default, skip_serializing_if = "AlarmsToml::is_default")]
+    pub alarms: AlarmsToml,
 }
 
 fn default_true() -> bool {
@@ -466,6 +472,7 @@ impl Scenario {
                 "too small: the earliest skewed, jittered click of slot 0 would precede time 0",
             ));
         }
+        self.alarm_config_text(source, text)?;
         Ok(())
     }
 

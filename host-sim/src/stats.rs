@@ -47,6 +47,57 @@ pub fn ln_gamma(x: f64) -> f64 {
     0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + a.ln()
 }
 
+/// Upper tail Q(x) = 1 − Φ(x) of the standard normal law, for x ≥ 0 (relative error ~1e-12).
+///
+/// Below x = 3 the Taylor series Φ(x) = 1/2 + φ(x)·Σ x^(2k+1)/(1·3·…·(2k+1)) (Marsaglia, J. Stat.
+/// Softw. 11(4), 2004); from 3 on Laplace's continued fraction Q(x) = φ(x)/(x + 1/(x + 2/(x + …))),
+/// evaluated backwards from depth 200, which avoids the cancellation of 1/2 − Φ in the far tail.
+pub fn normal_upper_tail(x: f64) -> f64 {
+    let phi = (-0.5 * x * x).exp() / (2.0 * std::f64::consts::PI).sqrt();
+    if x < 3.0 {
+        let (mut term, mut sum, mut k) = (x, x, 1.0);
+        while term.abs() > 1e-17 * sum.abs() {
+            term *= x * x / (2.0 * k + 1.0);
+            sum += term;
+            k += 1.0;
+        }
+        0.5 - phi * sum
+    } else {
+        let mut d = x;
+        for k in (1..=200).rev() {
+            d = x + f64::from(k) / d;
+        }
+        phi / d
+    }
+}
+
+/// z with Q(z) = ε for ε in (0, 1/2] (bisection on ln Q, which cannot fail on a monotone tail).
+pub fn normal_isf(eps: f64) -> f64 {
+    let (mut lo, mut hi) = (0.0f64, 40.0f64);
+    for _ in 0..200 {
+        let mid = 0.5 * (lo + hi);
+        if normal_upper_tail(mid).ln() > eps.ln() {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    0.5 * (lo + hi)
+}
+
+/// One-sided ε of the QBER alarm's bound: 1/`one_in` for Hoeffding; for Wilson the ε its Q16.16
+/// z stands for, Q(z), to three significant digits (the z rounding moves ε in the fifth).
+pub fn bound_epsilon(b: BoundKind) -> f64 {
+    match b {
+        BoundKind::Hoeffding(e) => 1.0 / e.inverse() as f64,
+        BoundKind::Wilson { z_q16 } => {
+            let q = normal_upper_tail(f64::from(z_q16) / 65536.0);
+            let unit = 10f64.powf(q.log10().floor() - 2.0);
+            (q / unit).round() * unit
+        }
+    }
+}
+
 /// Continued fraction of I_x(a, b) (modified Lentz).
 fn beta_cf(a: f64, b: f64, x: f64) -> f64 {
     const TINY: f64 = 1e-300;
@@ -284,12 +335,13 @@ pub fn stats_config(
     )
 }
 
-/// ε of the board's default bound (z for one-sided 1e-10).
+/// ε of the board's default bound (z for one-sided 1e-10); a scenario's `[alarms]` may change it.
 pub const EPSILON: f64 = 1e-10;
 
 fn qber_rows(c: &Counts, scope: &'static str, intensities: u8, m: &HostMonitor) -> Vec<QberRow> {
     let cfg = m.alarms().config();
-    let eps = Epsilon::one_in(10_000_000_000).ok();
+    let epsilon = bound_epsilon(cfg.bound());
+    let eps = Epsilon::one_in((1.0 / epsilon).round() as u64).ok();
     let mut rows = Vec::new();
     for b in Basis::ALL {
         let classes = std::iter::once(None).chain((0..intensities).map(Some));
@@ -307,7 +359,7 @@ fn qber_rows(c: &Counts, scope: &'static str, intensities: u8, m: &HostMonitor) 
                 hoeffding_upper: eps
                     .filter(|_| n > 0)
                     .map(|eps| ppm(hoeffding_upper_ppm(e, n, eps))),
-                clopper_pearson: (n > 0).then(|| clopper_pearson(e, n, 2.0 * EPSILON)),
+                clopper_pearson: (n > 0).then(|| clopper_pearson(e, n, 2.0 * epsilon)),
             });
         }
     }
@@ -351,7 +403,7 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
         window_blocks: DEFAULT_BLOCKS,
         monitor_ram_bytes: std::mem::size_of::<HostMonitor>(),
         bound,
-        epsilon: EPSILON,
+        epsilon: bound_epsilon(a.config().bound()),
         qber_ceiling: f64::from(a.config().qber_ceiling_ppm()) * 1e-6,
         qber,
         channels,
@@ -521,6 +573,23 @@ mod tests {
         let (lo, hi) = clopper_pearson(20, 20, 0.05);
         assert!((lo - 0.025f64.powf(1.0 / 20.0)).abs() < 1e-12, "{lo}");
         assert_eq!(hi, 1.0);
+    }
+
+    #[test]
+    fn normal_tail_matches_tables() {
+        // Standard normal upper-tail table values (from memory; scipy `norm.sf`): Q(1.959964) =
+        // 0.025, Q(3) = 1.349898e-3, Q(4) = 3.167124e-5; scipy `norm.isf(1e-10)` = 6.361340902.
+        let rel = |a: f64, b: f64| ((a - b) / b).abs();
+        assert!(rel(normal_upper_tail(1.959_963_984_540_054), 0.025) < 1e-10);
+        assert!(rel(normal_upper_tail(3.0), 1.349_898_031_630_095e-3) < 1e-9);
+        assert!(rel(normal_upper_tail(2.999_999_999), 1.349_898_031_630_095e-3) < 1e-8);
+        assert!(rel(normal_upper_tail(4.0), 3.167_124_183_311_992e-5) < 1e-9);
+        assert!((normal_isf(1e-10) - 6.361_340_902).abs() < 1e-8);
+        assert!((normal_isf(0.025) - 1.959_963_985).abs() < 1e-8);
+        // The board's constant is this z in Q16.16, and maps back to ε = 1e-10.
+        let z_q16 = (normal_isf(1e-10) * 65536.0).round() as u32;
+        assert_eq!(z_q16, slotwise::bounds::Z_ONE_SIDED_1E_10_Q16);
+        assert_eq!(bound_epsilon(BoundKind::Wilson { z_q16 }), 1e-10);
     }
 
     #[test]
