@@ -525,15 +525,18 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         usize::from(cfg.gates().channels()),
     )?);
     files.extend(plots::stats::live_stats(&a.out, &res)?);
-    print!("{summary}");
-    println!(
+    let mut out = stdout();
+    write!(out, "{summary}")?;
+    writeln!(
+        out,
         "capture replay {} (the written capture replays to the same counters)",
         if same { "identical" } else { "DIFFERENT" }
-    );
-    println!("files:");
+    )?;
+    writeln!(out, "files:")?;
     for f in files {
-        println!("  {}", f.display());
+        writeln!(out, "  {}", f.display())?;
     }
+    out.flush()?;
     if !same {
         return Err("replaying the written capture gave different counters".into());
     }
@@ -585,13 +588,16 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
             w.finish()?;
         }
     }
-    println!(
+    let mut out = stdout();
+    writeln!(
+        out,
         "{}: {n} detections from scenario '{}' ({} s at {} Hz)",
         a.out.display(),
         s.name,
         s.duration_s,
         s.rep_rate_hz
-    );
+    )?;
+    out.flush()?;
     Ok(())
 }
 
@@ -740,7 +746,9 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
         link,
         a.link.key_out.as_deref(),
     )?;
-    print!("{summary}");
+    let mut out = stdout();
+    write!(out, "{summary}")?;
+    out.flush()?;
     if let Some(j) = &a.json {
         std::fs::write(j, serde_json::to_string_pretty(&summary)? + "\n")?;
         eprintln!("wrote {}", j.display());
@@ -750,29 +758,30 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
 
 fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
     if keyfile::is_key_file(&a.capture) {
-        let report = keyfile::inspect(&a.capture)?;
-        if a.json {
-            println!("{}", serde_json::to_string_pretty(&report)?);
-        } else {
-            print!("{report}");
-        }
-        return Ok(());
-    }
-    let report = capture::inspect(&a.capture)?;
-    if a.json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
+        emit(a.json, &keyfile::inspect(&a.capture)?)
     } else {
-        print!("{report}");
+        emit(a.json, &capture::inspect(&a.capture)?)
     }
-    Ok(())
 }
 
 fn bench_sync(a: &crate::bench_sync::BenchSyncArgs) -> Result<(), AnyErr> {
-    let report = crate::bench_sync::run(a)?;
-    if a.json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
+    emit(a.json, &crate::bench_sync::run(a)?)
+}
+
+/// Buffered standard output. Writes return errors instead of panicking as `print!` does, so a
+/// reader that closes the pipe early (`| head`) ends the command through `main`'s quiet path.
+fn stdout() -> BufWriter<std::io::Stdout> {
+    BufWriter::new(std::io::stdout())
+}
+
+/// Print a report to standard output, as pretty JSON or as its text table.
+fn emit(json: bool, report: &(impl serde::Serialize + std::fmt::Display)) -> Result<(), AnyErr> {
+    let mut out = stdout();
+    if json {
+        writeln!(out, "{}", serde_json::to_string_pretty(report)?)?;
     } else {
-        print!("{report}");
+        write!(out, "{report}")?;
     }
+    out.flush()?;
     Ok(())
 }

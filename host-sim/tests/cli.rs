@@ -59,6 +59,62 @@ fn demo_writes_summary_capture_and_plots() {
     assert_eq!(v["lock"]["acquired"].as_bool(), Some(true));
     assert!(v["accounting"]["marker"].as_u64().unwrap() > 0);
     assert!(out.join("fold.svg").exists() && out.join("qber_rate.svg").exists());
+    assert!(out.join("live_stats.svg").exists());
+    assert!(text.contains("live statistics"), "{text}");
+
+    // The demo's capture replays over the framed link with plots: the summary has the `stats`
+    // and `link` objects and the live-statistics picture is drawn.
+    let cap = out.join("demo.swcap");
+    let plots = out.join("replay-plots");
+    let sj = out.join("replay.json");
+    ok(&[
+        "replay",
+        cap.to_str().unwrap(),
+        "--link",
+        "framed",
+        "--plots",
+        plots.to_str().unwrap(),
+        "--json",
+        sj.to_str().unwrap(),
+    ]);
+    let r = json(&sj);
+    accounting_sums(&r);
+    assert!(
+        r["stats"]["qber"].as_array().is_some_and(|q| !q.is_empty()),
+        "{r}"
+    );
+    assert!(r["stats"]["monitor_ram_bytes"].as_u64().unwrap() > 0, "{r}");
+    assert!(r["link"].is_object(), "{r}");
+    assert!(plots.join("live_stats.svg").exists());
+
+    // Readers that close the pipe early: no panic, a clean exit.
+    for args in [
+        vec!["inspect", cap.to_str().unwrap()],
+        vec!["inspect", cap.to_str().unwrap(), "--json"],
+        vec!["inspect", out.join("sifted.swkey").to_str().unwrap()],
+    ] {
+        closed_stdout(&args);
+    }
+}
+
+/// Run slotwise with its standard output a pipe whose reading end is already closed, so every
+/// write fails with EPIPE (what `| head` does once it has its lines), deterministically.
+fn closed_stdout(args: &[&str]) {
+    let (reader, writer) = std::io::pipe().unwrap();
+    drop(reader);
+    let out = Command::new(env!("CARGO_BIN_EXE_slotwise"))
+        .args(args)
+        .current_dir(env!("CARGO_MANIFEST_DIR"))
+        .stdout(writer)
+        .stderr(std::process::Stdio::piped())
+        .output()
+        .expect("run slotwise");
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        !err.contains("panicked") && !err.contains("Broken pipe"),
+        "{args:?}: {err}"
+    );
+    assert!(out.status.success(), "{args:?}: {:?} {err}", out.status);
 }
 
 #[test]
