@@ -4,10 +4,12 @@
 
 use super::{both, colour, legend, line, DynErr, Plot};
 use crate::replay::SessionResult;
-use crate::stats::{alarm_name, clopper_pearson, LiveLog, EPSILON};
+use crate::stats::{alarm_name, bound_epsilon, clopper_pearson, LiveLog};
 use plotters::coord::Shift;
+use plotters::element::DashedPathElement;
 use plotters::prelude::*;
-use slotwise::Transmitter;
+use slotwise::alarms::BoundKind;
+use slotwise::{Basis, Transmitter};
 use std::path::{Path, PathBuf};
 
 /// Window QBER, board upper bound and Clopper-Pearson upper bound of one basis at one block.
@@ -15,6 +17,9 @@ type QberBounds = Option<(f64, f64, f64)>;
 
 /// One raised span of one alarm: (row name, from s, to s).
 type Span = (String, f64, f64);
+
+/// Width of the y-label area of every panel, px, so that the three time axes line up.
+const Y_LABELS_PX: u32 = 110;
 
 fn spans(log: &LiveLog, first_t_ps: u64, t_end: f64) -> Vec<Span> {
     let mut open: Vec<(String, f64)> = Vec::new();
@@ -45,6 +50,12 @@ pub fn live_stats<T: Transmitter>(
         channels: usize,
         intensity: usize,
         ceiling: f64,
+        /// Top of the QBER axis, fraction.
+        q_top: f64,
+        /// One-sided ε of the bounds drawn.
+        epsilon: f64,
+        /// Name of the board's bound, for the legend.
+        bound: String,
     }
     impl Plot for Pic<'_> {
         fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), DynErr>
@@ -53,8 +64,8 @@ pub fn live_stats<T: Transmitter>(
         {
             root.fill(&WHITE)?;
             let h = root.dim_in_pixel().1;
-            let (top, rest) = root.split_vertically(h * 2 / 5);
-            let (mid, bottom) = rest.split_vertically(h * 2 / 5);
+            let (top, rest) = root.split_vertically(h * 9 / 20);
+            let (mid, bottom) = rest.split_vertically(h * 3 / 10);
             let b = &self.log.blocks;
             let t_end = b.last().map(|p| p.t_s).unwrap_or(1.0).max(1e-9) * 1.02;
             // Per block, per basis: (QBER, board upper, Clopper-Pearson upper) of the window.
@@ -69,43 +80,72 @@ pub fn live_stats<T: Transmitter>(
                             (
                                 e as f64 / n as f64,
                                 f64::from(ub) * 1e-6,
-                                clopper_pearson(e, n, 2.0 * EPSILON).1,
+                                clopper_pearson(e, n, 2.0 * self.epsilon).1,
                             )
                         })
                     };
                     (p.t_s, [f(0), f(1)])
                 })
                 .collect();
-            let qmax = q
+            let qmax = 100.0 * self.q_top;
+            let clipped = q
                 .iter()
-                .flat_map(|(_, v)| v.iter().flatten().map(|x| x.1))
-                .fold(self.ceiling * 1.2, f64::max)
-                .min(1.0)
-                * 100.0;
+                .flat_map(|(_, v)| v.iter().flatten())
+                .any(|x| x.1.max(x.2) > self.q_top);
             let mut chart = ChartBuilder::on(&top)
                 .caption(
                     format!(
-                        "Window QBER, class {} (dashed: board upper bound; dotted: Clopper-Pearson, eps {EPSILON:e})",
-                        self.intensity
+                        "Window QBER per basis, intensity class {}, with upper bounds (one-sided ε {:e}){}",
+                        self.intensity,
+                        self.epsilon,
+                        if clipped { "; axis clipped" } else { "" }
                     ),
                     ("sans-serif", 16),
                 )
                 .margin(10)
                 .x_label_area_size(30)
-                .y_label_area_size(55)
+                .y_label_area_size(Y_LABELS_PX)
                 .build_cartesian_2d(0f64..t_end, 0f64..qmax)?;
             chart
                 .configure_mesh()
-                .x_desc("time (s)")
+                .x_desc("time since the first detection (s)")
                 .y_desc("QBER (%)")
                 .draw()?;
+            let alarm_red = RGBColor(120, 0, 0);
             chart
-                .draw_series(LineSeries::new(
+                .draw_series(DashedLineSeries::new(
                     [(0.0, 100.0 * self.ceiling), (t_end, 100.0 * self.ceiling)],
-                    BLACK.stroke_width(1),
+                    10,
+                    5,
+                    alarm_red.stroke_width(2),
                 ))?
-                .label(format!("ceiling {:.4} %", 100.0 * self.ceiling))
-                .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], BLACK));
+                .label(format!("alarm ceiling {:.4} %", 100.0 * self.ceiling))
+                .legend(move |(x, y)| {
+                    PathElement::new([(x, y), (x + 18, y)], alarm_red.stroke_width(2))
+                });
+            let grey = RGBColor(90, 90, 90);
+            chart
+                .draw_series(DashedLineSeries::new(
+                    std::iter::empty::<(f64, f64)>(),
+                    6,
+                    4,
+                    grey.stroke_width(1),
+                ))?
+                .label(format!("board upper bound ({})", self.bound))
+                .legend(move |(x, y)| {
+                    DashedPathElement::new([(x, y), (x + 18, y)], 6, 4, grey.stroke_width(1))
+                });
+            chart
+                .draw_series(DashedLineSeries::new(
+                    std::iter::empty::<(f64, f64)>(),
+                    2,
+                    3,
+                    grey.stroke_width(1),
+                ))?
+                .label("Clopper-Pearson upper bound (exact, host)")
+                .legend(move |(x, y)| {
+                    DashedPathElement::new([(x, y), (x + 18, y)], 2, 3, grey.stroke_width(1))
+                });
             for (i, name) in [(0usize, "Z"), (1, "X")] {
                 let c = colour(i);
                 let pts = |k: usize| {
@@ -113,7 +153,7 @@ pub fn live_stats<T: Transmitter>(
                         .filter_map(move |(t, v)| v[i].map(|x| (*t, 100.0 * [x.0, x.1, x.2][k])))
                         .collect::<Vec<_>>()
                 };
-                line(&mut chart, pts(0), c, format!("{name} basis"))?;
+                line(&mut chart, pts(0), c, format!("{name} basis, window QBER"))?;
                 chart.draw_series(DashedLineSeries::new(pts(1), 6, 4, c.stroke_width(1)))?;
                 chart.draw_series(DashedLineSeries::new(pts(2), 2, 3, c.stroke_width(1)))?;
             }
@@ -127,26 +167,56 @@ pub fn live_stats<T: Transmitter>(
                         .map(move |&d| d as f64 / p.block_s)
                 })
                 .fold(1.0, f64::max)
-                * 1.15;
+                * 1.0;
+            // Channels differ by an order of magnitude or more (arrival-time port against the
+            // interferometer outputs), so the rate axis is logarithmic.
+            let rmin = b
+                .iter()
+                .flat_map(|p| {
+                    p.block_detections
+                        .iter()
+                        .filter(|&&d| d > 0)
+                        .map(move |&d| d as f64 / p.block_s)
+                })
+                .fold(rmax, f64::min);
+            // Whole decades, so the axis starts and ends on a labelled power of ten.
+            let (rmin, rmax) = (
+                10f64.powf((rmin * 0.7).log10().floor()),
+                10f64.powf(rmax.log10().ceil()),
+            );
             let mut chart = ChartBuilder::on(&mid)
-                .caption("Detection rate per channel, per block", ("sans-serif", 16))
+                .caption(
+                    "Detection rate per channel, per block (log scale)",
+                    ("sans-serif", 16),
+                )
                 .margin(10)
                 .x_label_area_size(30)
-                .y_label_area_size(55)
-                .build_cartesian_2d(0f64..t_end, 0f64..rmax / 1e3)?;
+                .y_label_area_size(Y_LABELS_PX)
+                .build_cartesian_2d(0f64..t_end, (rmin / 1e3..rmax / 1e3).log_scale())?;
             chart
                 .configure_mesh()
-                .x_desc("time (s)")
-                .y_desc("detections/s (thousands)")
+                .x_desc("time since the first detection (s)")
+                .y_desc("detection rate (kHz)")
+                .y_max_light_lines(1)
+                .y_label_formatter(&|v| {
+                    // Label 1, 2 and 5 of each decade only; the others crowd the axis.
+                    let m = v / 10f64.powf(v.log10().floor());
+                    let keep = [1.0, 2.0, 5.0].iter().any(|k| (m - k).abs() < 1e-6);
+                    if keep {
+                        format!("{v}")
+                    } else {
+                        String::new()
+                    }
+                })
                 .draw()?;
             for ch in 0..self.channels {
                 let pts = b.iter().filter_map(|p| {
-                    let d = *p.block_detections.get(ch)?;
+                    let d = *p.block_detections.get(ch).filter(|&&d| d > 0)?;
                     Some((p.t_s, d as f64 / p.block_s / 1e3))
                 });
                 line(&mut chart, pts, colour(ch), format!("channel {ch}"))?;
             }
-            legend(&mut chart, SeriesLabelPosition::LowerRight)?;
+            legend(&mut chart, SeriesLabelPosition::MiddleRight)?;
 
             let sp = spans(self.log, self.first_t_ps, t_end);
             let mut rows: Vec<String> = ["qber_z", "qber_x", "lock_lost", "rate_collapse"]
@@ -159,15 +229,18 @@ pub fn live_stats<T: Transmitter>(
                 }
             }
             let mut chart = ChartBuilder::on(&bottom)
-                .caption(format!("Alarms ({} raised)", sp.len()), ("sans-serif", 16))
+                .caption(
+                    format!("Alarms raised ({}), red while active", sp.len()),
+                    ("sans-serif", 16),
+                )
                 .margin(10)
                 .x_label_area_size(30)
-                .y_label_area_size(110)
+                .y_label_area_size(Y_LABELS_PX)
                 .build_cartesian_2d(0f64..t_end, 0f64..rows.len() as f64)?;
             let names = rows.clone();
             chart
                 .configure_mesh()
-                .x_desc("time (s)")
+                .x_desc("time since the first detection (s)")
                 .y_labels(rows.len() * 2 + 1)
                 .y_label_formatter(&move |y| {
                     let i = y.floor() as usize;
@@ -191,12 +264,30 @@ pub fn live_stats<T: Transmitter>(
         }
     }
     let alarms = res.monitor.alarms().config();
+    let ceiling = f64::from(alarms.qber_ceiling_ppm()) * 1e-6;
+    // Early windows hold few tested bits and their bounds run towards 50 %; scale the axis to
+    // what matters once the run has data: the ceiling, or three times the since-start bound.
+    let since = res.monitor.since_start();
+    let since_upper = Basis::ALL
+        .iter()
+        .filter_map(|&b| {
+            let (e, n) = since.errors(b, Some(alarms.intensity()));
+            (n > 0).then(|| f64::from(alarms.upper_ppm(e, n)) * 1e-6)
+        })
+        .fold(0.0, f64::max);
     let pic = Pic {
         log: &res.live,
         first_t_ps: res.first_t_ps,
         channels: usize::from(res.rx.config().gates().channels()),
         intensity: usize::from(alarms.intensity()),
-        ceiling: f64::from(alarms.qber_ceiling_ppm()) * 1e-6,
+        ceiling,
+        // Headroom above the ceiling keeps the legend clear of the curves.
+        q_top: (ceiling.max(3.0 * since_upper) * 1.6).min(1.0),
+        epsilon: bound_epsilon(alarms.bound()),
+        bound: match alarms.bound() {
+            BoundKind::Wilson { z_q16 } => format!("Wilson, z = {:.2}", f64::from(z_q16) / 65536.0),
+            BoundKind::Hoeffding(_) => "Hoeffding".into(),
+        },
     };
     both(dir, "live_stats", (1000, 900), &pic)
 }
