@@ -61,7 +61,11 @@ sifted bits, and the QBER per basis next to the channel model's expectation.
 The sifting exchange runs as real frames (docs/wire-protocol.md) over a simulated link with mild
 faults (--link-* options; --link direct to hand answers over in memory): the summary lists the
 frames sent each way, refused by reason, the answers lost, and both sides' sifted keys. The
-receiver's sifted key blocks go to DIR/sifted.swkey (`slotwise inspect` reads them).")]
+receiver's sifted key blocks go to DIR/sifted.swkey (`slotwise inspect` reads them).
+
+The live-statistics table gives the board's window and since-start QBER with its upper bound and
+the exact Clopper-Pearson interval, rates, dead time and the alarms raised (DIR/live_stats.png).
+Alarm thresholds: the scenario's [alarms] table (docs/scenario.md), or --qber-ceiling and friends.")]
     Demo(DemoArgs),
     /// Run a scenario through the link simulator and write a capture (or CSV).
     #[command(long_about = "\
@@ -75,7 +79,9 @@ transmitter clock, TDC) and write the raw TDC events as a capture (docs/capture-
 Replay a capture (or a `t_ps,channel` CSV) through the firmware core exactly as the receiver
 board would. The transmitter's answers come from the scenario (given with --scenario, or stored in
 the capture's header). Prints the summary; --json writes it, --plots draws pictures, --trace
-writes one CSV line per detection in a time range saying where it went and why.
+writes one CSV line per detection in a time range saying where it went and why. The summary
+ends with the live-statistics table and alarms (thresholds as for `demo`); --link framed runs the
+sifting exchange as frames and adds the link report, --key-out writes the sifted key blocks.
 
 Damaged blocks stop the replay with an error naming the file, byte offset and field, unless
 --skip-damaged is given: then they are stepped over and listed.")]
@@ -229,7 +235,8 @@ pub struct ReplayArgs {
     /// Write the JSON summary here.
     #[arg(long)]
     pub json: Option<PathBuf>,
-    /// Draw plots (fold profile, QBER and rate over time) into this folder.
+    /// Draw plots into this folder: fold profile, clock, QBER and rate over time, live statistics
+    /// with bounds and alarms (SVG, and PNG when a font is found).
     #[arg(long)]
     pub plots: Option<PathBuf>,
     /// Write a per-detection trace (CSV) for the time range below.

@@ -207,4 +207,23 @@ fn bad_inputs_name_the_file_and_the_problem() {
 
     let help = ok(&["replay", "--help"]);
     assert!(help.contains("--skip-damaged") && help.contains("--trace"));
+    assert!(
+        help.contains("--qber-ceiling") && help.contains("[alarms]"),
+        "{help}"
+    );
+
+    // An alarm override out of range is refused before anything runs, naming its key.
+    let out = slotwise(&[
+        "demo",
+        "--qber-ceiling",
+        "60",
+        "--out",
+        dir.to_str().unwrap(),
+    ]);
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("alarms.qber_ceiling_pct") && err.contains("(0,50]"),
+        "{err}"
+    );
 }

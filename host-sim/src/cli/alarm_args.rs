@@ -3,18 +3,22 @@
 use crate::scenario::{BoundName, Scenario, ScenarioError};
 use clap::Args;
 
+const HEADING: &str = "Alarms (override the scenario's [alarms] table, docs/scenario.md)";
+
 /// Alarm thresholds given on the command line; each replaces the scenario's `[alarms]` key.
 #[derive(Args, Debug, Clone, Default)]
 pub struct AlarmArgs {
-    /// Raise the QBER alarm when a basis's upper bound reaches PCT percent (`alarms.qber_ceiling_pct`;
-    /// default 11.0028, the Shor-Preskill zero).
-    #[arg(long, value_name = "PCT")]
+    /// Raise the QBER alarm when a basis's window upper bound reaches PCT percent, 0 < PCT <= 50
+    /// (alarms.qber_ceiling_pct; default 11.0028, the Shor-Preskill zero).
+    #[arg(long, value_name = "PCT", help_heading = HEADING)]
     pub qber_ceiling: Option<f64>,
-    /// One-sided ε of the QBER alarm's bound (`alarms.epsilon`; default 1e-10).
-    #[arg(long, value_name = "EPS")]
+    /// One-sided failure probability of that bound, 1e-18 <= EPS < 0.5 (alarms.epsilon; default
+    /// 1e-10); the table's Clopper-Pearson and Hoeffding columns use it too.
+    #[arg(long, value_name = "EPS", help_heading = HEADING)]
     pub alarm_epsilon: Option<f64>,
-    /// Bound the QBER alarm uses: wilson or hoeffding (`alarms.bound`; default wilson).
-    #[arg(long, value_name = "KIND", value_parser = parse_bound)]
+    /// Bound the QBER alarm uses: wilson (score interval, z = Φ⁻¹(1 − EPS)) or hoeffding
+    /// (alarms.bound; default wilson).
+    #[arg(long, value_name = "KIND", value_parser = parse_bound, help_heading = HEADING)]
     pub alarm_bound: Option<BoundName>,
 }
 
