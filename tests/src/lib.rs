@@ -1,1 +1,3 @@
 //! Shared helpers for the end-to-end tests.
+
+pub mod faults;
