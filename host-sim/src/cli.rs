@@ -1,6 +1,6 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
-use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter};
+use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
 use crate::clocks::{self, ClockMode, HostClock};
 use crate::csv_io;
 use crate::plots;
@@ -437,7 +437,7 @@ pub fn replay_capture(
     )?;
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
-    let mut skipped = Vec::new();
+    let mut skipped = None;
     let pb = progress(size, "replaying");
     if path.extension().is_some_and(|e| e == "csv") {
         let r = csv_io::CsvReader::new(BufReader::new(file), &name)?;
@@ -458,7 +458,9 @@ pub fn replay_capture(
                 match r.next_block_skipping(&mut block)? {
                     None => break,
                     Some(BlockOutcome::Block(_)) => session.push_block(&block),
-                    Some(BlockOutcome::Skipped(sk)) => skipped.push(sk),
+                    Some(BlockOutcome::Skipped(sk)) => skipped
+                        .get_or_insert_with(SkipReport::default)
+                        .push(&sk, r.header().max_block_events),
                 }
             } else if r.next_block(&mut block)?.is_some() {
                 session.push_block(&block);
@@ -467,13 +469,13 @@ pub fn replay_capture(
             }
             pb.set_position(r.offset());
         }
+        if let Some(rep) = skipped.as_mut() {
+            rep.finish(r.declared_events(), r.events_read());
+        }
     }
     pb.finish_and_clear();
     let res = session.finish()?;
-    for sk in &skipped {
-        eprintln!("skipped damaged data: {sk:?}");
-    }
-    let summary = summarize(
+    let mut summary = summarize(
         &name,
         &res,
         res.rx.clock().period_ps().unwrap_or(f64::NAN),
@@ -481,6 +483,7 @@ pub fn replay_capture(
         None,
         started.elapsed().as_secs_f64(),
     );
+    summary.skipped = skipped;
     if let Some(dir) = plots_dir {
         std::fs::create_dir_all(dir)?;
         let mut files = plots::fold_profile(

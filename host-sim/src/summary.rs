@@ -92,6 +92,9 @@ pub struct Summary {
     pub tally: BTreeMap<String, u64>,
     /// Wall-clock seconds the replay took, and detections per second.
     pub run: BTreeMap<&'static str, f64>,
+    /// Damaged data stepped over (`replay --skip-damaged` only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub skipped: Option<crate::capture::SkipReport>,
 }
 
 /// Build the summary of a finished session.
@@ -214,6 +217,7 @@ pub fn summarize<T: Transmitter>(
         ]
         .into_iter()
         .collect(),
+        skipped: None,
     }
 }
 
@@ -284,6 +288,9 @@ impl std::fmt::Display for Summary {
                 "misassigned    {} sifted bits (against the simulator's truth)",
                 t.misassigned_sifted
             )?;
+        }
+        if let Some(s) = &self.skipped {
+            write!(f, "{s}")?;
         }
         if let Some(s) = self.run.get("seconds") {
             writeln!(f, "replay time    {s:.2} s")?;

@@ -218,15 +218,24 @@ fn merge_fault_reorders_within_its_bound_and_duplicates_exactly() {
     assert!(st.reordered > 0 && st.duplicates > 0);
     let mut newest = f64::NEG_INFINITY;
     for e in &got {
-        assert!(e.truth.true_t_ps > newest - 2000.0, "reordered by more than 2 ns");
+        assert!(
+            e.truth.true_t_ps > newest - 2000.0,
+            "reordered by more than 2 ns"
+        );
         newest = newest.max(e.truth.true_t_ps);
     }
     // Same events, only their order and the copies differ.
-    let mut a: Vec<(u64, u8)> = got.iter().map(|e| (e.event.count, e.event.channel)).collect();
+    let mut a: Vec<(u64, u8)> = got
+        .iter()
+        .map(|e| (e.event.count, e.event.channel))
+        .collect();
     a.dedup();
     let mut a2 = a.clone();
     a2.sort_unstable();
-    let mut b: Vec<(u64, u8)> = plain.iter().map(|e| (e.event.count, e.event.channel)).collect();
+    let mut b: Vec<(u64, u8)> = plain
+        .iter()
+        .map(|e| (e.event.count, e.event.channel))
+        .collect();
     b.sort_unstable();
     assert_eq!(a2, b);
 }
