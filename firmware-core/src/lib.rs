@@ -50,6 +50,7 @@
     )
 )]
 #![deny(missing_docs)]
+#![forbid(unsafe_code)]
 
 pub mod accounting;
 pub mod acquire;

@@ -12,4 +12,6 @@ pub mod plots;
 pub mod replay;
 pub mod scenario;
 pub mod sim;
+#[cfg(feature = "proptest-strategies")]
+pub mod strategies;
 pub mod summary;
