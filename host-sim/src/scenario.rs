@@ -327,7 +327,7 @@ impl Scenario {
         if self.name.trim().is_empty() {
             return Err(c.err("name", "must not be empty"));
         }
-        c.range("duration_s", self.duration_s, Open(0.0), Closed(1000.0))?;
+        c.range("duration_s", self.duration_s, Open(0.0), Closed(100_000.0))?;
         c.range("rep_rate_hz", self.rep_rate_hz, Closed(1e3), Closed(1e11))?;
         c.range("p_z", self.p_z, Open(0.0), Open(1.0))?;
         if self.protocol == Protocol::Bb84 && self.p_z != 0.5 {

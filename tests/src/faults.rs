@@ -5,7 +5,7 @@
 use slotwise::Transmitter;
 use slotwise_sim::cli::{model_qber, receiver_setup, ClockArgs};
 use slotwise_sim::clocks::{self, ClockMode};
-use slotwise_sim::replay::{Session, TruthTag};
+use slotwise_sim::replay::{Bucket, Session, TruthTag};
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::{self, SimStats, SimTransmitter, Simulator};
 use slotwise_sim::summary::{summarize, Summary};
@@ -58,6 +58,8 @@ pub struct FaultRun {
     pub pending_capacity: usize,
     /// Size of the receiver's whole state, bytes.
     pub receiver_bytes: usize,
+    /// QBER, rate, residual and period per time bucket.
+    pub buckets: Vec<Bucket>,
 }
 
 /// Gated detections so far: those past clock, numbering and gates.
@@ -82,6 +84,25 @@ pub fn run_with<T: Transmitter>(
     tx: T,
     end: impl FnOnce(&T),
 ) -> FaultRun {
+    run_buckets(
+        s,
+        prior_ppm,
+        window_s,
+        tx,
+        end,
+        (s.duration_s / 50.0).max(1e-6),
+    )
+}
+
+/// [`run_with`] with time-series buckets of `bucket_s` seconds.
+pub fn run_buckets<T: Transmitter>(
+    s: &Scenario,
+    prior_ppm: u32,
+    window_s: (f64, f64),
+    tx: T,
+    end: impl FnOnce(&T),
+    bucket_s: f64,
+) -> FaultRun {
     s.validate(&s.name).unwrap_or_else(|e| panic!("{e}"));
     let clock = ClockArgs {
         clock: ClockMode::Recovered,
@@ -89,15 +110,7 @@ pub fn run_with<T: Transmitter>(
     };
     let (cfg, host_clock) = receiver_setup(s, &clock).unwrap();
     let truth = sim::clock_truth(s).unwrap();
-    let mut session = Session::new(
-        cfg,
-        host_clock,
-        tx,
-        (s.duration_s / 50.0).max(1e-6),
-        true,
-        None,
-    )
-    .unwrap();
+    let mut session = Session::new(cfg, host_clock, tx, bucket_s, true, None).unwrap();
     let (hint_t, hint_slot) = clocks::simulated_hint(s).unwrap();
     session.hint(hint_t, hint_slot);
     let mut simulator = Simulator::new(s);
@@ -181,6 +194,7 @@ pub fn run_with<T: Transmitter>(
         max_pending,
         pending_capacity: slotwise_sim::replay::HOST_PENDING,
         receiver_bytes: std::mem::size_of_val(&*res.rx),
+        buckets: res.buckets,
     }
 }
 
