@@ -25,7 +25,7 @@
 use slotwise_sim::plots;
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::faults::{DriftRamp, Faults};
-use slotwise_sim::sim::SimTransmitter;
+use slotwise_sim::sim::{SimTransmitter, TxClock};
 use slotwise_tests::faults::{check_common, run_buckets, Recovery};
 
 /// Seconds per drift ramp of the wander.
@@ -89,7 +89,7 @@ fn soak(hours: f64, name: &str) {
         (0.0, duration_s),
         SimTransmitter::new(&s),
         |_| {},
-        600.0,
+        duration_s / 72.0,
     );
     check_common(name, &r);
     let sum = &r.summary;
@@ -113,7 +113,7 @@ fn soak(hours: f64, name: &str) {
     assert!(r.lock_events.is_empty(), "{:?}", r.lock_events);
     assert_eq!(sum.lock.losses, 0, "{sum}");
     assert_eq!(sum.lock.realignments, 0, "{sum}");
-    // QBER per hour (10-minute buckets grouped by hour; the first hour holds acquisition).
+    // QBER per hour (72 buckets grouped by hour; the first hour holds acquisition).
     let q = sum.truth.as_ref().unwrap().qber_z;
     let hours_n = hours.ceil() as usize;
     let mut per_hour = vec![(0u64, 0u64); hours_n];
@@ -135,7 +135,9 @@ fn soak(hours: f64, name: &str) {
     let dir = std::path::Path::new(env!("CARGO_TARGET_TMPDIR")).join(format!("soak-{name}"));
     std::fs::create_dir_all(&dir).unwrap();
     let mut files = plots::qber_and_rate(&dir, &r.buckets, 3).unwrap();
-    files.extend(plots::clock_series(&dir, &r.buckets, None).unwrap());
+    let tx_clock = TxClock::from_scenario(&s);
+    let truth_period = |t_s: f64| tx_clock.period_at_ps(tx_clock.start_ps() + t_s * 1e12);
+    files.extend(plots::clock_series(&dir, &r.buckets, Some(&truth_period)).unwrap());
     for f in &files {
         assert!(std::fs::metadata(f).unwrap().len() > 0);
         println!("{name}: wrote {}", f.display());
