@@ -217,6 +217,8 @@ fn bright_light_saturation_200_ms() {
         (bright - 0.2 * 1e9 / 1001.0).abs() < 0.01 * bright,
         "{bright}"
     );
+    // While the lock is lost the light's clicks, like every other detection, are `no_clock`.
+    assert!(acc(&r, "no_clock") as f64 > 0.9 * bright, "{}", r.summary);
 }
 
 /// Afterpulse storm: 20 % afterpulsing on every detector for 200 ms (mean delay 1 µs, so the
@@ -239,6 +241,11 @@ fn afterpulse_storm_20_percent() {
     let r = run(&s, 500, (0.2, 0.4));
     check_common("afterpulse storm", &r);
     kept_lock("afterpulse storm", &r);
+    // About 1.3 M clicks/s for 0.2 s at 20 %: some 52,000 afterpulses (plus 0.5 % elsewhere),
+    // uniform on the slot grid, so most fall outside the gates.
+    let ap = r.sim.emitted[2] as f64;
+    assert!((45_000.0..70_000.0).contains(&ap), "{ap} afterpulses");
+    assert!(acc(&r, "outside_gates") as f64 > 0.5 * ap, "{}", r.summary);
 }
 
 /// Merged TDC channels out of order by up to 2 ns, plus 1 % exact duplicates. Expected: the
