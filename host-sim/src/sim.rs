@@ -18,6 +18,7 @@
 pub mod answer_faults;
 pub mod clock;
 pub mod faults;
+mod merge;
 pub mod model;
 pub mod optics;
 pub mod rng;
@@ -31,6 +32,7 @@ pub use optics::{
 pub use tx::{SimTransmitter, TxChoice, TxChoices};
 
 use crate::scenario::Scenario;
+use merge::{Held, Merger};
 use rng::{splitmix_at, stream_key, Stream};
 use slotwise::fixed::types::U32F32;
 use slotwise::{FixedClock, TdcEvent};
@@ -151,48 +153,6 @@ impl Ord for Candidate {
             .then(other.slot.cmp(&self.slot))
             .then(other.source.cmp(&self.source))
     }
-}
-
-/// An event held back by the channel merger, ordered by the time it is let out.
-#[derive(Clone, Copy, Debug)]
-struct Held {
-    out_ps: f64,
-    seq: u64,
-    event: SimEvent,
-}
-
-impl PartialEq for Held {
-    fn eq(&self, other: &Self) -> bool {
-        self.cmp(other) == Ordering::Equal
-    }
-}
-impl Eq for Held {}
-impl PartialOrd for Held {
-    fn partial_cmp(&self, other: &Self) -> Option<Ordering> {
-        Some(self.cmp(other))
-    }
-}
-impl Ord for Held {
-    /// Reversed, so that `BinaryHeap` pops the earliest release first.
-    fn cmp(&self, other: &Self) -> Ordering {
-        other
-            .out_ps
-            .total_cmp(&self.out_ps)
-            .then(other.seq.cmp(&self.seq))
-    }
-}
-
-/// The channel merger's state (faults): events held back, the next one from the detectors.
-#[derive(Clone, Debug)]
-struct Merger {
-    reorder_ps: f64,
-    duplicate_prob: f64,
-    rng: Stream,
-    held: BinaryHeap<Held>,
-    next: Option<SimEvent>,
-    done: bool,
-    seq: u64,
-    newest_out_ps: f64,
 }
 
 /// The streaming link simulator; iterate it (or call [`Simulator::next_block`]) for events in
