@@ -37,6 +37,14 @@ cargo build -p slotwise --target riscv32imc-unknown-none-elf --release
 step "docs (warnings are errors)"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
 
+step "fuzz smoke (20 s per target, needs nightly and cargo-fuzz)"
+if rustup toolchain list 2>/dev/null | grep -q '^nightly' && cargo +nightly fuzz --version >/dev/null 2>&1; then
+  scripts/fuzz.sh 20
+else
+  echo "skipped: no nightly toolchain or no cargo-fuzz here; the proptest forms of the same"
+  echo "properties ran with the tests above (run scripts/fuzz.sh where both are installed)"
+fi
+
 if [ -x hil/check.sh ]; then
   step "firmware under QEMU, bit for bit against the host"
   hil/check.sh

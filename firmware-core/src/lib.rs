@@ -58,6 +58,7 @@
     )
 )]
 #![deny(missing_docs)]
+#![forbid(unsafe_code)]
 
 pub mod accounting;
 pub mod acquire;

@@ -194,6 +194,25 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         }
     }
 
+    /// Return to the state [`Self::new`] gives with the same configuration and `clock` (a fresh
+    /// clock stage): counters, tallies, pending queue and time base all start over, and what was
+    /// pending is dropped uncounted. Assigns in place, so a receiver in a `static` stays there.
+    pub fn reset(&mut self, clock: C) {
+        self.unwrapper = Unwrapper::new(self.cfg.tdc);
+        self.clock = clock;
+        self.open = None;
+        self.next_open_slot = 0;
+        self.pending.clear();
+        self.rng = SquashRng::new(self.cfg.squash_seed);
+        self.detections_in = 0;
+        self.accounting = Accounting::new();
+        self.multi = MultiClickEvents::default();
+        self.answer_errors = AnswerErrors::default();
+        self.tally = Tally::new();
+        self.multi_tally = Tally::new();
+        self.sifted_bits = 0;
+    }
+
     /// The configuration in use.
     pub const fn config(&self) -> &ReceiverConfig {
         &self.cfg

@@ -1,6 +1,6 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
-use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter};
+use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
 use crate::clocks::{self, ClockMode, HostClock};
 use crate::csv_io;
 use crate::link::keyfile::{self, KeyTap};
@@ -635,7 +635,7 @@ pub fn replay_capture(
     session.set_key_tap(Box::new(tap.clone()));
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     session.hint(hint_t, hint_slot);
-    let mut skipped = Vec::new();
+    let mut skipped = None;
     let pb = progress(size, "replaying");
     if path.extension().is_some_and(|e| e == "csv") {
         let r = csv_io::CsvReader::new(BufReader::new(file), &name)?;
@@ -656,7 +656,9 @@ pub fn replay_capture(
                 match r.next_block_skipping(&mut block)? {
                     None => break,
                     Some(BlockOutcome::Block(_)) => session.push_block(&block),
-                    Some(BlockOutcome::Skipped(sk)) => skipped.push(sk),
+                    Some(BlockOutcome::Skipped(sk)) => skipped
+                        .get_or_insert_with(SkipReport::default)
+                        .push(&sk, r.header().max_block_events),
                 }
             } else if r.next_block(&mut block)?.is_some() {
                 session.push_block(&block);
@@ -668,12 +670,12 @@ pub fn replay_capture(
                 pb.set_message(format!("replaying {}", session.live_status()));
             }
         }
+        if let Some(rep) = skipped.as_mut() {
+            rep.finish(r.declared_events(), r.events_read());
+        }
     }
     pb.finish_and_clear();
     let (res, bits, blocks) = finish_session(session, &tap, key_out)?;
-    for sk in &skipped {
-        eprintln!("skipped damaged data: {sk:?}");
-    }
     let mut summary = summarize(
         &name,
         &res,
@@ -683,6 +685,7 @@ pub fn replay_capture(
         started.elapsed().as_secs_f64(),
     );
     add_link(&mut summary, &res, &bits, blocks, key_out);
+    summary.skipped = skipped;
     if let Some(dir) = plots_dir {
         std::fs::create_dir_all(dir)?;
         let mut files = plots::fold_profile(

@@ -14,4 +14,6 @@ pub mod replay;
 pub mod scenario;
 pub mod sim;
 pub mod stats;
+#[cfg(feature = "proptest-strategies")]
+pub mod strategies;
 pub mod summary;

@@ -3,6 +3,7 @@
 //! `docs/scenario.md`; [`Scenario::from_toml_str`] refuses unknown keys and out-of-range values with
 //! an error that names the file, the line and the key.
 
+use crate::sim::faults::Faults;
 use serde::{Deserialize, Serialize};
 use std::fmt;
 use std::path::Path;
@@ -117,6 +118,9 @@ pub struct Scenario {
     /// Alarm thresholds, the `[alarms]` table (default: the board's defaults).
     #[serde(default, skip_serializing_if = "AlarmsToml::is_default")]
     pub alarms: AlarmsToml,
+    /// Field faults to inject (`[faults]` table; default none), see `docs/scenario.md`.
+    #[serde(default, skip_serializing_if = "Faults::is_empty")]
+    pub faults: Faults,
 }
 
 fn default_true() -> bool {
@@ -186,6 +190,10 @@ fn locate(text: &str, byte: usize) -> (usize, usize, Option<String>) {
 fn find_key(text: &str, key: &str) -> Option<usize> {
     let mut offset = 0;
     for line in text.split_inclusive('\n') {
+        let header = line.trim().trim_start_matches('[').trim_end_matches(']');
+        if line.trim_start().starts_with('[') && header.trim() == key {
+            return Some(offset + (line.len() - line.trim_start().len()));
+        }
         if let Some((k, _)) = line.split_once('=') {
             if k.trim() == key {
                 return Some(offset + (line.len() - line.trim_start().len()));
@@ -325,7 +333,7 @@ impl Scenario {
         if self.name.trim().is_empty() {
             return Err(c.err("name", "must not be empty"));
         }
-        c.range("duration_s", self.duration_s, Open(0.0), Closed(1000.0))?;
+        c.range("duration_s", self.duration_s, Open(0.0), Closed(100_000.0))?;
         c.range("rep_rate_hz", self.rep_rate_hz, Closed(1e3), Closed(1e11))?;
         c.range("p_z", self.p_z, Open(0.0), Open(1.0))?;
         if self.protocol == Protocol::Bb84 && self.p_z != 0.5 {
@@ -465,6 +473,13 @@ impl Scenario {
                 return Err(c.err("channel_delays_ps", format!("{x} ps exceeds ±1 µs")));
             }
         }
+        self.faults
+            .check(
+                self.duration_s,
+                crate::sim::channels(self),
+                self.dead_time_ns,
+            )
+            .map_err(|(key, m)| c.err(key, m))?;
         let earliest = crate::sim::earliest_click_offset_ps(self);
         if self.start_offset() + earliest < 0.0 {
             return Err(c.err(
@@ -616,6 +631,75 @@ mod tests {
         bad(&|s| s.duration_s = f64::NAN, "duration_s");
         bad(&|s| s.clock_drift_ppm_per_s = 1e4, "clock_drift_ppm_per_s");
         assert!(base.validate("t").is_ok());
+    }
+
+    const FAULTS_TOML: &str = r#"
+[faults.merge]
+reorder_ps = 2000.0
+duplicate_prob = 0.01
+
+[[faults.blackout]]
+from_s = 0.1
+duration_s = 1.0
+
+[[faults.phase_jump]]
+at_s = 0.2
+slots = 0.37
+
+[[faults.frequency_step]]
+at_s = 0.3
+ppm = 2.0
+
+[[faults.drift_ramp]]
+from_s = 0.1
+duration_s = 0.2
+ppm_per_s = 0.1
+
+[[faults.saturation]]
+channel = 0
+from_s = 0.1
+duration_s = 0.2
+rate_hz = 1e9
+
+[[faults.afterpulse_storm]]
+from_s = 0.1
+duration_s = 0.2
+prob = 0.2
+
+[[faults.stray_channel]]
+channel = 7
+rate_hz = 1000.0
+"#;
+
+    #[test]
+    fn faults_parse_and_round_trip() {
+        let text = format!("{DEFAULT_BENCH_TOML}{FAULTS_TOML}");
+        let s = Scenario::from_toml_str(&text, "f.toml").unwrap();
+        let f = &s.faults;
+        assert_eq!(f.blackout.len(), 1);
+        assert_eq!(f.phase_jump[0].slots, 0.37);
+        assert_eq!(f.saturation[0].rate_hz, 1e9);
+        assert_eq!(f.merge.map(|m| m.reorder_ps), Some(2000.0));
+        let back = Scenario::from_toml_str(&s.to_toml_string(), "rt").unwrap();
+        assert_eq!(back, s);
+    }
+
+    #[test]
+    fn bad_fault_names_its_table_and_line() {
+        let text =
+            format!("{DEFAULT_BENCH_TOML}{FAULTS_TOML}").replace("channel = 7", "channel = 1");
+        let e = Scenario::from_toml_str(&text, "f.toml").unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("faults.stray_channel"), "{e}");
+        let line = text
+            .lines()
+            .position(|l| l == "[[faults.stray_channel]]")
+            .unwrap()
+            + 1;
+        assert_eq!(e.line, Some(line), "{e}");
+        assert!(e.message.contains("is a detector"), "{e}");
+        let text = format!("{DEFAULT_BENCH_TOML}{FAULTS_TOML}").replace("prob = 0.2", "prob = 1.2");
+        let e = Scenario::from_toml_str(&text, "f.toml").unwrap_err();
+        assert_eq!(e.key.as_deref(), Some("faults.afterpulse_storm"), "{e}");
     }
 
     #[test]

@@ -15,7 +15,10 @@
 //! with probability p(slot)/p_max (thinning; Lewis & Shedler, Naval Res. Logist. Q. 26, 403,
 //! 1979). Both steps are exact. Memory stays bounded: only clicks not yet emitted are held.
 
+pub mod answer_faults;
 pub mod clock;
+pub mod faults;
+mod merge;
 pub mod model;
 pub mod optics;
 pub mod rng;
@@ -29,6 +32,7 @@ pub use optics::{
 pub use tx::{SimTransmitter, TxChoice, TxChoices};
 
 use crate::scenario::Scenario;
+use merge::{Held, Merger};
 use rng::{splitmix_at, stream_key, Stream};
 use slotwise::fixed::types::U32F32;
 use slotwise::{FixedClock, TdcEvent};
@@ -44,6 +48,18 @@ const STREAM_PHOTONS: u64 = 3;
 const STREAM_DARK: u64 = 16;
 /// First stream number of the per-detector afterpulses.
 const STREAM_AFTERPULSE: u64 = 48;
+/// Stream number of the channel merger's reordering and duplicates (faults).
+const STREAM_MERGE: u64 = 96;
+/// First stream number of the saturating lights (faults).
+const STREAM_BRIGHT: u64 = 100;
+/// First stream number of the stray channels (faults).
+const STREAM_STRAY: u64 = 120;
+/// `Candidate::source` of ordinary clicks.
+const SOURCE_PLAIN: u8 = 0;
+/// `Candidate::source` of saturation fault `i`: `SOURCE_BRIGHT + i`.
+const SOURCE_BRIGHT: u8 = 1;
+/// `Candidate::source` of stray-channel fault `i`: `SOURCE_STRAY + i`.
+const SOURCE_STRAY: u8 = 128;
 
 /// What caused a click.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -98,6 +114,14 @@ pub struct SimStats {
     pub emitted: [u64; 3],
     /// Afterpulses that would fall after the end of the run (not generated).
     pub afterpulses_after_end: u64,
+    /// Exact duplicates emitted by the channel merger (faults; not in `emitted`).
+    pub duplicates: u64,
+    /// Events emitted after a later-stamped one by the channel merger (faults).
+    pub reordered: u64,
+    /// Clicks of saturating lights emitted (faults; also counted as dark in `emitted`).
+    pub bright: u64,
+    /// Events on stray channel numbers emitted (faults; also counted as dark in `emitted`).
+    pub stray: u64,
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -107,6 +131,8 @@ struct Candidate {
     kind: Kind,
     slot: Option<u64>,
     position: Option<u8>,
+    /// Which process made it: plain, a saturating light or a stray channel (faults).
+    source: u8,
 }
 
 impl PartialEq for Candidate {
@@ -129,6 +155,7 @@ impl Ord for Candidate {
             .then(other.detector.cmp(&self.detector))
             .then(other.kind.cmp(&self.kind))
             .then(other.slot.cmp(&self.slot))
+            .then(other.source.cmp(&self.source))
     }
 }
 
@@ -164,6 +191,17 @@ pub struct Simulator {
     stats: SimStats,
     /// Scratch for merging the photons of one pulse into clicks.
     hits: Vec<optics::Hit>,
+    /// Fibre cuts as sorted half-open slot ranges (faults).
+    blackouts: Vec<(u64, u64)>,
+    /// Saturation windows (faults): detector, start and end in true time (ps), mean gap (ps).
+    bright: Vec<(u8, f64, f64, f64)>,
+    bright_rng: Vec<Stream>,
+    /// Stray channels (faults): channel and mean gap (ps).
+    stray: Vec<(u8, f64)>,
+    stray_rng: Vec<Stream>,
+    /// Afterpulse storms (faults): start, end (true time, ps), probability.
+    storms: Vec<(f64, f64, f64)>,
+    merger: Option<Merger>,
 }
 
 impl Simulator {
@@ -210,8 +248,52 @@ impl Simulator {
                 ..SimStats::default()
             },
             hits: Vec::new(),
+            blackouts: s.faults.blackout_slots(s.rep_rate_hz),
+            bright: Vec::new(),
+            bright_rng: Vec::new(),
+            stray: Vec::new(),
+            stray_rng: Vec::new(),
+            storms: Vec::new(),
+            merger: s.faults.merge.map(|m| Merger {
+                reorder_ps: m.reorder_ps,
+                duplicate_prob: m.duplicate_prob,
+                rng: Stream::new(s.seed, STREAM_MERGE),
+                held: BinaryHeap::new(),
+                next: None,
+                done: false,
+                seq: 0,
+                newest_out_ps: f64::NEG_INFINITY,
+            }),
             scenario: s.clone(),
         };
+        let t0 = sim.clock.start_ps();
+        for (i, b) in s.faults.saturation.iter().enumerate() {
+            let from = t0 + b.from_s * 1e12;
+            sim.bright.push((
+                b.channel,
+                from,
+                from + b.duration_s * 1e12,
+                1e12 / b.rate_hz,
+            ));
+            sim.bright_rng
+                .push(Stream::new(s.seed, STREAM_BRIGHT + i as u64));
+            sim.schedule_bright(i, from);
+        }
+        for (i, st) in s.faults.stray_channel.iter().enumerate() {
+            sim.stray.push((st.channel, 1e12 / st.rate_hz));
+            sim.stray_rng
+                .push(Stream::new(s.seed, STREAM_STRAY + i as u64));
+            sim.schedule_stray(i, 0.0);
+        }
+        sim.storms = s
+            .faults
+            .afterpulse_storm
+            .iter()
+            .map(|a| {
+                let from = t0 + a.from_s * 1e12;
+                (from, from + a.duration_s * 1e12, a.prob)
+            })
+            .collect();
         for d in 0..channels {
             sim.schedule_dark(d, 0.0);
         }
@@ -263,11 +345,19 @@ impl Simulator {
             return u64::MAX;
         }
         // P(skip = g) = (1 − p_max)^g·p_max with ln(1 − p_max) = −μ_max·η.
-        let g = (-self.skip_rng.uniform_nonzero().ln() / self.mean_max).floor();
-        if g >= (self.slots - from.min(self.slots)) as f64 {
-            u64::MAX
-        } else {
-            from + g as u64
+        let mut from = from;
+        loop {
+            let g = (-self.skip_rng.uniform_nonzero().ln() / self.mean_max).floor();
+            if g >= (self.slots - from.min(self.slots)) as f64 {
+                return u64::MAX;
+            }
+            let k = from + g as u64;
+            // A fibre cut: no light from these slots. The skip is memoryless, so drawing afresh
+            // from the end of the cut is exact.
+            match self.blackouts.iter().find(|&&(a, b)| a <= k && k < b) {
+                Some(&(_, b)) => from = b,
+                None => return k,
+            }
         }
     }
 
@@ -335,6 +425,7 @@ impl Simulator {
                 kind: Kind::Signal,
                 slot: Some(k),
                 position: Some(h.pos),
+                source: SOURCE_PLAIN,
             });
         }
     }
@@ -361,12 +452,114 @@ impl Simulator {
                 kind: Kind::Dark,
                 slot: None,
                 position: None,
+                source: SOURCE_PLAIN,
             });
         }
     }
 
-    /// The next detection in time order, or `None` at the end of the run.
+    /// Next click of saturating light `i` at or after `after_ps` (faults). Clicks falling in the
+    /// detector's dead time are never registered, so the draw starts where the dead time ends;
+    /// for a Poisson light that is exact (memoryless).
+    fn schedule_bright(&mut self, i: usize, after_ps: f64) {
+        let Some(&(d, from, to, gap)) = self.bright.get(i) else {
+            return;
+        };
+        let dead_end = self
+            .last_registered_ps
+            .get(usize::from(d))
+            .copied()
+            .unwrap_or(f64::NEG_INFINITY)
+            + self.dead_ps;
+        let Some(rng) = self.bright_rng.get_mut(i) else {
+            return;
+        };
+        let t = after_ps.max(from).max(dead_end) + rng.exponential(gap);
+        if t < to && t < self.end_ps {
+            self.push(Candidate {
+                t_ps: t,
+                detector: d,
+                kind: Kind::Dark,
+                slot: None,
+                position: None,
+                source: SOURCE_BRIGHT + i as u8,
+            });
+        }
+    }
+
+    /// Next event of stray channel `i` after `after_ps` (faults).
+    fn schedule_stray(&mut self, i: usize, after_ps: f64) {
+        let Some(&(ch, gap)) = self.stray.get(i) else {
+            return;
+        };
+        let Some(rng) = self.stray_rng.get_mut(i) else {
+            return;
+        };
+        let t = after_ps + rng.exponential(gap);
+        if t < self.end_ps {
+            self.push(Candidate {
+                t_ps: t,
+                detector: ch,
+                kind: Kind::Dark,
+                slot: None,
+                position: None,
+                source: SOURCE_STRAY + i as u8,
+            });
+        }
+    }
+
+    /// The next detection in merge order (time order unless a merger fault reorders), or `None`
+    /// at the end of the run.
     pub fn next_event(&mut self) -> Option<SimEvent> {
+        let Some(mut m) = self.merger.take() else {
+            return self.next_in_time();
+        };
+        let out = self.next_merged(&mut m);
+        self.merger = Some(m);
+        out
+    }
+
+    /// The merger fault: each event is let out at its time plus a uniform delay in
+    /// [0, reorder_ps); one is released once no later detection can be let out before it.
+    fn next_merged(&mut self, m: &mut Merger) -> Option<SimEvent> {
+        loop {
+            if m.next.is_none() && !m.done {
+                m.next = self.next_in_time();
+                m.done = m.next.is_none();
+            }
+            let release = match (m.held.peek(), m.next) {
+                (Some(h), Some(e)) => h.out_ps <= e.truth.true_t_ps,
+                (Some(_), None) => true,
+                (None, _) => false,
+            };
+            if release {
+                let h = m.held.pop()?;
+                if h.event.truth.true_t_ps < m.newest_out_ps {
+                    self.stats.reordered += 1;
+                }
+                m.newest_out_ps = m.newest_out_ps.max(h.event.truth.true_t_ps);
+                return Some(h.event);
+            }
+            let e = m.next.take()?;
+            let copies = if m.rng.bernoulli(m.duplicate_prob) {
+                self.stats.duplicates += 1;
+                2
+            } else {
+                1
+            };
+            let out_ps = e.truth.true_t_ps + m.rng.uniform() * m.reorder_ps;
+            for _ in 0..copies {
+                m.seq += 1;
+                m.held.push(Held {
+                    out_ps,
+                    seq: m.seq,
+                    event: e,
+                });
+            }
+        }
+    }
+
+    /// The next detection in time order, or `None` at the end of the run.
+    fn next_in_time(&mut self) -> Option<SimEvent> {
         loop {
             while self.next_slot < self.slots
                 && self.heap.peek().is_none_or(|c| self.frontier_ps <= c.t_ps)
@@ -375,26 +568,46 @@ impl Simulator {
             }
             let c = self.heap.pop()?;
             let d = usize::from(c.detector);
-            if c.kind == Kind::Dark {
-                self.schedule_dark(c.detector, c.t_ps);
+            match c.source {
+                SOURCE_PLAIN if c.kind == Kind::Dark => self.schedule_dark(c.detector, c.t_ps),
+                s if s >= SOURCE_STRAY => {
+                    self.schedule_stray(usize::from(s - SOURCE_STRAY), c.t_ps)
+                }
+                // Signal and afterpulses need no follow-up; the next bright click is drawn once
+                // this one's fate is known (below).
+                _ => {}
             }
             let last = self
                 .last_registered_ps
                 .get(d)
                 .copied()
                 .unwrap_or(f64::NEG_INFINITY);
+            let bright = (SOURCE_BRIGHT..SOURCE_STRAY)
+                .contains(&c.source)
+                .then(|| usize::from(c.source - SOURCE_BRIGHT));
             if c.t_ps < last + self.dead_ps {
                 if let Some(x) = self.stats.dead_time_lost.get_mut(c.kind as usize) {
                     *x += 1;
+                }
+                if let Some(i) = bright {
+                    self.schedule_bright(i, c.t_ps);
                 }
                 continue;
             }
             if let Some(l) = self.last_registered_ps.get_mut(d) {
                 *l = c.t_ps;
             }
+            if let Some(i) = bright {
+                self.schedule_bright(i, c.t_ps);
+            }
             self.maybe_afterpulse(c);
             if let Some(x) = self.stats.emitted.get_mut(c.kind as usize) {
                 *x += 1;
+            }
+            if bright.is_some() {
+                self.stats.bright += 1;
+            } else if c.source >= SOURCE_STRAY {
+                self.stats.stray += 1;
             }
             return Some(SimEvent {
                 event: TdcEvent {
@@ -412,7 +625,11 @@ impl Simulator {
     }
 
     fn maybe_afterpulse(&mut self, c: Candidate) {
-        let p = self.scenario.afterpulse_prob;
+        let p = self
+            .storms
+            .iter()
+            .find(|&&(a, b, _)| a <= c.t_ps && c.t_ps < b)
+            .map_or(self.scenario.afterpulse_prob, |&(_, _, p)| p);
         let mean = self.ap_mean_ps;
         let Some(rng) = self.ap_rng.get_mut(usize::from(c.detector)) else {
             return;
@@ -428,6 +645,7 @@ impl Simulator {
                 kind: Kind::Afterpulse,
                 slot: None,
                 position: None,
+                source: SOURCE_PLAIN,
             });
         } else {
             self.stats.afterpulses_after_end += 1;

@@ -97,6 +97,9 @@ pub struct Summary {
     /// The framed link to the transmitter, when the exchange ran through frames.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub link: Option<crate::link::report::LinkSummary>,
+    /// Damaged data stepped over (`replay --skip-damaged` only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub skipped: Option<crate::capture::SkipReport>,
 }
 
 /// Build the summary of a finished session.
@@ -221,6 +224,7 @@ pub fn summarize<T: Transmitter>(
         .collect(),
         stats: crate::stats::report(&res.monitor, &res.live, res.first_t_ps, n_int),
         link: None,
+        skipped: None,
     }
 }
 
@@ -294,6 +298,9 @@ impl std::fmt::Display for Summary {
         }
         if let Some(l) = &self.link {
             write!(f, "{l}")?;
+        }
+        if let Some(s) = &self.skipped {
+            write!(f, "{s}")?;
         }
         if let Some(s) = self.run.get("seconds") {
             writeln!(f, "replay time    {s:.2} s")?;

@@ -43,3 +43,4 @@ pub fn python_with(dir: &Path, modules: &[&str]) -> Result<PathBuf, String> {
     }
     Ok(py)
 }
+pub mod faults;

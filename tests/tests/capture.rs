@@ -371,3 +371,6 @@ proptest! {
 
 #[path = "capture/damage.rs"]
 mod damage;
+
+#[path = "capture/skip_replay.rs"]
+mod skip_replay;

@@ -15,6 +15,7 @@ mod error;
 mod header;
 mod inspect;
 mod reader;
+mod skipped;
 mod writer;
 
 use std::fs::File;
@@ -24,6 +25,7 @@ pub use error::{CaptureError, ErrorKind};
 pub use header::CaptureHeader;
 pub use inspect::{inspect, Damage, EventsPerBlock, InspectReport, MAX_LISTED_DAMAGE};
 pub use reader::{BlockInfo, BlockOutcome, CaptureReader, SkippedBlock};
+pub use skipped::{SkipReport, SkippedStretch};
 pub use writer::CaptureWriter;
 
 use slotwise::TdcEvent;

@@ -153,6 +153,8 @@ pub struct CaptureReader<R> {
     events: u64,
     done: bool,
     end_verified: bool,
+    /// Event total of the verified end record.
+    end_events: Option<u64>,
     failed: Option<CaptureError>,
 }
 
@@ -176,6 +178,7 @@ impl<R: Read> CaptureReader<R> {
             events: 0,
             done: false,
             end_verified: false,
+            end_events: None,
             failed: None,
         })
     }
@@ -198,6 +201,12 @@ impl<R: Read> CaptureReader<R> {
     /// Whether an end record with a valid CRC closed the capture.
     pub fn end_verified(&self) -> bool {
         self.end_verified
+    }
+
+    /// Event total stated by the verified end record (`None` until one is read); with
+    /// [`Self::events_read`] it gives exactly how many events damaged blocks held.
+    pub fn declared_events(&self) -> Option<u64> {
+        self.end_events
     }
 
     /// Events delivered so far.
@@ -276,7 +285,8 @@ impl<R: Read> CaptureReader<R> {
                 let skipped = self.gap(start, blocks, "end_block_count", OFF_END_BLOCKS);
                 return Ok(Some(BlockOutcome::Skipped(skipped)));
             }
-            Ok(Record::End { blocks, .. }) if blocks == self.next_index => {
+            Ok(Record::End { blocks, events }) if blocks == self.next_index => {
+                self.end_events = Some(events);
                 return self.finish_skipping(start, blocks).map(|()| None);
             }
             // An older block index or an end record counting fewer blocks than seen: the

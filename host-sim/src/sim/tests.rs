@@ -193,7 +193,7 @@ fn photons_of_one_pulse_on_one_detector_and_position_make_one_click() {
     s.afterpulse_prob = 0.0;
     let mut seen = std::collections::HashSet::new();
     let mut sim = Simulator::new(&s);
-    let clock = *sim.clock();
+    let clock = sim.clock().clone();
     for e in sim.by_ref() {
         let slot = e.truth.slot.unwrap();
         let frac = (e.truth.true_t_ps - clock.slot_start_ps(slot)) / s.period_ps();
@@ -201,4 +201,63 @@ fn photons_of_one_pulse_on_one_detector_and_position_make_one_click() {
         assert!(seen.insert((slot, e.event.channel, pos)), "double click");
     }
     assert!(sim.stats().photons > 2 * sim.stats().emitted[0]);
+}
+
+#[test]
+fn merge_fault_reorders_within_its_bound_and_duplicates_exactly() {
+    let mut s = short(Scenario::default_bench(), 0.02);
+    s.faults.merge = Some(super::faults::Merge {
+        reorder_ps: 2000.0,
+        duplicate_prob: 0.05,
+    });
+    let plain: Vec<SimEvent> = Simulator::new(&short(Scenario::default_bench(), 0.02)).collect();
+    let mut sim = Simulator::new(&s);
+    let got: Vec<SimEvent> = sim.by_ref().collect();
+    let st = *sim.stats();
+    assert_eq!(got.len() as u64, plain.len() as u64 + st.duplicates);
+    assert!(st.reordered > 0 && st.duplicates > 0);
+    let mut newest = f64::NEG_INFINITY;
+    for e in &got {
+        assert!(
+            e.truth.true_t_ps > newest - 2000.0,
+            "reordered by more than 2 ns"
+        );
+        newest = newest.max(e.truth.true_t_ps);
+    }
+    // Same events, only their order and the copies differ.
+    let mut a: Vec<(u64, u8)> = got
+        .iter()
+        .map(|e| (e.event.count, e.event.channel))
+        .collect();
+    a.dedup();
+    let mut a2 = a.clone();
+    a2.sort_unstable();
+    let mut b: Vec<(u64, u8)> = plain
+        .iter()
+        .map(|e| (e.event.count, e.event.channel))
+        .collect();
+    b.sort_unstable();
+    assert_eq!(a2, b);
+}
+
+#[test]
+fn blackout_removes_the_light_of_its_slots_only() {
+    let mut s = short(Scenario::default_bench(), 0.004);
+    s.faults.blackout = vec![super::faults::Blackout {
+        from_s: 0.001,
+        duration_s: 0.002,
+    }];
+    let (a, b) = (100_000u64, 300_000u64);
+    let (mut inside, mut before, mut after) = (0, 0, 0);
+    for e in Simulator::new(&s) {
+        match e.truth.slot {
+            Some(k) if (a..b).contains(&k) => inside += 1,
+            Some(k) if k < a => before += 1,
+            Some(_) => after += 1,
+            None => {}
+        }
+    }
+    assert_eq!(inside, 0);
+    // 1.3e-2 detections per slot: about 1,300 before and 1,300 after the cut.
+    assert!(before > 1000 && after > 1000, "{before} {after}");
 }
