@@ -145,7 +145,7 @@ struct OpenSlot {
 }
 
 /// The whole receiver pipeline with a pending queue of `PENDING` detected slots.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 pub struct Receiver<C: Clock, const PENDING: usize> {
     cfg: ReceiverConfig,
     unwrapper: Unwrapper,
@@ -197,6 +197,11 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     /// The configuration in use.
     pub const fn config(&self) -> &ReceiverConfig {
         &self.cfg
+    }
+
+    /// The time base (counter unwrapping state).
+    pub const fn unwrapper(&self) -> &Unwrapper {
+        &self.unwrapper
     }
 
     /// The clock stage.

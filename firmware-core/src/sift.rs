@@ -121,7 +121,7 @@ pub struct Pending {
 }
 
 /// The bounded queue of detected slots, sorted by slot.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 pub struct PendingQueue<const N: usize> {
     q: Deque<Pending, N>,
 }
