@@ -37,6 +37,9 @@ cargo build -p slotwise --target riscv32imc-unknown-none-elf --release
 step "docs (warnings are errors)"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
 
+step "host instructions per detection against the committed budget (callgrind)"
+bash scripts/bench-pipeline-callgrind.sh
+
 if [ -x hil/check.sh ]; then
   step "firmware under QEMU, bit for bit against the host"
   hil/check.sh

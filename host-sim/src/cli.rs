@@ -590,8 +590,8 @@ fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
 }
 
 fn bench_pipeline(a: &crate::bench_pipeline::PipelineArgs) -> Result<(), AnyErr> {
-    if let Some(mode) = a.count_only {
-        for line in crate::bench_pipeline::count_only(a, mode)? {
+    if a.count_only {
+        for line in crate::bench_pipeline::count_only(a)? {
             println!("{line}");
         }
         return Ok(());
