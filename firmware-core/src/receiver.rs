@@ -6,7 +6,7 @@
 
 use crate::accounting::{Accounting, AnswerErrors, MultiClickEvents};
 use crate::clock::{Clock, Located, Numbered, SlotPos};
-use crate::gates::{Basis, GateTable, Lookup, MAX_INTENSITIES};
+use crate::gates::{Basis, GateTable, MAX_INTENSITIES};
 use crate::sift::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
     PendingQueue, SiftedBit, SquashRng, Transmitter,
@@ -276,6 +276,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     }
 
     /// Process one TDC event and say what was decided for it.
+    #[inline]
     pub fn push(
         &mut self,
         ev: TdcEvent,
@@ -313,20 +314,12 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             }
         };
         trace.slot = Some((pos.slot, pos.phase));
-        let gate = match self.cfg.gates.lookup(det.channel, pos.phase) {
-            Lookup::Gate(i) => i,
-            Lookup::Outside => {
-                self.accounting.outside_gates += 1;
-                trace.stage = Stage::OutsideGates;
-                return trace;
-            }
-        };
-        trace.gate = Some(gate);
-        let Some(&g) = self.cfg.gates.gate(gate) else {
+        let Some((gate, &g)) = self.cfg.gates.find(det.channel, pos.phase) else {
             self.accounting.outside_gates += 1;
             trace.stage = Stage::OutsideGates;
             return trace;
         };
+        trace.gate = Some(gate);
         let z_bit = (g.basis == Basis::Z).then_some(g.bit);
         let slot = match self.clock.number(pos, z_bit) {
             Numbered::Slot(s) => s,

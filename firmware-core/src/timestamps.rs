@@ -120,6 +120,8 @@ impl UnwrapConfig {
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct Unwrapper {
     cfg: UnwrapConfig,
+    /// The counter's mask, computed once (`cfg.mask()`).
+    mask: u64,
     /// Largest unwrapped tick count so far; `None` before the first event.
     newest_ticks: Option<u64>,
 }
@@ -128,6 +130,7 @@ impl Unwrapper {
     /// A fresh unwrapper for the given TDC.
     pub const fn new(cfg: UnwrapConfig) -> Self {
         Self {
+            mask: cfg.mask(),
             cfg,
             newest_ticks: None,
         }
@@ -139,8 +142,9 @@ impl Unwrapper {
     }
 
     /// Place one event on the picosecond time base.
+    #[inline]
     pub fn unwrap(&mut self, ev: TdcEvent) -> Result<Detection, UnwrapError> {
-        let mask = self.cfg.mask();
+        let mask = self.mask;
         if ev.count & !mask != 0 {
             return Err(UnwrapError::CountTooWide);
         }
