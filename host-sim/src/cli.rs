@@ -596,19 +596,20 @@ fn bench_pipeline(a: &crate::bench_pipeline::PipelineArgs) -> Result<(), AnyErr>
         }
         return Ok(());
     }
-    let report = crate::bench_pipeline::run(a)?;
-    if a.json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
-    } else {
-        print!("{report}");
-    }
-    Ok(())
+    print_report(&crate::bench_pipeline::run(a)?, a.json)
 }
 
 fn bench_sync(a: &crate::bench_sync::BenchSyncArgs) -> Result<(), AnyErr> {
-    let report = crate::bench_sync::run(a)?;
-    if a.json {
-        println!("{}", serde_json::to_string_pretty(&report)?);
+    print_report(&crate::bench_sync::run(a)?, a.json)
+}
+
+/// A benchmark report as pretty JSON or as its tables.
+fn print_report(
+    report: &(impl serde::Serialize + std::fmt::Display),
+    json: bool,
+) -> Result<(), AnyErr> {
+    if json {
+        println!("{}", serde_json::to_string_pretty(report)?);
     } else {
         print!("{report}");
     }
