@@ -103,7 +103,7 @@ pub struct PipelineArgs {
     /// Print the report as JSON instead of tables.
     #[arg(long)]
     pub json: bool,
-    /// Shorter captures and fewer repetitions (about 15 s instead of about a minute).
+    /// Shorter captures and fewer repetitions (a few seconds instead of about 15).
     #[arg(long)]
     pub quick: bool,
     /// Timed repetitions of every figure; median, min and max are reported [default: 7; 5 with
