@@ -37,6 +37,9 @@ cargo build -p slotwise --target riscv32imc-unknown-none-elf --release
 step "docs (warnings are errors)"
 RUSTDOCFLAGS="-D warnings" cargo doc --workspace --no-deps
 
+step "host instructions per detection against the committed budget (callgrind)"
+bash scripts/bench-pipeline-callgrind.sh
+
 step "fuzz smoke (20 s per target, needs nightly and cargo-fuzz)"
 if rustup toolchain list 2>/dev/null | grep -q '^nightly' && cargo +nightly fuzz --version >/dev/null 2>&1; then
   scripts/fuzz.sh 20

@@ -7,7 +7,9 @@
 //!
 //! Slot assignment avoids a division per detection: the slot estimate is the elapsed time
 //! multiplied by a Q0.64 reciprocal of the period, corrected by at most two steps; the position in
-//! the slot is the remainder multiplied by the same reciprocal.
+//! the slot is the remainder multiplied by the same reciprocal. For every practical period
+//! (≤ 2^30 ps) this needs only 64-bit arithmetic and the high half of two 64×64 products, which a
+//! 32-bit core builds from four 32×32→64 multiplies each.
 
 use core::fmt;
 use fixed::types::{U0F32, U32F32};
@@ -118,7 +120,29 @@ impl SlotGrid {
     }
 
     /// Split an elapsed time (ps since slot 0 started) into slot index and position.
+    #[inline]
     pub fn split(&self, elapsed_ps: u64) -> SlotPos {
+        let period = self.period_ps.to_bits();
+        if period > FAST_PERIOD_MAX {
+            return self.split_wide(elapsed_ps);
+        }
+        // slot·period ≤ elapsed·2^32 (floored reciprocal) and the estimate is low by at most one
+        // slot, so the true remainder is below 2·period ≤ 2^63: exact in wrapping u64 arithmetic.
+        let mut slot = mul_hi(elapsed_ps, self.inv_q64);
+        let mut rem = (elapsed_ps << 32).wrapping_sub(slot.wrapping_mul(period));
+        while rem >= period {
+            rem -= period;
+            slot += 1;
+        }
+        // rem < period, so rem·(2^96/period)/2^64 < 2^32.
+        SlotPos {
+            slot,
+            phase: U0F32::from_bits(mul_hi(rem, self.inv_q64) as u32),
+        }
+    }
+
+    /// [`Self::split`] in 128-bit arithmetic, for periods above [`FAST_PERIOD_MAX`].
+    fn split_wide(&self, elapsed_ps: u64) -> SlotPos {
         let period = u128::from(self.period_ps.to_bits());
         let inv = u128::from(self.inv_q64);
         let e = u128::from(elapsed_ps);
@@ -151,6 +175,36 @@ impl SlotGrid {
             phase: U0F32::from_bits(phase_bits),
         }
     }
+}
+
+/// Longest period (Q32.32 bits, 2^30 ps) that [`SlotGrid::split`] handles in 64-bit arithmetic.
+const FAST_PERIOD_MAX: u64 = 1 << 62;
+
+/// High 64 bits of the 128-bit product: one instruction on 64-bit hosts, four 32×32→64
+/// multiplies on 32-bit cores (where a 128-bit multiply would be a library call).
+#[inline(always)]
+fn mul_hi(a: u64, b: u64) -> u64 {
+    #[cfg(target_pointer_width = "64")]
+    {
+        ((u128::from(a) * u128::from(b)) >> 64) as u64
+    }
+    #[cfg(not(target_pointer_width = "64"))]
+    {
+        mul_hi_limbs(a, b)
+    }
+}
+
+/// [`mul_hi`] from four 32×32→64 products (exact: no partial sum exceeds 2^64 − 1).
+#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
+#[inline(always)]
+fn mul_hi_limbs(a: u64, b: u64) -> u64 {
+    let (a0, a1) = (a & 0xFFFF_FFFF, a >> 32);
+    let (b0, b1) = (b & 0xFFFF_FFFF, b >> 32);
+    let p00 = a0 * b0;
+    let p01 = a0 * b1;
+    let p10 = a1 * b0;
+    let mid = (p00 >> 32) + (p01 & 0xFFFF_FFFF) + (p10 & 0xFFFF_FFFF);
+    a1 * b1 + (p01 >> 32) + (p10 >> 32) + (mid >> 32)
 }
 
 /// A clock fixed by configuration: known period and the time at which slot 0 starts.
@@ -250,6 +304,20 @@ mod tests {
     }
 
     proptest! {
+        // The fast split and the 128-bit one give the same answer wherever both apply.
+        #[test]
+        fn fast_split_equals_wide_split(bits in (2u64 << 32)..=FAST_PERIOD_MAX, e in any::<u64>()) {
+            let g = SlotGrid::new(U32F32::from_bits(bits)).unwrap();
+            prop_assert_eq!(g.split(e), g.split_wide(e));
+        }
+
+        // Against the exact 128-bit product (u128 arithmetic of the Rust core library).
+        #[test]
+        fn mul_hi_matches_the_128_bit_product(a in any::<u64>(), b in any::<u64>()) {
+            prop_assert_eq!(mul_hi_limbs(a, b), ((u128::from(a) * u128::from(b)) >> 64) as u64);
+            prop_assert_eq!(mul_hi(a, b), mul_hi_limbs(a, b));
+        }
+
         // Against exact u128 long division (the definition of floor and remainder).
         #[test]
         fn split_matches_exact_division(bits in (2u64 << 32)..(1u64 << 63), e in any::<u64>()) {

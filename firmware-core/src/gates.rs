@@ -120,6 +120,14 @@ pub enum Lookup {
     Outside,
 }
 
+/// Phase buckets per channel in the lookup table: the top `BUCKET_BITS` bits of the phase.
+const BUCKET_BITS: u32 = 6;
+const BUCKETS: usize = 1 << BUCKET_BITS;
+/// Bucket entry: the whole bucket lies outside every gate.
+const BUCKET_OUTSIDE: u8 = 0xFE;
+/// Bucket entry: a window edge lies inside the bucket; search the channel's windows.
+const BUCKET_MIXED: u8 = 0xFF;
+
 /// A validated gate table with per-channel delays.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
@@ -130,6 +138,10 @@ pub struct GateTable {
     ranges: [(u8, u8); MAX_CHANNELS],
     delays_ps: [i64; MAX_CHANNELS],
     channels: u8,
+    /// Per channel and phase bucket (1/64 slot): the gate index when the whole bucket lies in
+    /// one gate, [`BUCKET_OUTSIDE`], or [`BUCKET_MIXED`] where a window edge falls inside. Built
+    /// from the windows once, so a lookup is one table read except next to a window edge.
+    buckets: [[u8; BUCKETS]; MAX_CHANNELS],
 }
 
 const NO_GATE: Gate = Gate {
@@ -159,6 +171,7 @@ impl GateTable {
             ranges: [(0, 0); MAX_CHANNELS],
             delays_ps: [0; MAX_CHANNELS],
             channels: delays_ps.len() as u8,
+            buckets: [[BUCKET_MIXED; BUCKETS]; MAX_CHANNELS],
         };
         for (slot, d) in table.delays_ps.iter_mut().zip(delays_ps) {
             *slot = *d;
@@ -218,7 +231,35 @@ impl GateTable {
                 }
             }
         }
+        table.fill_buckets();
         Ok(table)
+    }
+
+    /// Mark each bucket with its single outcome, or as mixed when a window edge lies inside it
+    /// (a conservative test: mixed buckets are searched, so they are always right).
+    fn fill_buckets(&mut self) {
+        let width = 1u64 << (32 - BUCKET_BITS);
+        for c in 0..MAX_CHANNELS {
+            for b in 0..BUCKETS {
+                let lo = b as u64 * width;
+                let hi = lo + width - 1;
+                let edge_inside = self.gates().iter().any(|g| {
+                    let inside = |x: U0F32| (lo + 1..=hi).contains(&u64::from(x.to_bits()));
+                    usize::from(g.channel) == c && (inside(g.start) || inside(g.end))
+                });
+                let entry = if edge_inside {
+                    BUCKET_MIXED
+                } else {
+                    match self.scan(c as u8, U0F32::from_bits(lo as u32)) {
+                        Lookup::Gate(i) => i,
+                        Lookup::Outside => BUCKET_OUTSIDE,
+                    }
+                };
+                if let Some(e) = self.buckets.get_mut(c).and_then(|r| r.get_mut(b)) {
+                    *e = entry;
+                }
+            }
+        }
     }
 
     /// The gates, sorted by channel then window start.
@@ -254,7 +295,36 @@ impl GateTable {
     }
 
     /// Look a position up on a known channel (unknown channels give [`Lookup::Outside`]).
+    #[inline]
     pub fn lookup(&self, channel: u8, phase: U0F32) -> Lookup {
+        match self.find(channel, phase) {
+            Some((i, _)) => Lookup::Gate(i),
+            None => Lookup::Outside,
+        }
+    }
+
+    /// The gate (index and window) a position on a channel falls in, or `None` outside every
+    /// gate and on unknown channels: [`Self::lookup`] and [`Self::gate`] in one step.
+    #[inline]
+    pub fn find(&self, channel: u8, phase: U0F32) -> Option<(u8, &Gate)> {
+        let bucket = (phase.to_bits() >> (32 - BUCKET_BITS)) as usize;
+        let i = match self
+            .buckets
+            .get(usize::from(channel))
+            .and_then(|r| r.get(bucket))
+        {
+            Some(&BUCKET_OUTSIDE) => return None,
+            Some(&BUCKET_MIXED) | None => match self.scan(channel, phase) {
+                Lookup::Gate(i) => i,
+                Lookup::Outside => return None,
+            },
+            Some(&i) => i,
+        };
+        self.gates.get(usize::from(i)).map(|g| (i, g))
+    }
+
+    /// The channel's windows searched in order (the definition the bucket table is built from).
+    fn scan(&self, channel: u8, phase: U0F32) -> Lookup {
         let Some(&(lo, hi)) = self.ranges.get(usize::from(channel)) else {
             return Lookup::Outside;
         };
@@ -348,6 +418,30 @@ mod tests {
         assert_eq!(gate_of(9, 0.1), None);
         assert_eq!(t.delay_ps(1), Some(120));
         assert_eq!(t.delay_ps(3), None);
+    }
+
+    proptest::proptest! {
+        // The bucket table is a cache of the window search: both agree at every position.
+        #[test]
+        fn bucket_lookup_equals_window_search(c in 0u8..18, x in proptest::prelude::any::<u32>()) {
+            let t = time_bin();
+            let p = U0F32::from_bits(x);
+            proptest::prop_assert_eq!(t.lookup(c, p), t.scan(c, p));
+        }
+    }
+
+    #[test]
+    fn lookup_at_every_window_edge_equals_window_search() {
+        let t = time_bin();
+        for g in t.gates() {
+            for x in [g.start, g.end] {
+                let b = x.to_bits();
+                for p in [b.wrapping_sub(1), b, b.wrapping_add(1)] {
+                    let p = U0F32::from_bits(p);
+                    assert_eq!(t.lookup(g.channel, p), t.scan(g.channel, p), "{p}");
+                }
+            }
+        }
     }
 
     #[test]

@@ -6,7 +6,7 @@
 
 use crate::accounting::{Accounting, AnswerErrors, MultiClickEvents};
 use crate::clock::{Clock, Located, Numbered, SlotPos};
-use crate::gates::{Basis, GateTable, Lookup, MAX_INTENSITIES};
+use crate::gates::{Basis, GateTable, MAX_INTENSITIES};
 use crate::sift::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
     PendingQueue, SiftedBit, SquashRng, Transmitter,
@@ -145,7 +145,7 @@ struct OpenSlot {
 }
 
 /// The whole receiver pipeline with a pending queue of `PENDING` detected slots.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 pub struct Receiver<C: Clock, const PENDING: usize> {
     cfg: ReceiverConfig,
     unwrapper: Unwrapper,
@@ -216,6 +216,11 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     /// The configuration in use.
     pub const fn config(&self) -> &ReceiverConfig {
         &self.cfg
+    }
+
+    /// The time base (counter unwrapping state).
+    pub const fn unwrapper(&self) -> &Unwrapper {
+        &self.unwrapper
     }
 
     /// The clock stage.
@@ -307,6 +312,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     }
 
     /// Process one TDC event and say what was decided for it.
+    #[inline]
     pub fn push(
         &mut self,
         ev: TdcEvent,
@@ -344,20 +350,12 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             }
         };
         trace.slot = Some((pos.slot, pos.phase));
-        let gate = match self.cfg.gates.lookup(det.channel, pos.phase) {
-            Lookup::Gate(i) => i,
-            Lookup::Outside => {
-                self.accounting.outside_gates += 1;
-                trace.stage = Stage::OutsideGates;
-                return trace;
-            }
-        };
-        trace.gate = Some(gate);
-        let Some(&g) = self.cfg.gates.gate(gate) else {
+        let Some((gate, &g)) = self.cfg.gates.find(det.channel, pos.phase) else {
             self.accounting.outside_gates += 1;
             trace.stage = Stage::OutsideGates;
             return trace;
         };
+        trace.gate = Some(gate);
         let z_bit = (g.basis == Basis::Z).then_some(g.bit);
         let slot = match self.clock.number(pos, z_bit) {
             Numbered::Slot(s) => s,
@@ -389,8 +387,11 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
                 o.clicks += 1;
             }
             _ => {
-                // Free what timed out before the closing slot takes a place in the queue.
-                self.expire(pos.slot, key);
+                // Free what timed out before the closing slot takes a place in the queue (with
+                // answers coming at once the queue is usually empty: skip the call then).
+                if !self.pending.is_empty() {
+                    self.expire(pos.slot, key);
+                }
                 self.close_open(tx, key);
                 self.open = Some(OpenSlot {
                     slot: pos.slot,

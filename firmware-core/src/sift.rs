@@ -126,7 +126,7 @@ pub struct Pending {
 }
 
 /// The bounded queue of detected slots, sorted by slot.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 pub struct PendingQueue<const N: usize> {
     q: Deque<Pending, N>,
 }
@@ -176,6 +176,15 @@ impl<const N: usize> PendingQueue<N> {
 
     /// Find the waiting entry for `slot` and mark it answered; returns a copy of it.
     pub fn take(&mut self, slot: u64) -> Option<Pending> {
+        // Slots in the queue are unique and increasing, and an answer usually comes for the
+        // newest entry: try it before searching.
+        if let Some(p) = self.q.back_mut().filter(|p| p.slot == slot) {
+            if p.done {
+                return None;
+            }
+            p.done = true;
+            return Some(*p);
+        }
         let (a, b) = self.q.as_mut_slices();
         let in_b = b.first().is_some_and(|p| p.slot <= slot);
         let half = if in_b { b } else { a };

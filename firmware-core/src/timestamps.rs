@@ -120,6 +120,11 @@ impl UnwrapConfig {
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct Unwrapper {
     cfg: UnwrapConfig,
+    /// The counter's mask, computed once (`cfg.mask()`).
+    mask: u64,
+    /// Largest tick count whose picosecond time fits in 64 bits (u64::MAX / resolution), so the
+    /// hot path multiplies without an overflow-checked 64-bit multiply.
+    max_ticks: u64,
     /// Largest unwrapped tick count so far; `None` before the first event.
     newest_ticks: Option<u64>,
 }
@@ -127,7 +132,14 @@ pub struct Unwrapper {
 impl Unwrapper {
     /// A fresh unwrapper for the given TDC.
     pub const fn new(cfg: UnwrapConfig) -> Self {
+        // resolution_ps ≥ 1 (checked by UnwrapConfig::new), so the division cannot fail.
+        let max_ticks = match u64::MAX.checked_div(cfg.resolution_ps as u64) {
+            Some(m) => m,
+            None => u64::MAX,
+        };
         Self {
+            mask: cfg.mask(),
+            max_ticks,
             cfg,
             newest_ticks: None,
         }
@@ -139,8 +151,9 @@ impl Unwrapper {
     }
 
     /// Place one event on the picosecond time base.
+    #[inline]
     pub fn unwrap(&mut self, ev: TdcEvent) -> Result<Detection, UnwrapError> {
-        let mask = self.cfg.mask();
+        let mask = self.mask;
         if ev.count & !mask != 0 {
             return Err(UnwrapError::CountTooWide);
         }
@@ -162,9 +175,11 @@ impl Unwrapper {
                 }
             }
         };
-        let t_ps = ticks
-            .checked_mul(u64::from(self.cfg.resolution_ps))
-            .ok_or(UnwrapError::Overflow)?;
+        // ticks ≤ u64::MAX / resolution ⇔ ticks·resolution ≤ u64::MAX.
+        if ticks > self.max_ticks {
+            return Err(UnwrapError::Overflow);
+        }
+        let t_ps = ticks.wrapping_mul(u64::from(self.cfg.resolution_ps));
         Ok(Detection {
             t_ps,
             channel: ev.channel,
@@ -175,6 +190,30 @@ impl Unwrapper {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn overflow_exactly_where_the_product_leaves_64_bits() {
+        // 64-bit counter at 3 ps: u64::MAX / 3 ticks fit, one more does not.
+        let cfg = UnwrapConfig::new(64, 3).unwrap();
+        let last = u64::MAX / 3;
+        let mut u = Unwrapper::new(cfg);
+        assert_eq!(
+            u.unwrap(TdcEvent {
+                count: last,
+                channel: 0
+            })
+            .map(|d| d.t_ps),
+            Ok(last * 3)
+        );
+        let mut u = Unwrapper::new(cfg);
+        assert_eq!(
+            u.unwrap(TdcEvent {
+                count: last + 1,
+                channel: 0
+            }),
+            Err(UnwrapError::Overflow)
+        );
+    }
 
     #[test]
     fn rejects_bad_widths() {

@@ -89,13 +89,34 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
     /// Show a capture's header and block statistics, or a key file's blocks, and check every CRC.
     Inspect(InspectArgs),
     /// Benchmarks of the core on simulated links (figures come from here, not from tests).
+    #[command(long_about = "\
+Benchmarks of the core on simulated links; figures come from here, not from tests.
+
+Without a subcommand, `slotwise bench` runs the pipeline benchmark (same as `slotwise bench
+pipeline`): throughput of the whole receiver on three simulated captures (default link, 1 GHz
+high rate, 1e-6 per slot), the read floor, stage shares and scaling tables. `slotwise bench sync`
+is the clock-recovery benchmark.")]
+    Bench(BenchArgs),
+}
+
+/// `slotwise bench`: a subcommand, or the pipeline benchmark's options.
+#[derive(Args, Debug)]
+#[command(args_conflicts_with_subcommands = true)]
+pub struct BenchArgs {
+    /// Which benchmark (default: pipeline).
     #[command(subcommand)]
-    Bench(BenchCommand),
+    pub command: Option<BenchCommand>,
+    /// Options of the pipeline benchmark when no subcommand is given.
+    #[command(flatten)]
+    pub pipeline: crate::bench_pipeline::PipelineArgs,
 }
 
 /// What `slotwise bench` measures.
 #[derive(Subcommand, Debug)]
 pub enum BenchCommand {
+    /// Receiver throughput: detections per second and ns per detection on three simulated
+    /// captures, against the read floor, with stage shares and scaling tables.
+    Pipeline(crate::bench_pipeline::PipelineArgs),
     /// Clock recovery: period error against the Cramér-Rao bound, detections to lock, false locks
     /// on noise, relock after a blackout and a phase jump, cost per detection.
     Sync(crate::bench_sync::BenchSyncArgs),
@@ -269,7 +290,11 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Simulate(a) => simulate(a),
         Command::Replay(a) => replay(a),
         Command::Inspect(a) => inspect(a),
-        Command::Bench(BenchCommand::Sync(a)) => bench_sync(&a),
+        Command::Bench(b) => match b.command {
+            Some(BenchCommand::Sync(a)) => bench_sync(&a),
+            Some(BenchCommand::Pipeline(a)) => bench_pipeline(&a),
+            None => bench_pipeline(&b.pipeline),
+        },
     }
 }
 
@@ -772,6 +797,16 @@ fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
     } else {
         emit(a.json, &capture::inspect(&a.capture)?)
     }
+}
+
+fn bench_pipeline(a: &crate::bench_pipeline::PipelineArgs) -> Result<(), AnyErr> {
+    if a.count_only {
+        for line in crate::bench_pipeline::count_only(a)? {
+            println!("{line}");
+        }
+        return Ok(());
+    }
+    emit(a.json, &crate::bench_pipeline::run(a)?)
 }
 
 fn bench_sync(a: &crate::bench_sync::BenchSyncArgs) -> Result<(), AnyErr> {

@@ -33,7 +33,7 @@ pub enum ClockMode {
 }
 
 /// The clock stage as the host runs it.
-#[derive(Debug)]
+#[derive(Clone, Debug)]
 pub enum HostClock {
     /// Fixed by configuration; marker slots (when the scenario has a marker) are excluded.
     Reference(FixedClock, Option<MarkerSpec>),
