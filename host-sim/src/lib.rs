@@ -7,6 +7,7 @@ pub mod capture;
 pub mod cli;
 pub mod clocks;
 pub mod csv_io;
+pub mod keyrate;
 pub mod marker;
 pub mod plots;
 pub mod replay;
