@@ -71,6 +71,9 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
     Replay(ReplayArgs),
     /// Show a capture's header and block statistics and check every CRC.
     Inspect(InspectArgs),
+    /// Secret-key-rate estimate from a summary's tallies (an estimate, not a certification).
+    #[command(long_about = crate::keyrate::cmd::LONG_ABOUT)]
+    Keyrate(crate::keyrate::cmd::KeyrateArgs),
     /// Benchmarks of the core on simulated links (figures come from here, not from tests).
     #[command(subcommand)]
     Bench(BenchCommand),
@@ -171,6 +174,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Simulate(a) => simulate(a),
         Command::Replay(a) => replay(a),
         Command::Inspect(a) => inspect(a),
+        Command::Keyrate(a) => crate::keyrate::cmd::run(&a),
         Command::Bench(BenchCommand::Sync(a)) => bench_sync(&a),
     }
 }
@@ -309,6 +313,7 @@ pub fn run_simulated(
         Some(model_qber(s)),
         started.elapsed().as_secs_f64(),
     );
+    let summary = summary.with_scenario(s);
     Ok((summary, res))
 }
 
@@ -344,6 +349,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         usize::from(cfg.gates().channels()),
     )?);
     print!("{summary}");
+    println!("{}", crate::keyrate::cmd::demo_line(&summary, &s));
     println!(
         "capture replay {} (the written capture replays to the same counters)",
         if same { "identical" } else { "DIFFERENT" }
@@ -480,7 +486,8 @@ pub fn replay_capture(
         None,
         None,
         started.elapsed().as_secs_f64(),
-    );
+    )
+    .with_scenario(s);
     if let Some(dir) = plots_dir {
         std::fs::create_dir_all(dir)?;
         let mut files = plots::fold_profile(

@@ -92,6 +92,17 @@ pub struct Summary {
     pub tally: BTreeMap<String, u64>,
     /// Wall-clock seconds the replay took, and detections per second.
     pub run: BTreeMap<&'static str, f64>,
+    /// The scenario of the link as TOML text (what `slotwise keyrate` reads its protocol from).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub scenario: Option<String>,
+}
+
+impl Summary {
+    /// The same summary with the link's scenario recorded.
+    pub fn with_scenario(mut self, s: &crate::scenario::Scenario) -> Self {
+        self.scenario = Some(s.to_toml_string());
+        self
+    }
 }
 
 /// Build the summary of a finished session.
@@ -214,6 +225,7 @@ pub fn summarize<T: Transmitter>(
         ]
         .into_iter()
         .collect(),
+        scenario: None,
     }
 }
 

@@ -17,6 +17,7 @@
 
 pub mod asymptotic;
 pub mod channel;
+pub mod cmd;
 pub mod entropy;
 pub mod finite_lim;
 pub mod observed;

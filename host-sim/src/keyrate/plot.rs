@@ -1,6 +1,6 @@
 //! The rate-versus-fibre-length picture with the measured operating point marked.
 
-use super::report::{CurvePoint, Estimate};
+use super::report::{CurvePoint, Estimate, Estimator};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use std::path::Path;
@@ -61,11 +61,14 @@ where
             series(|p| p.bits_per_pulse),
             blue.stroke_width(2),
         ))?
-        .label(format!(
-            "{} on model counts, N = {:.1e}",
-            est.estimator.name(),
-            est.pulses
-        ))
+        .label(match est.estimator {
+            Estimator::FiniteLim | Estimator::OneDecoy => format!(
+                "{} on model counts, N = {:.1e}",
+                est.estimator.name(),
+                est.pulses
+            ),
+            _ => format!("{} on model counts", est.estimator.name()),
+        })
         .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], blue.stroke_width(2)));
     if est.bits_per_pulse > 0.0 {
         let red = RGBColor(214, 39, 40);
@@ -95,11 +98,13 @@ pub fn rate_vs_distance(
     title: &str,
 ) -> Result<(), DynErr> {
     let size = (900, 600);
+    // Text layout needs the registered font on either backend.
+    let font = crate::plots::font_ready();
     if path
         .extension()
         .is_some_and(|e| e.eq_ignore_ascii_case("png"))
     {
-        if !crate::plots::font_ready() {
+        if !font {
             return Err(format!(
                 "{}: PNG text needs a TrueType font (set SLOTWISE_FONT) — or ask for .svg",
                 path.display()

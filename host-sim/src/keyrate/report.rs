@@ -265,11 +265,15 @@ impl std::fmt::Display for Estimate {
         writeln!(f, "terms (bit/pulse):")?;
         writeln!(f, "  vacuum detections       +{}", sci(t.vacuum))?;
         writeln!(f, "  single-photon bound     +{}", sci(t.single_photon))?;
+        let phase = if t.phase_error.is_finite() {
+            format!("phase error bound {:.3} %", 100.0 * t.phase_error)
+        } else {
+            "no phase-error bound: too few test-basis counts".to_string()
+        };
         writeln!(
             f,
-            "  phase error cost        -{}   (phase error bound {:.3} %)",
+            "  phase error cost        -{}   ({phase})",
             sci(t.phase_error_cost),
-            100.0 * t.phase_error
         )?;
         writeln!(
             f,
