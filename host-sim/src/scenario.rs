@@ -111,6 +111,9 @@ pub struct Scenario {
     /// 64th slot is vacuum or a Z pulse at the signal intensity, and carries no key.
     #[serde(default = "default_true")]
     pub marker: bool,
+    /// The light source (default: an attenuated laser); see `docs/scenario.md`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub source: Option<crate::sim::SourceSpec>,
 }
 
 fn default_true() -> bool {
@@ -457,6 +460,28 @@ impl Scenario {
             }
             if let Some(x) = d.iter().find(|x| x.unsigned_abs() > 1_000_000) {
                 return Err(c.err("channel_delays_ps", format!("{x} ps exceeds ±1 µs")));
+            }
+        }
+        if let Some(src) = &self.source {
+            if !(src.g2.is_finite() && (0.0..=1.0).contains(&src.g2)) {
+                return Err(c.err("g2", format!("must lie in [0,1], got {}", src.g2)));
+            }
+            if let Some(w) = src.wavelength_nm {
+                c.range("wavelength_nm", w, Closed(300.0), Closed(2000.0))?;
+            }
+            if src.kind == crate::sim::SourceKind::SinglePhoton {
+                if let Some(mu) = self
+                    .intensities
+                    .iter()
+                    .find(|&&mu| mu > 1.0 || mu * src.g2 > 1.0)
+                {
+                    return Err(c.err(
+                        "intensities",
+                        format!(
+                            "a single-photon source needs μ ≤ 1 and μ·g2 ≤ 1 per class, got μ = {mu}"
+                        ),
+                    ));
+                }
             }
         }
         let earliest = crate::sim::earliest_click_offset_ps(self);

@@ -16,9 +16,11 @@
 //! 1979). Both steps are exact. Memory stays bounded: only clicks not yet emitted are held.
 
 pub mod clock;
+pub mod hbt;
 pub mod model;
 pub mod optics;
 pub mod rng;
+pub mod source;
 pub mod tx;
 
 pub use clock::TxClock;
@@ -26,6 +28,7 @@ pub use model::{channel_model, ChannelModel, IntensityModel};
 pub use optics::{
     channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, receiver_gates, GateSpec,
 };
+pub use source::{Source, SourceKind, SourceSpec};
 pub use tx::{SimTransmitter, TxChoice, TxChoices};
 
 use crate::scenario::Scenario;
@@ -139,7 +142,14 @@ pub struct Simulator {
     end_ps: f64,
     /// μ·η per intensity class.
     mean_detected: Vec<f64>,
-    /// μ_max·η.
+    /// Photon-number statistics of the source.
+    source: Source,
+    /// Mean photon number μ per intensity class and the transmittance η.
+    mus: Vec<f64>,
+    eta: f64,
+    /// Per intensity class: probability that a pulse has at least one detected photon.
+    click_prob: Vec<f64>,
+    /// −ln(1 − p_max) with p_max the largest of `click_prob` (μ_max·η for the laser).
     mean_max: f64,
     skews_ps: Vec<f64>,
     dead_ps: f64,
@@ -169,7 +179,18 @@ impl Simulator {
         let slots = s.slots();
         let eta = s.eta();
         let mean_detected: Vec<f64> = s.intensities.iter().map(|mu| mu * eta).collect();
-        let mean_max = mean_detected.iter().copied().fold(0.0, f64::max);
+        let source = Source::from_spec(s.source.as_ref());
+        let click_prob: Vec<f64> = s
+            .intensities
+            .iter()
+            .map(|&mu| source.click_prob(mu, eta))
+            .collect();
+        let mean_max = match source {
+            Source::Laser => mean_detected.iter().copied().fold(0.0, f64::max),
+            Source::SinglePhoton { .. } => {
+                -(-click_prob.iter().copied().fold(0.0, f64::max)).ln_1p()
+            }
+        };
         let channels = channels(s);
         let skews_ps = s.delays_ps().iter().map(|&d| d as f64).collect();
         let mut sim = Self {
@@ -178,6 +199,10 @@ impl Simulator {
             clock,
             slots,
             mean_detected,
+            source,
+            mus: s.intensities.clone(),
+            eta,
+            click_prob,
             mean_max,
             skews_ps,
             dead_ps: s.dead_time_ns * 1e3,
@@ -280,20 +305,21 @@ impl Simulator {
         let k = self.next_slot;
         self.stats.candidate_slots += 1;
         let choice = self.tx.choice(k);
-        let mean = self
-            .mean_detected
-            .get(usize::from(choice.intensity))
-            .copied()
-            .unwrap_or(0.0);
-        let keep = -(-mean).exp_m1() / -(-self.mean_max).exp_m1();
+        let i = usize::from(choice.intensity);
+        let p = match self.source {
+            Source::Laser => -(-self.mean_detected.get(i).copied().unwrap_or(0.0)).exp_m1(),
+            Source::SinglePhoton { .. } => self.click_prob.get(i).copied().unwrap_or(0.0),
+        };
+        let keep = p / -(-self.mean_max).exp_m1();
         if self.skip_rng.uniform() < keep {
-            self.emit_pulse(k, choice, mean);
+            let mu = self.mus.get(i).copied().unwrap_or(0.0);
+            self.emit_pulse(k, choice, mu);
         }
         self.next_slot = self.skip_from(k + 1);
         self.update_frontier();
     }
 
-    fn emit_pulse(&mut self, k: u64, choice: TxChoice, mean: f64) {
+    fn emit_pulse(&mut self, k: u64, choice: TxChoice, mu: f64) {
         self.stats.detected_pulses += 1;
         let (encoding, p_z, e_d) = (
             self.scenario.encoding,
@@ -302,7 +328,7 @@ impl Simulator {
         );
         let jitter_ps = self.scenario.jitter_ps;
         let mut rng = Stream::from_state(splitmix_at(self.photon_key, k));
-        let n = rng.poisson_nonzero(mean);
+        let n = self.source.draw_nonzero(mu, self.eta, &mut rng);
         self.stats.photons += u64::from(n);
         self.hits.clear();
         for _ in 0..n {

@@ -64,9 +64,10 @@ pub struct KeyrateArgs {
     /// Correctness parameter ε_cor of the finite-key bounds.
     #[arg(long, default_value_t = 1e-15)]
     pub eps_cor: f64,
-    /// g2(0) of the source, for `--estimator sps`.
-    #[arg(long, default_value_t = 1.0)]
-    pub g2: f64,
+    /// g2(0) of the source, for `--estimator sps` (default: the scenario's single-photon source,
+    /// else 1, the value of laser light).
+    #[arg(long)]
+    pub g2: Option<f64>,
     /// Draw the rate against fibre length for the scenario's hardware (.svg, or .png).
     #[arg(long)]
     pub vs_distance: Option<PathBuf>,
@@ -98,7 +99,8 @@ fn recorded_scenario(v: &serde_json::Value, source: &str) -> Result<Scenario, An
 }
 
 /// Check ranges of the numeric options, naming the option.
-fn check_params(a: &KeyrateArgs) -> Result<Params, AnyErr> {
+fn check_params(a: &KeyrateArgs, s: &Scenario) -> Result<Params, AnyErr> {
+    let g2 = a.g2.unwrap_or_else(|| default_g2(s));
     let open01 = |name: &str, v: f64| -> Result<(), AnyErr> {
         if v > 0.0 && v < 1.0 {
             Ok(())
@@ -111,8 +113,8 @@ fn check_params(a: &KeyrateArgs) -> Result<Params, AnyErr> {
     if !(a.f_ec >= 1.0 && a.f_ec.is_finite()) {
         return Err(format!("--f-ec: must be ≥ 1, got {}", a.f_ec).into());
     }
-    if !(a.g2 >= 0.0 && a.g2.is_finite()) {
-        return Err(format!("--g2: must be ≥ 0, got {}", a.g2).into());
+    if !(g2 >= 0.0 && g2.is_finite()) {
+        return Err(format!("--g2: must be ≥ 0, got {g2}").into());
     }
     if a.step_km.is_nan() || a.step_km <= 0.0 {
         return Err(format!("--step-km: must be > 0, got {}", a.step_km).into());
@@ -123,8 +125,16 @@ fn check_params(a: &KeyrateArgs) -> Result<Params, AnyErr> {
             sec: a.eps_sec,
             cor: a.eps_cor,
         },
-        g2: a.g2,
+        g2,
     })
+}
+
+/// g2(0) of the scenario's single-photon source, else 1 (laser light).
+pub fn default_g2(s: &Scenario) -> f64 {
+    match s.source {
+        Some(src) if src.kind == crate::sim::SourceKind::SinglePhoton => src.g2,
+        _ => 1.0,
+    }
 }
 
 /// Estimate from an already parsed summary (`source` names it in errors).
@@ -160,7 +170,10 @@ pub fn demo_line(summary: &Summary, s: &Scenario) -> String {
         Ok(v) => v,
         Err(e) => return format!("key rate       n/a ({e})"),
     };
-    let p = Params::default();
+    let p = Params {
+        g2: default_g2(s),
+        ..Params::default()
+    };
     let one = |e: Option<Estimator>| match estimate_from_summary(&v, "demo", s, None, e, &p) {
         Ok(e) if e.bits_per_pulse > 0.0 => format!(
             "{}: {:.3e} bit/pulse, {:.3e} bit/s, limited by {}",
@@ -177,13 +190,16 @@ pub fn demo_line(summary: &Summary, s: &Scenario) -> String {
         ),
         Err(err) => format!("n/a ({err})"),
     };
+    let classes = s.intensities.len();
+    let lines = if Estimator::for_classes(classes) == Estimator::Asymptotic || classes < 2 {
+        one(None)
+    } else {
+        format!("{}; {}", one(Some(Estimator::Asymptotic)), one(None))
+    };
     format!(
-        "key rate       {}; {} (f {}, ε_sec {:.0e}) — an estimate, not a security certification; \
-         details: slotwise keyrate",
-        one(Some(Estimator::Asymptotic)),
-        one(None),
-        p.f_ec,
-        p.eps.sec
+        "key rate       {lines} (f {}, ε_sec {:.0e}) — an estimate, not a security \
+         certification; details: slotwise keyrate",
+        p.f_ec, p.eps.sec
     )
 }
 
@@ -209,7 +225,7 @@ pub fn run(a: &KeyrateArgs) -> Result<(), AnyErr> {
         s.rep_rate_hz = r;
     }
     s.validate("command-line options (--mu, --p-mu, --p-z, --rep-rate-hz)")?;
-    let p = check_params(a)?;
+    let p = check_params(a, &s)?;
     let est = estimate_from_summary(&v, &source, &s, a.pulses, a.estimator, &p)?;
     print!("{est}");
     let curve = match &a.vs_distance {

@@ -25,10 +25,11 @@ pub enum Estimator {
 }
 
 impl Estimator {
-    /// The finite-key estimator that fits the number of intensity classes (2: one-decoy,
-    /// 3: Lim et al.), else the asymptotic one.
+    /// The estimator that fits the number of intensity classes (1: the g2(0) source bound,
+    /// 2: one-decoy, 3: Lim et al.), else the asymptotic one.
     pub fn for_classes(n: usize) -> Self {
         match n {
+            1 => Self::Sps,
             2 => Self::OneDecoy,
             3 => Self::FiniteLim,
             _ => Self::Asymptotic,
