@@ -23,10 +23,12 @@
 //! 5. [`frame`] — frame alignment: a public marker (every 64th slot, vacuum or a Z pulse by two
 //!    m-sequences) gives the transmitter's absolute slot numbers; marker slots are never sifted.
 //! 6. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
-//!    express time-bin and polarization receivers alike.
+//!    express time-bin and polarization receivers alike; optionally a photon-number level in the
+//!    upper bits of the channel byte (photon-number-resolving detectors).
 //! 7. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
-//! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
+//! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER;
+//!    multi-photon slots per intensity class.
 //! 9. [`accounting`] — every detection ends in exactly one counter.
 //! 10. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
 //!     COBS-stuffed records for the post-processing host.
@@ -80,6 +82,6 @@ pub use recovered::{RecoveredClock, RecoveredConfig};
 pub use sift::{
     Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftedBit, Transmitter,
 };
-pub use tally::Tally;
+pub use tally::{MultiPhoton, Tally};
 pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
 pub use track::{LockState, TrackConfig, TrackParams, Tracker};

@@ -11,7 +11,7 @@ use crate::sift::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
     PendingQueue, SiftedBit, SquashRng, Transmitter,
 };
-use crate::tally::Tally;
+use crate::tally::{MultiPhoton, Tally};
 use crate::timestamps::{TdcEvent, UnwrapConfig, Unwrapper};
 use core::fmt;
 use fixed::types::U0F32;
@@ -125,8 +125,10 @@ pub enum Stage {
 pub struct Trace {
     /// Unwrapped time in ps (before the channel delay), when the time base accepted it.
     pub t_ps: Option<u64>,
-    /// TDC channel.
+    /// Detector channel (the channel byte without its photon-number level).
     pub channel: u8,
+    /// Photon-number level the detection reported (1 from threshold detectors).
+    pub level: u8,
     /// Slot and position, when the clock gave them.
     pub slot: Option<(u64, U0F32)>,
     /// Gate index, when inside a gate.
@@ -142,6 +144,7 @@ struct OpenSlot {
     basis: Basis,
     bit: u8,
     clicks: u32,
+    photons: u8,
 }
 
 /// The whole receiver pipeline with a pending queue of `PENDING` detected slots.
@@ -161,6 +164,7 @@ pub struct Receiver<C: Clock, const PENDING: usize> {
     answer_errors: AnswerErrors,
     tally: Tally,
     multi_tally: Tally,
+    multi_photon: MultiPhoton,
     sifted_bits: u64,
 }
 
@@ -189,6 +193,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             },
             tally: Tally::new(),
             multi_tally: Tally::new(),
+            multi_photon: MultiPhoton::new(),
             sifted_bits: 0,
             cfg,
         }
@@ -232,6 +237,11 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     /// Tally of squashed multi-click slots.
     pub const fn multi_click_tally(&self) -> &Tally {
         &self.multi_tally
+    }
+
+    /// Answered slots with two or more photons detected, per intensity class.
+    pub const fn multi_photon(&self) -> &MultiPhoton {
+        &self.multi_photon
     }
 
     /// Sifted bits produced (single and squashed multi-click).
@@ -278,9 +288,11 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         key: &mut impl KeySink,
     ) -> Trace {
         self.detections_in += 1;
+        let (channel, level) = self.cfg.gates.split_channel(ev.channel);
         let mut trace = Trace {
             t_ps: None,
-            channel: ev.channel,
+            channel,
+            level,
             slot: None,
             gate: None,
             stage: Stage::RejectedTime,
@@ -290,7 +302,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             return trace;
         };
         trace.t_ps = Some(det.t_ps);
-        let Some(delay) = self.cfg.gates.delay_ps(det.channel) else {
+        let Some(delay) = self.cfg.gates.delay_ps(channel) else {
             self.accounting.rejected_channel += 1;
             trace.stage = Stage::RejectedChannel;
             return trace;
@@ -299,7 +311,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             self.accounting.rejected_time += 1;
             return trace;
         };
-        let pos = match self.clock.locate_on(det.channel, t) {
+        let pos = match self.clock.locate_on(channel, t) {
             Located::At(p) => p,
             Located::BeforeOrigin | Located::NotLocked => {
                 self.accounting.no_clock += 1;
@@ -308,7 +320,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             }
         };
         trace.slot = Some((pos.slot, pos.phase));
-        let gate = match self.cfg.gates.lookup(det.channel, pos.phase) {
+        let gate = match self.cfg.gates.lookup(channel, pos.phase) {
             Lookup::Gate(i) => i,
             Lookup::Outside => {
                 self.accounting.outside_gates += 1;
@@ -351,6 +363,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             Some(o) if o.slot == pos.slot => {
                 o.mask |= click_bit(g.basis, g.bit);
                 o.clicks += 1;
+                o.photons = o.photons.saturating_add(level);
             }
             _ => {
                 // Free what timed out before the closing slot takes a place in the queue.
@@ -362,6 +375,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
                     basis: g.basis,
                     bit: g.bit,
                     clicks: 1,
+                    photons: level,
                 });
             }
         }
@@ -391,6 +405,8 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             &mut self.tally
         };
         tally.add(a.basis, a.bit, a.intensity, p.basis, p.bit);
+        self.multi_photon
+            .add(a.intensity, p.photons, p.multi_click, a.basis == p.basis);
         let outcome = if a.basis == p.basis {
             self.sifted_bits += 1;
             key.sifted(SiftedBit {
@@ -473,6 +489,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             basis,
             bit,
             multi_click,
+            photons: o.photons,
             done: false,
         };
         if self.pending.is_full() {
@@ -513,9 +530,10 @@ impl defmt::Format for Trace {
         let (slot, phase) = self.slot.map(|(s, p)| (s, p.to_bits())).unzip();
         defmt::write!(
             f,
-            "Trace {{ t_ps: {}, channel: {=u8}, slot: {}, phase_q0_32: {}, gate: {}, stage: {} }}",
+            "Trace {{ t_ps: {}, channel: {=u8}, level: {=u8}, slot: {}, phase_q0_32: {}, gate: {}, stage: {} }}",
             self.t_ps,
             self.channel,
+            self.level,
             slot,
             phase,
             self.gate,

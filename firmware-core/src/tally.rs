@@ -128,6 +128,47 @@ impl Tally {
     }
 }
 
+/// Answered slots in which at least two photons were detected (several clicks, or one click
+/// reporting a photon-number level of two or more), per intensity class.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct MultiPhoton {
+    /// All such slots, `slots[intensity]`.
+    pub slots: [u64; MAX_INTENSITIES],
+    /// Of those, the ones whose photons all fell into one outcome (one click, level ≥ 2).
+    pub one_outcome: [u64; MAX_INTENSITIES],
+    /// Of those, the ones that gave a sifted bit (matched basis).
+    pub sifted: [u64; MAX_INTENSITIES],
+}
+
+impl MultiPhoton {
+    /// An empty tally.
+    pub const fn new() -> Self {
+        Self {
+            slots: [0; MAX_INTENSITIES],
+            one_outcome: [0; MAX_INTENSITIES],
+            sifted: [0; MAX_INTENSITIES],
+        }
+    }
+
+    /// Count one answered slot of `photons` detected photons (ignored below two).
+    pub fn add(&mut self, intensity: u8, photons: u8, multi_click: bool, sifted: bool) {
+        if photons < 2 {
+            return;
+        }
+        let i = usize::from(intensity);
+        for (counter, yes) in [
+            (&mut self.slots, true),
+            (&mut self.one_outcome, !multi_click),
+            (&mut self.sifted, sifted),
+        ] {
+            if let Some(c) = counter.get_mut(i).filter(|_| yes) {
+                *c += 1;
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
