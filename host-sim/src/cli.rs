@@ -198,6 +198,11 @@ pub fn receiver_setup(
 ) -> Result<(ReceiverConfig, HostClock), AnyErr> {
     let (delays, gates) = sim::receiver_gates(s);
     let table = slotwise::GateTable::new(&delays, &gates)?;
+    let table = if s.pnr.is_some() {
+        table.with_photon_levels()
+    } else {
+        table
+    };
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
     let timeout_slots = (s.rep_rate_hz * 0.01).max(1.0) as u64;
     let cfg = ReceiverConfig::new(
@@ -228,7 +233,7 @@ fn progress(total: u64, what: &str) -> ProgressBar {
 
 fn capture_header(s: &Scenario) -> Result<CaptureHeader, AnyErr> {
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
-    Ok(CaptureHeader::new(tdc, sim::channels(s))
+    Ok(CaptureHeader::new(tdc, sim::pnr::capture_channel_count(s))
         .with_metadata(s.to_toml_string())
         .with_flags(capture::FLAG_SIMULATED))
 }

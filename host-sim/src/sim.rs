@@ -19,6 +19,7 @@ pub mod clock;
 pub mod hbt;
 pub mod model;
 pub mod optics;
+pub mod pnr;
 pub mod rng;
 pub mod source;
 pub mod tx;
@@ -28,6 +29,7 @@ pub use model::{channel_model, ChannelModel, IntensityModel};
 pub use optics::{
     channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, receiver_gates, GateSpec,
 };
+pub use pnr::PnrSpec;
 pub use source::{Source, SourceKind, SourceSpec};
 pub use tx::{SimTransmitter, TxChoice, TxChoices};
 
@@ -98,6 +100,8 @@ pub struct SimStats {
     pub emitted: [u64; 3],
     /// Afterpulses that would fall after the end of the run (not generated).
     pub afterpulses_after_end: u64,
+    /// Photons lost on recovering pixels of photon-number-resolving detectors.
+    pub pixel_recovery_lost: u64,
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -106,6 +110,8 @@ struct Candidate {
     detector: u8,
     kind: Kind,
     slot: Option<u64>,
+    /// Photon-number level (1 unless the detector resolves photon numbers).
+    level: u8,
 }
 
 impl PartialEq for Candidate {
@@ -170,6 +176,8 @@ pub struct Simulator {
     stats: SimStats,
     /// Scratch for merging the photons of one pulse into clicks.
     hits: Vec<optics::Hit>,
+    /// Pixel states per detector, for photon-number-resolving detectors.
+    pixels: Option<Vec<pnr::Pixels>>,
 }
 
 impl Simulator {
@@ -231,6 +239,10 @@ impl Simulator {
                 ..SimStats::default()
             },
             hits: Vec::new(),
+            pixels: s
+                .pnr
+                .as_ref()
+                .map(|p| (0..channels).map(|_| pnr::Pixels::new(p)).collect()),
             scenario: s.clone(),
         };
         for d in 0..channels {
@@ -331,9 +343,11 @@ impl Simulator {
         let n = self.source.draw_nonzero(mu, self.eta, &mut rng);
         self.stats.photons += u64::from(n);
         self.hits.clear();
+        let resolving = self.pixels.is_some();
         for _ in 0..n {
             let h = optics::route(encoding, p_z, e_d, choice, &mut rng);
-            if !self.hits.contains(&h) {
+            // Threshold detectors merge photons at one outcome; pixels need every photon.
+            if resolving || !self.hits.contains(&h) {
                 self.hits.push(h);
             }
         }
@@ -344,6 +358,22 @@ impl Simulator {
             let Some(h) = self.hits.get(i).copied() else {
                 continue;
             };
+            let mut level = 1u8;
+            if let Some(px) = self.pixels.as_mut() {
+                if i > 0 && self.hits.get(i - 1) == Some(&h) {
+                    continue;
+                }
+                let photons = self.hits.iter().skip(i).take_while(|&&x| x == h).count() as u32;
+                let t_nominal = start + optics::position_fraction(encoding, h.pos) * period;
+                let fired = px
+                    .get_mut(usize::from(h.detector))
+                    .map_or(photons, |p| p.fire(photons, t_nominal, &mut rng));
+                self.stats.pixel_recovery_lost += u64::from(photons - fired);
+                if fired == 0 {
+                    continue;
+                }
+                level = fired.min(u32::from(slotwise::gates::MAX_LEVEL)) as u8;
+            }
             let skew = self
                 .skews_ps
                 .get(usize::from(h.detector))
@@ -356,6 +386,7 @@ impl Simulator {
                 detector: h.detector,
                 kind: Kind::Signal,
                 slot: Some(k),
+                level,
             });
         }
     }
@@ -381,6 +412,7 @@ impl Simulator {
                 detector: d,
                 kind: Kind::Dark,
                 slot: None,
+                level: 1,
             });
         }
     }
@@ -419,7 +451,11 @@ impl Simulator {
             return Some(SimEvent {
                 event: TdcEvent {
                     count: self.tdc_count(c.t_ps),
-                    channel: c.detector,
+                    channel: if self.pixels.is_some() {
+                        slotwise::gates::level_channel(c.detector, c.level)
+                    } else {
+                        c.detector
+                    },
                 },
                 truth: Truth {
                     true_t_ps: c.t_ps,
@@ -446,6 +482,7 @@ impl Simulator {
                 detector: c.detector,
                 kind: Kind::Afterpulse,
                 slot: None,
+                level: 1,
             });
         } else {
             self.stats.afterpulses_after_end += 1;
