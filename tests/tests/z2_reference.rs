@@ -74,40 +74,10 @@ struct Set {
 
 /// Python with numpy in `<target>/tmp/py-z2`, or why not.
 fn numpy_python() -> Result<PathBuf, String> {
-    let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join("py-z2");
-    let py = dir.join("bin").join("python");
-    if !py.exists() {
-        let st = Command::new("python3")
-            .args(["-m", "venv"])
-            .arg(&dir)
-            .output()
-            .map_err(|e| format!("python3 not runnable: {e}"))?;
-        if !st.status.success() {
-            return Err(format!(
-                "python3 -m venv failed: {}",
-                String::from_utf8_lossy(&st.stderr).trim()
-            ));
-        }
-    }
-    let has = |py: &Path| {
-        Command::new(py)
-            .args(["-c", "import numpy"])
-            .output()
-            .is_ok_and(|o| o.status.success())
-    };
-    if !has(&py) {
-        let st = Command::new(&py)
-            .args(["-m", "pip", "install", "--quiet", "numpy"])
-            .output()
-            .map_err(|e| format!("pip not runnable: {e}"))?;
-        if !st.status.success() || !has(&py) {
-            return Err(format!(
-                "pip install numpy failed: {}",
-                String::from_utf8_lossy(&st.stderr).trim()
-            ));
-        }
-    }
-    Ok(py)
+    slotwise_tests::python_with(
+        &Path::new(env!("CARGO_TARGET_TMPDIR")).join("py-z2"),
+        "numpy",
+    )
 }
 
 /// The default bench link's first `n` delay-corrected detections and its true frequency, Q0.64
