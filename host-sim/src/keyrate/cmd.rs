@@ -240,7 +240,16 @@ pub fn run(a: &KeyrateArgs) -> Result<(), AnyErr> {
                     s.name, s.extra_loss_db
                 ),
             )?;
-            if let Some(last) = c.iter().rev().find(|p| p.bits_per_pulse.is_some()) {
+            let reach = c.iter().rev().find(|p| p.bits_per_pulse.is_some());
+            if reach.is_none() {
+                println!(
+                    "curve          {} on the channel model's counts: no key at any fibre length \
+                     for N = {:.2e} pulses",
+                    est.estimator.name(),
+                    est.pulses
+                );
+            }
+            if let Some(last) = reach {
                 println!(
                     "curve          {} on the channel model's counts: key up to {} km of fibre \
                      (+{} dB extra loss)",

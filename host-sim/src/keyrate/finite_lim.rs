@@ -164,12 +164,17 @@ pub fn lim_key(o: &Observed, eps: Epsilons, f_ec: f64) -> Result<Bound, Estimato
                 qber_key: o.qber(Z),
                 epsilon_terms: eps_terms / n,
                 statistical_penalty: 0.0,
+                phase_error_finite: None,
             },
         ))
     };
-    let (l, mut terms) = len(true)?;
-    let (l_inf, _) = len(false)?;
-    terms.statistical_penalty = (l_inf - l) / o.pulses - terms.epsilon_terms;
+    // The terms are those of the same counts without fluctuations, so that they add up with the
+    // finite-size penalty (ε terms + fluctuations) to the finite key length.
+    let (l, finite) = len(true)?;
+    let (l_inf, mut terms) = len(false)?;
+    terms.epsilon_terms = finite.epsilon_terms;
+    terms.statistical_penalty = (l_inf - l) / o.pulses - finite.epsilon_terms;
+    terms.phase_error_finite = Some(finite.phase_error);
     Ok(Bound {
         bits_per_pulse: l / o.pulses,
         terms,

@@ -46,11 +46,15 @@ pub const X: usize = 1;
 #[derive(Clone, Debug, Default, PartialEq, serde::Serialize)]
 pub struct Terms {
     /// Lower bound on key-basis detections from vacuum pulses (s_Z,0 / N), bits per pulse.
+    /// Finite-key estimators give these terms for their counts without fluctuations; the
+    /// finite-size penalty holds the rest, so the terms add up to the key.
     pub vacuum: f64,
     /// Lower bound on key-basis detections from single photons (Q1 or s_Z,1 / N), per pulse.
     pub single_photon: f64,
     /// Upper bound on the single-photon phase error rate (e1 or φ_Z), fraction.
     pub phase_error: f64,
+    /// The phase-error bound with its statistical fluctuation (finite-key estimators), fraction.
+    pub phase_error_finite: Option<f64>,
     /// Privacy-amplification cost of the phase error, single_photon · h(phase_error), per pulse.
     pub phase_error_cost: f64,
     /// Error-correction leakage f·n_Z·h(E_Z) / N, bits per pulse.

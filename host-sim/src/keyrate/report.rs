@@ -283,9 +283,16 @@ impl std::fmt::Display for Estimate {
             self.params.f_ec,
             100.0 * t.qber_key
         )?;
+        let phi = match t.phase_error_finite {
+            Some(p) if p.is_finite() => {
+                format!("; phase error bound with fluctuations {:.3} %", 100.0 * p)
+            }
+            Some(_) => "; no phase-error bound with fluctuations".to_string(),
+            None => String::new(),
+        };
         writeln!(
             f,
-            "  finite size             -{}   (ε terms {}, fluctuations {})",
+            "  finite size             -{}   (ε terms {}, fluctuations {}{phi})",
             sci(t.epsilon_terms + t.statistical_penalty),
             sci(t.epsilon_terms),
             sci(t.statistical_penalty)

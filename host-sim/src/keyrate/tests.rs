@@ -145,3 +145,24 @@ fn one_decoy_tends_to_the_asymptotic_rate() {
     // asymptote well below (about 0.6 of) the infinite-decoy rate here.
     assert!(no_fluct(&b) <= inf && no_fluct(&b) > 0.5 * inf);
 }
+
+#[test]
+fn printed_terms_add_up_to_the_key() {
+    let add = |b: &super::Bound| {
+        let t = &b.terms;
+        t.vacuum + t.single_photon
+            - t.phase_error_cost
+            - t.ec_leakage
+            - t.epsilon_terms
+            - t.statistical_penalty
+    };
+    let o2 = lim_model(&[0.5, 0.15], &[0.7, 0.3], 0.9, 30.0, 1e10);
+    let o3 = lim_model(&[0.5, 0.1, 0.0], &[0.8, 0.1, 0.1], 0.9, 30.0, 1e11);
+    for b in [
+        rusca_key(&o2, EPS, 1.16).unwrap(),
+        lim_key(&o3, EPS, 1.16).unwrap(),
+        super::asymptotic::decoy_rate(&o3, 1.16).unwrap(),
+    ] {
+        assert!((add(&b) - b.bits_per_pulse).abs() < 1e-12, "{b:?}");
+    }
+}
