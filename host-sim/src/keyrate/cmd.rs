@@ -314,4 +314,43 @@ mod tests {
             .to_string();
         assert!(e.contains("x.json") && e.contains("'tally'"), "{e}");
     }
+
+    #[test]
+    fn run_writes_plot_and_json_with_the_caution() {
+        let dir = std::env::temp_dir().join(format!("slotwise-keyrate-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let summary = dir.join("summary.json");
+        std::fs::write(&summary, DEMO).unwrap();
+        let a = KeyrateArgs {
+            summary,
+            scenario: None,
+            estimator: Some(Estimator::Asymptotic),
+            mu: None,
+            p_mu: None,
+            p_z: None,
+            rep_rate_hz: None,
+            pulses: None,
+            f_ec: 1.16,
+            eps_sec: 1e-10,
+            eps_cor: 1e-15,
+            g2: None,
+            vs_distance: Some(dir.join("rate.svg")),
+            step_km: 10.0,
+            json: Some(dir.join("k.json")),
+        };
+        run(&a).unwrap();
+        let j: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(dir.join("k.json")).unwrap()).unwrap();
+        assert!(j["caution"]
+            .as_str()
+            .unwrap()
+            .contains("not a security certification"));
+        assert!(j["estimate"]["bits_per_s"].as_f64().unwrap() > 0.0);
+        assert!(j["curve"].as_array().unwrap().len() > 5);
+        assert!(std::fs::metadata(dir.join("rate.svg")).unwrap().len() > 1000);
+        let bad = KeyrateArgs { f_ec: 0.5, ..a };
+        let e = run(&bad).unwrap_err().to_string();
+        assert!(e.contains("--f-ec"), "{e}");
+        std::fs::remove_dir_all(&dir).ok();
+    }
 }
