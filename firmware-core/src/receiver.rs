@@ -127,8 +127,6 @@ pub struct Trace {
     pub t_ps: Option<u64>,
     /// Detector channel (the channel byte without its photon-number level).
     pub channel: u8,
-    /// Photon-number level the detection reported (1 from threshold detectors).
-    pub level: u8,
     /// Slot and position, when the clock gave them.
     pub slot: Option<(u64, U0F32)>,
     /// Gate index, when inside a gate.
@@ -288,11 +286,10 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         key: &mut impl KeySink,
     ) -> Trace {
         self.detections_in += 1;
-        let (channel, level) = self.cfg.gates.split_channel(ev.channel);
+        let channel = self.cfg.gates.split_channel(ev.channel).0;
         let mut trace = Trace {
             t_ps: None,
             channel,
-            level,
             slot: None,
             gate: None,
             stage: Stage::RejectedTime,
@@ -359,6 +356,8 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         }
         trace.stage = Stage::Gated;
         self.accounting.in_flight += 1;
+        // Only gated detections need their photon-number level.
+        let level = self.cfg.gates.split_channel(ev.channel).1;
         match &mut self.open {
             Some(o) if o.slot == pos.slot => {
                 o.mask |= click_bit(g.basis, g.bit);
@@ -405,8 +404,10 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             &mut self.tally
         };
         tally.add(a.basis, a.bit, a.intensity, p.basis, p.bit);
-        self.multi_photon
-            .add(a.intensity, p.photons, p.multi_click, a.basis == p.basis);
+        if p.photons > 1 {
+            self.multi_photon
+                .add(a.intensity, p.multi_click, a.basis == p.basis);
+        }
         let outcome = if a.basis == p.basis {
             self.sifted_bits += 1;
             key.sifted(SiftedBit {
@@ -530,10 +531,9 @@ impl defmt::Format for Trace {
         let (slot, phase) = self.slot.map(|(s, p)| (s, p.to_bits())).unzip();
         defmt::write!(
             f,
-            "Trace {{ t_ps: {}, channel: {=u8}, level: {=u8}, slot: {}, phase_q0_32: {}, gate: {}, stage: {} }}",
+            "Trace {{ t_ps: {}, channel: {=u8}, slot: {}, phase_q0_32: {}, gate: {}, stage: {} }}",
             self.t_ps,
             self.channel,
-            self.level,
             slot,
             phase,
             self.gate,

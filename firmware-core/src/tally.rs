@@ -151,18 +151,19 @@ impl MultiPhoton {
         }
     }
 
-    /// Count one answered slot of `photons` detected photons (ignored below two).
-    pub fn add(&mut self, intensity: u8, photons: u8, multi_click: bool, sifted: bool) {
-        if photons < 2 {
-            return;
-        }
+    /// Count one answered slot in which two or more photons were detected.
+    pub fn add(&mut self, intensity: u8, multi_click: bool, sifted: bool) {
         let i = usize::from(intensity);
-        for (counter, yes) in [
-            (&mut self.slots, true),
-            (&mut self.one_outcome, !multi_click),
-            (&mut self.sifted, sifted),
-        ] {
-            if let Some(c) = counter.get_mut(i).filter(|_| yes) {
+        if let Some(c) = self.slots.get_mut(i) {
+            *c += 1;
+        }
+        if !multi_click {
+            if let Some(c) = self.one_outcome.get_mut(i) {
+                *c += 1;
+            }
+        }
+        if sifted {
+            if let Some(c) = self.sifted.get_mut(i) {
                 *c += 1;
             }
         }
