@@ -151,7 +151,10 @@ impl MultiPhoton {
         }
     }
 
-    /// Count one answered slot in which two or more photons were detected.
+    /// Count one answered slot in which two or more photons were detected (rare: kept out of
+    /// line so that the answer path stays compact).
+    #[cold]
+    #[inline(never)]
     pub fn add(&mut self, intensity: u8, multi_click: bool, sifted: bool) {
         let i = usize::from(intensity);
         if let Some(c) = self.slots.get_mut(i) {
