@@ -8,6 +8,11 @@
 //! efficient BB84, three-state) lives on the transmitter side; the receiver table is the same.
 //!
 //! The table is validated once by [`GateTable::new`]; lookups on the hot path cannot fail.
+//!
+//! Photon-number-resolving detectors report a level with each detection in the upper bits of the
+//! channel byte (bits 5..=7 hold level − 1, bits 0..=4 the detector), switched on per table with
+//! [`GateTable::with_photon_levels`]; the level then goes with the click to the sifting stage and
+//! the rest of the pipeline sees the detector's channel.
 
 use core::fmt;
 use fixed::types::U0F32;
@@ -18,6 +23,23 @@ pub const MAX_GATES: usize = 16;
 pub const MAX_CHANNELS: usize = 16;
 /// Maximum number of intensity classes (signal, decoy, vacuum).
 pub const MAX_INTENSITIES: usize = 3;
+/// Bit position of the photon-number level in a channel byte (with photon levels on).
+pub const LEVEL_SHIFT: u32 = 5;
+/// Highest photon-number level a channel byte carries (three bits, 1..=8; 8 means "8 or more").
+pub const MAX_LEVEL: u8 = 8;
+
+/// Channel byte of detector `channel` (below 32) reporting photon-number `level` (clamped to
+/// 1..=[`MAX_LEVEL`]).
+pub const fn level_channel(channel: u8, level: u8) -> u8 {
+    let l = if level == 0 {
+        1
+    } else if level > MAX_LEVEL {
+        MAX_LEVEL
+    } else {
+        level
+    };
+    (channel & 0x1F) | ((l - 1) << LEVEL_SHIFT)
+}
 
 /// Measurement or preparation basis.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -142,6 +164,8 @@ pub struct GateTable {
     /// one gate, [`BUCKET_OUTSIDE`], or [`BUCKET_MIXED`] where a window edge falls inside. Built
     /// from the windows once, so a lookup is one table read except next to a window edge.
     buckets: [[u8; BUCKETS]; MAX_CHANNELS],
+    /// Bits of a channel byte that name the detector: 0xFF, or 0x1F with photon levels on.
+    channel_mask: u8,
 }
 
 const NO_GATE: Gate = Gate {
@@ -172,6 +196,7 @@ impl GateTable {
             delays_ps: [0; MAX_CHANNELS],
             channels: delays_ps.len() as u8,
             buckets: [[BUCKET_MIXED; BUCKETS]; MAX_CHANNELS],
+            channel_mask: 0xFF,
         };
         for (slot, d) in table.delays_ps.iter_mut().zip(delays_ps) {
             *slot = *d;
@@ -270,6 +295,27 @@ impl GateTable {
     /// One gate by index (as returned by [`Lookup::Gate`]).
     pub fn gate(&self, index: u8) -> Option<&Gate> {
         self.gates().get(usize::from(index))
+    }
+
+    /// The same table reading a photon-number level from the upper bits of every channel byte
+    /// (see [`level_channel`]); detectors stay channels `0..channels()`.
+    pub const fn with_photon_levels(mut self) -> Self {
+        self.channel_mask = 0x1F;
+        self
+    }
+
+    /// Whether channel bytes carry a photon-number level.
+    pub const fn photon_levels(&self) -> bool {
+        self.channel_mask != 0xFF
+    }
+
+    /// Split a channel byte into (detector channel, photon-number level 1..=8); the level is 1
+    /// unless photon levels are on.
+    pub const fn split_channel(&self, raw: u8) -> (u8, u8) {
+        (
+            raw & self.channel_mask,
+            1 + ((raw & !self.channel_mask) >> LEVEL_SHIFT),
+        )
     }
 
     /// Number of channels the table describes.
@@ -503,5 +549,24 @@ mod tests {
             ),
             Err(GateError::Overlap(0, 1))
         );
+    }
+
+    #[test]
+    fn photon_levels_split_from_the_channel_byte() {
+        let g = Gate {
+            channel: 1,
+            start: U0F32::ZERO,
+            end: U0F32::MAX,
+            basis: Basis::Z,
+            bit: 0,
+        };
+        let t = GateTable::new(&[0, 0], &[g]).unwrap();
+        assert!(!t.photon_levels());
+        assert_eq!(t.split_channel(0x41), (0x41, 1));
+        let t = t.with_photon_levels();
+        assert_eq!(t.split_channel(level_channel(1, 3)), (1, 3));
+        assert_eq!(t.split_channel(level_channel(1, 0)), (1, 1));
+        assert_eq!(t.split_channel(level_channel(1, 200)), (1, MAX_LEVEL));
+        assert_eq!(level_channel(3, 8), 0xE3);
     }
 }

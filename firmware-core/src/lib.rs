@@ -23,10 +23,12 @@
 //! 5. [`frame`] — frame alignment: a public marker (every 64th slot, vacuum or a Z pulse by two
 //!    m-sequences) gives the transmitter's absolute slot numbers; marker slots are never sifted.
 //! 6. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
-//!    express time-bin and polarization receivers alike.
+//!    express time-bin and polarization receivers alike; optionally a photon-number level in the
+//!    upper bits of the channel byte (photon-number-resolving detectors).
 //! 7. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
 //!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
-//! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER.
+//! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER;
+//!    multi-photon slots per intensity class.
 //! 9. [`stats`] — live statistics in bounded memory: a sliding window of block tallies (QBER per
 //!    basis and intensity, rates, dead time, off-gate noise, multi-clicks) and since start, with
 //!    confidence bounds in fixed point ([`bounds`]: Hoeffding, Wilson, binary entropy) and
@@ -95,7 +97,7 @@ pub use sift::{
     Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftedBit, Transmitter,
 };
 pub use stats::{Counts, Monitor, Snapshot, StatsConfig, Tap};
-pub use tally::Tally;
+pub use tally::{MultiPhoton, Tally};
 pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
 pub use track::{LockState, TrackConfig, TrackParams, Tracker};
 pub use wire::{LinkConfig, LinkCounters, ReceiverLink};

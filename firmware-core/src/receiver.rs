@@ -11,7 +11,7 @@ use crate::sift::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
     PendingQueue, SiftedBit, SquashRng, Transmitter,
 };
-use crate::tally::Tally;
+use crate::tally::{MultiPhoton, Tally};
 use crate::timestamps::{TdcEvent, UnwrapConfig, Unwrapper};
 use core::fmt;
 use fixed::types::U0F32;
@@ -125,7 +125,7 @@ pub enum Stage {
 pub struct Trace {
     /// Unwrapped time in ps (before the channel delay), when the time base accepted it.
     pub t_ps: Option<u64>,
-    /// TDC channel.
+    /// Detector channel (the channel byte without its photon-number level).
     pub channel: u8,
     /// Slot and position, when the clock gave them.
     pub slot: Option<(u64, U0F32)>,
@@ -142,6 +142,7 @@ struct OpenSlot {
     basis: Basis,
     bit: u8,
     clicks: u32,
+    photons: u8,
 }
 
 /// The whole receiver pipeline with a pending queue of `PENDING` detected slots.
@@ -161,6 +162,7 @@ pub struct Receiver<C: Clock, const PENDING: usize> {
     answer_errors: AnswerErrors,
     tally: Tally,
     multi_tally: Tally,
+    multi_photon: MultiPhoton,
     sifted_bits: u64,
 }
 
@@ -189,6 +191,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             },
             tally: Tally::new(),
             multi_tally: Tally::new(),
+            multi_photon: MultiPhoton::new(),
             sifted_bits: 0,
             cfg,
         }
@@ -198,19 +201,8 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     /// clock stage): counters, tallies, pending queue and time base all start over, and what was
     /// pending is dropped uncounted. Assigns in place, so a receiver in a `static` stays there.
     pub fn reset(&mut self, clock: C) {
-        self.unwrapper = Unwrapper::new(self.cfg.tdc);
-        self.clock = clock;
-        self.open = None;
-        self.next_open_slot = 0;
-        self.pending.clear();
-        self.rng = SquashRng::new(self.cfg.squash_seed);
-        self.detections_in = 0;
-        self.accounting = Accounting::new();
-        self.multi = MultiClickEvents::default();
-        self.answer_errors = AnswerErrors::default();
-        self.tally = Tally::new();
-        self.multi_tally = Tally::new();
-        self.sifted_bits = 0;
+        // Rebuilt from the configuration, so a field added later cannot be left out.
+        *self = Self::new(self.cfg, clock);
     }
 
     /// The configuration in use.
@@ -256,6 +248,11 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
     /// Tally of squashed multi-click slots.
     pub const fn multi_click_tally(&self) -> &Tally {
         &self.multi_tally
+    }
+
+    /// Answered slots with two or more photons detected, per intensity class.
+    pub const fn multi_photon(&self) -> &MultiPhoton {
+        &self.multi_photon
     }
 
     /// Sifted bits produced (single and squashed multi-click).
@@ -320,9 +317,10 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         key: &mut impl KeySink,
     ) -> Trace {
         self.detections_in += 1;
+        let channel = self.cfg.gates.split_channel(ev.channel).0;
         let mut trace = Trace {
             t_ps: None,
-            channel: ev.channel,
+            channel,
             slot: None,
             gate: None,
             stage: Stage::RejectedTime,
@@ -332,7 +330,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             return trace;
         };
         trace.t_ps = Some(det.t_ps);
-        let Some(delay) = self.cfg.gates.delay_ps(det.channel) else {
+        let Some(delay) = self.cfg.gates.delay_ps(channel) else {
             self.accounting.rejected_channel += 1;
             trace.stage = Stage::RejectedChannel;
             return trace;
@@ -341,7 +339,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             self.accounting.rejected_time += 1;
             return trace;
         };
-        let pos = match self.clock.locate_on(det.channel, t) {
+        let pos = match self.clock.locate_on(channel, t) {
             Located::At(p) => p,
             Located::BeforeOrigin | Located::NotLocked => {
                 self.accounting.no_clock += 1;
@@ -350,7 +348,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             }
         };
         trace.slot = Some((pos.slot, pos.phase));
-        let Some((gate, &g)) = self.cfg.gates.find(det.channel, pos.phase) else {
+        let Some((gate, &g)) = self.cfg.gates.find(channel, pos.phase) else {
             self.accounting.outside_gates += 1;
             trace.stage = Stage::OutsideGates;
             return trace;
@@ -381,10 +379,13 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         }
         trace.stage = Stage::Gated;
         self.accounting.in_flight += 1;
+        // Only gated detections need their photon-number level.
+        let level = self.cfg.gates.split_channel(ev.channel).1;
         match &mut self.open {
             Some(o) if o.slot == pos.slot => {
                 o.mask |= click_bit(g.basis, g.bit);
                 o.clicks += 1;
+                o.photons = o.photons.saturating_add(level);
             }
             _ => {
                 // Free what timed out before the closing slot takes a place in the queue (with
@@ -399,6 +400,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
                     basis: g.basis,
                     bit: g.bit,
                     clicks: 1,
+                    photons: level,
                 });
             }
         }
@@ -428,6 +430,10 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             &mut self.tally
         };
         tally.add(a.basis, a.bit, a.intensity, p.basis, p.bit);
+        if p.photons > 1 {
+            self.multi_photon
+                .add(a.intensity, p.multi_click, a.basis == p.basis);
+        }
         let outcome = if a.basis == p.basis {
             self.sifted_bits += 1;
             key.sifted(SiftedBit {
@@ -510,6 +516,7 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             basis,
             bit,
             multi_click,
+            photons: o.photons,
             done: false,
         };
         if self.pending.is_full() {

@@ -128,6 +128,51 @@ impl Tally {
     }
 }
 
+/// Answered slots in which at least two photons were detected (several clicks, or one click
+/// reporting a photon-number level of two or more), per intensity class.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct MultiPhoton {
+    /// All such slots, `slots[intensity]`.
+    pub slots: [u64; MAX_INTENSITIES],
+    /// Of those, the ones whose photons all fell into one outcome (one click, level ≥ 2).
+    pub one_outcome: [u64; MAX_INTENSITIES],
+    /// Of those, the ones that gave a sifted bit (matched basis).
+    pub sifted: [u64; MAX_INTENSITIES],
+}
+
+impl MultiPhoton {
+    /// An empty tally.
+    pub const fn new() -> Self {
+        Self {
+            slots: [0; MAX_INTENSITIES],
+            one_outcome: [0; MAX_INTENSITIES],
+            sifted: [0; MAX_INTENSITIES],
+        }
+    }
+
+    /// Count one answered slot in which two or more photons were detected (rare: kept out of
+    /// line so that the answer path stays compact).
+    #[cold]
+    #[inline(never)]
+    pub fn add(&mut self, intensity: u8, multi_click: bool, sifted: bool) {
+        let i = usize::from(intensity);
+        if let Some(c) = self.slots.get_mut(i) {
+            *c += 1;
+        }
+        if !multi_click {
+            if let Some(c) = self.one_outcome.get_mut(i) {
+                *c += 1;
+            }
+        }
+        if sifted {
+            if let Some(c) = self.sifted.get_mut(i) {
+                *c += 1;
+            }
+        }
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -195,3 +195,79 @@ fn reordered_neighbour_before_the_open_slot_is_late_not_reopened() {
     assert_eq!(rx.answer_errors().unmatched, 0);
     assert_eq!(rx.accounting().sifted, 2);
 }
+
+/// The table of [`receiver`] with photon levels in the channel byte.
+fn pnr_receiver() -> Receiver<FixedClock, 16> {
+    let rx = receiver::<16>(OverflowPolicy::DropNewest);
+    let cfg = *rx.config();
+    let table = cfg.gates().with_photon_levels();
+    let cfg =
+        ReceiverConfig::new(*cfg.tdc(), table, 2, 100, OverflowPolicy::DropNewest, 3).unwrap();
+    Receiver::new(cfg, FixedClock::new(U32F32::from_num(1000), 0).unwrap())
+}
+
+#[test]
+fn photon_levels_ride_in_the_channel_byte_and_are_tallied_per_intensity() {
+    use slotwise::gates::level_channel;
+    let mut rx = pnr_receiver();
+    let mut tx = ManualTx::default();
+    let mut bits = Bits::default();
+    let events = [
+        ev(2_200, level_channel(0, 1)), // slot 2: Z0, one photon
+        ev(3_200, level_channel(0, 3)), // slot 3: Z0, three photons in one click
+        ev(4_150, level_channel(1, 1)), // slot 4: X0 with one photon ...
+        ev(4_600, level_channel(0, 2)), // ... and Z1 with two: multi-click, three photons
+        ev(5_200, level_channel(2, 2)), // slot 5: channel 2 is unknown to the table
+        ev(7_200, level_channel(0, 1)), // slot 7 closes slot 4
+    ];
+    let traces: Vec<_> = events
+        .iter()
+        .map(|&e| rx.push(e, &mut tx, &mut bits))
+        .collect();
+    assert_eq!(
+        traces.iter().map(|t| t.channel).collect::<Vec<_>>(),
+        [0, 0, 1, 0, 2, 0]
+    );
+    assert_eq!(tx.announced.len(), 3);
+    for (a, intensity) in tx.announced.clone().into_iter().zip([0u8, 1, 1]) {
+        rx.answer(
+            Answer {
+                slot: a.slot,
+                basis: Basis::Z,
+                intensity,
+                bit: Some(0),
+            },
+            &mut bits,
+        );
+    }
+    rx.finish(&mut tx, &mut bits);
+    let m = rx.multi_photon();
+    assert_eq!(m.slots, [0, 2, 0]);
+    assert_eq!(m.one_outcome, [0, 1, 0]);
+    // Slot 3 keeps its outcome (Z0): one click names one outcome. Slot 4 is squashed.
+    assert!(bits
+        .0
+        .iter()
+        .any(|b| b.slot == 3 && b.bit == 0 && !b.multi_click));
+    let a = rx.accounting();
+    assert_eq!(a.rejected_channel, 1);
+    assert_eq!(a.multi_click, 2);
+    assert_eq!(a.unanswered, 1);
+    // Slot 3 matched Z; slot 4's squash picked a basis at random.
+    assert!(m.sifted[1] >= 1);
+    assert_eq!(a.total(), events.len() as u64);
+}
+
+#[test]
+fn without_photon_levels_upper_channel_bits_are_unknown_channels() {
+    let mut rx = receiver::<16>(OverflowPolicy::DropNewest);
+    let mut tx = ManualTx::default();
+    let mut bits = Bits::default();
+    let t = rx.push(
+        ev(2_200, slotwise::gates::level_channel(0, 2)),
+        &mut tx,
+        &mut bits,
+    );
+    assert_eq!(t.channel, 32);
+    assert_eq!(rx.accounting().rejected_channel, 1);
+}

@@ -88,6 +88,9 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
     Replay(ReplayArgs),
     /// Show a capture's header and block statistics, or a key file's blocks, and check every CRC.
     Inspect(InspectArgs),
+    /// Secret-key-rate estimate from a summary's tallies (an estimate, not a certification).
+    #[command(long_about = crate::keyrate::cmd::LONG_ABOUT)]
+    Keyrate(crate::keyrate::cmd::KeyrateArgs),
     /// Benchmarks of the core on simulated links (figures come from here, not from tests).
     #[command(long_about = "\
 Benchmarks of the core on simulated links; figures come from here, not from tests.
@@ -290,6 +293,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Simulate(a) => simulate(a),
         Command::Replay(a) => replay(a),
         Command::Inspect(a) => inspect(a),
+        Command::Keyrate(a) => crate::keyrate::cmd::run(&a),
         Command::Bench(b) => match b.command {
             Some(BenchCommand::Sync(a)) => bench_sync(&a),
             Some(BenchCommand::Pipeline(a)) => bench_pipeline(&a),
@@ -327,6 +331,11 @@ pub fn receiver_setup_for(
 ) -> Result<(ReceiverConfig, HostClock), AnyErr> {
     let (delays, gates) = sim::receiver_gates(s);
     let table = slotwise::GateTable::new(&delays, &gates)?;
+    let table = if s.pnr.is_some() {
+        table.with_photon_levels()
+    } else {
+        table
+    };
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
     let timeout_slots = if framed {
         u64::MAX / 4
@@ -361,7 +370,7 @@ fn progress(total: u64, what: &str) -> ProgressBar {
 
 fn capture_header(s: &Scenario) -> Result<CaptureHeader, AnyErr> {
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
-    Ok(CaptureHeader::new(tdc, sim::channels(s))
+    Ok(CaptureHeader::new(tdc, sim::pnr::capture_channel_count(s))
         .with_metadata(s.to_toml_string())
         .with_flags(capture::FLAG_SIMULATED))
 }
@@ -514,6 +523,7 @@ pub fn run_simulated_linked(
         started.elapsed().as_secs_f64(),
     );
     add_link(&mut summary, &res, &bits, blocks, key_out);
+    let summary = summary.with_scenario(s);
     Ok((summary, res, bits))
 }
 
@@ -559,6 +569,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     files.extend(plots::stats::live_stats(&a.out, &res)?);
     let mut out = stdout();
     write!(out, "{summary}")?;
+    writeln!(out, "{}", crate::keyrate::cmd::demo_line(&summary, &s))?;
     writeln!(
         out,
         "capture replay {} (the written capture replays to the same counters)",
@@ -708,7 +719,8 @@ pub fn replay_capture(
         None,
         None,
         started.elapsed().as_secs_f64(),
-    );
+    )
+    .with_scenario(s);
     add_link(&mut summary, &res, &bits, blocks, key_out);
     summary.skipped = skipped;
     if let Some(dir) = plots_dir {

@@ -25,7 +25,7 @@ const FONT_PATHS: &[&str] = &[
 ];
 
 /// Register a system font for text, once; `false` when none was found.
-fn font_ready() -> bool {
+pub(crate) fn font_ready() -> bool {
     static READY: OnceLock<bool> = OnceLock::new();
     *READY.get_or_init(|| {
         let env = std::env::var("SLOTWISE_FONT").ok();

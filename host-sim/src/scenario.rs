@@ -121,6 +121,12 @@ pub struct Scenario {
     /// Field faults to inject (`[faults]` table; default none), see `docs/scenario.md`.
     #[serde(default, skip_serializing_if = "Faults::is_empty")]
     pub faults: Faults,
+    /// Photon-number-resolving detectors (default: threshold detectors); see `docs/scenario.md`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub pnr: Option<crate::sim::PnrSpec>,
+    /// The light source (default: an attenuated laser); see `docs/scenario.md`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub source: Option<crate::sim::SourceSpec>,
 }
 
 fn default_true() -> bool {
@@ -480,6 +486,45 @@ impl Scenario {
                 self.dead_time_ns,
             )
             .map_err(|(key, m)| c.err(key, m))?;
+        if let Some(p) = &self.pnr {
+            if !(1..=64).contains(&p.pixels) {
+                return Err(c.err("pixels", format!("must lie in 1..=64, got {}", p.pixels)));
+            }
+            c.range(
+                "pixel_efficiency",
+                p.pixel_efficiency,
+                Open(0.0),
+                Closed(1.0),
+            )?;
+            c.range(
+                "pixel_recovery_ns",
+                p.pixel_recovery_ns,
+                Closed(0.0),
+                Closed(1e6),
+            )?;
+        }
+        if let Some(src) = &self.source {
+            if !(src.g2.is_finite() && (0.0..=1.0).contains(&src.g2)) {
+                return Err(c.err("g2", format!("must lie in [0,1], got {}", src.g2)));
+            }
+            if let Some(w) = src.wavelength_nm {
+                c.range("wavelength_nm", w, Closed(300.0), Closed(2000.0))?;
+            }
+            if src.kind == crate::sim::SourceKind::SinglePhoton {
+                if let Some(mu) = self
+                    .intensities
+                    .iter()
+                    .find(|&&mu| mu > 1.0 || mu * src.g2 > 1.0)
+                {
+                    return Err(c.err(
+                        "intensities",
+                        format!(
+                            "a single-photon source needs μ ≤ 1 and μ·g2 ≤ 1 per class, got μ = {mu}"
+                        ),
+                    ));
+                }
+            }
+        }
         let earliest = crate::sim::earliest_click_offset_ps(self);
         if self.start_offset() + earliest < 0.0 {
             return Err(c.err(
@@ -514,9 +559,13 @@ impl Scenario {
         self.fiber_km * self.fiber_db_per_km + self.extra_loss_db
     }
 
-    /// Overall transmittance η = detector_efficiency · 10^(−loss/10) (dimensionless).
+    /// Overall transmittance η = detector_efficiency · 10^(−loss/10) (dimensionless); with
+    /// photon-number-resolving detectors the efficiency per pixel takes the detector's place.
     pub fn eta(&self) -> f64 {
-        self.detector_efficiency * 10f64.powf(-self.loss_db() / 10.0)
+        let eff = self
+            .pnr
+            .map_or(self.detector_efficiency, |p| p.pixel_efficiency);
+        eff * 10f64.powf(-self.loss_db() / 10.0)
     }
 
     /// Per-detector skews, ps (zeros when not configured).

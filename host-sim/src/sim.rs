@@ -18,10 +18,13 @@
 pub mod answer_faults;
 pub mod clock;
 pub mod faults;
+pub mod hbt;
 mod merge;
 pub mod model;
 pub mod optics;
+pub mod pnr;
 pub mod rng;
+pub mod source;
 pub mod tx;
 
 pub use clock::TxClock;
@@ -29,6 +32,8 @@ pub use model::{channel_model, ChannelModel, IntensityModel};
 pub use optics::{
     channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, receiver_gates, GateSpec,
 };
+pub use pnr::PnrSpec;
+pub use source::{Source, SourceKind, SourceSpec};
 pub use tx::{SimTransmitter, TxChoice, TxChoices};
 
 use crate::scenario::Scenario;
@@ -122,6 +127,8 @@ pub struct SimStats {
     pub bright: u64,
     /// Events on stray channel numbers emitted (faults; also counted as dark in `emitted`).
     pub stray: u64,
+    /// Photons lost on recovering pixels of photon-number-resolving detectors.
+    pub pixel_recovery_lost: u64,
 }
 
 #[derive(Clone, Copy, Debug)]
@@ -133,6 +140,8 @@ struct Candidate {
     position: Option<u8>,
     /// Which process made it: plain, a saturating light or a stray channel (faults).
     source: u8,
+    /// Photon-number level (1 unless the detector resolves photon numbers).
+    level: u8,
 }
 
 impl PartialEq for Candidate {
@@ -170,7 +179,14 @@ pub struct Simulator {
     end_ps: f64,
     /// μ·η per intensity class.
     mean_detected: Vec<f64>,
-    /// μ_max·η.
+    /// Photon-number statistics of the source.
+    source: Source,
+    /// Mean photon number μ per intensity class and the transmittance η.
+    mus: Vec<f64>,
+    eta: f64,
+    /// Per intensity class: probability that a pulse has at least one detected photon.
+    click_prob: Vec<f64>,
+    /// −ln(1 − p_max) with p_max the largest of `click_prob` (μ_max·η for the laser).
     mean_max: f64,
     skews_ps: Vec<f64>,
     dead_ps: f64,
@@ -202,6 +218,8 @@ pub struct Simulator {
     /// Afterpulse storms (faults): start, end (true time, ps), probability.
     storms: Vec<(f64, f64, f64)>,
     merger: Option<Merger>,
+    /// Pixel states per detector, for photon-number-resolving detectors.
+    pixels: Option<Vec<pnr::Pixels>>,
 }
 
 impl Simulator {
@@ -211,7 +229,18 @@ impl Simulator {
         let slots = s.slots();
         let eta = s.eta();
         let mean_detected: Vec<f64> = s.intensities.iter().map(|mu| mu * eta).collect();
-        let mean_max = mean_detected.iter().copied().fold(0.0, f64::max);
+        let source = Source::from_spec(s.source.as_ref());
+        let click_prob: Vec<f64> = s
+            .intensities
+            .iter()
+            .map(|&mu| source.click_prob(mu, eta))
+            .collect();
+        let mean_max = match source {
+            Source::Laser => mean_detected.iter().copied().fold(0.0, f64::max),
+            Source::SinglePhoton { .. } => {
+                -(-click_prob.iter().copied().fold(0.0, f64::max)).ln_1p()
+            }
+        };
         let channels = channels(s);
         let skews_ps = s.delays_ps().iter().map(|&d| d as f64).collect();
         let mut sim = Self {
@@ -220,6 +249,10 @@ impl Simulator {
             clock,
             slots,
             mean_detected,
+            source,
+            mus: s.intensities.clone(),
+            eta,
+            click_prob,
             mean_max,
             skews_ps,
             dead_ps: s.dead_time_ns * 1e3,
@@ -264,6 +297,10 @@ impl Simulator {
                 seq: 0,
                 newest_out_ps: f64::NEG_INFINITY,
             }),
+            pixels: s
+                .pnr
+                .as_ref()
+                .map(|p| (0..channels).map(|_| pnr::Pixels::new(p)).collect()),
             scenario: s.clone(),
         };
         let t0 = sim.clock.start_ps();
@@ -374,20 +411,21 @@ impl Simulator {
         let k = self.next_slot;
         self.stats.candidate_slots += 1;
         let choice = self.tx.choice(k);
-        let mean = self
-            .mean_detected
-            .get(usize::from(choice.intensity))
-            .copied()
-            .unwrap_or(0.0);
-        let keep = -(-mean).exp_m1() / -(-self.mean_max).exp_m1();
+        let i = usize::from(choice.intensity);
+        let p = match self.source {
+            Source::Laser => -(-self.mean_detected.get(i).copied().unwrap_or(0.0)).exp_m1(),
+            Source::SinglePhoton { .. } => self.click_prob.get(i).copied().unwrap_or(0.0),
+        };
+        let keep = p / -(-self.mean_max).exp_m1();
         if self.skip_rng.uniform() < keep {
-            self.emit_pulse(k, choice, mean);
+            let mu = self.mus.get(i).copied().unwrap_or(0.0);
+            self.emit_pulse(k, choice, mu);
         }
         self.next_slot = self.skip_from(k + 1);
         self.update_frontier();
     }
 
-    fn emit_pulse(&mut self, k: u64, choice: TxChoice, mean: f64) {
+    fn emit_pulse(&mut self, k: u64, choice: TxChoice, mu: f64) {
         self.stats.detected_pulses += 1;
         let (encoding, p_z, e_d) = (
             self.scenario.encoding,
@@ -396,12 +434,14 @@ impl Simulator {
         );
         let jitter_ps = self.scenario.jitter_ps;
         let mut rng = Stream::from_state(splitmix_at(self.photon_key, k));
-        let n = rng.poisson_nonzero(mean);
+        let n = self.source.draw_nonzero(mu, self.eta, &mut rng);
         self.stats.photons += u64::from(n);
         self.hits.clear();
+        let resolving = self.pixels.is_some();
         for _ in 0..n {
             let h = optics::route(encoding, p_z, e_d, choice, &mut rng);
-            if !self.hits.contains(&h) {
+            // Threshold detectors merge photons at one outcome; pixels need every photon.
+            if resolving || !self.hits.contains(&h) {
                 self.hits.push(h);
             }
         }
@@ -412,6 +452,22 @@ impl Simulator {
             let Some(h) = self.hits.get(i).copied() else {
                 continue;
             };
+            let mut level = 1u8;
+            if let Some(px) = self.pixels.as_mut() {
+                if i > 0 && self.hits.get(i - 1) == Some(&h) {
+                    continue;
+                }
+                let photons = self.hits.iter().skip(i).take_while(|&&x| x == h).count() as u32;
+                let t_nominal = start + optics::position_fraction(encoding, h.pos) * period;
+                let fired = px
+                    .get_mut(usize::from(h.detector))
+                    .map_or(photons, |p| p.fire(photons, t_nominal, &mut rng));
+                self.stats.pixel_recovery_lost += u64::from(photons - fired);
+                if fired == 0 {
+                    continue;
+                }
+                level = fired.min(u32::from(slotwise::gates::MAX_LEVEL)) as u8;
+            }
             let skew = self
                 .skews_ps
                 .get(usize::from(h.detector))
@@ -426,6 +482,7 @@ impl Simulator {
                 slot: Some(k),
                 position: Some(h.pos),
                 source: SOURCE_PLAIN,
+                level,
             });
         }
     }
@@ -453,6 +510,7 @@ impl Simulator {
                 slot: None,
                 position: None,
                 source: SOURCE_PLAIN,
+                level: 1,
             });
         }
     }
@@ -481,6 +539,7 @@ impl Simulator {
                 kind: Kind::Dark,
                 slot: None,
                 position: None,
+                level: 1,
                 source: SOURCE_BRIGHT + i as u8,
             });
         }
@@ -502,6 +561,7 @@ impl Simulator {
                 kind: Kind::Dark,
                 slot: None,
                 position: None,
+                level: 1,
                 source: SOURCE_STRAY + i as u8,
             });
         }
@@ -612,7 +672,11 @@ impl Simulator {
             return Some(SimEvent {
                 event: TdcEvent {
                     count: self.tdc_count(c.t_ps),
-                    channel: c.detector,
+                    channel: if self.pixels.is_some() {
+                        slotwise::gates::level_channel(c.detector, c.level)
+                    } else {
+                        c.detector
+                    },
                 },
                 truth: Truth {
                     true_t_ps: c.t_ps,
@@ -646,6 +710,7 @@ impl Simulator {
                 slot: None,
                 position: None,
                 source: SOURCE_PLAIN,
+                level: 1,
             });
         } else {
             self.stats.afterpulses_after_end += 1;

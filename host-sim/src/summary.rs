@@ -73,6 +73,9 @@ pub struct Summary {
     pub accounting: BTreeMap<&'static str, u64>,
     /// Multi-click slot events by outcome.
     pub multi_click_events: BTreeMap<&'static str, u64>,
+    /// Answered slots with two or more photons detected, per intensity class (index 0 = signal):
+    /// `slots`, `one_outcome` (one click reporting a level ≥ 2) and `sifted`.
+    pub multi_photon: Vec<BTreeMap<&'static str, u64>>,
     /// Transmitter answers the core refused.
     pub answer_errors: BTreeMap<&'static str, u64>,
     /// Sifted key bits (single and squashed multi-click).
@@ -100,6 +103,17 @@ pub struct Summary {
     /// Damaged data stepped over (`replay --skip-damaged` only).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub skipped: Option<crate::capture::SkipReport>,
+    /// The scenario of the link as TOML text (what `slotwise keyrate` reads its protocol from).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub scenario: Option<String>,
+}
+
+impl Summary {
+    /// The same summary with the link's scenario recorded.
+    pub fn with_scenario(mut self, s: &crate::scenario::Scenario) -> Self {
+        self.scenario = Some(s.to_toml_string());
+        self
+    }
 }
 
 /// Build the summary of a finished session.
@@ -123,6 +137,19 @@ pub fn summarize<T: Transmitter>(
     ]
     .into_iter()
     .collect();
+    let mp = rx.multi_photon();
+    let multi_photon = (0..usize::from(rx.config().intensities()).min(MAX_INTENSITIES))
+        .map(|i| {
+            let at = |a: &[u64; MAX_INTENSITIES]| a.get(i).copied().unwrap_or(0);
+            [
+                ("slots", at(&mp.slots)),
+                ("one_outcome", at(&mp.one_outcome)),
+                ("sifted", at(&mp.sifted)),
+            ]
+            .into_iter()
+            .collect()
+        })
+        .collect();
     let ae = rx.answer_errors();
     let answer_errors = [("unmatched", ae.unmatched), ("malformed", ae.malformed)]
         .into_iter()
@@ -168,6 +195,7 @@ pub fn summarize<T: Transmitter>(
         detections_in: det,
         accounting,
         multi_click_events,
+        multi_photon,
         answer_errors,
         sifted_bits: rx.sifted_bits(),
         qber: Qber {
@@ -225,6 +253,7 @@ pub fn summarize<T: Transmitter>(
         stats: crate::stats::report(&res.monitor, &res.live, res.first_t_ps, n_int),
         link: None,
         skipped: None,
+        scenario: None,
     }
 }
 
@@ -245,6 +274,26 @@ impl std::fmt::Display for Summary {
             }
         }
         writeln!(f, "sifted bits    {}", self.sifted_bits)?;
+        if self
+            .multi_photon
+            .iter()
+            .any(|m| m.get("slots").is_some_and(|&n| n > 0))
+        {
+            let col = |k: &str| {
+                self.multi_photon
+                    .iter()
+                    .map(|m| m.get(k).copied().unwrap_or(0).to_string())
+                    .collect::<Vec<_>>()
+                    .join(" / ")
+            };
+            writeln!(
+                f,
+                "multi-photon   {} slots per intensity class ({} in one outcome, {} sifted)",
+                col("slots"),
+                col("one_outcome"),
+                col("sifted")
+            )?;
+        }
         let truth = self.truth.as_ref();
         let rows = [
             ("Z", &self.qber.z, truth.map(|t| t.qber_z)),

@@ -11,6 +11,9 @@
 //! is the dark-count probability per slot inside the basis-b gates and η' = η × the fraction of
 //! the Gaussian jitter that falls inside a gate window.
 //!
+//! A single-photon source (`[source]` table) replaces 1 − e^(−xμ) by its own click probability
+//! (`source::Source::click_prob`).
+//!
 //! Assumptions: no dead time, no afterpulses, no clock error; photons never jitter into a
 //! neighbouring window; multi-photon slots that click in several outcomes (squashed by the core)
 //! are counted as if they had the same error rate (a second-order effect, O(ημ·e_d)).
@@ -172,16 +175,26 @@ pub fn channel_model(s: &Scenario) -> ChannelModel {
     let e0 = 0.5;
     let e_d = s.misalignment;
     let st = states(s);
+    // Attenuated laser: 1 − e^(−xμ) (exactly as before); single-photon source: its own law.
+    let source = super::Source::from_spec(s.source.as_ref());
+    let click = |poisson: f64, mu: f64, x: f64| match source {
+        super::Source::Laser => poisson,
+        super::Source::SinglePhoton { .. } => source.click_prob(mu, x),
+    };
     let intensities = s
         .intensities
         .iter()
         .zip(&s.intensity_probs)
         .map(|(&mu, &prob)| {
-            let signal = -(-eta_g * mu).exp_m1();
+            let signal = click(-(-eta_g * mu).exp_m1(), mu, eta_g);
             let mut matched_gain = [0.0; 2];
             let mut qber = [0.0; 2];
             for b in 0..2 {
-                let sig_b = -(-eta_g * basis_share[b] * mu).exp_m1();
+                let sig_b = click(
+                    -(-eta_g * basis_share[b] * mu).exp_m1(),
+                    mu,
+                    eta_g * basis_share[b],
+                );
                 matched_gain[b] = y0_basis[b] + sig_b;
                 qber[b] = (e0 * y0_basis[b] + e_d * sig_b) / matched_gain[b];
             }
@@ -191,7 +204,7 @@ pub fn channel_model(s: &Scenario) -> ChannelModel {
                     .iter_mut()
                     .zip(detector_shares(s, basis, bit))
                 {
-                    *acc += p_state * -(-eta_g * mu * share).exp_m1();
+                    *acc += p_state * click(-(-eta_g * mu * share).exp_m1(), mu, eta_g * share);
                 }
             }
             IntensityModel {

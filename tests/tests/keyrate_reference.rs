@@ -1,0 +1,90 @@
+//! The key-rate module's entropy, root finding and μ optimisation against scipy.
+//!
+//! Reference implementation: scipy (`scipy.special.entr` for −x·ln x, `scipy.optimize.brentq` for
+//! roots, `scipy.optimize.minimize_scalar` with bounds for the optimum), installed in a virtual
+//! environment of its own under the target directory; without python, venv, pip or network the
+//! test prints "skipped: <reason>" and passes. The model is the standard channel model of BRIEF §4
+//! (Lo, Ma, Chen, PRL 94, 230504 (2005); Ma, Qi, Zhao, Lo, PRA 72, 012326 (2005)), written again
+//! in Python from the formulas, not from the Rust code.
+
+use serde_json::Value;
+use slotwise_sim::keyrate::channel::{max_distance_km, optimal_mu, Link};
+use slotwise_sim::keyrate::entropy::{bisect, shor_preskill};
+use slotwise_sim::keyrate::h2;
+use std::path::Path;
+use std::process::Command;
+
+const SCRIPT: &str = r#"
+import json
+import numpy as np
+from scipy.special import entr
+from scipy.optimize import brentq, minimize_scalar
+
+def h(x):
+    return float((entr(x) + entr(1.0 - x)) / np.log(2.0))
+
+a, ed, y0, eb, f, q = 0.21, 0.033, 1.7e-6, 0.045, 1.22, 0.5
+def rate(mu, L):
+    eta = eb * 10 ** (-a * L / 10)
+    Q = y0 + 1 - np.exp(-eta * mu)
+    E = (0.5 * y0 + ed * (1 - np.exp(-eta * mu))) / Q
+    Y1 = y0 + eta
+    e1 = (0.5 * y0 + ed * eta) / Y1
+    return q * (-Q * f * h(E) + Y1 * mu * np.exp(-mu) * (1 - h(e1)))
+
+def best(L):
+    r = minimize_scalar(lambda m: -rate(m, L), bounds=(1e-4, 1.5), method="bounded",
+                        options={"xatol": 1e-9})
+    return r.x, -r.fun
+
+mu0, r0 = best(0.0)
+lmax = brentq(lambda L: best(L)[1], 50.0, 300.0, xtol=1e-6)
+print(json.dumps({
+    "h": [h(x) for x in (0.01, 0.03, 0.05, 0.2)],
+    "sp_zero": brentq(lambda x: 1 - 2 * h(x), 0.05, 0.2, xtol=1e-12),
+    "mu0": mu0, "r0": r0, "r50": best(50.0)[1], "lmax": lmax,
+}))
+"#;
+
+#[test]
+fn entropy_and_optimum_match_scipy() {
+    let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join("py-keyrate");
+    let py = match slotwise_tests::python_with(&dir, &["scipy"]) {
+        Ok(p) => p,
+        Err(why) => {
+            eprintln!("skipped: {why}");
+            return;
+        }
+    };
+    let out = Command::new(py).args(["-c", SCRIPT]).output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let num = |k: &str| v[k].as_f64().unwrap();
+    for (x, want) in [0.01, 0.03, 0.05, 0.2]
+        .iter()
+        .zip(v["h"].as_array().unwrap())
+    {
+        let want = want.as_f64().unwrap();
+        assert!((h2(*x) - want).abs() < 1e-12, "h({x}) {} vs {want}", h2(*x));
+    }
+    let zero = bisect(0.05, 0.2, 1e-13, shor_preskill);
+    assert!((zero - num("sp_zero")).abs() < 1e-9, "{zero}");
+    let link = Link::GYS_EXAMPLE;
+    let (mu0, r0) = optimal_mu(&link, 0.0, 1.22, 0.5);
+    println!(
+        "rust: μ {mu0:.6}, R(0) {r0:.6e}; scipy: μ {:.6}, R(0) {:.6e}",
+        num("mu0"),
+        num("r0")
+    );
+    assert!((mu0 - num("mu0")).abs() < 1e-4);
+    assert!((r0 / num("r0") - 1.0).abs() < 1e-7);
+    let r50 = optimal_mu(&link, 50.0, 1.22, 0.5).1;
+    assert!((r50 / num("r50") - 1.0).abs() < 1e-7);
+    let lmax = max_distance_km(&link, 1.22, 0.5);
+    println!("rust: L_max {lmax:.4} km; scipy: {:.4} km", num("lmax"));
+    assert!((lmax - num("lmax")).abs() < 1e-2);
+}
