@@ -523,6 +523,9 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
             self.expire(o.slot, key);
         }
         if self.pending.is_full() {
+            self.pending.compact();
+        }
+        if self.pending.is_full() {
             match self.cfg.overflow {
                 OverflowPolicy::DropNewest => {
                     self.count_outcome(multi_click, Outcome::QueueOverflow);

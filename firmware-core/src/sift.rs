@@ -170,6 +170,23 @@ impl<const N: usize> PendingQueue<N> {
         self.q.push_back(p)
     }
 
+    /// Drop answered entries wherever they sit, keeping the order of the rest; returns how many
+    /// left. Answered entries otherwise leave only from the front, so one unanswered entry there
+    /// would hold every later one until its timeout. O(len); the receiver calls it only when the
+    /// queue is full.
+    pub fn compact(&mut self) -> usize {
+        let n = self.q.len();
+        for _ in 0..n {
+            if let Some(p) = self.q.pop_front() {
+                if !p.done {
+                    // Cannot fail: the pop just freed a place.
+                    let _ = self.q.push_back(p);
+                }
+            }
+        }
+        n - self.q.len()
+    }
+
     /// Remove the oldest entry.
     pub fn pop_oldest(&mut self) -> Option<Pending> {
         self.q.pop_front()
@@ -299,6 +316,24 @@ mod tests {
         assert_eq!(q.take(9), None);
         assert_eq!(q.take(3).map(|e| e.slot), Some(3));
         assert_eq!(q.take(8), None);
+    }
+
+    #[test]
+    fn compact_drops_answered_entries_and_keeps_order() {
+        let mut q = PendingQueue::<4>::new();
+        for s in [1, 2, 3, 4] {
+            q.push(p(s)).unwrap();
+        }
+        q.take(2).unwrap();
+        q.take(4).unwrap();
+        assert_eq!(q.compact(), 2);
+        assert_eq!(q.len(), 2);
+        q.push(p(6)).unwrap();
+        assert_eq!(q.take(3).map(|e| e.slot), Some(3));
+        assert_eq!(q.take(6).map(|e| e.slot), Some(6));
+        assert_eq!(q.oldest().map(|e| e.slot), Some(1));
+        assert_eq!(q.compact(), 2);
+        assert_eq!(q.compact(), 0);
     }
 
     #[test]
