@@ -23,12 +23,14 @@ fn clock() -> ClockArgs {
     }
 }
 
-fn lossy(s: &Scenario) -> LinkModel {
+/// A hostile link: each frame lost with probability `p`, duplicated, reordered and corrupted
+/// with the given probabilities.
+fn lossy(s: &Scenario, p: f64, corrupt: f64) -> LinkModel {
     LinkModel {
-        loss: 0.05,
-        dup: 0.05,
-        reorder: 0.05,
-        corrupt: 0.01,
+        loss: p,
+        dup: p,
+        reorder: p,
+        corrupt,
         latency_slots: 3000,
         ..LinkModel::perfect(s)
     }
@@ -46,12 +48,29 @@ fn error_free() -> Scenario {
 
 #[test]
 fn wire_lossy_link_keeps_both_keys_identical() {
+    lossy_link_keeps_both_keys_identical(0.05, 0.01, "5");
+}
+
+/// The answer faults of the field-fault list: lost, duplicated, reordered and corrupted frames,
+/// 10 % each, over the framed link (corrupted frames fail their CRC and count as refused).
+#[test]
+fn wire_link_with_10_percent_of_each_fault_keeps_both_keys_identical() {
+    lossy_link_keeps_both_keys_identical(0.10, 0.10, "10");
+}
+
+fn lossy_link_keeps_both_keys_identical(p: f64, corrupt: f64, tag: &str) {
     let s = error_free();
-    let dir = std::env::temp_dir().join(format!("slotwise-wire-{}", std::process::id()));
+    let dir = std::env::temp_dir().join(format!("slotwise-wire-{tag}-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
     let key_path = dir.join("lossy.swkey");
-    let (summary, res, bits) =
-        run_simulated_linked(&s, &clock(), None, Some(lossy(&s)), Some(&key_path)).unwrap();
+    let (summary, res, bits) = run_simulated_linked(
+        &s,
+        &clock(),
+        None,
+        Some(lossy(&s, p, corrupt)),
+        Some(&key_path),
+    )
+    .unwrap();
     let link = res.tx.framed().unwrap();
     let l = summary.link.as_ref().unwrap();
     // The link really was hostile in both directions.
@@ -135,7 +154,7 @@ fn wire_keys_differ_only_at_the_simulators_error_positions() {
         ..Scenario::default_bench()
     };
     let (summary, res, bits) =
-        run_simulated_linked(&s, &clock(), None, Some(lossy(&s)), None).unwrap();
+        run_simulated_linked(&s, &clock(), None, Some(lossy(&s, 0.05, 0.01)), None).unwrap();
     let key = res.tx.framed().unwrap().with_tx(|tx| tx.key().clone());
     let tx = TxChoices::new(&s);
     let truth = signal_outcomes(&s);
