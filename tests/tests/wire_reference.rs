@@ -181,13 +181,8 @@ fn wire_frames_read_by_a_python_transmitter_from_the_document() {
     std::fs::write(&input, serde_json::to_string(&hex).unwrap()).unwrap();
     let script = dir.join("wire_reference.py");
     std::fs::write(&script, SCRIPT).unwrap();
-    let out = Command::new(&py).arg(&script).arg(&input).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let got: Vec<Value> = serde_json::from_slice(&out.stdout).unwrap();
+    let out = slotwise_tests::run_python(&py, [&script, &input]);
+    let got: Vec<Value> = serde_json::from_slice(&out).unwrap();
     assert_eq!(got.len(), sent.len());
     for ((seq, s), g) in sent.iter().zip(&got) {
         assert_eq!(g["version"], 1);
