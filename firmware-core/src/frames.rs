@@ -323,11 +323,27 @@ fn le_array<const N: usize>(bytes: &[u8]) -> [u8; N] {
     a
 }
 
-fn read_u64(p: &[u8], at: usize) -> Result<u64, FrameError> {
+/// Little-endian u64 at byte offset `at` of payload `p`; `Truncated` at the payload end if short.
+pub(crate) fn read_u64(p: &[u8], at: usize) -> Result<u64, FrameError> {
     let b = p
         .get(at..at + 8)
         .ok_or(FrameError::Truncated { offset: p.len() })?;
     Ok(u64::from_le_bytes(le_array(b)))
+}
+
+/// Check that payload `p` is exactly `want` bytes: shorter is `Truncated` at its end, longer is a
+/// `LengthMismatch` declaring `want`.
+pub(crate) fn exact_len(p: &[u8], want: usize) -> Result<(), FrameError> {
+    if p.len() < want {
+        return Err(FrameError::Truncated { offset: p.len() });
+    }
+    if p.len() > want {
+        return Err(FrameError::LengthMismatch {
+            declared: want as u16,
+            actual: p.len(),
+        });
+    }
+    Ok(())
 }
 
 /// A decoded key block: its slot range and bitmaps, borrowed from the payload.
@@ -379,16 +395,7 @@ impl<'a> KeyBlock<'a> {
                 field: "last_slot",
             });
         }
-        let want = key_block_len(n);
-        if p.len() < want {
-            return Err(FrameError::Truncated { offset: p.len() });
-        }
-        if p.len() > want {
-            return Err(FrameError::LengthMismatch {
-                declared: want as u16,
-                actual: p.len(),
-            });
-        }
+        exact_len(p, key_block_len(n))?;
         Ok(Self {
             first_slot,
             last_slot,
@@ -525,16 +532,7 @@ impl Summary {
 
     /// Read a summary payload.
     pub fn decode(p: &[u8]) -> Result<Self, FrameError> {
-        if p.len() != SUMMARY_LEN {
-            return Err(if p.len() < SUMMARY_LEN {
-                FrameError::Truncated { offset: p.len() }
-            } else {
-                FrameError::LengthMismatch {
-                    declared: SUMMARY_LEN as u16,
-                    actual: p.len(),
-                }
-            });
-        }
+        exact_len(p, SUMMARY_LEN)?;
         let mut words = p.chunks_exact(8).map(|c| u64::from_le_bytes(le_array(c)));
         let mut next = || words.next().unwrap_or(0);
         let detections_in = next();

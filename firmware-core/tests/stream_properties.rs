@@ -123,6 +123,17 @@ struct Outcome {
     announced: usize,
 }
 
+/// The counters of `rx` after a run, with the bits `key` collected and the announcements `tx` saw.
+fn outcome(rx: &Receiver<FixedClock, 8>, tx: &LagTx, key: Collect) -> Outcome {
+    Outcome {
+        accounting: *rx.accounting(),
+        tally: *rx.tally(),
+        multi: *rx.multi_click_tally(),
+        bits: key.0,
+        announced: tx.announced,
+    }
+}
+
 fn run(
     cfg: ReceiverConfig,
     clock: FixedClock,
@@ -152,13 +163,7 @@ fn run(
     assert_eq!(rx.accounting().in_flight, 0);
     // Slots are announced once each, in increasing order, however the input was reordered.
     assert!(tx.increasing, "announcements out of slot order");
-    Outcome {
-        accounting: *rx.accounting(),
-        tally: *rx.tally(),
-        multi: *rx.multi_click_tally(),
-        bits: key.0,
-        announced: tx.announced,
-    }
+    outcome(&rx, &tx, key)
 }
 
 prop_compose! {
@@ -240,13 +245,7 @@ fn feed(rx: &mut Receiver<FixedClock, 8>, events: &[TdcEvent], lag: usize) -> Ou
     let mut key = Collect::default();
     rx.push_block(events, &mut tx, &mut key);
     rx.finish(&mut tx, &mut key);
-    Outcome {
-        accounting: *rx.accounting(),
-        tally: *rx.tally(),
-        multi: *rx.multi_click_tally(),
-        bits: key.0,
-        announced: tx.announced,
-    }
+    outcome(rx, &tx, key)
 }
 
 proptest! {

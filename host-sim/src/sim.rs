@@ -494,6 +494,20 @@ impl Simulator {
         self.heap.push(c);
     }
 
+    /// Queue a click at `t_ps` on `detector` with no slot behind it (dark count or fault light),
+    /// tagged with its `source`.
+    fn push_dark(&mut self, t_ps: f64, detector: u8, source: u8) {
+        self.push(Candidate {
+            t_ps,
+            detector,
+            kind: Kind::Dark,
+            slot: None,
+            position: None,
+            source,
+            level: 1,
+        });
+    }
+
     fn schedule_dark(&mut self, d: u8, after_ps: f64) {
         let Some(mean) = self.dark_mean_ps else {
             return;
@@ -503,15 +517,7 @@ impl Simulator {
         };
         let t = after_ps + rng.exponential(mean);
         if t < self.end_ps {
-            self.push(Candidate {
-                t_ps: t,
-                detector: d,
-                kind: Kind::Dark,
-                slot: None,
-                position: None,
-                source: SOURCE_PLAIN,
-                level: 1,
-            });
+            self.push_dark(t, d, SOURCE_PLAIN);
         }
     }
 
@@ -533,15 +539,7 @@ impl Simulator {
         };
         let t = after_ps.max(from).max(dead_end) + rng.exponential(gap);
         if t < to && t < self.end_ps {
-            self.push(Candidate {
-                t_ps: t,
-                detector: d,
-                kind: Kind::Dark,
-                slot: None,
-                position: None,
-                level: 1,
-                source: SOURCE_BRIGHT + i as u8,
-            });
+            self.push_dark(t, d, SOURCE_BRIGHT + i as u8);
         }
     }
 
@@ -555,15 +553,7 @@ impl Simulator {
         };
         let t = after_ps + rng.exponential(gap);
         if t < self.end_ps {
-            self.push(Candidate {
-                t_ps: t,
-                detector: ch,
-                kind: Kind::Dark,
-                slot: None,
-                position: None,
-                level: 1,
-                source: SOURCE_STRAY + i as u8,
-            });
+            self.push_dark(t, ch, SOURCE_STRAY + i as u8);
         }
     }
 

@@ -1,5 +1,6 @@
 //! Shared helpers for the end-to-end tests.
 
+use std::ffi::OsStr;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -44,3 +45,19 @@ pub fn python_with(dir: &Path, modules: &[&str]) -> Result<PathBuf, String> {
     Ok(py)
 }
 pub mod faults;
+
+/// Run `py` with `args` and return what it printed on stdout; panics with its stderr when it
+/// fails (a reference script that cannot run is a failed check, not a skip).
+pub fn run_python<I, S>(py: &Path, args: I) -> Vec<u8>
+where
+    I: IntoIterator<Item = S>,
+    S: AsRef<OsStr>,
+{
+    let out = Command::new(py).args(args).output().unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    out.stdout
+}

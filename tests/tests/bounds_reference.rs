@@ -11,7 +11,6 @@ use serde_json::Value;
 use slotwise::bounds::{wilson_ppm, Z_ONE_SIDED_1E_10_Q16};
 use slotwise_sim::stats::clopper_pearson;
 use std::path::Path;
-use std::process::Command;
 
 const SCRIPT: &str = r#"
 import json, sys
@@ -57,16 +56,8 @@ fn clopper_pearson_and_wilson_against_scipy() {
         }
     };
     let cases = serde_json::to_string(CASES).unwrap();
-    let out = Command::new(py)
-        .args(["-c", SCRIPT, &cases])
-        .output()
-        .unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let out = slotwise_tests::run_python(&py, ["-c", SCRIPT, &cases]);
+    let v: Value = serde_json::from_slice(&out).unwrap();
     // z of the board's Wilson bound: scipy norm.isf(1e-10), to the Q16.16 grid.
     let z = v["z"].as_f64().unwrap();
     assert!(

@@ -12,7 +12,6 @@ use slotwise_sim::keyrate::channel::{max_distance_km, optimal_mu, Link};
 use slotwise_sim::keyrate::entropy::{bisect, shor_preskill};
 use slotwise_sim::keyrate::h2;
 use std::path::Path;
-use std::process::Command;
 
 const SCRIPT: &str = r#"
 import json
@@ -56,13 +55,8 @@ fn entropy_and_optimum_match_scipy() {
             return;
         }
     };
-    let out = Command::new(py).args(["-c", SCRIPT]).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let v: Value = serde_json::from_slice(&out.stdout).unwrap();
+    let out = slotwise_tests::run_python(&py, ["-c", SCRIPT]);
+    let v: Value = serde_json::from_slice(&out).unwrap();
     let num = |k: &str| v[k].as_f64().unwrap();
     for (x, want) in [0.01, 0.03, 0.05, 0.2]
         .iter()

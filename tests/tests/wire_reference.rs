@@ -12,7 +12,6 @@ use slotwise::wire::codec::{encode_announce, encode_answers, FLAG_FINAL};
 use slotwise::wire::{AnswerEntry, Report};
 use slotwise::Basis;
 use std::path::{Path, PathBuf};
-use std::process::Command;
 
 const SCRIPT: &str = r#"
 import json, struct, sys
@@ -61,37 +60,7 @@ print(json.dumps(out))
 /// Python with `cobs` and `crccheck` in `<target>/tmp/py-wire`, or why not.
 fn python() -> Result<PathBuf, String> {
     let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join("py-wire");
-    let py = dir.join("bin").join("python");
-    let run = |cmd: &mut Command, what: &str| -> Result<(), String> {
-        let o = cmd.output().map_err(|e| format!("{what}: {e}"))?;
-        if o.status.success() {
-            Ok(())
-        } else {
-            Err(format!(
-                "{what}: {}",
-                String::from_utf8_lossy(&o.stderr).trim()
-            ))
-        }
-    };
-    if !py.exists() {
-        run(
-            Command::new("python3").args(["-m", "venv"]).arg(&dir),
-            "python3 -m venv",
-        )?;
-    }
-    let has = || {
-        Command::new(&py)
-            .args(["-c", "import cobs, crccheck"])
-            .output()
-            .is_ok_and(|o| o.status.success())
-    };
-    if !has() {
-        run(
-            Command::new(&py).args(["-m", "pip", "install", "--quiet", "cobs", "crccheck"]),
-            "pip install cobs crccheck",
-        )?;
-    }
-    Ok(py)
+    slotwise_tests::python_with(&dir, &["cobs", "crccheck"])
 }
 
 fn frame(record: RecordType, seq: u16, payload: &[u8]) -> Vec<u8> {
@@ -181,13 +150,8 @@ fn wire_frames_read_by_a_python_transmitter_from_the_document() {
     std::fs::write(&input, serde_json::to_string(&hex).unwrap()).unwrap();
     let script = dir.join("wire_reference.py");
     std::fs::write(&script, SCRIPT).unwrap();
-    let out = Command::new(&py).arg(&script).arg(&input).output().unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let got: Vec<Value> = serde_json::from_slice(&out.stdout).unwrap();
+    let out = slotwise_tests::run_python(&py, [&script, &input]);
+    let got: Vec<Value> = serde_json::from_slice(&out).unwrap();
     assert_eq!(got.len(), sent.len());
     for ((seq, s), g) in sent.iter().zip(&got) {
         assert_eq!(g["version"], 1);

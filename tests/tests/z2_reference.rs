@@ -24,7 +24,6 @@ use slotwise::{GateTable, UnwrapConfig, Unwrapper};
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::{clock_truth, receiver_gates, Simulator};
 use std::path::{Path, PathBuf};
-use std::process::Command;
 
 const SCRIPT: &str = r#"
 import json, sys
@@ -179,17 +178,8 @@ fn z2_matches_numpy_on_simulated_detections() {
     std::fs::write(&input_path, input.to_string()).unwrap();
     let script_path = dir.join("z2_reference.py");
     std::fs::write(&script_path, SCRIPT).unwrap();
-    let out = Command::new(&py)
-        .arg(&script_path)
-        .arg(&input_path)
-        .output()
-        .unwrap();
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let refs: Vec<Value> = serde_json::from_slice(&out.stdout).unwrap();
+    let out = slotwise_tests::run_python(&py, [&script_path, &input_path]);
+    let refs: Vec<Value> = serde_json::from_slice(&out).unwrap();
 
     // Table resolution: amplitudes are Q1.15 rounded to nearest, so cos and sin are each within
     // ε = 0.5/TABLE_ONE of the true value and a term within √2·ε; the core divides by the table's

@@ -11,7 +11,7 @@
 //! LEB128 is the unsigned variable-length integer of the DWARF standard (DWARF 5, §7.6): seven
 //! bits per byte, least significant group first, bit 7 set on every byte but the last.
 
-use crate::frames::{FrameError, MAX_PAYLOAD};
+use crate::frames::{exact_len, read_u64, FrameError, MAX_PAYLOAD};
 use crate::gates::Basis;
 use crate::sift::Announcement;
 
@@ -116,15 +116,6 @@ fn u16_at(p: &[u8], at: usize) -> Result<u16, FrameError> {
     }
 }
 
-fn u64_at(p: &[u8], at: usize) -> Result<u64, FrameError> {
-    let b = p
-        .get(at..at + 8)
-        .ok_or(FrameError::Truncated { offset: p.len() })?;
-    let mut a = [0u8; 8];
-    a.iter_mut().zip(b).for_each(|(d, s)| *d = *s);
-    Ok(u64::from_le_bytes(a))
-}
-
 /// Write the fixed part of an announce payload into `out[..ANNOUNCE_FIXED]`.
 pub fn put_announce_fixed(
     out: &mut [u8],
@@ -222,11 +213,11 @@ impl<'a> AnnounceView<'a> {
         if p.len() < ANNOUNCE_FIXED {
             return Err(FrameError::Truncated { offset: p.len() });
         }
-        let first_slot = u64_at(p, 0)?;
+        let first_slot = read_u64(p, 0)?;
         let count = u16_at(p, 8)?;
         let report = Report {
             resolved_below: u16_at(p, 10)?,
-            answered_map: u64_at(p, 12)?,
+            answered_map: read_u64(p, 12)?,
         };
         let flags = p.get(20).copied().unwrap_or(0);
         let bad = |offset, field| FrameError::BadField { offset, field };
@@ -251,15 +242,7 @@ impl<'a> AnnounceView<'a> {
         }
         let m = usize::from(count).div_ceil(8);
         let want = at + m;
-        if p.len() < want {
-            return Err(FrameError::Truncated { offset: p.len() });
-        }
-        if p.len() > want {
-            return Err(FrameError::LengthMismatch {
-                declared: want as u16,
-                actual: p.len(),
-            });
-        }
+        exact_len(p, want)?;
         let bases = p.get(at..want).unwrap_or_default();
         let used = usize::from(count) % 8;
         if used != 0 && bases.last().is_some_and(|&b| b >> used != 0) {
@@ -412,7 +395,7 @@ impl<'a> AnswersView<'a> {
     pub fn parse(p: &'a [u8]) -> Result<Self, FrameError> {
         let ann_seq = u16_at(p, 0)?;
         let count = usize::from(u16_at(p, 2)?);
-        let first_slot = u64_at(p, 4)?;
+        let first_slot = read_u64(p, 4)?;
         if count == 0 || count > MAX_ENTRIES {
             return Err(FrameError::BadField {
                 offset: 2,
@@ -420,15 +403,7 @@ impl<'a> AnswersView<'a> {
             });
         }
         let want = ANSWERS_FIXED + count;
-        if p.len() < want {
-            return Err(FrameError::Truncated { offset: p.len() });
-        }
-        if p.len() > want {
-            return Err(FrameError::LengthMismatch {
-                declared: want as u16,
-                actual: p.len(),
-            });
-        }
+        exact_len(p, want)?;
         let entries = p.get(ANSWERS_FIXED..want).unwrap_or_default();
         if let Some(i) = entries
             .iter()

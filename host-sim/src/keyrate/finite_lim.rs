@@ -7,7 +7,7 @@
 //! Counts are treated as i.i.d. and bounded with Hoeffding's inequality (JASA 58, 13 (1963)).
 
 use super::entropy::{h2, h2_capped};
-use super::{Bound, EstimatorError, Observed, Terms, X, Z};
+use super::{Bound, ClassCounts, EstimatorError, Observed, Terms, X, Z};
 
 /// Number of error terms ε_sec is split into in Lim et al. (the "21" of their eqs. (1), (2)
 /// and (5) — from memory).
@@ -118,15 +118,35 @@ pub fn lim_s0_s1(
 /// from memory): v_X,1 ≤ τ1·(m^+_X,2 − m^-_X,3)/(μ2 − μ3).
 pub fn lim_v1(o: &Observed, eps: Epsilons, fluct: bool) -> Result<f64, EstimatorError> {
     let [_, i2, i3] = ordered(o)?;
-    let (c2, c3) = (&o.classes[i2], &o.classes[i3]);
+    Ok(v1_upper(
+        o,
+        &o.classes[i2],
+        &o.classes[i3],
+        eps,
+        LIM_SPLIT,
+        fluct,
+    ))
+}
+
+/// Upper bound on single-photon errors in X from a higher class `hi` and a lower class `lo`,
+/// counts: τ1·(m^+_X,hi − m^-_X,lo)/(μ_hi − μ_lo), with Hoeffding's δ at ε_sec/`split` when
+/// `fluct` (Lim et al. 2014 eq. (4), Rusca et al. 2018 eq. (4) — from memory).
+pub fn v1_upper(
+    o: &Observed,
+    hi: &ClassCounts,
+    lo: &ClassCounts,
+    eps: Epsilons,
+    split: f64,
+    fluct: bool,
+) -> f64 {
     let delta = if fluct {
-        hoeffding_delta(o.m(X), eps.sec / LIM_SPLIT)
+        hoeffding_delta(o.m(X), eps.sec / split)
     } else {
         0.0
     };
-    let (_, m2p) = rescaled(c2.mu, c2.prob, c2.errors[X], delta);
-    let (m3m, _) = rescaled(c3.mu, c3.prob, c3.errors[X], delta);
-    Ok((tau(o, 1) * (m2p - m3m) / (c2.mu - c3.mu)).max(0.0))
+    let (_, m_hi_p) = rescaled(hi.mu, hi.prob, hi.errors[X], delta);
+    let (m_lo_m, _) = rescaled(lo.mu, lo.prob, lo.errors[X], delta);
+    (tau(o, 1) * (m_hi_p - m_lo_m) / (hi.mu - lo.mu)).max(0.0)
 }
 
 /// Finite-key length of two-decoy BB84 (Lim et al. 2014, eq. (1) — from memory):
@@ -134,19 +154,35 @@ pub fn lim_v1(o: &Observed, eps: Epsilons, fluct: bool) -> Result<f64, Estimator
 /// φ_Z = v_X,1/s_X,1 + γ(ε_sec, v_X,1/s_X,1, s_Z,1, s_X,1) (eq. (5)) and λ_EC = f·n_Z·h(E_Z) (the
 /// leakage model of their simulations). Returned per pulse sent (ℓ/N) with its terms.
 pub fn lim_key(o: &Observed, eps: Epsilons, f_ec: f64) -> Result<Bound, EstimatorError> {
-    let len = |fluct: bool| -> Result<(f64, Terms), EstimatorError> {
+    finite_key(o, eps, f_ec, LIM_SPLIT, |fluct| {
         let (s0z, s1z) = lim_s0_s1(o, Z, eps, fluct)?;
         let (_, s1x) = lim_s0_s1(o, X, eps, fluct)?;
         let v1x = lim_v1(o, eps, fluct)?;
+        Ok((s0z, s1z, s1x, v1x))
+    })
+}
+
+/// Finite-key length ℓ = s_Z,0 + s_Z,1·[1 − h(φ_Z)] − λ_EC − 6·log2(split/ε_sec) −
+/// log2(2/ε_cor) with φ_Z = v_X,1/s_X,1 + γ (Lim et al. 2014 eqs. (1), (5) — from memory), per
+/// pulse sent with its terms. `bounds(fluct)` gives (s_Z,0, s_Z,1, s_X,1, v_X,1) in counts.
+pub fn finite_key(
+    o: &Observed,
+    eps: Epsilons,
+    f_ec: f64,
+    split: f64,
+    bounds: impl Fn(bool) -> Result<(f64, f64, f64, f64), EstimatorError>,
+) -> Result<Bound, EstimatorError> {
+    let len = |fluct: bool| -> Result<(f64, Terms), EstimatorError> {
+        let (s0z, s1z, s1x, v1x) = bounds(fluct)?;
         let ratio = if s1x > 0.0 { v1x / s1x } else { f64::INFINITY };
         let phi = if fluct {
-            ratio + gamma(eps.sec, ratio, s1z, s1x, LIM_SPLIT)
+            ratio + gamma(eps.sec, ratio, s1z, s1x, split)
         } else {
             ratio
         };
         let leak = f_ec * o.n(Z) * h2(o.qber(Z));
         let eps_terms = if fluct {
-            6.0 * (LIM_SPLIT / eps.sec).log2() + (2.0 / eps.cor).log2()
+            6.0 * (split / eps.sec).log2() + (2.0 / eps.cor).log2()
         } else {
             0.0
         };

@@ -8,9 +8,8 @@
 //! stand for the X basis: that assumes the phase error does not depend on which X state was sent,
 //! an assumption of this estimate, not of the paper.
 
-use super::entropy::{h2, h2_capped};
-use super::finite_lim::{gamma, hoeffding_delta, rescaled, tau, Epsilons};
-use super::{Bound, EstimatorError, Observed, Terms, X, Z};
+use super::finite_lim::{finite_key, hoeffding_delta, rescaled, tau, v1_upper, Epsilons};
+use super::{Bound, EstimatorError, Observed, X, Z};
 
 /// Number of error terms ε_sec is split into (the "19" of Rusca et al. 2018 — from memory).
 pub const RUSCA_SPLIT: f64 = 19.0;
@@ -72,15 +71,14 @@ pub fn rusca_s0_s1(
 /// v_X,1 ≤ τ1·(m^+_X,μ1 − m^-_X,μ2)/(μ1 − μ2).
 pub fn rusca_v1(o: &Observed, eps: Epsilons, fluct: bool) -> Result<f64, EstimatorError> {
     let [i1, i2] = ordered(o)?;
-    let (c1, c2) = (&o.classes[i1], &o.classes[i2]);
-    let dm = if fluct {
-        hoeffding_delta(o.m(X), eps.sec / RUSCA_SPLIT)
-    } else {
-        0.0
-    };
-    let (_, m1p) = rescaled(c1.mu, c1.prob, c1.errors[X], dm);
-    let (m2m, _) = rescaled(c2.mu, c2.prob, c2.errors[X], dm);
-    Ok((tau(o, 1) * (m1p - m2m) / (c1.mu - c2.mu)).max(0.0))
+    Ok(v1_upper(
+        o,
+        &o.classes[i1],
+        &o.classes[i2],
+        eps,
+        RUSCA_SPLIT,
+        fluct,
+    ))
 }
 
 /// Finite-key length of the one-decoy protocol (Rusca et al. 2018, eq. (1) — from memory):
@@ -88,48 +86,10 @@ pub fn rusca_v1(o: &Observed, eps: Epsilons, fluct: bool) -> Result<f64, Estimat
 /// φ_Z = v_X,1/s_X,1 + γ(ε_sec, v_X,1/s_X,1, s_Z,1, s_X,1) (eq. (5), the γ of Lim et al. 2014 with
 /// 19 in place of 21) and λ_EC = f·n_Z·h(E_Z). Returned per pulse sent with its terms.
 pub fn rusca_key(o: &Observed, eps: Epsilons, f_ec: f64) -> Result<Bound, EstimatorError> {
-    let len = |fluct: bool| -> Result<(f64, Terms), EstimatorError> {
+    finite_key(o, eps, f_ec, RUSCA_SPLIT, |fluct| {
         let (s0z, _, s1z) = rusca_s0_s1(o, Z, eps, fluct)?;
         let (_, _, s1x) = rusca_s0_s1(o, X, eps, fluct)?;
         let v1x = rusca_v1(o, eps, fluct)?;
-        let ratio = if s1x > 0.0 { v1x / s1x } else { f64::INFINITY };
-        let phi = if fluct {
-            ratio + gamma(eps.sec, ratio, s1z, s1x, RUSCA_SPLIT)
-        } else {
-            ratio
-        };
-        let leak = f_ec * o.n(Z) * h2(o.qber(Z));
-        let eps_terms = if fluct {
-            6.0 * (RUSCA_SPLIT / eps.sec).log2() + (2.0 / eps.cor).log2()
-        } else {
-            0.0
-        };
-        let cost = s1z * h2_capped(phi);
-        let n = o.pulses;
-        Ok((
-            s0z + s1z - cost - leak - eps_terms,
-            Terms {
-                vacuum: s0z / n,
-                single_photon: s1z / n,
-                phase_error: phi,
-                phase_error_cost: cost / n,
-                ec_leakage: leak / n,
-                qber_key: o.qber(Z),
-                epsilon_terms: eps_terms / n,
-                statistical_penalty: 0.0,
-                phase_error_finite: None,
-            },
-        ))
-    };
-    // The terms are those of the same counts without fluctuations, so that they add up with the
-    // finite-size penalty (ε terms + fluctuations) to the finite key length.
-    let (l, finite) = len(true)?;
-    let (l_inf, mut terms) = len(false)?;
-    terms.epsilon_terms = finite.epsilon_terms;
-    terms.statistical_penalty = (l_inf - l) / o.pulses - finite.epsilon_terms;
-    terms.phase_error_finite = Some(finite.phase_error);
-    Ok(Bound {
-        bits_per_pulse: l / o.pulses,
-        terms,
+        Ok((s0z, s1z, s1x, v1x))
     })
 }
