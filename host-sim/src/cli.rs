@@ -3,13 +3,12 @@
 use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
 use crate::clocks::{self, ClockMode, HostClock};
 use crate::csv_io;
-use crate::link::keyfile::{self, KeyTap};
-use crate::link::report::link_summary;
-use crate::link::{FramedLink, HostTx, LinkModel};
+use crate::link::keyfile;
+use crate::link::{HostTx, LinkModel};
 use crate::plots;
-use crate::replay::{Session, SessionResult, TraceRequest, TruthTag};
+use crate::replay::{SessionResult, TraceRequest, TruthTag};
 use crate::scenario::Scenario;
-use crate::sim::{self, SimTransmitter, Simulator};
+use crate::sim::{self, Simulator};
 use crate::summary::{summarize, Summary};
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressStyle};
@@ -20,7 +19,10 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 mod alarm_args;
+mod session;
+
 pub use alarm_args::AlarmArgs;
+use session::{add_link, finish_session, open_session};
 
 type AnyErr = Box<dyn std::error::Error>;
 
@@ -408,58 +410,6 @@ pub fn run_simulated(
     Ok((summary, res))
 }
 
-/// The host transmitter for a run: over the framed link when `link` is given.
-fn host_tx(s: &Scenario, link: Option<LinkModel>) -> Result<HostTx, AnyErr> {
-    Ok(match link {
-        Some(m) => HostTx::Framed(Box::new(FramedLink::new(s, m)?)),
-        None => HostTx::Direct(Box::new(SimTransmitter::new(s))),
-    })
-}
-
-/// A finished session, the receiver's sifted bits, and key blocks written (when a file was asked).
-type Finished = (SessionResult<HostTx>, Vec<SiftedBit>, Option<u64>);
-
-/// End a session: let the link's last frames arrive, finish the receiver, close the link,
-/// write the key file. Returns the result and the receiver's sifted bits in emission order.
-fn finish_session(
-    mut session: Session<HostTx>,
-    tap: &KeyTap,
-    key_out: Option<&Path>,
-) -> Result<Finished, AnyErr> {
-    if let Some(l) = session.tx_mut().framed_mut() {
-        l.drain();
-        session.service();
-    }
-    let mut res = session.finish()?;
-    if let Some(l) = res.tx.framed_mut() {
-        l.close();
-    }
-    let blocks = match key_out {
-        Some(p) => Some(tap.write(p, &slotwise::frames::Summary::of(&res.rx))?),
-        None => None,
-    };
-    let bits = std::mem::take(&mut tap.0.borrow_mut().bits);
-    Ok((res, bits, blocks))
-}
-
-/// Fill the summary's `link` object (framed runs) and print where the key file went.
-fn add_link(
-    summary: &mut Summary,
-    res: &SessionResult<HostTx>,
-    bits: &[SiftedBit],
-    blocks: Option<u64>,
-    key_out: Option<&Path>,
-) {
-    if let Some(l) = res.tx.framed() {
-        let mut ls = link_summary(l, bits);
-        ls.key_blocks_written = blocks;
-        ls.key_file = key_out.map(|p| p.display().to_string());
-        summary.link = Some(ls);
-    } else if let (Some(n), Some(p)) = (blocks, key_out) {
-        eprintln!("wrote {} ({n} key blocks)", p.display());
-    }
-}
-
 /// As [`run_simulated`], with the exchange over the framed link `link` (when given) and the
 /// sifted key blocks written to `key_out`. Also returns the receiver's sifted bits.
 pub fn run_simulated_linked(
@@ -472,15 +422,7 @@ pub fn run_simulated_linked(
     let started = Instant::now();
     let (cfg, host_clock) = receiver_setup_for(s, clock, link.is_some())?;
     let truth = sim::clock_truth(s)?;
-    let mut session = Session::new(cfg, host_clock, host_tx(s, link)?, bucket_s(s), true, None)?
-        .with_monitor(
-            crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-            s.alarm_config()?,
-        );
-    let tap = KeyTap::new();
-    session.set_key_tap(Box::new(tap.clone()));
-    let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
-    session.hint(hint_t, hint_slot);
+    let (mut session, tap) = open_session(cfg, host_clock, s, link, true, None)?;
     let mut writer = match capture {
         Some(p) => Some(CaptureWriter::new(
             BufWriter::new(File::create(p).map_err(|e| format!("{}: {e}", p.display()))?),
@@ -662,15 +604,7 @@ pub fn replay_capture(
     let name = path.display().to_string();
     let file = File::open(path).map_err(|e| format!("{name}: {e}"))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
-    let mut session = Session::new(cfg, clock, host_tx(s, link)?, bucket_s(s), false, trace)?
-        .with_monitor(
-            crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-            s.alarm_config()?,
-        );
-    let tap = KeyTap::new();
-    session.set_key_tap(Box::new(tap.clone()));
-    let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
-    session.hint(hint_t, hint_slot);
+    let (mut session, tap) = open_session(cfg, clock, s, link, false, trace)?;
     let mut skipped = None;
     let pb = progress(size, "replaying");
     if path.extension().is_some_and(|e| e == "csv") {

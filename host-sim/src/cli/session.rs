@@ -1,0 +1,97 @@
+//! One receiver session of a command: built with the host transmitter, the live-statistics
+//! monitor, the key tap and the classical-channel hint, and finished with the link's last frames
+//! and the key file.
+
+use super::{bucket_s, AnyErr};
+use crate::clocks::{self, HostClock};
+use crate::link::keyfile::KeyTap;
+use crate::link::report::link_summary;
+use crate::link::{FramedLink, HostTx, LinkModel};
+use crate::replay::{Session, SessionResult, TraceRequest};
+use crate::scenario::Scenario;
+use crate::sim::SimTransmitter;
+use crate::summary::Summary;
+use slotwise::{ReceiverConfig, SiftedBit};
+use std::path::Path;
+
+/// A session of the core `cfg` on `clock` for scenario `s`: answers over the framed `link` when
+/// given (else handed over directly), the monitor with the scenario's alarms, a key tap, and the
+/// transmitter's numbering hint. `truth_checked` when the simulator's truth comes with the events.
+pub(super) fn open_session(
+    cfg: ReceiverConfig,
+    clock: HostClock,
+    s: &Scenario,
+    link: Option<LinkModel>,
+    truth_checked: bool,
+    trace: Option<TraceRequest>,
+) -> Result<(Session<HostTx>, KeyTap), AnyErr> {
+    let mut session = Session::new(
+        cfg,
+        clock,
+        host_tx(s, link)?,
+        bucket_s(s),
+        truth_checked,
+        trace,
+    )?
+    .with_monitor(
+        crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
+        s.alarm_config()?,
+    );
+    let tap = KeyTap::new();
+    session.set_key_tap(Box::new(tap.clone()));
+    let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
+    session.hint(hint_t, hint_slot);
+    Ok((session, tap))
+}
+
+/// The host transmitter for a run: over the framed link when `link` is given.
+fn host_tx(s: &Scenario, link: Option<LinkModel>) -> Result<HostTx, AnyErr> {
+    Ok(match link {
+        Some(m) => HostTx::Framed(Box::new(FramedLink::new(s, m)?)),
+        None => HostTx::Direct(Box::new(SimTransmitter::new(s))),
+    })
+}
+
+/// A finished session, the receiver's sifted bits, and key blocks written (when a file was asked).
+type Finished = (SessionResult<HostTx>, Vec<SiftedBit>, Option<u64>);
+
+/// End a session: let the link's last frames arrive, finish the receiver, close the link,
+/// write the key file. Returns the result and the receiver's sifted bits in emission order.
+pub(super) fn finish_session(
+    mut session: Session<HostTx>,
+    tap: &KeyTap,
+    key_out: Option<&Path>,
+) -> Result<Finished, AnyErr> {
+    if let Some(l) = session.tx_mut().framed_mut() {
+        l.drain();
+        session.service();
+    }
+    let mut res = session.finish()?;
+    if let Some(l) = res.tx.framed_mut() {
+        l.close();
+    }
+    let blocks = match key_out {
+        Some(p) => Some(tap.write(p, &slotwise::frames::Summary::of(&res.rx))?),
+        None => None,
+    };
+    let bits = std::mem::take(&mut tap.0.borrow_mut().bits);
+    Ok((res, bits, blocks))
+}
+
+/// Fill the summary's `link` object (framed runs) and print where the key file went.
+pub(super) fn add_link(
+    summary: &mut Summary,
+    res: &SessionResult<HostTx>,
+    bits: &[SiftedBit],
+    blocks: Option<u64>,
+    key_out: Option<&Path>,
+) {
+    if let Some(l) = res.tx.framed() {
+        let mut ls = link_summary(l, bits);
+        ls.key_blocks_written = blocks;
+        ls.key_file = key_out.map(|p| p.display().to_string());
+        summary.link = Some(ls);
+    } else if let (Some(n), Some(p)) = (blocks, key_out) {
+        eprintln!("wrote {} ({n} key blocks)", p.display());
+    }
+}
