@@ -1,9 +1,11 @@
 //! Stage 2 — the clock model: which slot a detection falls in, and where inside it.
 //!
 //! A clock is a period (Q32.32 picoseconds) and a phase origin (the time at which slot 0 starts).
-//! This module holds the [`Clock`] seam and [`FixedClock`], the clock handed in by configuration
-//! (links with a distributed reference clock use it). Recovering the clock from the detections
-//! themselves plugs into the same seam.
+//! This module holds the [`SlotClock`] seam and [`FixedClock`], the clock handed in by
+//! configuration (links with a distributed reference clock use it). Recovering the clock from the
+//! detections themselves ([`crate::RecoveredClock`]) plugs into the same seam. Which absolute
+//! slot number a clock's slot has is a separate stage ([`crate::numbering`]), so any clock
+//! combines with any numbering.
 //!
 //! Slot assignment avoids a division per detection: the slot estimate is the elapsed time
 //! multiplied by a Q0.64 reciprocal of the period, corrected by at most two steps; the position in
@@ -47,30 +49,30 @@ pub enum Numbered {
     Unaligned,
 }
 
-/// The seam between the time base and the gates: maps a delay-corrected time to a slot.
-pub trait Clock {
-    /// Locate a delay-corrected detection time `t_ps` on the slot grid.
-    fn locate(&mut self, t_ps: u64) -> Located;
+/// A slot clock: the seam between the time base and the gates. It maps a delay-corrected time
+/// to a slot of its own numbering and a position in the slot; it does not know the transmitter's
+/// absolute numbers (that is the job of a [`crate::numbering::Numbering`] stage).
+///
+/// Two clocks implement it: [`FixedClock`] (period and origin from configuration, a distributed
+/// reference) and [`crate::RecoveredClock`] (acquired and tracked from the detections).
+pub trait SlotClock {
+    /// Where the clock places `t_ps` now, without learning from it.
+    fn locate(&self, t_ps: u64) -> Located;
 
-    /// Locate a detection of a known `channel`: a clock recovered from the detections uses that
-    /// channel's expected arrival positions. The default ignores the channel.
-    fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
-        let _ = channel;
-        self.locate(t_ps)
-    }
+    /// Locate a delay-corrected detection of `channel` at `t_ps` and learn from it: a recovered
+    /// clock stores it while acquiring and updates its tracking loop while locked (using that
+    /// channel's expected arrival positions).
+    fn observe(&mut self, channel: u8, t_ps: u64) -> Located;
 
-    /// Give a located, gated detection its absolute slot number; `z_bit` is its bit when the gate
-    /// is in the Z basis. The default: the clock's own numbering is already absolute.
-    fn number(&mut self, pos: SlotPos, z_bit: Option<u8>) -> Numbered {
-        let _ = z_bit;
-        Numbered::Slot(pos.slot)
-    }
+    /// Whether the clock gives slots now.
+    fn is_locked(&self) -> bool;
 
-    /// A coarse hint from the classical channel: at receiver time `t_ps` the transmitter's slot
-    /// counter read about `tx_slot`. Clocks whose numbering is already absolute ignore it.
-    fn hint(&mut self, t_ps: u64, tx_slot: u64) {
-        let _ = (t_ps, tx_slot);
-    }
+    /// Numbering epoch: changes whenever the clock's own slot numbers restart without continuity
+    /// (0 before the first lock). A numbering stage restarts its alignment when it changes.
+    fn epoch(&self) -> u32;
+
+    /// The clock's own slot number at time `t_ps` (for coarse hints); `None` without a period.
+    fn slot_at(&self, t_ps: u64) -> Option<u64>;
 }
 
 /// Why a clock description was refused.
@@ -234,11 +236,32 @@ impl FixedClock {
     }
 }
 
-impl Clock for FixedClock {
-    fn locate(&mut self, t_ps: u64) -> Located {
+impl SlotClock for FixedClock {
+    #[inline]
+    fn locate(&self, t_ps: u64) -> Located {
         match t_ps.checked_sub(self.origin_ps) {
             Some(e) => Located::At(self.grid.split(e)),
             None => Located::BeforeOrigin,
+        }
+    }
+
+    #[inline]
+    fn observe(&mut self, _channel: u8, t_ps: u64) -> Located {
+        self.locate(t_ps)
+    }
+
+    fn is_locked(&self) -> bool {
+        true
+    }
+
+    fn epoch(&self) -> u32 {
+        1
+    }
+
+    fn slot_at(&self, t_ps: u64) -> Option<u64> {
+        match self.locate(t_ps) {
+            Located::At(p) => Some(p.slot),
+            _ => None,
         }
     }
 }
@@ -293,7 +316,7 @@ mod tests {
 
     #[test]
     fn ten_ns_grid() {
-        let mut c = FixedClock::new(U32F32::from_num(10_000), 1_000).unwrap();
+        let c = FixedClock::new(U32F32::from_num(10_000), 1_000).unwrap();
         assert_eq!(c.locate(999), Located::BeforeOrigin);
         let Located::At(p) = c.locate(1_000 + 3 * 10_000 + 2_500) else {
             panic!()

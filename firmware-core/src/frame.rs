@@ -1,4 +1,4 @@
-//! Stage 3 — frame alignment: the transmitter's absolute slot numbers, from a public marker.
+//! Stage 4a — frame alignment: the transmitter's absolute slot numbers, from a public marker.
 //!
 //! After clock recovery the receiver knows the slot grid but numbers slots from its own start
 //! ("local" slots). The transmitter embeds a public marker (the contract for the transmitter team

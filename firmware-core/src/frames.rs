@@ -18,9 +18,10 @@
 
 pub mod cobs;
 
-use crate::accounting::{Accounting, AnswerErrors, MultiClickEvents};
-use crate::clock::Clock;
+use crate::accounting::{Accounting, AnswerErrors, Fate, MultiClickEvents};
+use crate::clock::SlotClock;
 use crate::gates::{Basis, MAX_INTENSITIES};
+use crate::numbering::Numbering;
 use crate::receiver::Receiver;
 use crate::sift::{KeySink, SiftedBit};
 use crate::tally::Tally;
@@ -35,7 +36,7 @@ pub const CRC_LEN: usize = 4;
 /// Number of u64 counters in a [`Summary`] payload.
 pub const SUMMARY_WORDS: usize = 2 + ACCOUNTING_WORDS + 5 + 2 + 2 * TALLY_WORDS + 2;
 /// Words of the accounting block in a summary record (one per counter).
-pub const ACCOUNTING_WORDS: usize = 13;
+pub const ACCOUNTING_WORDS: usize = Fate::COUNT;
 /// Bytes of a [`Summary`] payload.
 pub const SUMMARY_LEN: usize = 8 * SUMMARY_WORDS;
 /// Largest payload any record type uses, in bytes.
@@ -478,7 +479,7 @@ fn tally_from(next: &mut impl FnMut() -> u64) -> Tally {
 
 impl Summary {
     /// The counters of `rx` (frame counters left at zero).
-    pub fn of<C: Clock, const P: usize>(rx: &Receiver<C, P>) -> Self {
+    pub fn of<C: SlotClock, const P: usize, N: Numbering>(rx: &Receiver<C, P, N>) -> Self {
         Self {
             detections_in: rx.detections_in(),
             sifted_bits: rx.sifted_bits(),
@@ -539,8 +540,6 @@ impl Summary {
         let sifted_bits = next();
         let mut a = [0u64; ACCOUNTING_WORDS];
         a.iter_mut().for_each(|v| *v = next());
-        let [rejected_time, rejected_channel, no_clock, late, outside_gates, unaligned, marker, multi_click, sifted, basis_mismatch, queue_overflow, unanswered, in_flight] =
-            a;
         let multi = MultiClickEvents {
             sifted: next(),
             basis_mismatch: next(),
@@ -557,21 +556,7 @@ impl Summary {
         Ok(Self {
             detections_in,
             sifted_bits,
-            accounting: Accounting {
-                rejected_time,
-                rejected_channel,
-                no_clock,
-                late,
-                outside_gates,
-                unaligned,
-                marker,
-                multi_click,
-                sifted,
-                basis_mismatch,
-                queue_overflow,
-                unanswered,
-                in_flight,
-            },
+            accounting: Accounting::from_counts(a),
             multi,
             answer_errors,
             tally,

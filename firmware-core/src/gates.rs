@@ -1,4 +1,4 @@
-//! Stage 4 — gates: which (basis, bit) a detection at a given channel and slot position means.
+//! Stage 3 — gates: which (basis, bit) a detection at a given channel and slot position means.
 //!
 //! One table describes every receiver: a gate is (channel, window inside the slot, basis, bit),
 //! and each channel has a delay (detector and cable skew) subtracted before the clock is asked.

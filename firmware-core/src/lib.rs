@@ -6,42 +6,50 @@
 //! This crate does that with no heap, no floating point and no panics, so the same code runs on a
 //! laptop, a Cortex-M microcontroller and a RISC-V soft core.
 //!
-//! Data flows through one module per stage, in this order:
+//! Data flows through one module per stage, in this order ([`Receiver::push`] runs them so):
 //!
 //! 1. [`timestamps`] — TDC counter values (any width from 32 to 64 bits, wrapping) become a
 //!    monotonic picosecond time base; slightly reordered neighbours are handled.
-//! 2. [`acquire`] — clock acquisition from a cold start: a staged epoch-folding search over the
-//!    period prior with the Z²_n statistic in fixed point, a Bonferroni threshold (false lock
-//!    below 1e-9 per attempt), a least-squares refinement and an independent confirmation.
-//! 3. [`track`] — an event-driven type-II PLL follows phase and period through drift, detects loss
-//!    of lock (blackout, phase jump, frequency step) and calibrates per-channel delays.
-//! 4. [`clock`] — the slot grid: period in Q32.32 ps and a phase origin map each delay-corrected
-//!    time to a slot index and a position in the slot (Q0.32 fraction), division-free. The grid
-//!    comes from configuration ([`FixedClock`]) or from the detections themselves
-//!    ([`recovered::RecoveredClock`]: acquisition and tracking with lock states and numbering
-//!    epochs).
-//! 5. [`frame`] — frame alignment: a public marker (every 64th slot, vacuum or a Z pulse by two
-//!    m-sequences) gives the transmitter's absolute slot numbers; marker slots are never sifted.
-//! 6. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
+//! 2. [`clock`] — the [`SlotClock`] seam: a delay-corrected time becomes the clock's own slot and
+//!    a position in it (Q0.32), division-free. Two clocks: [`FixedClock`] (period and origin from
+//!    configuration, a distributed reference) and [`RecoveredClock`] ([`recovered`]), which is
+//!    built from
+//!    - [`acquire`] — acquisition from a cold start: a staged epoch-folding search over the
+//!      period prior with the Z²_n statistic in fixed point, a Bonferroni threshold (false lock
+//!      below 1e-9 per attempt), a least-squares refinement and an independent confirmation;
+//!    - [`track`] — a type-II PLL that follows phase and period through drift, detects loss of
+//!      lock (blackout, phase jump, frequency step) and calibrates per-channel delays.
+//! 3. [`gates`] — the gate table: per-channel delays and windows (channel, window, basis, bit) that
 //!    express time-bin and polarization receivers alike; optionally a photon-number level in the
 //!    upper bits of the channel byte (photon-number-resolving detectors).
-//! 7. [`sift`] — detected slots are announced with the receiver's basis and wait in a bounded
-//!    queue for the transmitter's answer; multi-click slots follow the squashing rule.
-//! 8. [`tally`] — counts per (tx basis, tx bit, intensity, rx basis, rx bit) and the QBER;
+//! 4. [`numbering`] — the transmitter's absolute slot number for the clock's slot: [`Absolute`]
+//!    (the clock's numbers already are, marker slots excluded when a marker is declared) or
+//!    [`MarkerNumbering`] (frame alignment on the public marker, [`frame`]: every 64th slot,
+//!    vacuum or a Z pulse by two m-sequences, plus a coarse hint). Any clock combines with any
+//!    numbering.
+//!
+//!    Steps 1–4 are the [`front`] end ([`FrontEnd`]); a detection that does not pass one ends in
+//!    its [`Fate`].
+//! 5. [`sift`] — the [`Sifter`]: gated detections of one slot are grouped, multi-click slots follow
+//!    the squashing rule, detected slots are announced with the receiver's basis and wait in a
+//!    bounded queue for the transmitter's answer, then end sifted, basis-mismatched, unanswered or
+//!    overflowed; [`tally`] keeps counts per (tx basis, tx bit, intensity, rx basis, rx bit) and
 //!    multi-photon slots per intensity class.
-//! 9. [`stats`] — live statistics in bounded memory: a sliding window of block tallies (QBER per
+//! 6. [`accounting`] — the one list of fates ([`Fate`]) and a counter per fate: every detection
+//!    is in exactly one counter at every moment.
+//! 7. [`stats`] — live statistics in bounded memory: a sliding window of block tallies (QBER per
 //!    basis and intensity, rates, dead time, off-gate noise, multi-clicks) and since start, with
 //!    confidence bounds in fixed point ([`bounds`]: Hoeffding, Wilson, binary entropy) and
 //!    [`alarms`] (QBER bound above the Shor-Preskill ceiling, lock lost, rate collapse,
 //!    saturation); fed from the receiver's traces and sifted bits, off its hot path.
-//! 10. [`accounting`] — every detection ends in exactly one counter.
-//! 11. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
-//!     COBS-stuffed records for the post-processing host, alarms and statistics snapshots.
-//! 12. [`wire`] — the sifting conversation over a framed byte link (`embedded-io`): batched
-//!     announcements out, answers in, every bad frame counted by reason; [`ReceiverLink`] is the
-//!     [`Transmitter`] a board hands to the receiver.
+//! 8. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//!    COBS-stuffed records for the post-processing host, alarms and statistics snapshots.
+//! 9. [`wire`] — the sifting conversation over a framed byte link (`embedded-io`): batched
+//!    announcements out, answers in, every bad frame counted by reason; [`ReceiverLink`] is the
+//!    [`Transmitter`] a board hands to the receiver.
 //!
-//! [`receiver`] strings the stages together behind [`Receiver::push_block`].
+//! [`receiver`] strings them together: front end → sifter, behind [`Receiver::push_block`]; its
+//! module doc shows a board building and feeding one.
 //!
 //! Memory is fixed at compile time: the pending queue's capacity is a const generic and the gate
 //! table holds at most [`gates::MAX_GATES`] windows on [`gates::MAX_CHANNELS`] channels.
@@ -69,9 +77,10 @@ pub mod bounds;
 pub mod clock;
 pub mod frame;
 pub mod frames;
+pub mod front;
 pub mod gates;
 mod log;
-pub mod marked;
+pub mod numbering;
 pub mod receiver;
 pub mod recovered;
 pub mod sift;
@@ -81,20 +90,22 @@ pub mod timestamps;
 pub mod track;
 pub mod wire;
 
-pub use accounting::{Accounting, AnswerErrors, MultiClickEvents};
+pub use accounting::{Accounting, AnswerErrors, Fate, MultiClickEvents};
 pub use acquire::fold::ArrivalPattern;
 pub use acquire::{AcquireConfig, AcquireParams, AcquiredLock, Acquirer};
 pub use alarms::{AlarmConfig, AlarmEvent, AlarmKind, BoundKind};
-pub use clock::{Clock, FixedClock, Located, Numbered, SlotGrid, SlotPos};
+pub use clock::{FixedClock, Located, Numbered, SlotClock, SlotGrid, SlotPos};
 pub use fixed;
 pub use frame::{AlignState, FrameAligner, FrameConfig, MarkerSpec, MarkerState, SlotHint};
 pub use frames::{FrameOut, FrameSink};
+pub use front::{FrontEnd, Timed};
 pub use gates::{Basis, Gate, GateTable, Lookup};
-pub use marked::MarkedClock;
-pub use receiver::{ConfigError, Receiver, ReceiverConfig, Stage, Trace};
+pub use numbering::{Absolute, MarkerNumbering, Numbering};
+pub use receiver::{ConfigError, Receiver, ReceiverConfig, Trace};
 pub use recovered::{RecoveredClock, RecoveredConfig};
 pub use sift::{
-    Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftedBit, Transmitter,
+    Announcement, Answer, KeySink, NullSink, Outcome, OverflowPolicy, SiftConfig, SiftConfigError,
+    SiftedBit, Sifter, Transmitter,
 };
 pub use stats::{Counts, Monitor, Snapshot, StatsConfig, Tap};
 pub use tally::{MultiPhoton, Tally};

@@ -1,8 +1,7 @@
-//! Stage 2 — the recovered clock: acquisition and tracking behind the [`Clock`] seam.
+//! Stage 2b — the recovered clock: acquisition and tracking behind the [`SlotClock`] seam.
 //!
 //! [`RecoveredClock`] replaces [`crate::FixedClock`] when the link has no distributed reference:
-//! every delay-corrected detection goes through [`Clock::locate_on`] (or [`Clock::locate`], which
-//! uses the union of all channels' positions). While acquiring it stores the detection, spends a
+//! every delay-corrected detection goes through [`SlotClock::observe`]. While acquiring it stores the detection, spends a
 //! bounded amount of search work ([`crate::acquire`]) and answers [`Located::NotLocked`]; once
 //! locked it answers slots from the tracking loop ([`crate::track`]) and updates it.
 //!
@@ -28,11 +27,11 @@
 
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::{AcquireConfig, AcquireConfigError, AcquireStats, AcquiredLock, Acquirer};
-use crate::clock::{Clock, Located};
+use crate::clock::{Located, SlotClock, SlotPos};
 use crate::gates::MAX_CHANNELS;
 use crate::track::{LockState, LossCause, TrackConfig, Tracker};
 use core::fmt;
-use fixed::types::U32F32;
+use fixed::types::{U0F32, U32F32};
 
 /// Why a recovered-clock configuration was refused.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -146,11 +145,6 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
     /// Lock counters.
     pub const fn counters(&self) -> &LockCounters {
         &self.counters
-    }
-
-    /// Numbering epoch (0 before the first lock).
-    pub const fn numbering_epoch(&self) -> u32 {
-        self.counters.epoch
     }
 
     /// Whether slot numbers are tied to the transmitter's (set by [`Self::align_numbering`],
@@ -278,13 +272,41 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
     }
 }
 
-impl<const N: usize, const K: usize, const H: usize> Clock for RecoveredClock<N, K, H> {
-    fn locate(&mut self, t_ps: u64) -> Located {
-        self.handle(None, t_ps)
+impl<const N: usize, const K: usize, const H: usize> SlotClock for RecoveredClock<N, K, H> {
+    fn locate(&self, t_ps: u64) -> Located {
+        if self.state != LockState::Locked {
+            return Located::NotLocked;
+        }
+        match self.trk.model().position(t_ps) {
+            None => Located::NotLocked,
+            Some(pos) if pos < 0 => Located::BeforeOrigin,
+            Some(pos) => Located::At(SlotPos {
+                slot: (pos >> 64) as u64,
+                phase: U0F32::from_bits(((pos as u64) >> 32) as u32),
+            }),
+        }
     }
 
-    fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
+    #[inline]
+    fn observe(&mut self, channel: u8, t_ps: u64) -> Located {
         self.handle(Some(channel), t_ps)
+    }
+
+    fn is_locked(&self) -> bool {
+        self.state == LockState::Locked
+    }
+
+    fn epoch(&self) -> u32 {
+        self.counters.epoch
+    }
+
+    /// The recovered clock numbers slots from the time origin (slot ≈ t / T).
+    fn slot_at(&self, t_ps: u64) -> Option<u64> {
+        let period = self.period_ps()?.to_bits();
+        if period == 0 {
+            return None;
+        }
+        u64::try_from((u128::from(t_ps) << 32) / u128::from(period)).ok()
     }
 }
 

@@ -14,8 +14,12 @@
 //! outcome and keeps it, as a threshold detector would; such slots are counted separately in the
 //! multi-photon tally (`tally::MultiPhoton`).
 
+use crate::accounting::Fate;
 use crate::gates::Basis;
 use heapless::Deque;
+
+mod sifter;
+pub use sifter::{SiftConfig, SiftConfigError, Sifter};
 
 /// What the receiver tells the transmitter about one detected slot.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -84,6 +88,23 @@ pub enum Outcome {
     QueueOverflow,
     /// No answer within the timeout.
     Unanswered,
+}
+
+impl Outcome {
+    /// The detection fate a single-click slot with this outcome ends in.
+    pub const fn fate(self) -> Fate {
+        match self {
+            Self::Sifted => Fate::Sifted,
+            Self::BasisMismatch => Fate::BasisMismatch,
+            Self::QueueOverflow => Fate::QueueOverflow,
+            Self::Unanswered => Fate::Unanswered,
+        }
+    }
+
+    /// The outcome's name in reports (the name of its fate).
+    pub const fn name(self) -> &'static str {
+        self.fate().name()
+    }
 }
 
 /// Where sifted bits and slot outcomes go.

@@ -32,9 +32,10 @@
 //! A closed block re-evaluates the alarms ([`crate::alarms`]) and leaves a [`Snapshot`] (record
 //! type 6) for the caller to frame.
 
+use crate::accounting::Fate;
 use crate::alarms::{AlarmConfig, AlarmEvent, Alarms};
 use crate::gates::{Basis, GateTable, MAX_CHANNELS, MAX_INTENSITIES};
-use crate::receiver::{Stage, Trace};
+use crate::receiver::Trace;
 use crate::sift::{KeySink, Outcome, SiftedBit};
 use crate::tally::Tally;
 use core::fmt;
@@ -414,13 +415,13 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
             self.last_t_ps = Some(self.last_t_ps.map_or(t, |l| l.max(t)));
         }
         let ch = usize::from(tr.channel);
-        let multi = match (tr.stage, tr.slot) {
-            (Stage::Gated, Some((slot, _))) if self.last_gated_slot == Some(slot) => {
+        let multi = match (tr.fate, tr.slot) {
+            (Fate::InFlight, Some((slot, _))) if self.last_gated_slot == Some(slot) => {
                 let first = !self.last_gated_multi;
                 self.last_gated_multi = true;
                 Some(first)
             }
-            (Stage::Gated, Some((slot, _))) => {
+            (Fate::InFlight, Some((slot, _))) => {
                 self.last_gated_slot = Some(slot);
                 self.last_gated_multi = false;
                 None
@@ -432,13 +433,13 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
             if let Some(d) = c.detections.get_mut(ch) {
                 *d += 1;
             }
-            match tr.stage {
-                Stage::OutsideGates => {
+            match tr.fate {
+                Fate::OutsideGates => {
                     if let Some(d) = c.off_gate.get_mut(ch) {
                         *d += 1;
                     }
                 }
-                Stage::Gated => match multi {
+                Fate::InFlight => match multi {
                     None => c.gated_slots += 1,
                     Some(true) => {
                         c.multi_click_slots += 1;

@@ -3,6 +3,7 @@
 
 use proptest::prelude::*;
 use slotwise::fixed::types::{U0F32, U32F32};
+use slotwise::Fate;
 use slotwise::{
     AlarmConfig, Announcement, Answer, Basis, FixedClock, Gate, GateTable, Monitor, NullSink,
     OverflowPolicy, Receiver, ReceiverConfig, StatsConfig, TdcEvent, Transmitter, UnwrapConfig,
@@ -96,9 +97,9 @@ proptest! {
         let s = mon.since_start();
         prop_assert_eq!(s.detections_in, rx.detections_in());
         prop_assert_eq!(s.detections.iter().sum::<u64>(), rx.detections_in());
-        prop_assert_eq!(s.off_gate.iter().sum::<u64>(), rx.accounting().outside_gates);
+        prop_assert_eq!(s.off_gate.iter().sum::<u64>(), rx.accounting()[Fate::OutsideGates]);
         prop_assert_eq!(s.sifted, rx.sifted_bits());
-        prop_assert_eq!(s.multi_click_detections, rx.accounting().multi_click);
+        prop_assert_eq!(s.multi_click_detections, rx.accounting()[Fate::MultiClick]);
         let m = rx.multi_click_events();
         prop_assert_eq!(
             s.multi_click_slots,

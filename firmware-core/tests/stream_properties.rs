@@ -5,6 +5,7 @@
 
 use proptest::prelude::*;
 use slotwise::fixed::types::{U0F32, U32F32};
+use slotwise::Fate;
 use slotwise::{
     Accounting, Announcement, Answer, Basis, FixedClock, Gate, GateTable, KeySink, OverflowPolicy,
     Receiver, ReceiverConfig, SiftedBit, TdcEvent, Transmitter, UnwrapConfig,
@@ -160,7 +161,7 @@ fn run(
         i += 1;
     }
     rx.finish(&mut tx, &mut key);
-    assert_eq!(rx.accounting().in_flight, 0);
+    assert_eq!(rx.accounting()[Fate::InFlight], 0);
     // Slots are announced once each, in increasing order, however the input was reordered.
     assert!(tx.increasing, "announcements out of slot order");
     outcome(&rx, &tx, key)
@@ -230,7 +231,7 @@ fn gated_slots_never_decrease(rx: &mut Receiver<FixedClock, 8>, events: &[TdcEve
     let mut last = None;
     for &ev in events {
         let tr = rx.push(ev, &mut tx, &mut key);
-        if tr.stage == slotwise::Stage::Gated {
+        if tr.fate == Fate::InFlight {
             let (slot, _) = tr.slot.unwrap();
             assert!(last.is_none_or(|l| slot >= l), "slot {slot} after {last:?}");
             last = Some(slot);
@@ -270,7 +271,7 @@ proptest! {
         gated_slots_never_decrease(&mut rx, &events, lag);
         // Reset after a whole stream: the state prints exactly as a new receiver's, and the next
         // stream gives exactly what it gives on a new receiver.
-        rx.reset(clock);
+        rx.reset(clock, slotwise::Absolute::new());
         let fresh: Receiver<FixedClock, 8> = Receiver::new(cfg, clock);
         prop_assert_eq!(format!("{rx:?}"), format!("{fresh:?}"));
         let mut fresh = fresh;
@@ -279,7 +280,7 @@ proptest! {
         let mut mid: Receiver<FixedClock, 8> = Receiver::new(cfg, clock);
         let mut tx = lag_tx(lag);
         mid.push_block(&events[..events.len() / 2], &mut tx, &mut Collect::default());
-        mid.reset(clock);
+        mid.reset(clock, slotwise::Absolute::new());
         let new: Receiver<FixedClock, 8> = Receiver::new(cfg, clock);
         prop_assert_eq!(format!("{mid:?}"), format!("{new:?}"));
     }

@@ -6,7 +6,7 @@
 use libfuzzer_sys::fuzz_target;
 use slotwise::fixed::types::U32F32;
 use slotwise::{
-    FixedClock, NullSink, OverflowPolicy, Receiver, ReceiverConfig, TdcEvent, UnwrapConfig,
+    Fate, FixedClock, NullSink, OverflowPolicy, Receiver, ReceiverConfig, TdcEvent, UnwrapConfig,
 };
 use slotwise_sim::cli::{receiver_setup, ClockArgs};
 use slotwise_sim::clocks::ClockMode;
@@ -50,7 +50,7 @@ fuzz_target!(|data: &[u8]| {
             assert_eq!(rx.accounting().total(), rx.detections_in());
         }
         rx.finish(&mut tx, &mut NullSink);
-        assert_eq!(rx.accounting().in_flight, 0);
+        assert_eq!(rx.accounting()[Fate::InFlight], 0);
         assert_eq!(rx.accounting().total(), events.len() as u64);
     }
     // The recovered clock, configured as the host does.
@@ -58,12 +58,12 @@ fuzz_target!(|data: &[u8]| {
         clock: ClockMode::Recovered,
         prior_ppm: 500,
     };
-    if let Ok((cfg, clock)) = receiver_setup(&s, &args) {
-        let mut rx = Box::new(Receiver::<_, 64>::new(cfg, clock));
+    if let Ok((cfg, stages)) = receiver_setup(&s, &args) {
+        let mut rx = stages.receiver::<64>(cfg);
         let mut tx = SimTransmitter::new(&tx_s);
         rx.push_block(&events, &mut tx, &mut NullSink);
         rx.finish(&mut tx, &mut NullSink);
         assert_eq!(rx.accounting().total(), events.len() as u64);
-        assert_eq!(rx.accounting().in_flight, 0);
+        assert_eq!(rx.accounting()[Fate::InFlight], 0);
     }
 });

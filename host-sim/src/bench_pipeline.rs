@@ -21,12 +21,12 @@ pub mod scaling;
 pub mod stages;
 
 use crate::cli::{receiver_setup, ClockArgs};
-use crate::clocks::{self, ClockMode, HostClock, HostMarked};
+use crate::clocks::{self, ClockMode, HostClock, HostRecovered};
 use crate::replay::HOST_PENDING;
 use crate::scenario::Scenario;
 use crate::sim::{SimTransmitter, Simulator};
 use serde::Serialize;
-use slotwise::{Answer, Receiver, TdcEvent};
+use slotwise::{Answer, TdcEvent};
 use stages::{CountSink, Depth, Recording, ReplayAnswers, StageState};
 use std::error::Error;
 use std::fmt;
@@ -35,8 +35,7 @@ use std::time::Instant;
 
 type AnyErr = Box<dyn Error>;
 
-/// The receiver the host runs, as benchmarked.
-pub type HostReceiver = Receiver<HostClock, HOST_PENDING>;
+pub use crate::replay::HostReceiver;
 
 /// The benchmark's captures.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum, Serialize)]
@@ -255,8 +254,8 @@ pub struct Warm {
 
 fn aligned(rx: &HostReceiver) -> bool {
     match rx.clock() {
-        HostClock::Reference(..) => true,
-        HostClock::Recovered(c) => c.aligned() && rx.clock().locked(),
+        HostClock::Reference(_) => true,
+        HostClock::Recovered(_) => rx.clock().locked() && rx.numbering().state().0 == "aligned",
     }
 }
 
@@ -269,14 +268,14 @@ pub fn warm_up(
     cut: Option<usize>,
     block: usize,
 ) -> Result<(Warm, usize), AnyErr> {
-    let (cfg, clock) = receiver_setup(
+    let (cfg, stages) = receiver_setup(
         s,
         &ClockArgs {
             clock: mode,
             prior_ppm: 500,
         },
     )?;
-    let mut rx = Box::new(Receiver::new(cfg, clock));
+    let mut rx = stages.receiver::<HOST_PENDING>(cfg);
     let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
     rx.hint(hint_t, hint_slot);
     let mut tx = SimTransmitter::new(s);
@@ -341,7 +340,10 @@ pub fn simulate(s: &Scenario) -> Vec<TdcEvent> {
 pub fn state_bytes(mode: ClockMode) -> usize {
     std::mem::size_of::<HostReceiver>()
         + match mode {
-            ClockMode::Recovered => std::mem::size_of::<HostMarked>(),
+            ClockMode::Recovered => {
+                std::mem::size_of::<HostRecovered>()
+                    + std::mem::size_of::<slotwise::MarkerNumbering>()
+            }
             ClockMode::Reference => 0,
         }
 }

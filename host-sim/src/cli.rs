@@ -1,7 +1,7 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
 use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
-use crate::clocks::{self, ClockMode, HostClock};
+use crate::clocks::{self, ClockMode, ClockStages};
 use crate::csv_io;
 use crate::link::keyfile;
 use crate::link::{HostTx, LinkModel};
@@ -320,7 +320,7 @@ fn load_scenario(path: Option<&Path>, duration_s: Option<f64>) -> Result<Scenari
 pub fn receiver_setup(
     s: &Scenario,
     clock: &ClockArgs,
-) -> Result<(ReceiverConfig, HostClock), AnyErr> {
+) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
     receiver_setup_for(s, clock, false)
 }
 
@@ -330,7 +330,7 @@ pub fn receiver_setup_for(
     s: &Scenario,
     clock: &ClockArgs,
     framed: bool,
-) -> Result<(ReceiverConfig, HostClock), AnyErr> {
+) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
     let (delays, gates) = sim::receiver_gates(s);
     let table = slotwise::GateTable::new(&delays, &gates)?;
     let table = if s.pnr.is_some() {
@@ -592,7 +592,7 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
 pub fn replay_capture(
     path: &Path,
     cfg: ReceiverConfig,
-    clock: HostClock,
+    clock: ClockStages,
     s: &Scenario,
     skip_damaged: bool,
     trace: Option<TraceRequest>,

@@ -10,13 +10,12 @@ use slotwise::fixed::types::U32F32;
 use slotwise::frame::{FrameConfig, MarkerSpec};
 use slotwise::recovered::{RecoveredClock, RecoveredConfig};
 use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackParams};
-use slotwise::{Clock, FixedClock, GateTable, Located, MarkedClock, Numbered, SlotPos};
+use slotwise::{
+    Absolute, FixedClock, GateTable, Located, MarkerNumbering, Numbered, Numbering, SlotClock,
+};
 
 /// The recovered clock's shape on the host: 2048 stored detections, 8 candidates, Z²_2.
 pub type HostRecovered = RecoveredClock<2048, 8, 2>;
-
-/// The recovered clock with marker alignment, as the host runs it.
-pub type HostMarked = MarkedClock<2048, 8, 2>;
 
 /// Uncertainty of the simulated classical-channel hint (the transmitter's slot counter announced
 /// at link start), in seconds: the hint is off by this much worth of slots.
@@ -32,41 +31,104 @@ pub enum ClockMode {
     Reference,
 }
 
-/// The clock stage as the host runs it.
+/// The slot clock as the host runs it.
 #[derive(Clone, Debug)]
 pub enum HostClock {
-    /// Fixed by configuration; marker slots (when the scenario has a marker) are excluded.
-    Reference(FixedClock, Option<MarkerSpec>),
-    /// Recovered from the data and aligned to the transmitter's numbering by the marker.
-    Recovered(Box<HostMarked>),
+    /// Fixed by configuration (a distributed reference): numbers slots as the transmitter does.
+    Reference(FixedClock),
+    /// Recovered from the data.
+    Recovered(Box<HostRecovered>),
 }
 
-impl Clock for HostClock {
-    fn locate(&mut self, t_ps: u64) -> Located {
+impl SlotClock for HostClock {
+    fn locate(&self, t_ps: u64) -> Located {
         match self {
-            Self::Reference(c, _) => c.locate(t_ps),
+            Self::Reference(c) => c.locate(t_ps),
             Self::Recovered(c) => c.locate(t_ps),
         }
     }
 
-    fn locate_on(&mut self, channel: u8, t_ps: u64) -> Located {
+    #[inline]
+    fn observe(&mut self, channel: u8, t_ps: u64) -> Located {
         match self {
-            Self::Reference(c, _) => c.locate_on(channel, t_ps),
-            Self::Recovered(c) => c.locate_on(channel, t_ps),
+            Self::Reference(c) => c.observe(channel, t_ps),
+            Self::Recovered(c) => c.observe(channel, t_ps),
         }
     }
 
-    fn number(&mut self, pos: SlotPos, z_bit: Option<u8>) -> Numbered {
+    fn is_locked(&self) -> bool {
         match self {
-            Self::Reference(_, Some(m)) if m.is_marker_slot(pos.slot) => Numbered::Marker,
-            Self::Reference(c, _) => c.number(pos, z_bit),
-            Self::Recovered(c) => c.number(pos, z_bit),
+            Self::Reference(c) => c.is_locked(),
+            Self::Recovered(c) => c.is_locked(),
         }
     }
 
-    fn hint(&mut self, t_ps: u64, tx_slot: u64) {
-        if let Self::Recovered(c) = self {
-            c.hint(t_ps, tx_slot);
+    fn epoch(&self) -> u32 {
+        match self {
+            Self::Reference(c) => c.epoch(),
+            Self::Recovered(c) => c.epoch(),
+        }
+    }
+
+    fn slot_at(&self, t_ps: u64) -> Option<u64> {
+        match self {
+            Self::Reference(c) => c.slot_at(t_ps),
+            Self::Recovered(c) => c.slot_at(t_ps),
+        }
+    }
+}
+
+/// The clock and the numbering stage of one host receiver.
+#[derive(Clone, Debug)]
+pub struct ClockStages {
+    /// The slot clock.
+    pub clock: HostClock,
+    /// The numbering stage.
+    pub numbering: HostNumbering,
+}
+
+impl ClockStages {
+    /// A receiver of configuration `cfg` on these stages, with a pending queue of `P` slots.
+    pub fn receiver<const P: usize>(
+        self,
+        cfg: slotwise::ReceiverConfig,
+    ) -> Box<slotwise::Receiver<HostClock, P, HostNumbering>> {
+        Box::new(slotwise::Receiver::with_numbering(
+            cfg,
+            self.clock,
+            self.numbering,
+        ))
+    }
+}
+
+/// The numbering stage as the host runs it.
+#[derive(Clone, Debug)]
+pub enum HostNumbering {
+    /// The clock's numbers are the transmitter's; marker slots (when the scenario has a marker)
+    /// are excluded.
+    Absolute(Absolute),
+    /// Aligned to the transmitter's numbering by the public marker and a coarse hint.
+    Marker(Box<MarkerNumbering>),
+}
+
+impl Numbering for HostNumbering {
+    #[inline]
+    fn number<C: SlotClock + ?Sized>(
+        &mut self,
+        clock: &C,
+        slot: u64,
+        z_bit: Option<u8>,
+    ) -> Numbered {
+        match self {
+            Self::Absolute(n) => n.number(clock, slot, z_bit),
+            Self::Marker(n) => n.number(clock, slot, z_bit),
+        }
+    }
+
+    fn hint<C: SlotClock + ?Sized>(&mut self, clock: &C, t_ps: u64, tx_slot: u64) {
+        match self {
+            Self::Absolute(n) => n.hint(clock, t_ps, tx_slot),
+            Self::Marker(n) => n.hint(clock, t_ps, tx_slot),
         }
     }
 }
@@ -102,16 +164,16 @@ impl HostClock {
     /// The period the clock uses now, in ps (`None` while not locked).
     pub fn period_ps(&self) -> Option<f64> {
         match self {
-            Self::Reference(c, _) => Some(c.period_ps().to_num()),
-            Self::Recovered(c) => c.recovered().period_ps().map(|p| p.to_num()),
+            Self::Reference(c) => Some(c.period_ps().to_num()),
+            Self::Recovered(c) => c.period_ps().map(|p| p.to_num()),
         }
     }
 
     /// Whether the clock gives slots now.
     pub fn locked(&self) -> bool {
         match self {
-            Self::Reference(..) => true,
-            Self::Recovered(c) => c.recovered().state() == LockState::Locked,
+            Self::Reference(_) => true,
+            Self::Recovered(c) => c.state() == LockState::Locked,
         }
     }
 
@@ -120,8 +182,8 @@ impl HostClock {
         match self {
             Self::Reference(..) => (0, 0, 0, "reference".into()),
             Self::Recovered(c) => {
-                let k = c.recovered().counters();
-                let state = format!("{:?}", c.recovered().state()).to_lowercase();
+                let k = c.counters();
+                let state = format!("{:?}", c.state()).to_lowercase();
                 (k.losses, k.relocks, k.bridged, state)
             }
         }
@@ -159,18 +221,23 @@ pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackPa
     (a, TrackParams::new(b.max(1), rate_u, blackout_ps))
 }
 
-/// Build the scenario's clock in the chosen mode (recovered: [`recovered_params`]).
+/// Build the scenario's clock and numbering in the chosen mode (recovered:
+/// [`recovered_params`], numbered by the marker; reference: the scenario's true clock, marker
+/// slots excluded).
 pub fn build(
     s: &Scenario,
     gates: &GateTable,
     mode: ClockMode,
     prior_ppm: u32,
-) -> Result<HostClock, Box<dyn std::error::Error>> {
+) -> Result<ClockStages, Box<dyn std::error::Error>> {
     match mode {
-        ClockMode::Reference => Ok(HostClock::Reference(
-            sim::clock_truth(s)?.fixed_clock(),
-            s.marker.then(MarkerSpec::standard),
-        )),
+        ClockMode::Reference => Ok(ClockStages {
+            clock: HostClock::Reference(sim::clock_truth(s)?.fixed_clock()),
+            numbering: HostNumbering::Absolute(match s.marker {
+                true => Absolute::with_marker(MarkerSpec::standard()),
+                false => Absolute::new(),
+            }),
+        }),
         ClockMode::Recovered => {
             let (a, t) = recovered_params(s, prior_ppm);
             let cfg =
@@ -185,10 +252,12 @@ pub fn build(
             }
             let pattern = slotwise::acquire::fold::ArrivalPattern::from_gates(gates);
             let clock = HostRecovered::new(cfg, pattern)?;
-            Ok(HostClock::Recovered(Box::new(MarkedClock::new(
-                clock,
-                FrameConfig::standard(),
-            )?)))
+            Ok(ClockStages {
+                clock: HostClock::Recovered(Box::new(clock)),
+                numbering: HostNumbering::Marker(Box::new(MarkerNumbering::new(
+                    FrameConfig::standard(),
+                )?)),
+            })
         }
     }
 }
@@ -209,7 +278,6 @@ impl HostClock {
         match self {
             Self::Reference(..) => Vec::new(),
             Self::Recovered(c) => c
-                .recovered()
                 .delay_corrections_ps()
                 .iter()
                 .take(usize::from(channels))
@@ -217,21 +285,23 @@ impl HostClock {
                 .collect(),
         }
     }
+}
 
+impl HostNumbering {
     /// How the slot numbering stands, and how often it was re-established.
-    pub fn numbering(&self) -> (String, u32) {
+    pub fn state(&self) -> (String, u32) {
         use slotwise::AlignState as A;
         match self {
-            Self::Reference(..) => ("reference".into(), 0),
-            Self::Recovered(c) => {
-                let s = match c.aligner().state() {
+            Self::Absolute(_) => ("reference".into(), 0),
+            Self::Marker(n) => {
+                let s = match n.aligner().state() {
                     A::Searching { .. } => "searching",
                     A::Confirming { .. } => "confirming",
                     A::AwaitingHint { .. } => "awaiting-hint",
                     A::Aligned { .. } => "aligned",
                     A::Misaligned { .. } => "misaligned",
                 };
-                (s.into(), c.realignments())
+                (s.into(), n.realignments())
             }
         }
     }

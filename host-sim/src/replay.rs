@@ -2,14 +2,14 @@
 //! collect what a person debugging the link wants to see — the summary, time series for plots,
 //! the fold profile, and optionally a per-detection trace.
 
-use crate::clocks::HostClock;
+use crate::clocks::{ClockStages, HostClock, HostNumbering};
 use crate::stats::{BlockPoint, HostMonitor, LiveLog};
 use serde::Serialize;
 use slotwise::fixed::types::U0F32;
 use slotwise::frames::{encode_frame, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, SMALL_RECORD};
 use slotwise::{AlarmConfig, StatsConfig};
 use slotwise::{
-    Basis, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, Stage, TdcEvent, Trace,
+    Basis, Fate, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, TdcEvent, Trace,
     Transmitter,
 };
 use std::collections::BTreeMap;
@@ -17,6 +17,9 @@ use std::io::Write;
 
 /// Pending-queue capacity used on the host.
 pub const HOST_PENDING: usize = 4096;
+
+/// The receiver as the host runs it: the host's clock and numbering stages, [`HOST_PENDING`].
+pub type HostReceiver = Receiver<HostClock, HOST_PENDING, HostNumbering>;
 
 /// Number of phase bins in the fold profile.
 pub const FOLD_BINS: usize = 200;
@@ -114,19 +117,13 @@ impl KeySink for Sink {
 
     fn resolved(&mut self, slot: u64, outcome: Outcome) {
         self.wrong_slot.remove(&slot);
-        let name = match outcome {
-            Outcome::Sifted => "sifted",
-            Outcome::BasisMismatch => "basis_mismatch",
-            Outcome::QueueOverflow => "queue_overflow",
-            Outcome::Unanswered => "unanswered",
-        };
-        self.flush_trace(slot, name);
+        self.flush_trace(slot, outcome.name());
     }
 }
 
 /// The firmware core plus the host's bookkeeping around it.
 pub struct Session<T: Transmitter> {
-    rx: Box<Receiver<HostClock, HOST_PENDING>>,
+    rx: Box<HostReceiver>,
     tx: T,
     sink: Sink,
     fold: Vec<[u64; FOLD_BINS]>,
@@ -144,7 +141,7 @@ impl<T: Transmitter> Session<T> {
     /// resolution of the time series (seconds since the first detection).
     pub fn new(
         cfg: ReceiverConfig,
-        clock: HostClock,
+        stages: ClockStages,
         tx: T,
         bucket_s: f64,
         truth_checked: bool,
@@ -161,7 +158,7 @@ impl<T: Transmitter> Session<T> {
             None => (None, (0, 0)),
         };
         Ok(Self {
-            rx: Box::new(Receiver::new(cfg, clock)),
+            rx: stages.receiver(cfg),
             tx,
             sink: Sink {
                 bucket_ps: (bucket_s * 1e12).max(1.0) as u64,
@@ -337,7 +334,7 @@ impl<T: Transmitter> Session<T> {
             let bin = ((u64::from(phase.to_bits()) * FOLD_BINS as u64) >> 32) as usize;
             f[bin.min(FOLD_BINS - 1)] += 1;
         }
-        if tr.stage == Stage::Gated {
+        if tr.fate == Fate::InFlight {
             if let (Some((slot, _)), Some(TruthTag { slot: true_slot })) = (tr.slot, truth) {
                 let wrong = true_slot.is_some_and(|s| s != slot);
                 *self.sink.wrong_slot.entry(slot).or_insert(false) |= wrong;
@@ -374,14 +371,14 @@ impl<T: Transmitter> Session<T> {
             ),
             None => (String::new(), String::new(), String::new()),
         };
-        let decision = stage_name(tr.stage);
+        let decision = tr.fate.name();
         let line = format!(
             "{},{},{slot},{phase},{gate},{basis},{bit},{decision}",
             t.map(|t| t.to_string()).unwrap_or_default(),
             tr.channel
         );
-        match (tr.stage, tr.slot) {
-            (Stage::Gated, Some((s, _))) => {
+        match (tr.fate, tr.slot) {
+            (Fate::InFlight, Some((s, _))) => {
                 self.sink.trace_pending.entry(s).or_default().push(line)
             }
             _ => {
@@ -427,7 +424,7 @@ impl<T: Transmitter> Session<T> {
     }
 
     /// The core, for progress reports.
-    pub fn receiver(&self) -> &Receiver<HostClock, HOST_PENDING> {
+    pub fn receiver(&self) -> &HostReceiver {
         &self.rx
     }
 }
@@ -435,7 +432,7 @@ impl<T: Transmitter> Session<T> {
 /// Everything a finished session produced.
 pub struct SessionResult<T: Transmitter> {
     /// The core in its final state (accounting, tallies, clock).
-    pub rx: Box<Receiver<HostClock, HOST_PENDING>>,
+    pub rx: Box<HostReceiver>,
     /// Detections taken in, and seconds since the first one, when the clock first locked.
     pub first_lock: Option<(u64, f64)>,
     /// The transmitter, for its own counters.
@@ -459,20 +456,6 @@ pub fn basis_name(b: Basis) -> &'static str {
     match b {
         Basis::Z => "Z",
         Basis::X => "X",
-    }
-}
-
-/// Short name of a pipeline decision for reports.
-pub fn stage_name(s: Stage) -> &'static str {
-    match s {
-        Stage::RejectedTime => "rejected_time",
-        Stage::RejectedChannel => "rejected_channel",
-        Stage::NoClock => "no_clock",
-        Stage::OutsideGates => "outside_gates",
-        Stage::Late => "late",
-        Stage::Unaligned => "unaligned",
-        Stage::Marker => "marker",
-        Stage::Gated => "gated",
     }
 }
 

@@ -209,7 +209,7 @@ pub fn summarize<T: Transmitter>(
         },
         lock: {
             let (losses, relocks, bridged, state) = rx.clock().counters();
-            let (numbering, realignments) = rx.clock().numbering();
+            let (numbering, realignments) = rx.numbering().state();
             LockReport {
                 numbering,
                 realignments,

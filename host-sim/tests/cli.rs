@@ -159,7 +159,7 @@ fn simulate_inspect_replay_trace_and_csv() {
     let n = lines.lines().count() as u64 - 1;
     assert_eq!(n, v["detections_in"].as_u64().unwrap());
     assert!(lines.starts_with("t_ps,channel,slot,phase,gate,basis,bit,decision,outcome"));
-    assert!(lines.contains(",gated,sifted"));
+    assert!(lines.contains(",in_flight,sifted"));
 
     // CSV export then replay of the CSV gives the same counters.
     let csv = dir.join("run.csv");

@@ -62,16 +62,21 @@ pub struct FaultRun {
     pub buckets: Vec<Bucket>,
 }
 
-/// Gated detections so far: those past clock, numbering and gates.
+/// Gated detections so far: those past clock, numbering and gates (in flight or resolved by the
+/// sifter).
 fn gated(a: &slotwise::Accounting) -> u64 {
-    a.total()
-        - (a.rejected_time
-            + a.rejected_channel
-            + a.no_clock
-            + a.late
-            + a.outside_gates
-            + a.unaligned
-            + a.marker)
+    use slotwise::Fate;
+    [
+        Fate::MultiClick,
+        Fate::Sifted,
+        Fate::BasisMismatch,
+        Fate::QueueOverflow,
+        Fate::Unanswered,
+        Fate::InFlight,
+    ]
+    .into_iter()
+    .map(|f| a[f])
+    .sum()
 }
 
 /// Run `s` with the recovered clock (prior ±`prior_ppm`); the fault window is

@@ -9,9 +9,10 @@
 //! assumptions); the default scenario, which has all three, is checked with the non-paralysable
 //! dead-time correction m = n/(1 + nτ) (common practice, radiation-detection textbooks).
 
+use slotwise::Fate;
 use slotwise::{
     Basis, FixedClock, GateTable, KeySink, OverflowPolicy, Receiver, ReceiverConfig, SiftedBit,
-    Stage, Tally, UnwrapConfig,
+    Tally, UnwrapConfig,
 };
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::{
@@ -91,7 +92,7 @@ fn run(s: &Scenario) -> Run {
     for e in Simulator::new(s) {
         events += 1;
         let trace = rx.push(e.event, &mut tx, &mut sink);
-        if trace.stage == Stage::Gated && e.truth.kind == Kind::Signal {
+        if trace.fate == Fate::InFlight && e.truth.kind == Kind::Signal {
             signal_gated += 1;
             let (core_slot, _) = trace.slot.unwrap();
             let true_slot = e.truth.slot.unwrap();
@@ -125,7 +126,7 @@ fn run(s: &Scenario) -> Run {
         gated_slots,
         rx_accounting_total: rx.accounting().total(),
         rx_detections_in: rx.detections_in(),
-        in_flight: rx.accounting().in_flight,
+        in_flight: rx.accounting()[Fate::InFlight],
         announcements: tx.announcements(),
     }
 }

@@ -9,9 +9,10 @@
 //!   are all accounted for and never panic.
 
 use proptest::prelude::*;
-use slotwise::{KeySink, Receiver, SiftedBit, Stage, TdcEvent};
+use slotwise::Fate;
+use slotwise::{KeySink, Receiver, SiftedBit, TdcEvent};
 use slotwise_sim::cli::{receiver_setup, ClockArgs};
-use slotwise_sim::clocks::{ClockMode, HostClock};
+use slotwise_sim::clocks::{ClockMode, HostClock, HostNumbering};
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::SimTransmitter;
 use slotwise_sim::strategies::{chunking, detection_stream, hostile_events};
@@ -27,13 +28,13 @@ impl KeySink for Bits {
     }
 }
 
-fn receiver(s: &Scenario) -> Box<Receiver<HostClock, PENDING>> {
+fn receiver(s: &Scenario) -> Box<Receiver<HostClock, PENDING, HostNumbering>> {
     let clock = ClockArgs {
         clock: ClockMode::Recovered,
         prior_ppm: 500,
     };
     let (cfg, c) = receiver_setup(s, &clock).unwrap();
-    Box::new(Receiver::new(cfg, c))
+    c.receiver(cfg)
 }
 
 /// Run `events` cut at `cuts`; returns (accounting fields, sifted bits).
@@ -57,7 +58,7 @@ fn run(s: &Scenario, events: &[TdcEvent], cuts: &[usize]) -> (String, Vec<Sifted
     }
     rx.finish(&mut tx, &mut key);
     assert_eq!(rx.accounting().total(), events.len() as u64);
-    assert_eq!(rx.accounting().in_flight, 0);
+    assert_eq!(rx.accounting()[Fate::InFlight], 0);
     (format!("{:?}", rx.accounting()), key.0)
 }
 
@@ -89,7 +90,7 @@ proptest! {
                 last = None;
                 locked = now;
             }
-            if tr.stage == Stage::Gated {
+            if tr.fate == Fate::InFlight {
                 let slot = tr.slot.map(|(k, _)| k).unwrap();
                 prop_assert!(last.is_none_or(|l| slot >= l), "slot {} after {:?}", slot, last);
                 last = Some(slot);

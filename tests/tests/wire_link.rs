@@ -8,6 +8,7 @@
 
 use slotwise::sift::SiftedBit;
 use slotwise::Basis;
+use slotwise::Fate;
 use slotwise_sim::cli::{run_simulated_linked, ClockArgs};
 use slotwise_sim::clocks::ClockMode;
 use slotwise_sim::link::keyfile;
@@ -108,11 +109,14 @@ fn lossy_link_keeps_both_keys_identical(p: f64, corrupt: f64, tag: &str) {
     let acc = res.rx.accounting();
     let m = res.rx.multi_click_events();
     assert_eq!(
-        acc.sifted + acc.basis_mismatch + m.sifted + m.basis_mismatch,
+        acc[Fate::Sifted] + acc[Fate::BasisMismatch] + m.sifted + m.basis_mismatch,
         c.answers_in
     );
-    assert_eq!(acc.unanswered + m.unanswered, c.expired_announcements);
-    assert_eq!(acc.in_flight, 0);
+    assert_eq!(
+        acc[Fate::Unanswered] + m.unanswered,
+        c.expired_announcements
+    );
+    assert_eq!(acc[Fate::InFlight], 0);
     assert_eq!(acc.total(), res.rx.detections_in());
     assert_eq!(*res.rx.answer_errors(), Default::default());
     let t = link.with_tx(|tx| (*tx.counters(), tx.unresolved_frames()));

@@ -122,21 +122,7 @@ fn summary_words_sit_at_documented_offsets() {
     let s = Summary {
         detections_in: next(),
         sifted_bits: next(),
-        accounting: Accounting {
-            rejected_time: next(),
-            rejected_channel: next(),
-            no_clock: next(),
-            late: next(),
-            outside_gates: next(),
-            unaligned: next(),
-            marker: next(),
-            multi_click: next(),
-            sifted: next(),
-            basis_mismatch: next(),
-            queue_overflow: next(),
-            unanswered: next(),
-            in_flight: next(),
-        },
+        accounting: Accounting::from_counts([(); Fate::COUNT].map(|()| next())),
         multi: MultiClickEvents {
             sifted: next(),
             basis_mismatch: next(),

@@ -1,6 +1,7 @@
 //! End-to-end tests of the recovered clock on synthetic links (debug builds, about a second each).
 
 use super::*;
+use crate::accounting::Fate;
 use crate::acquire::synth::{Event, Scenario, Stream};
 use crate::acquire::AcquireParams;
 use crate::track::{bandwidth_for_mhz, TrackParams};
@@ -66,7 +67,7 @@ fn drive(clk: &mut Clk, sc: Scenario, seconds: f64, align: bool) -> (Outcome, St
         if d.t_ps as f64 > end {
             break;
         }
-        let got = clk.locate_on(d.channel, d.t_ps);
+        let got = clk.observe(d.channel, d.t_ps);
         if clk.state() != last {
             last = clk.state();
             out.states
@@ -78,12 +79,12 @@ fn drive(clk: &mut Clk, sc: Scenario, seconds: f64, align: bool) -> (Outcome, St
         if let (Located::At(p), Some(k)) = (got, d.slot) {
             out.located += 1;
             let mut off = i128::from(p.slot) - i128::from(k);
-            if align && !clk.slot_numbering_valid() && clk.numbering_epoch() == 1 {
+            if align && !clk.slot_numbering_valid() && clk.epoch() == 1 {
                 // What frame alignment would do on the first located detection.
                 clk.align_numbering(-(off as i64));
                 off = 0;
             }
-            let epoch = out.offsets.entry(clk.numbering_epoch()).or_default();
+            let epoch = out.offsets.entry(clk.epoch()).or_default();
             *epoch.entry(off).or_default() += 1;
             if (p.phase.to_num::<f64>() - 0.5).abs() > 1.0 / 16.0 {
                 out.off_position += 1;
@@ -326,8 +327,8 @@ fn plugs_into_the_receiver() {
     let a = rx.accounting();
     eprintln!("receiver accounting {a:?}");
     assert_eq!(rx.clock().state(), LockState::Locked);
-    assert!(a.no_clock >= 1536 && a.no_clock < 2500);
+    assert!(a[Fate::NoClock] >= 1536 && a[Fate::NoClock] < 2500);
     // Noise is half the detections and the gates cover 30 % of the slot.
-    let gated = rx.detections_in() - a.no_clock - a.outside_gates;
-    assert!(gated > a.outside_gates, "{a:?}");
+    let gated = rx.detections_in() - a[Fate::NoClock] - a[Fate::OutsideGates];
+    assert!(gated > a[Fate::OutsideGates], "{a:?}");
 }

@@ -41,13 +41,13 @@ fn monitor<const B: usize>() -> Monitor<B> {
     Monitor::new(cfg, AlarmConfig::DEFAULT)
 }
 
-fn trace(t_ps: u64, channel: u8, stage: Stage, slot: u64) -> Trace {
+fn trace(t_ps: u64, channel: u8, fate: Fate, slot: u64) -> Trace {
     Trace {
         t_ps: Some(t_ps),
         channel,
         slot: Some((slot, U0F32::ZERO)),
         gate: None,
-        stage,
+        fate,
     }
 }
 
@@ -87,11 +87,11 @@ fn rates_dead_time_off_gate_and_multi_clicks() {
     for i in 0..1000u64 {
         let t = i * (BLOCK_PS / 1000);
         let stage = if i % 10 == 0 {
-            Stage::OutsideGates
+            Fate::OutsideGates
         } else {
-            Stage::Gated
+            Fate::InFlight
         };
-        if stage == Stage::Gated && i % 50 != 1 {
+        if stage == Fate::InFlight && i % 50 != 1 {
             slot += 1;
         }
         m.observe(&trace(t, 0, stage, slot), true);
@@ -128,14 +128,14 @@ fn rates_dead_time_off_gate_and_multi_clicks() {
 fn window_holds_at_most_blocks_and_gaps_close_empty_blocks() {
     let mut m = monitor::<3>();
     for k in 0..10u64 {
-        m.observe(&trace(k * BLOCK_PS, 0, Stage::NoClock, 0), false);
+        m.observe(&trace(k * BLOCK_PS, 0, Fate::NoClock, 0), false);
         assert!(m.window_blocks() <= 3);
     }
     assert_eq!(m.window_blocks(), 3);
     assert_eq!(m.window().detections_in, 3);
     assert_eq!(m.since_start().detections_in, 10);
     // A gap of 100 blocks: the window empties, every block is counted.
-    m.observe(&trace(109 * BLOCK_PS, 0, Stage::NoClock, 0), false);
+    m.observe(&trace(109 * BLOCK_PS, 0, Fate::NoClock, 0), false);
     assert_eq!(m.blocks_closed(), 109);
     // 109 blocks closed and no snapshot taken: all but the last one replaced.
     assert_eq!(m.snapshots_replaced(), 108);
@@ -181,14 +181,14 @@ fn rate_collapse_and_lock_lost() {
     let mut t = 0;
     for _ in 0..3 {
         for _ in 0..per_block {
-            m.observe(&trace(t, 0, Stage::Gated, t), true);
+            m.observe(&trace(t, 0, Fate::InFlight, t), true);
             t += BLOCK_PS / per_block;
         }
     }
     assert_eq!(m.pop_event(), None);
     // Blackout of 2.5 blocks; the first detection after it finds the clock lost.
     t += 5 * BLOCK_PS / 2;
-    m.observe(&trace(t, 0, Stage::NoClock, 0), false);
+    m.observe(&trace(t, 0, Fate::NoClock, 0), false);
     let kinds: Vec<_> = core::iter::from_fn(|| m.pop_event())
         .map(|e| (e.kind, e.raised))
         .collect();
@@ -197,7 +197,7 @@ fn rate_collapse_and_lock_lost() {
         [(AlarmKind::RateCollapse, true), (AlarmKind::LockLost, true)]
     );
     assert_eq!(m.alarms().raised_counts(), [0, 1, 1, 0]);
-    m.observe(&trace(t + 1, 0, Stage::Gated, 1), true);
+    m.observe(&trace(t + 1, 0, Fate::InFlight, 1), true);
     assert_eq!(
         m.pop_event().map(|e| (e.kind, e.raised, e.t_ps)),
         Some((AlarmKind::LockLost, false, t + 1))
@@ -218,7 +218,7 @@ fn saturation_alarm() {
     let cfg = StatsConfig::new(BLOCK_PS, 40_000, &gates()).unwrap();
     let mut m = Monitor::<2>::new(cfg, alarms);
     for i in 0..1000u64 {
-        m.observe(&trace(i * BLOCK_PS / 1000, 1, Stage::Gated, i), true);
+        m.observe(&trace(i * BLOCK_PS / 1000, 1, Fate::InFlight, i), true);
     }
     m.advance(BLOCK_PS);
     let ev = m.pop_event().unwrap();
@@ -230,7 +230,7 @@ fn saturation_alarm() {
 fn snapshot_round_trips() {
     let mut m = monitor::<2>();
     for i in 0..10u64 {
-        m.observe(&trace(i, 1, Stage::OutsideGates, i), true);
+        m.observe(&trace(i, 1, Fate::OutsideGates, i), true);
         m.sifted(&bit(Basis::X, 1, Some(0)));
     }
     m.advance(BLOCK_PS);

@@ -12,7 +12,7 @@
 use super::stages::{self, CountSink, Recording, ReplayAnswers};
 use super::{simulate, state_bytes, time_reps, warm_up, CaptureName, PipelineArgs, Timing};
 use crate::cli::{receiver_setup, ClockArgs};
-use crate::clocks::{self, ClockMode, HostClock};
+use crate::clocks::{self, ClockMode, HostClock, HostNumbering};
 use crate::scenario::Scenario;
 use crate::sim::{self, SimTransmitter};
 use serde::Serialize;
@@ -123,14 +123,14 @@ fn capacity_row<const P: usize>(
     reps: usize,
     block: usize,
 ) -> Result<CapacityRow, AnyErr> {
-    let (cfg, clock) = receiver_setup(
+    let (cfg, stages) = receiver_setup(
         s,
         &ClockArgs {
             clock: ClockMode::Reference,
             prior_ppm: 500,
         },
     )?;
-    let rx: Box<Receiver<HostClock, P>> = Box::new(Receiver::new(cfg, clock));
+    let rx = stages.receiver::<P>(cfg);
     let mut rec = Recording {
         inner: SimTransmitter::new(s),
         log: Vec::new(),
@@ -150,7 +150,7 @@ fn capacity_row<const P: usize>(
     Ok(CapacityRow {
         pending: P,
         latency,
-        state_bytes: std::mem::size_of::<Receiver<HostClock, P>>(),
+        state_bytes: std::mem::size_of::<Receiver<HostClock, P, HostNumbering>>(),
         pipeline,
         answer_mismatches: mismatches,
     })

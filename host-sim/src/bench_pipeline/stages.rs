@@ -2,18 +2,18 @@
 //! stage shares, and the whole receiver. Each loop returns a checksum that goes through
 //! [`black_box`], so the compiler cannot drop the work it measures.
 //!
-//! The truncated pipelines call the core's own stages through its public API in the order
-//! `Receiver::push` does: unwrap ([`Unwrapper::unwrap`]); then also the channel delay and slot
-//! location ([`Clock::locate_on`], which for the recovered clock is also the tracking loop's
-//! update); then also the gate lookup ([`slotwise::GateTable::lookup`]); then also the numbering
-//! ([`Clock::number`], the marker alignment). The whole pipeline is [`Receiver::push_block`]: the above plus slot handling,
-//! announcements, the pending queue, answers, tallies and the key sink. A stage's cost is the
-//! difference between two successive truncated pipelines.
+//! The truncated pipelines call the core's own front-end steps ([`FrontEnd`]) in the order
+//! `Receiver::push` does: [`FrontEnd::time`] (unwrapping, channel split and delay); then also
+//! [`FrontEnd::slot`] (slot location, which for the recovered clock is also the tracking loop's
+//! update); then also [`FrontEnd::gate`]; then also [`FrontEnd::number`] (the marker
+//! alignment). The whole pipeline is [`Receiver::push_block`]: the above plus the sifter (slot
+//! grouping, announcements, the pending queue, answers, tallies) and the key sink. A stage's cost
+//! is the difference between two successive truncated pipelines.
 
-use crate::clocks::HostClock;
+use crate::clocks::{HostClock, HostNumbering};
+use crate::replay::HostReceiver;
 use slotwise::{
-    Announcement, Answer, Basis, Clock, GateTable, KeySink, Located, Lookup, Numbered, Receiver,
-    SiftedBit, TdcEvent, Transmitter, Unwrapper,
+    Announcement, Answer, FrontEnd, KeySink, Receiver, SiftedBit, TdcEvent, Transmitter,
 };
 use std::collections::VecDeque;
 use std::hint::black_box;
@@ -46,24 +46,18 @@ impl Depth {
     }
 }
 
-/// State of a truncated pipeline: the receiver's stages, cloned out of a warmed-up receiver.
+/// State of a truncated pipeline: the receiver's front end, cloned out of a warmed-up receiver.
 #[derive(Clone, Debug)]
 pub struct StageState {
-    /// The time base.
-    pub unwrapper: Unwrapper,
-    /// The clock stage.
-    pub clock: HostClock,
-    /// The gate table with its channel delays.
-    pub gates: GateTable,
+    /// The front end (time base, clock, gates, numbering).
+    pub front: FrontEnd<HostClock, HostNumbering>,
 }
 
 impl StageState {
     /// The stages of `rx` as they stand now.
-    pub fn of<const P: usize>(rx: &Receiver<HostClock, P>) -> Self {
+    pub fn of(rx: &HostReceiver) -> Self {
         Self {
-            unwrapper: rx.unwrapper().clone(),
-            clock: rx.clock().clone(),
-            gates: *rx.config().gates(),
+            front: rx.front_end().clone(),
         }
     }
 }
@@ -80,39 +74,31 @@ pub fn read_floor(events: &[TdcEvent]) -> u64 {
 #[inline(never)]
 pub fn truncated(st: &mut StageState, events: &[TdcEvent], depth: Depth) -> u64 {
     let mut acc = 0u64;
+    let f = &mut st.front;
     for &ev in black_box(events) {
-        let Ok(det) = st.unwrapper.unwrap(ev) else {
+        let mut t_raw = None;
+        let Ok(d) = f.time(ev, &mut t_raw) else {
             continue;
         };
         if depth == Depth::Unwrap {
-            acc = acc.wrapping_add(det.t_ps);
+            acc = acc.wrapping_add(d.t_ps);
             continue;
         }
-        let Some(delay) = st.gates.delay_ps(det.channel) else {
-            continue;
-        };
-        let Some(t) = det.t_ps.checked_add_signed(delay.wrapping_neg()) else {
-            continue;
-        };
-        let Located::At(pos) = st.clock.locate_on(det.channel, t) else {
+        let Ok(pos) = f.slot(&d) else {
             continue;
         };
         if depth == Depth::Locate {
             acc = acc.wrapping_add(pos.slot ^ u64::from(pos.phase.to_bits()));
             continue;
         }
-        let Lookup::Gate(i) = st.gates.lookup(det.channel, pos.phase) else {
+        let Ok((i, g)) = f.gate(&d, &pos) else {
             continue;
         };
         if depth == Depth::Gate {
             acc = acc.wrapping_add(pos.slot ^ u64::from(i));
             continue;
         }
-        let Some(g) = st.gates.gate(i) else {
-            continue;
-        };
-        let z_bit = (g.basis == Basis::Z).then_some(g.bit);
-        if let Numbered::Slot(s) = st.clock.number(pos, z_bit) {
+        if let Ok(s) = f.number(&pos, &g) {
             acc = acc.wrapping_add(s);
         }
     }
@@ -123,7 +109,7 @@ pub fn truncated(st: &mut StageState, events: &[TdcEvent], depth: Depth) -> u64 
 /// the function the instruction-count script points callgrind at.
 #[inline(never)]
 pub fn measured_pipeline<const P: usize>(
-    rx: &mut Receiver<HostClock, P>,
+    rx: &mut Receiver<HostClock, P, HostNumbering>,
     tx: &mut ReplayAnswers<'_>,
     key: &mut CountSink,
     events: &[TdcEvent],

@@ -14,7 +14,7 @@ use super::link::{self, Det, Feed, LinkPoint};
 use crate::clocks::HostRecovered;
 use serde::Serialize;
 use slotwise::track::LockState;
-use slotwise::{Clock, Located};
+use slotwise::{Located, SlotClock};
 use std::error::Error;
 use std::hint::black_box;
 use std::time::Instant;
@@ -50,7 +50,7 @@ pub struct CostRow {
 #[inline(never)]
 pub fn feed_until_locked(clk: &mut HostRecovered, buf: &[Det]) -> usize {
     for (i, d) in buf.iter().enumerate() {
-        black_box(clk.locate_on(d.channel, d.t_ps));
+        black_box(clk.observe(d.channel, d.t_ps));
         if clk.state() == LockState::Locked {
             return i + 1;
         }
@@ -63,7 +63,7 @@ pub fn feed_until_locked(clk: &mut HostRecovered, buf: &[Det]) -> usize {
 pub fn feed_locked(clk: &mut HostRecovered, buf: &[Det]) -> u64 {
     let mut sum = 0u64;
     for d in buf {
-        if let Located::At(p) = clk.locate_on(d.channel, d.t_ps) {
+        if let Located::At(p) = clk.observe(d.channel, d.t_ps) {
             sum = sum.wrapping_add(p.slot);
         }
     }
@@ -76,7 +76,7 @@ fn call_times(clk: &mut HostRecovered, buf: &[Det]) -> (f64, f64) {
         .iter()
         .map(|d| {
             let t = Instant::now();
-            black_box(clk.locate_on(d.channel, d.t_ps));
+            black_box(clk.observe(d.channel, d.t_ps));
             t.elapsed().as_secs_f64() * 1e6
         })
         .collect();
@@ -108,7 +108,7 @@ pub fn run(
     let mut probe = cold.clone();
     let mut acquire: Vec<Det> = Vec::new();
     for d in feed.by_ref() {
-        probe.locate_on(d.channel, d.t_ps);
+        probe.observe(d.channel, d.t_ps);
         acquire.push(d);
         if probe.state() == LockState::Locked {
             break;

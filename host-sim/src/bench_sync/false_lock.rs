@@ -10,7 +10,7 @@
 use super::link::{self, Feed};
 use serde::Serialize;
 use slotwise::track::LockState;
-use slotwise::Clock;
+use slotwise::SlotClock;
 use std::error::Error;
 use std::time::Instant;
 
@@ -78,7 +78,7 @@ fn chunk(first: u64, n: u64, prior_ppm: u32) -> Result<Tally, String> {
         let mut first_t = None;
         let mut done = false;
         for d in feed {
-            clk.locate_on(d.channel, d.t_ps);
+            clk.observe(d.channel, d.t_ps);
             used += 1;
             let t0 = *first_t.get_or_insert(d.t_ps);
             let st = *clk.acquire_stats();

@@ -2,7 +2,7 @@
 //! detection probability and noise fraction, and the feed of delay-corrected detections that the
 //! receiver would hand its clock (the core's unwrapper, then the gate table's channel delays).
 
-use crate::clocks::{self, ClockMode, HostClock, HostRecovered};
+use crate::clocks::{self, ClockMode, ClockStages, HostClock, HostRecovered};
 use crate::scenario::Scenario;
 use crate::sim::{self, Kind, SimEvent, Simulator};
 use serde::Serialize;
@@ -135,8 +135,11 @@ pub fn cold_clock(
     prior_ppm: u32,
 ) -> Result<HostRecovered, Box<dyn Error>> {
     match clocks::build(s, gates, ClockMode::Recovered, prior_ppm)? {
-        HostClock::Recovered(c) => Ok(c.into_recovered()),
-        HostClock::Reference(..) => Err("clocks::build returned a reference clock".into()),
+        ClockStages {
+            clock: HostClock::Recovered(c),
+            ..
+        } => Ok(*c),
+        _ => Err("clocks::build returned a reference clock".into()),
     }
 }
 

@@ -26,7 +26,7 @@
 use super::link::{self, Feed, LinkPoint};
 use serde::Serialize;
 use slotwise::track::LockState;
-use slotwise::Clock;
+use slotwise::SlotClock;
 use std::error::Error;
 
 /// Most detections fed to a cold clock before the run counts as not locked.
@@ -128,7 +128,7 @@ pub fn run_one(
     let mut lock_t = 0u64;
     while let Some(d) = feed.next() {
         let before = *clk.acquire_stats();
-        clk.locate_on(d.channel, d.t_ps);
+        clk.observe(d.channel, d.t_ps);
         let after = *clk.acquire_stats();
         out.total += 1;
         out.signal += u64::from(d.slot.is_some());
@@ -216,7 +216,7 @@ fn sample_loop(
     let (mut sig, updates0) = (0u64, clk.tracker().updates());
     let mut last_t = lock_t;
     for d in feed.by_ref() {
-        clk.locate_on(d.channel, d.t_ps);
+        clk.observe(d.channel, d.t_ps);
         if clk.state() != LockState::Locked {
             out.lost_while_tracking = true;
             return;

@@ -10,7 +10,7 @@
 use super::link::{self, Feed, LinkEvent, LinkPoint};
 use serde::Serialize;
 use slotwise::track::LockState;
-use slotwise::{Clock, Located};
+use slotwise::{Located, SlotClock};
 use std::collections::{BTreeMap, VecDeque};
 use std::error::Error;
 
@@ -116,7 +116,7 @@ fn run_one(
             out.locked_before = clk.state() == LockState::Locked;
             counters0 = Some(*clk.counters());
         }
-        let got = clk.locate_on(d.channel, d.t_ps);
+        let got = clk.observe(d.channel, d.t_ps);
         if !after_event {
             if let (Located::At(p), Some(k)) = (got, d.slot) {
                 before.push_back(i128::from(p.slot) - i128::from(k));

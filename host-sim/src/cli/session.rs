@@ -3,7 +3,7 @@
 //! and the key file.
 
 use super::{bucket_s, AnyErr};
-use crate::clocks::{self, HostClock};
+use crate::clocks::{self, ClockStages};
 use crate::link::keyfile::KeyTap;
 use crate::link::report::link_summary;
 use crate::link::{FramedLink, HostTx, LinkModel};
@@ -19,7 +19,7 @@ use std::path::Path;
 /// transmitter's numbering hint. `truth_checked` when the simulator's truth comes with the events.
 pub(super) fn open_session(
     cfg: ReceiverConfig,
-    clock: HostClock,
+    stages: ClockStages,
     s: &Scenario,
     link: Option<LinkModel>,
     truth_checked: bool,
@@ -27,7 +27,7 @@ pub(super) fn open_session(
 ) -> Result<(Session<HostTx>, KeyTap), AnyErr> {
     let mut session = Session::new(
         cfg,
-        clock,
+        stages,
         host_tx(s, link)?,
         bucket_s(s),
         truth_checked,

@@ -2,7 +2,7 @@
 
 use super::*;
 use crate::scenario::Scenario;
-use slotwise::{Clock, Located, UnwrapConfig, Unwrapper};
+use slotwise::{Located, SlotClock, UnwrapConfig, Unwrapper};
 
 fn short(mut s: Scenario, duration_s: f64) -> Scenario {
     s.duration_s = duration_s;
@@ -142,7 +142,7 @@ fn clock_truth_places_slots_on_the_core_time_base_across_a_wrap() {
     let truth = clock_truth(&s).unwrap();
     assert_eq!(truth.wraps_before_first, 1);
     let mut u = Unwrapper::new(UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps).unwrap());
-    let mut clock = truth.fixed_clock();
+    let clock = truth.fixed_clock();
     let (delays, _) = receiver_gates(&s);
     let mut checked = 0;
     let mut wraps = 0;

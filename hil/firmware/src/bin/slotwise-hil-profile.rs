@@ -28,8 +28,8 @@ use core::hint::black_box;
 use files::ShFile;
 use slotwise::frames::Summary;
 use slotwise::{
-    Announcement, Answer, Basis, Clock, FrameSink, KeySink, Located, Lookup, NullSink, TdcEvent,
-    Transmitter, Unwrapper,
+    Announcement, Answer, Basis, FrameSink, KeySink, Located, Lookup, NullSink, SlotClock,
+    TdcEvent, Transmitter, Unwrapper,
 };
 use slotwise_hil::{BoardFrameOut, BoardReceiver, EventSource, IoEvents, Setup, BLOCK};
 
@@ -110,7 +110,7 @@ fn read_setup() -> Result<Setup, i32> {
 /// Measure each stage over every event of `events.bin`.
 fn profile(setup: &Setup) -> Result<(), i32> {
     let cfg = setup.receiver_config().map_err(|_| exit::SETUP)?;
-    let mut clock = setup.clock().map_err(|_| exit::SETUP)?;
+    let clock = setup.clock().map_err(|_| exit::SETUP)?;
     let gates = *cfg.gates();
     let (mut unwrap, mut locate, mut lookup) = (0u64, 0u64, 0u64);
     let mut u = Unwrapper::new(*cfg.tdc());

@@ -1,0 +1,164 @@
+//! Stage 4 — numbering: the transmitter's absolute slot number for a clock's slot.
+//!
+//! A [`SlotClock`] numbers slots its own way: a [`crate::FixedClock`] from its configured origin,
+//! a [`crate::RecoveredClock`] from its time origin, restarting (a new epoch) after an unbridged
+//! relock. A [`Numbering`] stage turns the clock's slot into the transmitter's number, or says
+//! the slot is a public marker slot, or that the numbering is not yet established. Any clock
+//! combines with any numbering:
+//!
+//! - [`Absolute`] — the clock's numbers are already the transmitter's (a distributed reference
+//!   whose origin is the transmitter's slot 0); with a declared marker, marker slots are excluded.
+//! - [`MarkerNumbering`] — frame alignment on the public marker ([`crate::frame`]): every gated
+//!   detection's slot (and Z bit) goes to the [`StandardAligner`]; the answer is
+//!   [`Numbered::Unaligned`] until the marker is confirmed and a coarse hint from the classical
+//!   channel has fixed the offset modulo the marker period. A new clock epoch or a misalignment
+//!   raised by the marker check restarts the alignment, so no detection is numbered with a stale
+//!   offset.
+
+use crate::clock::{Numbered, SlotClock};
+use crate::frame::{AlignState, FrameConfig, FrameError, MarkerSpec, SlotHint, StandardAligner};
+
+/// A numbering stage: the transmitter's absolute slot number for a clock's located, gated slot.
+pub trait Numbering {
+    /// Number the clock's slot `slot` of a gated detection; `z_bit` is its bit when the gate is
+    /// in the Z basis. `clock` gives the epoch and converts hint times to its slots.
+    fn number<C: SlotClock + ?Sized>(
+        &mut self,
+        clock: &C,
+        slot: u64,
+        z_bit: Option<u8>,
+    ) -> Numbered;
+
+    /// A coarse hint from the classical channel: at receiver time `t_ps` the transmitter's slot
+    /// counter read about `tx_slot`. Numberings that need none ignore it.
+    fn hint<C: SlotClock + ?Sized>(&mut self, clock: &C, t_ps: u64, tx_slot: u64) {
+        let _ = (clock, t_ps, tx_slot);
+    }
+}
+
+/// The clock's slot numbers are the transmitter's; marker slots, when a marker is declared, are
+/// never sifted.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Absolute {
+    marker: Option<MarkerSpec>,
+}
+
+impl Absolute {
+    /// Numbers as the clock gives them, no marker.
+    pub const fn new() -> Self {
+        Self { marker: None }
+    }
+
+    /// Numbers as the clock gives them; slots of `marker` answer [`Numbered::Marker`].
+    pub const fn with_marker(marker: MarkerSpec) -> Self {
+        Self {
+            marker: Some(marker),
+        }
+    }
+
+    /// The declared marker, if any.
+    pub const fn marker(&self) -> Option<&MarkerSpec> {
+        self.marker.as_ref()
+    }
+}
+
+impl Numbering for Absolute {
+    #[inline]
+    fn number<C: SlotClock + ?Sized>(&mut self, _: &C, slot: u64, _: Option<u8>) -> Numbered {
+        match &self.marker {
+            Some(m) if m.is_marker_slot(slot) => Numbered::Marker,
+            _ => Numbered::Slot(slot),
+        }
+    }
+}
+
+/// Absolute numbers from the public marker: frame alignment plus a coarse hint.
+#[derive(Clone, Debug)]
+pub struct MarkerNumbering {
+    aligner: StandardAligner,
+    spec: MarkerSpec,
+    epoch: u32,
+    /// The latest hint: (receiver time in ps, transmitter slot).
+    hint: Option<(u64, u64)>,
+    /// Realignments after the first (epoch changes or misalignments).
+    realignments: u32,
+}
+
+impl MarkerNumbering {
+    /// An aligner for the marker described by `frame`.
+    pub fn new(frame: FrameConfig) -> Result<Self, FrameError> {
+        Ok(Self {
+            aligner: StandardAligner::new(frame)?,
+            spec: *frame.spec(),
+            epoch: 0,
+            hint: None,
+            realignments: 0,
+        })
+    }
+
+    /// The frame aligner.
+    pub const fn aligner(&self) -> &StandardAligner {
+        &self.aligner
+    }
+
+    /// Times the alignment was restarted after a new clock epoch or a misalignment.
+    pub const fn realignments(&self) -> u32 {
+        self.realignments
+    }
+
+    /// Whether detections get absolute slot numbers now.
+    pub fn aligned(&self) -> bool {
+        matches!(self.aligner.state(), AlignState::Aligned { .. })
+    }
+
+    fn apply_hint<C: SlotClock + ?Sized>(&mut self, clock: &C) {
+        if let (Some((t_ps, tx_slot)), AlignState::AwaitingHint { .. }) =
+            (self.hint, self.aligner.state())
+        {
+            if let Some(local_slot) = clock.slot_at(t_ps) {
+                self.aligner.set_hint(SlotHint {
+                    tx_slot,
+                    local_slot,
+                });
+            }
+        }
+    }
+}
+
+impl Numbering for MarkerNumbering {
+    fn number<C: SlotClock + ?Sized>(
+        &mut self,
+        clock: &C,
+        slot: u64,
+        z_bit: Option<u8>,
+    ) -> Numbered {
+        let epoch = clock.epoch();
+        if epoch != self.epoch {
+            if self.epoch != 0 {
+                self.realignments += 1;
+            }
+            self.epoch = epoch;
+            self.aligner.restart();
+        }
+        self.aligner.observe(slot, z_bit);
+        match self.aligner.state() {
+            AlignState::AwaitingHint { .. } => self.apply_hint(clock),
+            AlignState::Misaligned { .. } => {
+                self.realignments += 1;
+                self.aligner.restart();
+            }
+            _ => {}
+        }
+        match self.aligner.to_absolute(slot) {
+            Some(abs) if self.spec.is_marker_slot(abs) => Numbered::Marker,
+            Some(abs) => Numbered::Slot(abs),
+            None => Numbered::Unaligned,
+        }
+    }
+
+    fn hint<C: SlotClock + ?Sized>(&mut self, clock: &C, t_ps: u64, tx_slot: u64) {
+        self.hint = Some((t_ps, tx_slot));
+        self.apply_hint(clock);
+    }
+}
