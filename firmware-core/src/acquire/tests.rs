@@ -218,3 +218,59 @@ fn capacity_and_params_are_checked() {
         Err(AcquireConfigError::FitWindow)
     );
 }
+
+impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
+    /// Bytes of each field, for the size report (padding is the rest of `size_of::<Self>()`).
+    pub(crate) fn field_sizes(&self) -> Vec<(&'static str, usize)> {
+        use core::mem::size_of_val;
+        vec![
+            ("cfg", size_of_val(&self.cfg)),
+            ("times", size_of_val(&self.times)),
+            ("chans", size_of_val(&self.chans)),
+            ("cands", size_of_val(&self.cands)),
+            ("step", size_of_val(&self.step)),
+            ("confirm", size_of_val(&self.confirm)),
+            ("lock", size_of_val(&self.lock)),
+            ("stats", size_of_val(&self.stats)),
+            ("phi0", size_of_val(&self.phi0)),
+            (
+                "11 scalars",
+                size_of_val(&self.len)
+                    + size_of_val(&self.t0)
+                    + size_of_val(&self.t_max)
+                    + size_of_val(&self.prior_centre)
+                    + size_of_val(&self.prior_half)
+                    + size_of_val(&self.lo)
+                    + size_of_val(&self.step_nu)
+                    + size_of_val(&self.points)
+                    + size_of_val(&self.ncand)
+                    + size_of_val(&self.nu)
+                    + size_of_val(&self.n_confirm),
+            ),
+            (
+                "z2 ×3",
+                size_of_val(&self.z2_search)
+                    + size_of_val(&self.z2_threshold)
+                    + size_of_val(&self.z2_confirm),
+            ),
+        ]
+    }
+}
+
+#[test]
+fn part_sizes() {
+    use core::mem::size_of;
+    let parts = [
+        ("Cand<2>", size_of::<Cand<2>>()),
+        ("Eval<2>", size_of::<Eval<2>>()),
+        ("Step<2>", size_of::<Step<2>>()),
+        ("LsSums", size_of::<LsSums>()),
+        ("Fold<2>", size_of::<Fold<2>>()),
+        ("AcquiredLock", size_of::<AcquiredLock>()),
+        ("AcquireConfig", size_of::<AcquireConfig>()),
+    ];
+    for (name, bytes) in parts {
+        eprintln!("{name:>16} {bytes:>6} B");
+    }
+    assert!(size_of::<Step<2>>() >= size_of::<Eval<2>>());
+}
