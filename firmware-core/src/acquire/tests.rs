@@ -225,8 +225,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         use core::mem::size_of_val;
         vec![
             ("cfg", size_of_val(&self.cfg)),
-            ("times", size_of_val(&self.times)),
-            ("chans", size_of_val(&self.chans)),
+            ("buf", size_of_val(&self.buf)),
             ("cands", size_of_val(&self.cands)),
             ("step", size_of_val(&self.step)),
             ("confirm", size_of_val(&self.confirm)),
@@ -234,9 +233,8 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             ("stats", size_of_val(&self.stats)),
             ("phi0", size_of_val(&self.phi0)),
             (
-                "11 scalars",
-                size_of_val(&self.len)
-                    + size_of_val(&self.t0)
+                "10 scalars",
+                size_of_val(&self.t0)
                     + size_of_val(&self.t_max)
                     + size_of_val(&self.prior_centre)
                     + size_of_val(&self.prior_half)
