@@ -46,6 +46,12 @@ pub(crate) struct DetectionBuffer<const N: usize> {
 impl<const N: usize> DetectionBuffer<N> {
     /// An empty buffer.
     pub(crate) const fn new() -> Self {
+        const {
+            assert!(
+                core::mem::size_of::<Self>() <= 5 * N + 32,
+                "5 bytes per entry"
+            )
+        };
         Self {
             words: [0; N],
             codes: [0; N],

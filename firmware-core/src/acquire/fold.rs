@@ -222,6 +222,9 @@ pub struct ArrivalPattern {
     channels: [ChannelPattern; MAX_CHANNELS + 1],
 }
 
+// 17 patterns of 144 bytes on every target.
+const _: () = assert!(core::mem::size_of::<ArrivalPattern>() <= 2_448);
+
 impl ArrivalPattern {
     /// Every channel expects its detections at one position (slot fraction).
     pub fn single(position: U0F32) -> Self {
