@@ -272,3 +272,23 @@ fn part_sizes() {
     }
     assert!(size_of::<Step<2>>() >= size_of::<Eval<2>>());
 }
+
+#[test]
+fn long_gaps_fill_the_buffer_early_and_the_search_starts_on_what_it_holds() {
+    // 160 detections to search, 32 to confirm: 192 of 256 entries. Steps of 20 ms need an
+    // escape entry each, so the 129th detection finds no room (1 + 2·127 = 255 entries used).
+    let mut params = AcquireParams::new(q32(10_000.0), 200);
+    params.first_stage = 40;
+    params.stages = 2;
+    params.confirm = 32;
+    let mut a = Acquirer::<256, 4, 2>::new(AcquireConfig::new(params).unwrap()).unwrap();
+    let pat = ArrivalPattern::single(U0F32::from_num(0.5));
+    let gap_ps = 20_000_000_000u64;
+    for k in 0..128 {
+        a.push(k * gap_ps, Some(0), &pat);
+    }
+    assert_eq!((a.stored_len(), a.stats().attempts), (128, 0));
+    a.push(128 * gap_ps, Some(0), &pat);
+    assert_eq!(a.stored_len(), 128);
+    assert_eq!((a.stats().dropped_full, a.stats().attempts), (1, 1));
+}
