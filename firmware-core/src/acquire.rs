@@ -37,22 +37,41 @@
 //! must reach half its maximum (the phase carries over). A last fit over both batches gives the
 //! period and the slot start nearest below the latest detection.
 //!
+//! ## Memory
+//! The buffer dominates: `N` entries of five bytes (`acquire/buffer.rs`: a 32-bit time step from the
+//! previous detection, three more step bits and the channel in one byte; a step beyond ±17 ms
+//! takes a second, escape, entry). Against a `u64` time and a `u8` channel per detection this
+//! is 5 instead of 9 bytes, exactly the same times, and at most one spare entry per long gap:
+//! with the defaults (1024 + 512 detections) `N` = 2048 leaves 512 entries for gaps, about four
+//! times what a 100-detections-per-second link needs. A buffer filled early by gaps searches
+//! what it holds (and a confirmation decides on what it got), counted in
+//! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds (56 bytes each
+//! for n = 2), the search step (160 bytes) and a few words. The buffer stays owned rather than
+//! borrowed from the caller: a `&'a mut` buffer would put a lifetime into the clock, the marked
+//! clock and every receiver type built on them, and it saves RAM only where the board has
+//! memory to lend that nothing else holds while the clock acquires. The size
+//! report (`size_report` test) prints every part; `const` assertions next to the types bound
+//! them for the host's and the HIL's capacities.
+//!
 //! ## Work bound
 //! [`Acquirer::push`] stores one detection (during confirmation it also folds it: n harmonics).
 //! [`Acquirer::work`] spends at most `budget` units; one unit is one detection at one trial
 //! frequency (one multiply for the phase, n rotations and table lookups) or one detection of a fit
-//! pass (one residual per expected position). Between stages it sorts K candidates (K²
+//! pass (one residual per expected position); reading a stored detection back is one add and
+//! a zigzag decode (an escape entry one more). Between stages it sorts K candidates (K²
 //! comparisons); twice per attempt it searches the best offset (1024·n lookups). An attempt
 //! costs about (G/2^stages + 1)·first_stage + 10·K·F + 3·F + confirm units, G the final lattice
 //! size. Detections that arrive while the search runs are not stored (counted in
 //! [`AcquireStats::dropped_busy`]).
 
+mod buffer;
 mod config;
 pub mod fold;
 #[cfg(test)]
 pub(crate) mod synth;
 pub mod thresholds;
 
+use buffer::{Cursor, DetectionBuffer};
 pub use config::{AcquireConfig, AcquireConfigError, AcquireParams};
 use fixed::types::{U0F32, U32F32};
 use fold::{ArrivalPattern, Fold};
@@ -103,9 +122,9 @@ pub struct AcquireStats {
     pub fit_failed: u32,
     /// Detections not stored because the search was busy.
     pub dropped_busy: u64,
+    /// Detections not stored because long gaps had used up the buffer's spare entries.
+    pub dropped_full: u64,
 }
-
-const NO_CHANNEL: u8 = u8::MAX;
 
 #[derive(Clone, Copy, Debug)]
 struct Cand<const H: usize> {
@@ -118,7 +137,7 @@ struct Cand<const H: usize> {
 struct Eval<const H: usize> {
     j: u64,
     nu: u64,
-    i: usize,
+    cur: Cursor,
     end: usize,
     fold: Fold<H>,
 }
@@ -190,7 +209,7 @@ enum Step<const H: usize> {
     },
     Fit {
         pass: u8,
-        i: usize,
+        cur: Cursor,
         sums: LsSums,
         xc: i128,
     },
@@ -203,9 +222,7 @@ enum Step<const H: usize> {
 #[derive(Clone, Debug)]
 pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     cfg: AcquireConfig,
-    times: [u64; N],
-    chans: [u8; N],
-    len: usize,
+    buf: DetectionBuffer<N>,
     t0: u64,
     t_max: u64,
     prior_centre: u64,
@@ -227,6 +244,9 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     stats: AcquireStats,
 }
 
+// The host's and the HIL's capacities: 11,232 bytes on x86_64, 11,200 on thumbv7em.
+const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_264);
+
 impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// An acquirer with the cold prior, collecting.
     pub fn new(cfg: AcquireConfig) -> Result<Self, AcquireConfigError> {
@@ -242,9 +262,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         };
         let mut a = Self {
             cfg,
-            times: [0; N],
-            chans: [NO_CHANNEL; N],
-            len: 0,
+            buf: DetectionBuffer::new(),
             t0: 0,
             t_max: 0,
             prior_centre: cfg.nu0,
@@ -281,7 +299,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
 
     /// Whether the acquirer is filling its buffer for a new search (nothing in progress).
     pub const fn is_collecting(&self) -> bool {
-        matches!(self.step, Step::Collect) && self.len == 0
+        matches!(self.step, Step::Collect) && self.buf.len() == 0
     }
 
     /// Whether a confirmed lock waits in [`Self::take_lock`].
@@ -308,50 +326,42 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     }
 
     fn reset_collect(&mut self) {
-        self.len = 0;
+        self.buf.clear();
         self.ncand = 0;
         self.step = Step::Collect;
     }
 
     fn store(&mut self, t_ps: u64, channel: Option<u8>) -> bool {
-        let (Some(t), Some(c)) = (self.times.get_mut(self.len), self.chans.get_mut(self.len))
-        else {
+        if !self.buf.push(t_ps, channel) {
+            self.stats.dropped_full += 1;
             return false;
-        };
-        *t = t_ps;
-        *c = channel.unwrap_or(NO_CHANNEL);
-        if self.len == 0 {
+        }
+        if self.buf.len() == 1 {
             self.t0 = t_ps;
             self.t_max = t_ps;
         }
         self.t_max = self.t_max.max(t_ps);
-        self.len += 1;
         true
     }
 
     #[cfg(test)]
     pub(crate) fn stored_len(&self) -> usize {
-        self.len
-    }
-
-    fn chan(&self, i: usize) -> Option<u8> {
-        match self.chans.get(i).copied() {
-            Some(NO_CHANNEL) | None => None,
-            c => c,
-        }
+        self.buf.len()
     }
 
     /// Take one delay-corrected detection (`channel` selects its expected positions).
     pub fn push(&mut self, t_ps: u64, channel: Option<u8>, pat: &ArrivalPattern) {
         match self.step {
             Step::Collect => {
-                self.store(t_ps, channel);
-                if self.len as u64 >= self.cfg.search_len() {
+                // A buffer filled early by long gaps searches what it holds.
+                let full = !self.store(t_ps, channel);
+                if full || self.buf.len() as u64 >= self.cfg.search_len() {
                     self.start_search();
                 }
             }
             Step::Confirm => {
                 if !self.store(t_ps, channel) {
+                    self.decide_confirmation();
                     return;
                 }
                 let ph = t_ps.wrapping_sub(self.t0).wrapping_mul(self.nu);
@@ -371,14 +381,14 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     }
 
     fn stage_end(&self, stage: u8) -> usize {
-        (u64::from(self.cfg.p.first_stage) << stage).min(self.len as u64) as usize
+        (u64::from(self.cfg.p.first_stage) << stage).min(self.buf.len() as u64) as usize
     }
 
     fn eval_at(&self, j: u64, stage: u8) -> Eval<H> {
         Eval {
             j,
             nu: self.nu_at(j),
-            i: 0,
+            cur: DetectionBuffer::<N>::cursor(self.t0),
             end: self.stage_end(stage),
             fold: Fold::new(),
         }
@@ -498,7 +508,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         let xc = self.position(self.t_max).map_or(0, |v| (v >> 64) / 2);
         self.step = Step::Fit {
             pass,
-            i: 0,
+            cur: DetectionBuffer::<N>::cursor(self.t0),
             sums: LsSums::default(),
             xc,
         };
@@ -511,14 +521,16 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     }
 
     fn eval_step(&self, e: &mut Eval<H>, budget: &mut u32, pat: &ArrivalPattern) -> bool {
-        while e.i < e.end && *budget > 0 {
-            let t = self.times.get(e.i).copied().unwrap_or(self.t0);
+        while e.cur.read < e.end && *budget > 0 {
+            let Some((t, channel)) = self.buf.next(&mut e.cur) else {
+                e.cur.read = e.end;
+                break;
+            };
             let ph = t.wrapping_sub(self.t0).wrapping_mul(e.nu);
-            e.fold.add(ph, pat.channel(self.chan(e.i)));
-            e.i += 1;
+            e.fold.add(ph, pat.channel(channel));
             *budget -= 1;
         }
-        e.i >= e.end
+        e.cur.read >= e.end
     }
 
     /// Spend at most `budget` work units on the search and fits.
@@ -558,14 +570,14 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
                 }
                 Step::Fit {
                     pass,
-                    mut i,
+                    mut cur,
                     mut sums,
                     xc,
                 } => {
                     let end = if pass < 2 {
                         self.stage_end(self.cfg.p.stages)
                     } else {
-                        self.len
+                        self.buf.len()
                     };
                     let w = self.cfg.p.fit_half_window.to_bits();
                     let w = u64::from(if pass == 0 {
@@ -574,13 +586,21 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
                         w
                     });
                     let win = U0F32::from_bits(w as u32);
-                    while i < end && budget > 0 {
-                        self.fit_one(i, &mut sums, xc, w << 32, win, pat);
-                        i += 1;
+                    while cur.read < end && budget > 0 {
+                        let Some((t, channel)) = self.buf.next(&mut cur) else {
+                            cur.read = end;
+                            break;
+                        };
+                        self.fit_one(t, channel, &mut sums, xc, w << 32, win, pat);
                         budget -= 1;
                     }
-                    if i < end {
-                        self.step = Step::Fit { pass, i, sums, xc };
+                    if cur.read < end {
+                        self.step = Step::Fit {
+                            pass,
+                            cur,
+                            sums,
+                            xc,
+                        };
                         return;
                     }
                     self.finish_fit(pass, &sums, xc);
@@ -652,19 +672,21 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.begin_candidate(stage, cand + 1);
     }
 
+    #[allow(clippy::too_many_arguments)]
     fn fit_one(
         &self,
-        i: usize,
+        t_ps: u64,
+        channel: Option<u8>,
         sums: &mut LsSums,
         xc: i128,
         w_q64: u64,
         win: U0F32,
         pat: &ArrivalPattern,
     ) {
-        let Some(v) = self.times.get(i).and_then(|&t| self.position(t)) else {
+        let Some(v) = self.position(t_ps) else {
             return;
         };
-        let p = pat.channel(self.chan(i));
+        let p = pat.channel(channel);
         let (r, carry) = p.residual(v as u64);
         sums.n_all += 1;
         sums.null_q32 += p.null_fraction(win);
@@ -743,7 +765,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             z2_threshold: self.z2_threshold,
             z2_confirm: self.z2_confirm,
             trials: self.points,
-            detections: self.len as u32,
+            detections: self.buf.len() as u32,
             in_window: U0F32::from_bits(((n_in << 32) / n_all).min(u64::from(u32::MAX)) as u32),
             null_window: U0F32::from_bits((sums.null_q32 / n_all).min(u64::from(u32::MAX)) as u32),
             mean_r2_q64: u64::try_from(sums.syy / u128::from(n_in.max(1))).unwrap_or(u64::MAX),

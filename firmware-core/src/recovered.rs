@@ -18,8 +18,18 @@
 //! [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
 //! [`RecoveredClock::align_numbering`].
 //!
+//! ## Memory
+//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 16,408 bytes on
+//! thumbv7em (16,480 on x86_64, where `i128` aligns to 16): the acquisition buffer 10.2 KB
+//! (2048 entries of 5 bytes, see [`crate::acquire`]), the arrival patterns 2.4 KB (17 channel
+//! patterns with 16 positions each), the tracker 2.5 KB (mostly its calibration histograms,
+//! 16 channels × 32 bins), the rest of the acquirer 1 KB (candidates and the search step) and
+//! the settings and lock evidence 0.2 KB. Storing each detection as a 64-bit time and a channel
+//! byte took 24,976 bytes; the `size_report` test prints every part.
+//!
 //! ## Work per detection
-//! Acquiring: one store (during confirmation also one fold: n harmonics) plus at most
+//! Acquiring: one store (the zigzagged time step into one buffer entry, two after a gap over
+//! 17 ms; during confirmation also one fold: n harmonics) plus at most
 //! `work_per_call` search units (see [`crate::acquire`]); [`RecoveredClock::work`] spends more in
 //! idle time. Locked: one loop update — one residual per expected position of the channel
 //! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment. A lock
@@ -117,6 +127,10 @@ pub struct RecoveredClock<const N: usize, const K: usize, const H: usize> {
     /// Acquisition attempts when the narrow reacquisition started (`None` once widened).
     reacquire_from: Option<u32>,
 }
+
+// The host's and the HIL's capacities: 16,480 bytes on x86_64, 16,408 on thumbv7em (see the
+// size report, `size_report` in the tests).
+const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 16_512);
 
 /// Failed narrow reacquisition attempts before the search widens to the cold prior.
 pub const NARROW_ATTEMPTS: u32 = 4;

@@ -110,8 +110,9 @@ pub fn cos_sin(phase_q64: u64) -> (i32, i32) {
 pub struct ChannelPattern {
     pos: [u64; MAX_GATES],
     len: u8,
-    /// arg C_k in Q0.64 turns, for k = 1..=MAX_HARMONICS.
-    rot: [u64; MAX_HARMONICS],
+    /// arg C_k in table steps (2^-TABLE_BITS turn), for k = 1..=MAX_HARMONICS: [`arg`] only
+    /// ever returns whole steps, so this holds the Q0.64 angle exactly in a quarter of the bytes.
+    rot: [u16; MAX_HARMONICS],
     /// Bit k−1 set when harmonic k carries signal for this channel.
     mask: u8,
 }
@@ -150,7 +151,7 @@ impl ChannelPattern {
             if re * re + im * im >= lim * lim {
                 p.mask |= 1 << k;
             }
-            *rot = arg(re, im);
+            *rot = arg_step(re, im);
         }
         p
     }
@@ -187,18 +188,24 @@ impl ChannelPattern {
     }
 }
 
-/// Argument of (re, im) in Q0.64 turns, to the table's resolution (exhaustive search).
-fn arg(re: i64, im: i64) -> u64 {
-    let mut best = (i64::MIN, 0u64);
+/// Argument of (re, im) in table steps (2^-TABLE_BITS turn), by exhaustive search.
+fn arg_step(re: i64, im: i64) -> u16 {
+    const { assert!(TABLE_LEN <= 1 << u16::BITS) };
+    let mut best = (i64::MIN, 0u16);
     for j in 0..TABLE_LEN {
-        let ph = (j as u64) << (64 - TABLE_BITS);
-        let (c, s) = cos_sin(ph);
+        let (c, s) = cos_sin(step_q64(j as u16));
         let v = re * i64::from(c) + im * i64::from(s);
         if v > best.0 {
-            best = (v, ph);
+            best = (v, j as u16);
         }
     }
     best.1
+}
+
+/// A table step as a Q0.64 angle.
+#[inline]
+fn step_q64(j: u16) -> u64 {
+    u64::from(j) << (64 - TABLE_BITS)
 }
 
 const UNION_FALLBACK: ChannelPattern = ChannelPattern {
@@ -214,6 +221,9 @@ const UNION_FALLBACK: ChannelPattern = ChannelPattern {
 pub struct ArrivalPattern {
     channels: [ChannelPattern; MAX_CHANNELS + 1],
 }
+
+// 17 patterns of 144 bytes on every target.
+const _: () = assert!(core::mem::size_of::<ArrivalPattern>() <= 2_448);
 
 impl ArrivalPattern {
     /// Every channel expects its detections at one position (slot fraction).
@@ -298,7 +308,11 @@ impl<const H: usize> Fold<H> {
             if pat.mask & (1 << k) == 0 {
                 continue;
             }
-            let (c, s) = cos_sin(phase_q64.wrapping_mul(k as u64 + 1).wrapping_sub(*rot));
+            let (c, s) = cos_sin(
+                phase_q64
+                    .wrapping_mul(k as u64 + 1)
+                    .wrapping_sub(step_q64(*rot)),
+            );
             *re += i64::from(c);
             *im += i64::from(s);
             *n += 1;

@@ -218,3 +218,77 @@ fn capacity_and_params_are_checked() {
         Err(AcquireConfigError::FitWindow)
     );
 }
+
+impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
+    /// Bytes of each field, for the size report (padding is the rest of `size_of::<Self>()`).
+    pub(crate) fn field_sizes(&self) -> Vec<(&'static str, usize)> {
+        use core::mem::size_of_val;
+        vec![
+            ("cfg", size_of_val(&self.cfg)),
+            ("buf", size_of_val(&self.buf)),
+            ("cands", size_of_val(&self.cands)),
+            ("step", size_of_val(&self.step)),
+            ("confirm", size_of_val(&self.confirm)),
+            ("lock", size_of_val(&self.lock)),
+            ("stats", size_of_val(&self.stats)),
+            ("phi0", size_of_val(&self.phi0)),
+            (
+                "10 scalars",
+                size_of_val(&self.t0)
+                    + size_of_val(&self.t_max)
+                    + size_of_val(&self.prior_centre)
+                    + size_of_val(&self.prior_half)
+                    + size_of_val(&self.lo)
+                    + size_of_val(&self.step_nu)
+                    + size_of_val(&self.points)
+                    + size_of_val(&self.ncand)
+                    + size_of_val(&self.nu)
+                    + size_of_val(&self.n_confirm),
+            ),
+            (
+                "z2 ×3",
+                size_of_val(&self.z2_search)
+                    + size_of_val(&self.z2_threshold)
+                    + size_of_val(&self.z2_confirm),
+            ),
+        ]
+    }
+}
+
+#[test]
+fn part_sizes() {
+    use core::mem::size_of;
+    let parts = [
+        ("Cand<2>", size_of::<Cand<2>>()),
+        ("Eval<2>", size_of::<Eval<2>>()),
+        ("Step<2>", size_of::<Step<2>>()),
+        ("LsSums", size_of::<LsSums>()),
+        ("Fold<2>", size_of::<Fold<2>>()),
+        ("AcquiredLock", size_of::<AcquiredLock>()),
+        ("AcquireConfig", size_of::<AcquireConfig>()),
+    ];
+    for (name, bytes) in parts {
+        eprintln!("{name:>16} {bytes:>6} B");
+    }
+    assert!(size_of::<Step<2>>() >= size_of::<Eval<2>>());
+}
+
+#[test]
+fn long_gaps_fill_the_buffer_early_and_the_search_starts_on_what_it_holds() {
+    // 160 detections to search, 32 to confirm: 192 of 256 entries. Steps of 20 ms need an
+    // escape entry each, so the 129th detection finds no room (1 + 2·127 = 255 entries used).
+    let mut params = AcquireParams::new(q32(10_000.0), 200);
+    params.first_stage = 40;
+    params.stages = 2;
+    params.confirm = 32;
+    let mut a = Acquirer::<256, 4, 2>::new(AcquireConfig::new(params).unwrap()).unwrap();
+    let pat = ArrivalPattern::single(U0F32::from_num(0.5));
+    let gap_ps = 20_000_000_000u64;
+    for k in 0..128 {
+        a.push(k * gap_ps, Some(0), &pat);
+    }
+    assert_eq!((a.stored_len(), a.stats().attempts), (128, 0));
+    a.push(128 * gap_ps, Some(0), &pat);
+    assert_eq!(a.stored_len(), 128);
+    assert_eq!((a.stats().dropped_full, a.stats().attempts), (1, 1));
+}

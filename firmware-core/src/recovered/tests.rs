@@ -332,3 +332,54 @@ fn plugs_into_the_receiver() {
     let gated = rx.detections_in() - a[Fate::NoClock] - a[Fate::OutsideGates];
     assert!(gated > a[Fate::OutsideGates], "{a:?}");
 }
+
+/// The size report: bytes of the recovered clock and of each part, for the host's and the HIL's
+/// capacities. Run with `-- --nocapture size_report` to read it.
+#[test]
+fn size_report() {
+    use core::mem::{size_of, size_of_val};
+    let clk = Clk::new(
+        config(200, 1_000_000),
+        ArrivalPattern::single(U0F32::from_num(0.5)),
+    )
+    .unwrap();
+    let total = size_of::<Clk>();
+    let fields = [
+        ("cfg", size_of_val(&clk.cfg)),
+        ("pattern", size_of_val(&clk.pattern)),
+        ("acq", size_of_val(&clk.acq)),
+        ("trk", size_of_val(&clk.trk)),
+        ("state", size_of_val(&clk.state)),
+        ("counters", size_of_val(&clk.counters)),
+        ("numbering_valid", size_of_val(&clk.numbering_valid)),
+        ("last_lock", size_of_val(&clk.last_lock)),
+        ("reacquire_from", size_of_val(&clk.reacquire_from)),
+    ];
+    eprintln!("RecoveredClock<2048, 8, 2>: {total} B");
+    for (name, bytes) in fields {
+        eprintln!("  {name:<16} {bytes:>6} B");
+    }
+    let acq = clk.acq.field_sizes();
+    eprintln!("  acq: Acquirer<2048, 8, 2>: {} B", size_of_val(&clk.acq));
+    for (name, bytes) in &acq {
+        eprintln!("    {name:<14} {bytes:>6} B");
+    }
+    let trk = clk.tracker();
+    let trk_known = size_of_val(trk.config()) + 2 * size_of_val(trk.model());
+    eprintln!("  trk: Tracker: {} B", size_of_val(trk));
+    eprintln!("    {:<14} {:>6} B", "cfg", size_of_val(trk.config()));
+    eprintln!(
+        "    {:<14} {:>6} B",
+        "model+last_good",
+        2 * size_of_val(trk.model())
+    );
+    eprintln!(
+        "    {:<14} {:>6} B",
+        "cal and rest",
+        size_of_val(trk) - trk_known
+    );
+    let listed: usize = fields.iter().map(|f| f.1).sum();
+    assert!(listed <= total, "fields {listed} B > total {total} B");
+    let acq_listed: usize = acq.iter().map(|f| f.1).sum();
+    assert!(acq_listed <= size_of_val(&clk.acq));
+}
