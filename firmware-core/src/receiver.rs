@@ -20,14 +20,15 @@
 //!     Receiver, ReceiverConfig, TdcEvent, Transmitter, UnwrapConfig,
 //! };
 //!
-//! /// Answers every announcement with the Z basis, signal class, bit kept secret.
-//! struct Echo(Option<Answer>);
+//! /// Answers every announcement with the Z basis, signal class, bit kept secret (on a board,
+//! /// this is the link to the transmitter, e.g. `slotwise::ReceiverLink`).
+//! struct Echo(std::collections::VecDeque<Answer>);
 //! impl Transmitter for Echo {
 //!     fn announce(&mut self, a: Announcement) {
-//!         self.0 = Some(Answer { slot: a.slot, basis: Basis::Z, intensity: 0, bit: None });
+//!         self.0.push_back(Answer { slot: a.slot, basis: Basis::Z, intensity: 0, bit: None });
 //!     }
 //!     fn poll_answer(&mut self) -> Option<Answer> {
-//!         self.0.take()
+//!         self.0.pop_front()
 //!     }
 //! }
 //!
@@ -51,7 +52,7 @@
 //!     TdcEvent { count: 95_000, channel: 0 },
 //!     TdcEvent { count: 97_500, channel: 0 },
 //! ];
-//! let mut tx = Echo(None);
+//! let mut tx = Echo(Default::default());
 //! rx.push_block(&events, &mut tx, &mut NullSink);
 //! rx.finish(&mut tx, &mut NullSink);
 //! assert_eq!(rx.accounting()[Fate::Sifted], 2);
@@ -263,7 +264,10 @@ impl<C: SlotClock, const PENDING: usize, N: Numbering> Receiver<C, PENDING, N> {
         self.front.hint(t_ps, tx_slot);
     }
 
-    /// Process a block of TDC events, then take any answers that have arrived.
+    /// Process a block of TDC events. The transmitter is served in batches of
+    /// [`crate::sift::ANNOUNCE_BATCH`] detected slots and at points fixed by the stream (see
+    /// [`Sifter`]), never at the caller's block boundaries, so the results do not depend on how
+    /// the stream is cut into blocks.
     pub fn push_block(
         &mut self,
         events: &[TdcEvent],
@@ -273,12 +277,14 @@ impl<C: SlotClock, const PENDING: usize, N: Numbering> Receiver<C, PENDING, N> {
         for &ev in events {
             self.push(ev, tx, key);
         }
-        self.service(tx, key);
     }
 
-    /// Take every answer that has arrived.
+    /// Serve the transmitter now: announce what waits to be announced, take every answer that
+    /// has arrived, expire what the link will never answer. For idle time or the end of a
+    /// link; calling it at points the stream does not fix (e.g. every block) ties the results
+    /// to those points.
     pub fn service(&mut self, tx: &mut impl Transmitter, key: &mut impl KeySink) {
-        self.sifter.service(&mut self.accounting, tx, key);
+        self.sifter.flush(&mut self.accounting, tx, key);
     }
 
     /// Process one TDC event and say what was decided for it.

@@ -19,7 +19,7 @@ use crate::gates::Basis;
 use heapless::Deque;
 
 mod sifter;
-pub use sifter::{SiftConfig, SiftConfigError, Sifter};
+pub use sifter::{SiftConfig, SiftConfigError, Sifter, ANNOUNCE_BATCH};
 
 /// What the receiver tells the transmitter about one detected slot.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -49,6 +49,13 @@ pub struct Answer {
 pub trait Transmitter {
     /// Send (or queue) one announcement.
     fn announce(&mut self, a: Announcement);
+    /// Send a batch of announcements, in slot order. The receiver announces in batches; the
+    /// default sends them one by one.
+    fn announce_batch(&mut self, batch: &[Announcement]) {
+        for &a in batch {
+            self.announce(a);
+        }
+    }
     /// Take the next answer that has arrived, if any.
     fn poll_answer(&mut self) -> Option<Answer>;
     /// Slot below which the link will deliver no more answers: the receiver expires what still
@@ -218,10 +225,23 @@ impl<const N: usize> PendingQueue<N> {
         self.q.front()
     }
 
+    /// The entries from position `from` (0 = oldest) to the newest, in slot order.
+    pub fn tail(&self, from: usize) -> impl Iterator<Item = &Pending> {
+        self.q.iter().skip(from)
+    }
+
     /// Find the waiting entry for `slot` and mark it answered; returns a copy of it.
     pub fn take(&mut self, slot: u64) -> Option<Pending> {
-        // Slots in the queue are unique and increasing, and an answer usually comes for the
-        // newest entry: try it before searching.
+        // Slots in the queue are unique and increasing, and answers come in announcement order:
+        // the oldest waiting entry is the usual match, the newest the next best; search only
+        // when neither is.
+        if let Some(p) = self.q.front_mut().filter(|p| p.slot == slot) {
+            if p.done {
+                return None;
+            }
+            p.done = true;
+            return Some(*p);
+        }
         if let Some(p) = self.q.back_mut().filter(|p| p.slot == slot) {
             if p.done {
                 return None;

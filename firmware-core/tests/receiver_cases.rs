@@ -122,6 +122,8 @@ fn overflow_policies_and_timeouts() {
         // Slots 1..=4 detected, no answers: queue of 2 overflows twice.
         let events: Vec<_> = (1..=5).map(|s| ev(s * 1000 + 200, 0)).collect();
         rx.push_block(&events, &mut tx, &mut bits);
+        // Serve the transmitter before reading what it was told.
+        rx.service(&mut tx, &mut bits);
         assert_eq!(rx.accounting()[Fate::QueueOverflow], 2);
         let kept: Vec<u64> = tx.announced.iter().map(|a| a.slot).collect();
         match policy {
@@ -179,6 +181,7 @@ fn reordered_neighbour_before_the_open_slot_is_late_not_reopened() {
     // Slots 5, 7, then 6 (arrived after 7), then 9.
     let events = [ev(5_150, 0), ev(7_150, 0), ev(6_150, 0), ev(9_150, 0)];
     rx.push_block(&events, &mut tx, &mut bits);
+    rx.service(&mut tx, &mut bits);
     let slots: Vec<u64> = tx.announced.iter().map(|a| a.slot).collect();
     assert_eq!(slots, vec![5, 7]);
     assert_eq!(rx.accounting()[Fate::Late], 1);
@@ -229,6 +232,8 @@ fn photon_levels_ride_in_the_channel_byte_and_are_tallied_per_intensity() {
         traces.iter().map(|t| t.channel).collect::<Vec<_>>(),
         [0, 0, 1, 0, 2, 0]
     );
+    // Pushed one by one: the transmitter is served when the caller ends the block.
+    rx.service(&mut tx, &mut bits);
     assert_eq!(tx.announced.len(), 3);
     for (a, intensity) in tx.announced.clone().into_iter().zip([0u8, 1, 1]) {
         rx.answer(

@@ -298,8 +298,6 @@ impl<T: Transmitter> Session<T> {
         for &ev in events {
             self.push(ev, None);
         }
-        self.rx
-            .service(&mut self.tx, &mut self.monitor.tap(&mut self.sink));
         self.drain();
     }
 

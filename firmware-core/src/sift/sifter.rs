@@ -8,6 +8,26 @@
 //! resolution moves the slot's detections out of [`Fate::InFlight`] in the caller's
 //! [`Accounting`], so the receiver's invariant (every detection in exactly one counter) holds at
 //! every moment.
+//!
+//! ## Serving the transmitter in batches
+//! Talking to the transmitter is per-batch work, not per-slot work. Queued slots are announced
+//! together ([`Transmitter::announce_batch`]) and answers are drained together:
+//! - when [`ANNOUNCE_BATCH`] slots wait to be announced ([`Sifter::flush`]): announce, drain the
+//!   answers, and expire what the link says it will never answer
+//!   ([`Transmitter::answers_final_below`]);
+//! - when a slot opens past the deadline of the oldest waiting entry (its slot plus the answer
+//!   timeout): the same, then expire by the timeout what is still unanswered — the only place,
+//!   with a full queue and [`Sifter::finish`], where the receiver decides anything itself;
+//! - when the queue is full: the same flush, drop answered entries, then the overflow policy.
+//!
+//! The block is the batch of [`ANNOUNCE_BATCH`] closed slots, fixed by the detection stream, not
+//! the caller's chunk of events: every exchange with the transmitter happens at a point fixed by
+//! the stream (a full batch, a slot opening past a deadline, a full queue, the end), after every
+//! closed slot was announced and every arrived answer taken. So for a transmitter whose answers
+//! depend only on what was announced, the results do not depend on how the stream is cut into
+//! blocks, and with a transmitter that answers at once they equal those of answering slot by
+//! slot. [`Sifter::flush`] may also be called at any time (idle time, end of a link), at the
+//! price of tying the results to those calls.
 
 use super::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
@@ -90,6 +110,9 @@ impl SiftConfig {
     }
 }
 
+/// Queued slots announced together (the batch is read from the pending queue's tail).
+pub const ANNOUNCE_BATCH: usize = 32;
+
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 struct OpenSlot {
     slot: u64,
@@ -108,6 +131,8 @@ pub struct Sifter<const PENDING: usize> {
     /// Slots below this were closed; a gated detection there is late.
     next_open_slot: u64,
     pending: PendingQueue<PENDING>,
+    /// Newest entries of the queue not yet announced.
+    unannounced: usize,
     rng: SquashRng,
     multi: MultiClickEvents,
     answer_errors: AnswerErrors,
@@ -124,6 +149,7 @@ impl<const PENDING: usize> Sifter<PENDING> {
             open: None,
             next_open_slot: 0,
             pending: PendingQueue::new(),
+            unannounced: 0,
             rng: SquashRng::new(cfg.squash_seed),
             multi: MultiClickEvents {
                 sifted: 0,
@@ -210,9 +236,14 @@ impl<const PENDING: usize> Sifter<PENDING> {
                 o.photons = o.photons.saturating_add(level);
             }
             _ => {
-                // Free what timed out before the closing slot takes a place in the queue (with
-                // answers coming at once the queue is usually empty: skip the call then).
-                if !self.pending.is_empty() {
+                // Past the oldest waiting entry's deadline: take the answers, then expire what
+                // is still unanswered, before the closing slot takes a place in the queue.
+                if self
+                    .pending
+                    .oldest()
+                    .is_some_and(|p| p.slot.saturating_add(self.cfg.answer_timeout_slots) < slot)
+                {
+                    self.flush(acc, tx, key);
                     self.expire(slot, acc, key);
                 }
                 self.close_open(acc, tx, key);
@@ -228,19 +259,56 @@ impl<const PENDING: usize> Sifter<PENDING> {
         }
     }
 
-    /// Take every answer that has arrived, then expire what the link will not answer any more.
-    pub fn service(
+    /// Serve the transmitter: announce what waits to be announced, take every answer that has
+    /// arrived, and expire what the link says it will never answer. The receiver's own timeout
+    /// is not applied here: that is decided only at points fixed by the stream.
+    pub fn flush(
         &mut self,
         acc: &mut Accounting,
         tx: &mut impl Transmitter,
         key: &mut impl KeySink,
     ) {
+        self.announce(tx);
         while let Some(a) = tx.poll_answer() {
             self.answer(a, acc, key);
         }
+        // The link's final word: whatever it will not answer any more stays unanswered whenever
+        // it is expired, so expiring it now changes no fate.
         if let Some(below) = tx.answers_final_below() {
             self.expire_below(below, acc, key);
         }
+    }
+
+    /// Announce the unannounced tail of the queue as one batch.
+    fn announce(&mut self, tx: &mut impl Transmitter) {
+        if self.unannounced == 0 {
+            return;
+        }
+        let mut batch = [Announcement {
+            slot: 0,
+            basis: Basis::Z,
+        }; ANNOUNCE_BATCH];
+        let from = self.pending.len().saturating_sub(self.unannounced);
+        let mut n = 0;
+        for p in self.pending.tail(from) {
+            if let Some(b) = batch.get_mut(n) {
+                *b = Announcement {
+                    slot: p.slot,
+                    basis: p.basis,
+                };
+                n += 1;
+            }
+            if n == ANNOUNCE_BATCH {
+                tx.announce_batch(&batch);
+                n = 0;
+            }
+        }
+        if let Some(rest) = batch.get(..n) {
+            if !rest.is_empty() {
+                tx.announce_batch(rest);
+            }
+        }
+        self.unannounced = 0;
     }
 
     /// Close the open slot, answer what can be answered, and expire everything still waiting.
@@ -251,7 +319,7 @@ impl<const PENDING: usize> Sifter<PENDING> {
         key: &mut impl KeySink,
     ) {
         self.close_open(acc, tx, key);
-        self.service(acc, tx, key);
+        self.flush(acc, tx, key);
         self.expire(u64::MAX, acc, key);
     }
 
@@ -370,9 +438,7 @@ impl<const PENDING: usize> Sifter<PENDING> {
             done: false,
         };
         if self.pending.is_full() {
-            self.expire(o.slot, acc, key);
-        }
-        if self.pending.is_full() {
+            self.flush(acc, tx, key);
             self.pending.compact();
         }
         if self.pending.is_full() {
@@ -397,10 +463,9 @@ impl<const PENDING: usize> Sifter<PENDING> {
             key.resolved(o.slot, Outcome::QueueOverflow);
             return;
         }
-        tx.announce(Announcement {
-            slot: o.slot,
-            basis,
-        });
-        self.service(acc, tx, key);
+        self.unannounced += 1;
+        if self.unannounced >= ANNOUNCE_BATCH {
+            self.flush(acc, tx, key);
+        }
     }
 }
