@@ -202,3 +202,5 @@ fn frequency_and_phase_noise_match_loop_theory_and_crb() {
     // 100 samples of y: the rms scatters by about ±7 %; the continuous limit adds a few %.
     assert!(m.rms_y / y > 0.7 && m.rms_y / y < 1.4, "frequency");
 }
+
+mod exact;
