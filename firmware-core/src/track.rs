@@ -82,7 +82,8 @@ pub struct TrackParams {
     pub bandwidth_mhz: u32,
     /// Damping ζ in thousandths (707 for 1/√2).
     pub damping_milli: u32,
-    /// Expected rate R of signal detections (noise excluded) inside the window, per second.
+    /// Expected rate R of signal detections (noise excluded) inside the window, per second
+    /// (at most 10¹²: one per ps).
     pub rate_per_s: u64,
     /// Half-width w of the window around each expected position, slot fraction (0, 1/4].
     pub window: U0F32,
@@ -124,6 +125,8 @@ impl TrackParams {
 pub enum TrackConfigError {
     /// Zero bandwidth or zero rate.
     Zero,
+    /// Rate above 10¹² per second.
+    Rate,
     /// B_n·T_u' above 0.1 (loop too wide for its update interval T_u' = update_every/R).
     TooWide,
     /// Damping outside 0.1..=4.
@@ -142,6 +145,7 @@ impl fmt::Display for TrackConfigError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::Zero => write!(f, "bandwidth_mhz and rate_per_s must be nonzero"),
+            Self::Rate => write!(f, "rate_per_s must be at most 10^12"),
             Self::TooWide => write!(
                 f,
                 "bandwidth_mhz · update_every / rate_per_s exceeds 0.1 (B_n·T_u)"
@@ -181,6 +185,9 @@ impl TrackConfig {
         if p.bandwidth_mhz == 0 || p.rate_per_s == 0 {
             return Err(TrackConfigError::Zero);
         }
+        if p.rate_per_s > 1_000_000_000_000 {
+            return Err(TrackConfigError::Rate);
+        }
         if !(100..=4000).contains(&p.damping_milli) {
             return Err(TrackConfigError::Damping);
         }
@@ -209,7 +216,8 @@ impl TrackConfig {
         let d = (1u128 << 64) + 2 * z * theta / 1000 + ((theta * theta) >> 64);
         let k1 = ((4 * z * theta / 1000) << 64) / d;
         let k2 = 4 * theta * theta / d;
-        // K2/T_u' in Q0.96 per Q0.32 error: K2·2^32·R/(N·10^12) = K2·R·2^20/(244140625·N).
+        // K2/T_u' in Q0.96 per Q0.32 error: K2·2^32·R/(N·10^12) = K2·R·2^20/(244140625·N),
+        // below 2^92 (K2 < 0.04 at B_n·T_u' ≤ 0.1, R ≤ 10^12), as the hot path needs.
         let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625 / n;
         let max = u64::from(p.max_rms.to_bits());
         Ok(Self {
@@ -286,12 +294,54 @@ fn mul_hi_signed(e: i64, k: u64) -> i64 {
     (if e < 0 { hi.wrapping_sub(k) } else { hi }) as i64
 }
 
-/// ⌊e_q32·g/2^32⌋ (the ν step, Q0.96) for an error that fits in 32 bits, from three 32×32
-/// products of g's 32-bit limbs; g ≥ 2^96 (rates beyond any detector) takes the 128-bit product.
-fn nu_step_q96(e_q32: i32, g_q96: u128) -> i128 {
-    if g_q96 >> 96 != 0 {
-        return (i128::from(e_q32) * g_q96 as i128) >> 32;
+/// ⌊Δt·ν/2^32⌋ for ν = hi·2^32 + lo and Δt < 2^62 (< 2^127), and whether the division left a
+/// remainder: two 64×64→128 products on 64-bit hosts, [`advance_limbs`] elsewhere.
+#[inline(always)]
+fn advance(dt_ps: u64, hi: u64, lo: u32) -> (u128, bool) {
+    #[cfg(target_pointer_width = "64")]
+    {
+        let part = u128::from(dt_ps) * u128::from(lo);
+        (
+            u128::from(dt_ps) * u128::from(hi) + (part >> 32),
+            part as u32 != 0,
+        )
     }
+    #[cfg(not(target_pointer_width = "64"))]
+    {
+        advance_limbs(dt_ps, hi, lo)
+    }
+}
+
+/// [`advance`] from `mul_hi` and 32×32→64 products, for 32-bit cores (where a 128-bit multiply
+/// is a library call): Δt·lo/2^32 = (Δt div 2^32)·lo + (Δt mod 2^32)·lo/2^32.
+#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
+#[inline(always)]
+fn advance_limbs(dt_ps: u64, hi: u64, lo: u32) -> (u128, bool) {
+    let lo = u64::from(lo);
+    let whole = (u128::from(mul_hi(dt_ps, hi)) << 64) | u128::from(dt_ps.wrapping_mul(hi));
+    let low = (dt_ps & 0xFFFF_FFFF) * lo;
+    let part = (dt_ps >> 32) * lo + (low >> 32);
+    (whole + u128::from(part), low as u32 != 0)
+}
+
+/// ⌊e_q32·g/2^32⌋ (the ν step, Q0.96) for a 32-bit error and g < 2^96 (checked in
+/// [`TrackConfig::new`]): one 128-bit product on 64-bit hosts, [`nu_step_limbs`] elsewhere.
+#[inline(always)]
+fn nu_step_q96(e_q32: i32, g_q96: u128) -> i128 {
+    #[cfg(target_pointer_width = "64")]
+    {
+        (i128::from(e_q32) * g_q96 as i128) >> 32
+    }
+    #[cfg(not(target_pointer_width = "64"))]
+    {
+        nu_step_limbs(e_q32, g_q96)
+    }
+}
+
+/// [`nu_step_q96`] from three 32×32→64 products of g's 32-bit limbs.
+#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
+#[inline(always)]
+fn nu_step_limbs(e_q32: i32, g_q96: u128) -> i128 {
     let e = i64::from(e_q32);
     let limb = |k: u32| i64::from((g_q96 >> k) as u32);
     // |e| ≤ 2^31 and each limb < 2^32, so each product fits in an i64; the two upper ones are
@@ -350,15 +400,14 @@ impl Snapshot {
         let Ok(hi) = u64::try_from(self.nu_q96 >> 32) else {
             return self.position_wide(t_ps);
         };
-        let lo = u64::from(self.nu_q96 as u32);
-        // |Δt|·ν/2^32 = |Δt|·hi + |Δt|·lo/2^32, each part from 64-bit products; an early time
-        // rounds the negative advance down as the 128-bit product would.
-        let whole = (u128::from(mul_hi(dt_ps, hi)) << 64) | u128::from(dt_ps.wrapping_mul(hi));
-        let lo_lo = (dt_ps & 0xFFFF_FFFF) * lo;
-        let part = (dt_ps >> 32) * lo + (lo_lo >> 32);
-        let ceil = early && lo_lo & 0xFFFF_FFFF != 0;
-        let adv = (whole + u128::from(part) + u128::from(ceil)) as i128;
-        self.pos_q64.checked_add(if early { -adv } else { adv })
+        let (adv, inexact) = advance(dt_ps, hi, self.nu_q96 as u32);
+        // An early time rounds the negative advance down, as the 128-bit product would.
+        let adv = adv as i128;
+        self.pos_q64.checked_add(if early {
+            -adv - i128::from(inexact)
+        } else {
+            adv
+        })
     }
 
     /// [`Self::position`] with 128-bit products, for frequencies of 2^-32 cycles/ps and above.
@@ -458,8 +507,9 @@ pub struct Tracker {
     loss: Option<LossCause>,
     cal: [ChannelCal; MAX_CHANNELS],
     updates: u64,
-    /// Sum of the in-window residuals since the last loop update (Q64.64 slots).
-    acc_q64: i128,
+    /// Sum of the in-window residuals, each divided by `update_every`, since the last loop
+    /// update (Q0.64 slot fraction).
+    acc_q64: i64,
     /// In-window detections since the last loop update.
     acc_n: u32,
 }
@@ -589,7 +639,8 @@ impl Tracker {
             let r_q32 = i64::from((r >> 32) as i32);
             self.r2_q64 += (r_q32 * r_q32 - self.r2_q64) >> shift;
             self.t_last_in = self.t_last_in.max(t_ps);
-            self.acc_q64 += i128::from(r);
+            // N residuals within ±1/4 slot, each divided by N: the sum stays within ±1/4.
+            self.acc_q64 += r >> self.cfg.mean_shift;
             self.acc_n += 1;
             if self.acc_n >> self.cfg.mean_shift != 0 {
                 self.filter(t_ps, pos);
@@ -612,8 +663,7 @@ impl Tracker {
     /// Run the loop filter on the mean residual since the last update; the detection at `t_ps`
     /// (model position `pos`) becomes the anchor.
     fn filter(&mut self, t_ps: u64, pos: i128) {
-        // Each residual is within ±w ≤ 1/4 slot, so their mean fits in an i64.
-        let e = (self.acc_q64 >> self.cfg.mean_shift) as i64;
+        let e = self.acc_q64;
         self.acc_q64 = 0;
         self.acc_n = 0;
         let dnu = nu_step_q96((e >> 32) as i32, self.cfg.g2_q96);
