@@ -185,7 +185,7 @@ const FAST_PERIOD_MAX: u64 = 1 << 62;
 /// High 64 bits of the 128-bit product: one instruction on 64-bit hosts, four 32×32→64
 /// multiplies on 32-bit cores (where a 128-bit multiply would be a library call).
 #[inline(always)]
-fn mul_hi(a: u64, b: u64) -> u64 {
+pub(crate) fn mul_hi(a: u64, b: u64) -> u64 {
     #[cfg(target_pointer_width = "64")]
     {
         ((u128::from(a) * u128::from(b)) >> 64) as u64

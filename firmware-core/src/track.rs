@@ -32,6 +32,28 @@
 //! below a gate half-width (≥ 0.05 slot). Keep B_n·T_u ≤ 0.1 (checked) so the discrete loop
 //! behaves like the continuous one.
 //!
+//! ## Decimated updates (`update_every` = N)
+//! The loop filter may run once per N in-window detections instead of at each one: the
+//! residuals are summed between updates (integrate and dump), and at the N-th the loop is
+//! updated with their mean ē. N is a power of two so the mean is a shift, and N = 1 is the
+//! per-detection loop above, bit for bit. The update interval is then T_u' = N·T_u, and the
+//! gains are Rice's (App. C) for that interval, so the closed loop keeps its noise bandwidth B_n
+//! and damping ζ in time: θ' = B_n·T_u'/(ζ + 1/(4ζ)), K1' = 4ζθ'/(1 + 2ζθ' + θ'²),
+//! K2' = 4θ'²/(1 + 2ζθ' + θ'²); the anchor moves by −K1'·ē and ν by −K2'·ē/T_u'.
+//! How they map to the per-detection gains [derived]: for small θ, K1 ≈ 4ζθ and K2 ≈ 4θ², so
+//! K1' ≈ N·K1 and K2'/T_u' ≈ N·K2/T_u: applied to a mean of N residuals, each detection moves the
+//! loop as much as before, only later. The mean of N residuals has variance σ²/N at the rate
+//! R/N, so the phase noise σ²·2B_n·T_u' /N = σ²·2B_n/R is unchanged; what is lost is up to N − 1
+//! detections of delay (half of T_u' on average), negligible while B_n·T_u' ≪ 1. The check
+//! B_n·T_u' ≤ 0.1 applies to the update interval, which bounds N. Between updates a detection
+//! costs a few adds and compares beyond locating it.
+//!
+//! ## Fixed-point cost
+//! Everything derived from the settings (gains, window in Q0.64, max rms²) is computed in
+//! [`TrackConfig::new`]. On the hot path the 128-bit state is only added and shifted: the
+//! products are 64×64→high 64 ([`crate::clock`]'s `mul_hi`) and 32×32→64, so a 32-bit core
+//! never calls a 128-bit multiply in the steady state.
+//!
 //! ## Lock quality and loss
 //! Two averages over about 2^`average_shift` detections: the fraction of detections inside the
 //! window, and the mean squared residual of those inside. The lock is lost when the fraction
@@ -47,7 +69,7 @@
 
 use crate::acquire::fold::ChannelPattern;
 use crate::acquire::AcquiredLock;
-use crate::clock::{Located, SlotPos};
+use crate::clock::{mul_hi, Located, SlotPos};
 use crate::gates::MAX_CHANNELS;
 use core::fmt;
 use fixed::types::{U0F32, U0F64, U32F32};
@@ -60,7 +82,8 @@ pub struct TrackParams {
     pub bandwidth_mhz: u32,
     /// Damping ζ in thousandths (707 for 1/√2).
     pub damping_milli: u32,
-    /// Expected rate R of signal detections (noise excluded) inside the window, per second.
+    /// Expected rate R of signal detections (noise excluded) inside the window, per second
+    /// (at most 10¹²: one per ps).
     pub rate_per_s: u64,
     /// Half-width w of the window around each expected position, slot fraction (0, 1/4].
     pub window: U0F32,
@@ -72,11 +95,15 @@ pub struct TrackParams {
     pub max_rms: U0F32,
     /// Frequency uncertainty assumed when bridging a gap, parts per 10⁹.
     pub bridge_ppb: u32,
+    /// The loop filter runs once per this many in-window detections, on their mean residual
+    /// (a power of two, 1..=65536; 1: at every one).
+    pub update_every: u32,
 }
 
 impl TrackParams {
     /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, bridge 50 ppb (about
-    /// five times the loop's frequency rms at the rates of the examples above).
+    /// five times the loop's frequency rms at the rates of the examples above), an update at
+    /// every in-window detection.
     pub const fn new(bandwidth_mhz: u32, rate_per_s: u64, blackout_ps: u64) -> Self {
         Self {
             bandwidth_mhz,
@@ -87,6 +114,7 @@ impl TrackParams {
             blackout_ps,
             max_rms: U0F32::from_bits(1 << 27),
             bridge_ppb: 50,
+            update_every: 1,
         }
     }
 }
@@ -97,7 +125,9 @@ impl TrackParams {
 pub enum TrackConfigError {
     /// Zero bandwidth or zero rate.
     Zero,
-    /// B_n·T_u above 0.1 (loop too wide for its update rate).
+    /// Rate above 10¹² per second.
+    Rate,
+    /// B_n·T_u' above 0.1 (loop too wide for its update interval T_u' = update_every/R).
     TooWide,
     /// Damping outside 0.1..=4.
     Damping,
@@ -107,39 +137,56 @@ pub enum TrackConfigError {
     AverageShift,
     /// Zero blackout time or zero max rms.
     Limits,
+    /// `update_every` not a power of two in 1..=65536.
+    UpdateEvery,
 }
 
 impl fmt::Display for TrackConfigError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::Zero => write!(f, "bandwidth_mhz and rate_per_s must be nonzero"),
-            Self::TooWide => write!(f, "bandwidth_mhz / rate_per_s exceeds 0.1 (B_n·T_u)"),
+            Self::Rate => write!(f, "rate_per_s must be at most 10^12"),
+            Self::TooWide => write!(
+                f,
+                "bandwidth_mhz · update_every / rate_per_s exceeds 0.1 (B_n·T_u)"
+            ),
             Self::Damping => write!(f, "damping_milli must lie in 100..=4000"),
             Self::Window => write!(f, "window must lie in (0, 1/4] slot"),
             Self::AverageShift => write!(f, "average_shift must lie in 1..=16"),
             Self::Limits => write!(f, "blackout_ps and max_rms must be nonzero"),
+            Self::UpdateEvery => write!(f, "update_every must be a power of two in 1..=65536"),
         }
     }
 }
 
 impl core::error::Error for TrackConfigError {}
 
-/// Validated tracking settings with the loop gains.
+/// Validated tracking settings with the loop gains and the constants the hot path uses.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 // No defmt::Format: the fixed-point fields have none.
 pub struct TrackConfig {
     p: TrackParams,
     k1: u64,
     k2: u64,
-    /// K2/T_u: ν change (cycles/ps, Q0.96) per Q0.32 unit of phase error.
+    /// K2/T_u': ν change (cycles/ps, Q0.96) per Q0.32 unit of mean phase error.
     g2_q96: u128,
+    /// Window half-width w, Q0.64 slot fraction.
+    window_q64: u64,
+    /// max_rms², Q0.64 slot fraction squared.
+    max_r2_q64: u64,
+    /// log2(update_every): the mean of the summed residuals is a shift.
+    mean_shift: u32,
 }
 
 impl TrackConfig {
-    /// Check the settings and compute K1, K2 (Rice App. C) in Q0.64.
+    /// Check the settings and compute K1, K2 (Rice App. C) in Q0.64 for the update interval
+    /// T_u' = update_every/R.
     pub fn new(p: TrackParams) -> Result<Self, TrackConfigError> {
         if p.bandwidth_mhz == 0 || p.rate_per_s == 0 {
             return Err(TrackConfigError::Zero);
+        }
+        if p.rate_per_s > 1_000_000_000_000 {
+            return Err(TrackConfigError::Rate);
         }
         if !(100..=4000).contains(&p.damping_milli) {
             return Err(TrackConfigError::Damping);
@@ -153,9 +200,13 @@ impl TrackConfig {
         if p.blackout_ps == 0 || p.max_rms == U0F32::ZERO {
             return Err(TrackConfigError::Limits);
         }
+        if !p.update_every.is_power_of_two() || p.update_every > 1 << 16 {
+            return Err(TrackConfigError::UpdateEvery);
+        }
         let rate = u128::from(p.rate_per_s);
-        // B_n·T_u = B_mHz / (1000·R), Q0.64.
-        let bt = (u128::from(p.bandwidth_mhz) << 64) / (1000 * rate);
+        let n = u128::from(p.update_every);
+        // B_n·T_u' = B_mHz·N / (1000·R), Q0.64.
+        let bt = ((u128::from(p.bandwidth_mhz) * n) << 64) / (1000 * rate);
         if bt > (1u128 << 64) / 10 {
             return Err(TrackConfigError::TooWide);
         }
@@ -165,13 +216,18 @@ impl TrackConfig {
         let d = (1u128 << 64) + 2 * z * theta / 1000 + ((theta * theta) >> 64);
         let k1 = ((4 * z * theta / 1000) << 64) / d;
         let k2 = 4 * theta * theta / d;
-        // K2/T_u in Q0.96 per Q0.32 error: K2·2^32·R/10^12 = K2·R·2^20/244140625.
-        let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625;
+        // K2/T_u' in Q0.96 per Q0.32 error: K2·2^32·R/(N·10^12) = K2·R·2^20/(244140625·N),
+        // below 2^92 (K2 < 0.04 at B_n·T_u' ≤ 0.1, R ≤ 10^12), as the hot path needs.
+        let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625 / n;
+        let max = u64::from(p.max_rms.to_bits());
         Ok(Self {
             p,
             k1: u64::try_from(k1).unwrap_or(u64::MAX),
             k2: u64::try_from(k2).unwrap_or(u64::MAX),
             g2_q96,
+            window_q64: u64::from(p.window.to_bits()) << 32,
+            max_r2_q64: max * max,
+            mean_shift: p.update_every.trailing_zeros(),
         })
     }
 
@@ -180,12 +236,12 @@ impl TrackConfig {
         &self.p
     }
 
-    /// Proportional gain K1 (Q0.64).
+    /// Proportional gain K1 per loop update (Q0.64).
     pub fn k1(&self) -> U0F64 {
         U0F64::from_bits(self.k1)
     }
 
-    /// Integral gain K2 (Q0.64).
+    /// Integral gain K2 per loop update (Q0.64).
     pub fn k2(&self) -> U0F64 {
         U0F64::from_bits(self.k2)
     }
@@ -231,6 +287,68 @@ pub fn bandwidth_for_mhz(
     lo
 }
 
+/// ⌊e·k/2^64⌋ for signed e: the unsigned high product of e's bits, less k when e < 0
+/// (e's bits are e + 2^64 then). The result fits in an i64, so the wrapping sum is exact.
+fn mul_hi_signed(e: i64, k: u64) -> i64 {
+    let hi = mul_hi(e as u64, k);
+    (if e < 0 { hi.wrapping_sub(k) } else { hi }) as i64
+}
+
+/// ⌊Δt·ν/2^32⌋ for ν = hi·2^32 + lo and Δt < 2^62 (< 2^127), and whether the division left a
+/// remainder: two 64×64→128 products on 64-bit hosts, [`advance_limbs`] elsewhere.
+#[inline(always)]
+fn advance(dt_ps: u64, hi: u64, lo: u32) -> (u128, bool) {
+    #[cfg(target_pointer_width = "64")]
+    {
+        let part = u128::from(dt_ps) * u128::from(lo);
+        (
+            u128::from(dt_ps) * u128::from(hi) + (part >> 32),
+            part as u32 != 0,
+        )
+    }
+    #[cfg(not(target_pointer_width = "64"))]
+    {
+        advance_limbs(dt_ps, hi, lo)
+    }
+}
+
+/// [`advance`] from `mul_hi` and 32×32→64 products, for 32-bit cores (where a 128-bit multiply
+/// is a library call): Δt·lo/2^32 = (Δt div 2^32)·lo + (Δt mod 2^32)·lo/2^32.
+#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
+#[inline(always)]
+fn advance_limbs(dt_ps: u64, hi: u64, lo: u32) -> (u128, bool) {
+    let lo = u64::from(lo);
+    let whole = (u128::from(mul_hi(dt_ps, hi)) << 64) | u128::from(dt_ps.wrapping_mul(hi));
+    let low = (dt_ps & 0xFFFF_FFFF) * lo;
+    let part = (dt_ps >> 32) * lo + (low >> 32);
+    (whole + u128::from(part), low as u32 != 0)
+}
+
+/// ⌊e_q32·g/2^32⌋ (the ν step, Q0.96) for a 32-bit error and g < 2^96 (checked in
+/// [`TrackConfig::new`]): one 128-bit product on 64-bit hosts, [`nu_step_limbs`] elsewhere.
+#[inline(always)]
+fn nu_step_q96(e_q32: i32, g_q96: u128) -> i128 {
+    #[cfg(target_pointer_width = "64")]
+    {
+        (i128::from(e_q32) * g_q96 as i128) >> 32
+    }
+    #[cfg(not(target_pointer_width = "64"))]
+    {
+        nu_step_limbs(e_q32, g_q96)
+    }
+}
+
+/// [`nu_step_q96`] from three 32×32→64 products of g's 32-bit limbs.
+#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
+#[inline(always)]
+fn nu_step_limbs(e_q32: i32, g_q96: u128) -> i128 {
+    let e = i64::from(e_q32);
+    let limb = |k: u32| i64::from((g_q96 >> k) as u32);
+    // |e| ≤ 2^31 and each limb < 2^32, so each product fits in an i64; the two upper ones are
+    // whole after the shift by 32.
+    (i128::from(e * limb(64)) << 32) + i128::from(e * limb(32)) + i128::from((e * limb(0)) >> 32)
+}
+
 /// Where the receiver stands with the transmitter's clock.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
@@ -272,10 +390,29 @@ pub struct Snapshot {
 impl Snapshot {
     /// Position of time `t_ps` in slots (Q64.64); `None` beyond ±2^62 ps from the anchor.
     pub fn position(&self, t_ps: u64) -> Option<i128> {
-        let d = i128::from(t_ps) - i128::from(self.t_ps);
-        if d.unsigned_abs() >= 1 << 62 {
+        let (dt_ps, early) = match t_ps.checked_sub(self.t_ps) {
+            Some(d) => (d, false),
+            None => (self.t_ps - t_ps, true),
+        };
+        if dt_ps >= 1 << 62 {
             return None;
         }
+        let Ok(hi) = u64::try_from(self.nu_q96 >> 32) else {
+            return self.position_wide(t_ps);
+        };
+        let (adv, inexact) = advance(dt_ps, hi, self.nu_q96 as u32);
+        // An early time rounds the negative advance down, as the 128-bit product would.
+        let adv = adv as i128;
+        self.pos_q64.checked_add(if early {
+            -adv - i128::from(inexact)
+        } else {
+            adv
+        })
+    }
+
+    /// [`Self::position`] with 128-bit products, for frequencies of 2^-32 cycles/ps and above.
+    fn position_wide(&self, t_ps: u64) -> Option<i128> {
+        let d = i128::from(t_ps) - i128::from(self.t_ps);
         let hi = (self.nu_q96 >> 32) as i128;
         let lo = (self.nu_q96 & 0xFFFF_FFFF) as i128;
         self.pos_q64.checked_add(d * hi + ((d * lo) >> 32))
@@ -370,6 +507,11 @@ pub struct Tracker {
     loss: Option<LossCause>,
     cal: [ChannelCal; MAX_CHANNELS],
     updates: u64,
+    /// Sum of the in-window residuals, each divided by `update_every`, since the last loop
+    /// update (Q0.64 slot fraction).
+    acc_q64: i64,
+    /// In-window detections since the last loop update.
+    acc_n: u32,
 }
 
 impl Tracker {
@@ -392,6 +534,8 @@ impl Tracker {
             loss: None,
             cal: [ChannelCal::EMPTY; MAX_CHANNELS],
             updates: 0,
+            acc_q64: 0,
+            acc_n: 0,
         }
     }
 
@@ -415,6 +559,8 @@ impl Tracker {
         self.t_last_in = lock.anchor_t_ps;
         self.loss = None;
         self.cal = [ChannelCal::EMPTY; MAX_CHANNELS];
+        self.acc_q64 = 0;
+        self.acc_n = 0;
         self.locked = true;
     }
 
@@ -438,7 +584,7 @@ impl Tracker {
         &self.last_good
     }
 
-    /// Loop updates (in-window detections) since construction.
+    /// In-window detections (each feeds the loop) since construction.
     pub const fn updates(&self) -> u64 {
         self.updates
     }
@@ -478,7 +624,7 @@ impl Tracker {
             return Located::BeforeOrigin;
         }
         let frac = pos as u64;
-        let w = u64::from(self.cfg.p.window.to_bits()) << 32;
+        let w = self.cfg.window_q64;
         let (r, _) = pat.residual(frac);
         if let Some(c) = channel.and_then(|c| self.cal.get_mut(usize::from(c))) {
             c.record(r, w);
@@ -489,26 +635,22 @@ impl Tracker {
         self.in_frac_q32 += (ind - self.in_frac_q32) >> shift;
         if inside {
             self.updates += 1;
-            let r_q32 = r >> 32;
+            // An i64 shifted right by 32 fits in 32 bits, so the square is one 32×32 product.
+            let r_q32 = i64::from((r >> 32) as i32);
             self.r2_q64 += (r_q32 * r_q32 - self.r2_q64) >> shift;
-            let k1 = i128::from(self.cfg.k1);
-            let dnu = (i128::from(r_q32) * self.cfg.g2_q96 as i128) >> 32;
-            self.model = Snapshot {
-                t_ps,
-                pos_q64: pos - ((i128::from(r) * k1) >> 64),
-                nu_q96: (self.model.nu_q96 as i128 - dnu).max(1) as u128,
-            };
             self.t_last_in = self.t_last_in.max(t_ps);
-            if self.in_frac_q32 >= self.lost_below_q32 {
-                self.last_good = self.model;
+            // N residuals within ±1/4 slot, each divided by N: the sum stays within ±1/4.
+            self.acc_q64 += r >> self.cfg.mean_shift;
+            self.acc_n += 1;
+            if self.acc_n >> self.cfg.mean_shift != 0 {
+                self.filter(t_ps, pos);
             }
         }
         if self.in_frac_q32 < self.lost_below_q32 {
             self.lose(LossCause::InWindowFraction);
             return Located::NotLocked;
         }
-        let max = u64::from(self.cfg.p.max_rms.to_bits());
-        if self.r2_q64.unsigned_abs() > max * max {
+        if self.r2_q64.unsigned_abs() > self.cfg.max_r2_q64 {
             self.lose(LossCause::ResidualRms);
             return Located::NotLocked;
         }
@@ -516,6 +658,23 @@ impl Tracker {
             slot: (pos >> 64) as u64,
             phase: U0F32::from_bits((frac >> 32) as u32),
         })
+    }
+
+    /// Run the loop filter on the mean residual since the last update; the detection at `t_ps`
+    /// (model position `pos`) becomes the anchor.
+    fn filter(&mut self, t_ps: u64, pos: i128) {
+        let e = self.acc_q64;
+        self.acc_q64 = 0;
+        self.acc_n = 0;
+        let dnu = nu_step_q96((e >> 32) as i32, self.cfg.g2_q96);
+        self.model = Snapshot {
+            t_ps,
+            pos_q64: pos - i128::from(mul_hi_signed(e, self.cfg.k1)),
+            nu_q96: (self.model.nu_q96 as i128 - dnu).max(1) as u128,
+        };
+        if self.in_frac_q32 >= self.lost_below_q32 {
+            self.last_good = self.model;
+        }
     }
 
     /// Per-channel delay corrections in ps to add to each channel's configured delay (positive:

@@ -94,11 +94,26 @@ struct Measured {
 }
 
 fn run(sc: Scenario, cfg: TrackConfig, seconds: f64, settle: f64, sample_ps: f64) -> Measured {
+    run_from(sc, cfg, seconds, settle, sample_ps, 0.0)
+}
+
+/// [`run`] from a start whose frequency is off by the fraction `nu_error`.
+fn run_from(
+    sc: Scenario,
+    cfg: TrackConfig,
+    seconds: f64,
+    settle: f64,
+    sample_ps: f64,
+    nu_error: f64,
+) -> Measured {
     let w = cfg.params().window.to_num::<f64>();
     let stream = Stream::new(sc.clone());
     let null = 2.0 * w;
     let inw = (1.0 - sc.noise_fraction) + sc.noise_fraction * null;
     let mut tr = started(cfg, &stream, 0.0, inw, null);
+    if nu_error != 0.0 {
+        tr.model.nu_q96 = (tr.model.nu_q96 as f64 * (1.0 + nu_error)) as u128;
+    }
     let pat = ArrivalPattern::single(U0F32::from_num(0.5));
     let p = pat.channel(Some(0));
     let (mut n, mut s1, mut s2) = (0.0, 0.0, 0.0);
@@ -202,3 +217,6 @@ fn frequency_and_phase_noise_match_loop_theory_and_crb() {
     // 100 samples of y: the rms scatters by about ±7 %; the continuous limit adds a few %.
     assert!(m.rms_y / y > 0.7 && m.rms_y / y < 1.4, "frequency");
 }
+
+mod decimated;
+mod exact;

@@ -128,12 +128,36 @@ pub fn gate_table(s: &Scenario) -> Result<GateTable, Box<dyn Error>> {
     Ok(GateTable::new(&delays, &gates)?)
 }
 
-/// A cold recovered clock configured from the scenario as the host does ([`clocks::build`]).
+/// Environment variable that sets the tracking loop's `update_every` for this benchmark only.
+pub const UPDATE_EVERY_VAR: &str = "SLOTWISE_BENCH_UPDATE_EVERY";
+
+/// A cold recovered clock configured from the scenario as the host does ([`clocks::build`]),
+/// with the loop decimated when [`UPDATE_EVERY_VAR`] is set.
 pub fn cold_clock(
     s: &Scenario,
     gates: &GateTable,
     prior_ppm: u32,
 ) -> Result<HostRecovered, Box<dyn Error>> {
+    if let Ok(n) = std::env::var(UPDATE_EVERY_VAR) {
+        let (a, mut t) = clocks::recovered_params(s, prior_ppm);
+        t.update_every = n.parse()?;
+        // Links whose loop is already near B_n·T_u = 0.1 get the largest N that keeps it.
+        let track = loop {
+            match slotwise::TrackConfig::new(t) {
+                Err(slotwise::track::TrackConfigError::TooWide) if t.update_every > 1 => {
+                    t.update_every /= 2;
+                }
+                r => break r?,
+            }
+        };
+        let cfg = slotwise::recovered::RecoveredConfig::new(
+            slotwise::AcquireConfig::new(a)?,
+            track,
+            clocks::REACQUIRE_PPM,
+        )?;
+        let pattern = slotwise::acquire::fold::ArrivalPattern::from_gates(gates);
+        return Ok(HostRecovered::new(cfg, pattern)?);
+    }
     match clocks::build(s, gates, ClockMode::Recovered, prior_ppm)? {
         ClockStages {
             clock: HostClock::Recovered(c),
