@@ -91,6 +91,49 @@ impl Accounting {
             ("in_flight", self.in_flight),
         ]
     }
+
+    /// Words of [`Self::to_words`]: one per counter.
+    pub const WORDS: usize = 13;
+
+    /// The counters as words, in the order of [`Self::fields`] (the summary record's layout).
+    pub fn to_words(&self) -> [u64; Self::WORDS] {
+        [
+            self.rejected_time,
+            self.rejected_channel,
+            self.no_clock,
+            self.late,
+            self.outside_gates,
+            self.unaligned,
+            self.marker,
+            self.multi_click,
+            self.sifted,
+            self.basis_mismatch,
+            self.queue_overflow,
+            self.unanswered,
+            self.in_flight,
+        ]
+    }
+
+    /// Counters from words in the order of [`Self::to_words`].
+    pub fn from_words(w: &[u64; Self::WORDS]) -> Self {
+        let [rejected_time, rejected_channel, no_clock, late, outside_gates, unaligned, marker, multi_click, sifted, basis_mismatch, queue_overflow, unanswered, in_flight] =
+            *w;
+        Self {
+            rejected_time,
+            rejected_channel,
+            no_clock,
+            late,
+            outside_gates,
+            unaligned,
+            marker,
+            multi_click,
+            sifted,
+            basis_mismatch,
+            queue_overflow,
+            unanswered,
+            in_flight,
+        }
+    }
 }
 
 /// Counts of multi-click slot events by outcome (their detections are in `multi_click`).

@@ -6,6 +6,7 @@
 
 use crate::accounting::{Accounting, AnswerErrors, MultiClickEvents};
 use crate::clock::{Clock, Located, Numbered, SlotPos};
+use crate::formats::Summary;
 use crate::gates::{Basis, GateTable, MAX_INTENSITIES};
 use crate::sift::{
     click_bit, squash, Announcement, Answer, ClickMask, KeySink, Outcome, OverflowPolicy, Pending,
@@ -554,6 +555,23 @@ impl<C: Clock, const PENDING: usize> Receiver<C, PENDING> {
         self.service(tx, key);
     }
 }
+impl Summary {
+    /// The counters of `rx` (frame counters left at zero; [`crate::FrameOut::finish`] fills them).
+    pub fn of<C: Clock, const P: usize>(rx: &Receiver<C, P>) -> Self {
+        Self {
+            detections_in: rx.detections_in(),
+            sifted_bits: rx.sifted_bits(),
+            accounting: *rx.accounting(),
+            multi: *rx.multi_click_events(),
+            answer_errors: *rx.answer_errors(),
+            tally: *rx.tally(),
+            multi_tally: *rx.multi_click_tally(),
+            key_blocks: 0,
+            frame_errors: 0,
+        }
+    }
+}
+
 #[cfg(feature = "defmt")]
 impl defmt::Format for Trace {
     fn format(&self, f: defmt::Formatter<'_>) {
