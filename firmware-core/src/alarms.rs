@@ -25,7 +25,7 @@ use crate::gates::{Basis, MAX_INTENSITIES};
 use core::fmt;
 use heapless::Deque;
 
-pub use crate::formats::alarm::{AlarmEvent, AlarmKind, LEN as ALARM_LEN};
+pub use crate::formats::alarm::{AlarmEvent, AlarmKind};
 
 /// Alarm events held until taken.
 pub const EVENT_QUEUE: usize = 16;

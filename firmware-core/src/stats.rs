@@ -1,6 +1,6 @@
 //! Stage 7b — live statistics in bounded memory: what an operator watches while the link runs.
 //!
-//! The receiver's own [`Tally`] holds counts since start. A link that degrades (a drifting
+//! The receiver's own [`Tally`](crate::tally::Tally) holds counts since start. A link that degrades (a drifting
 //! interferometer, a saturating detector, a fibre being bent) shows up first over the recent past,
 //! so [`Monitor`] keeps a **sliding window**: a ring of `BLOCKS` block tallies (const generic),
 //! plus the same counts since start.
@@ -13,7 +13,7 @@
 //! caller may call [`Monitor::advance`] with a time from elsewhere.
 //!
 //! Per block, and since start:
-//! - QBER per basis and intensity: a [`Tally`] of sifted bits (matched basis; tested when the
+//! - QBER per basis and intensity: a [`Tally`](crate::tally::Tally) of sifted bits (matched basis; tested when the
 //!   transmitter revealed its bit), single and squashed multi-click slots together;
 //! - detections per channel (every detection the receiver took in, whatever its fate);
 //! - time locked (sum of gaps between consecutive detections seen while the clock was locked);
@@ -38,7 +38,7 @@ use crate::receiver::{Stage, Trace};
 use crate::sift::{KeySink, Outcome, SiftedBit};
 
 pub use crate::counts::{Counts, StatsConfig, StatsConfigError};
-pub use crate::formats::statistics::{Snapshot, LEN as SNAPSHOT_LEN};
+pub use crate::formats::statistics::Snapshot;
 
 /// Window length, in blocks, of the default monitor (the board and the host use it).
 pub const DEFAULT_BLOCKS: usize = 8;

@@ -238,8 +238,8 @@ fn snapshot_round_trips() {
     assert_eq!(s.tested[1][0], (10, 10));
     assert_eq!(s.off_gate[1], 10);
     assert_eq!(s.upper_ppm[0], u32::MAX);
-    let mut buf = [0u8; SNAPSHOT_LEN];
-    assert_eq!(s.emit(&mut buf), Ok(SNAPSHOT_LEN));
+    let mut buf = [0u8; crate::formats::statistics::LEN];
+    assert_eq!(s.emit(&mut buf), Ok(buf.len()));
     assert_eq!(Snapshot::parse(&buf), Ok(s));
     assert!(Snapshot::parse(&buf[1..]).is_err());
 }
