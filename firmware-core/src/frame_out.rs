@@ -10,7 +10,7 @@
 //! buffers and sequence number.
 
 use crate::formats::framing::{
-    encode_frame, seal, write_header, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, MAX_RAW,
+    encode_frame, seal_in_place, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, MAX_RAW,
 };
 use crate::formats::key_block::{self, KeyBit, MAX_BITS};
 use crate::formats::Summary;
@@ -113,10 +113,7 @@ impl<S: FrameSink, const BITS: usize> FrameOut<S, BITS> {
 
     /// Header, CRC, COBS and delimiter around the payload already in `raw`, then to the sink.
     fn emit(&mut self, record: RecordType, len: usize) {
-        if let Some(head) = self.raw.get_mut(..HEADER_LEN) {
-            write_header(head, record, self.seq, len);
-        }
-        match seal(&mut self.raw, HEADER_LEN + len + CRC_LEN, &mut self.enc) {
+        match seal_in_place(record, self.seq, len, &mut self.raw, &mut self.enc) {
             Ok(n) => {
                 self.seq = self.seq.wrapping_add(1);
                 self.sink.frame(self.enc.get(..n).unwrap_or(&[]));

@@ -230,7 +230,7 @@ pub fn encode_frame(
     seal(raw, total, out)
 }
 
-pub(crate) fn write_header(head: &mut [u8], record: RecordType, seq: u16, len: usize) {
+fn write_header(head: &mut [u8], record: RecordType, seq: u16, len: usize) {
     let s = seq.to_le_bytes();
     let l = (len as u16).to_le_bytes();
     for (d, b) in head
@@ -261,7 +261,7 @@ pub fn seal_in_place(
 }
 
 /// CRC over `raw[..total - 4]` into its last 4 bytes, then COBS into `out` with the delimiter.
-pub(crate) fn seal(raw: &mut [u8], total: usize, out: &mut [u8]) -> Result<usize, FrameError> {
+fn seal(raw: &mut [u8], total: usize, out: &mut [u8]) -> Result<usize, FrameError> {
     let body_len = total - CRC_LEN;
     let crc = crc32c(raw.get(..body_len).unwrap_or(&[]));
     raw.get_mut(body_len..total)
