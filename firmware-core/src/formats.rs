@@ -35,7 +35,8 @@
 //! ```
 //!
 //! Inside this module, [`cobs`] stands alone, [`framing`] uses it, [`bytes`] uses the error type
-//! of [`framing`], and the record files use both.
+//! of [`framing`], and the record files use both ([`answers`] also reads the batch limit of
+//! [`announce`]).
 
 pub mod alarm;
 pub mod announce;
