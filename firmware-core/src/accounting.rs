@@ -166,6 +166,19 @@ impl Accounting {
     pub fn fields(&self) -> [(&'static str, u64); Fate::COUNT] {
         Fate::ALL.map(|f| (f.name(), self.get(f)))
     }
+
+    /// Words of [`Self::to_words`]: one per fate.
+    pub const WORDS: usize = Fate::COUNT;
+
+    /// The counters as words, in [`Fate::ALL`] order (the summary record's layout).
+    pub fn to_words(&self) -> [u64; Self::WORDS] {
+        self.counts
+    }
+
+    /// Counters from words in the order of [`Self::to_words`].
+    pub fn from_words(w: &[u64; Self::WORDS]) -> Self {
+        Self::from_counts(*w)
+    }
 }
 
 impl Index<Fate> for Accounting {

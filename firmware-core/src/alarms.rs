@@ -16,21 +16,21 @@
 //! Each change raises or clears an [`AlarmEvent`] stamped with the receiver time it was decided
 //! at (block end for block conditions, the detection's time for the lock). Events wait in a
 //! bounded queue (`EVENT_QUEUE`); an overflow is counted, never silent. An event is the payload
-//! of a record-type-5 frame and is logged through `defmt` when that feature is on.
+//! of a record-type-5 frame ([`crate::formats::alarm`]) and is logged through `defmt` when that feature is on.
 
 use crate::bounds::{hoeffding_upper_ppm, wilson_ppm, Epsilon, SHOR_PRESKILL_QBER_PPM};
 use crate::bounds::{BoundError, Z_ONE_SIDED_1E_10_Q16};
+use crate::counts::{Counts, StatsConfig};
 use crate::gates::{Basis, MAX_INTENSITIES};
-use crate::stats::{Counts, Put, StatsConfig, Take};
 use core::fmt;
 use heapless::Deque;
+
+pub use crate::formats::alarm::{AlarmEvent, AlarmKind};
 
 /// Alarm events held until taken.
 pub const EVENT_QUEUE: usize = 16;
 /// Blocks that seed the running rate level before rate collapse is judged.
 pub const RATE_WARMUP_BLOCKS: u32 = 2;
-/// Bytes of an [`AlarmEvent`] payload (record type 5).
-pub const ALARM_LEN: usize = 20;
 
 /// Which upper confidence bound the QBER alarm uses.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -168,109 +168,6 @@ impl AlarmConfig {
             BoundKind::Wilson { z_q16 } => wilson_ppm(k, n, z_q16).1,
             BoundKind::Hoeffding(eps) => hoeffding_upper_ppm(k, n, eps),
         }
-    }
-}
-
-/// What an alarm is about.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub enum AlarmKind {
-    /// Upper QBER bound at or above the ceiling in one basis.
-    QberHigh(Basis),
-    /// The clock stopped giving slots.
-    LockLost,
-    /// Detection rate below the floor of its running level.
-    RateCollapse,
-    /// A channel's dead-time fraction at or above the threshold.
-    Saturation {
-        /// The worst channel.
-        channel: u8,
-    },
-}
-
-impl AlarmKind {
-    /// Bit of this alarm in the active mask: 0 QBER Z, 1 QBER X, 2 lock, 3 rate, 4 saturation.
-    pub const fn bit(self) -> u8 {
-        match self {
-            Self::QberHigh(Basis::Z) => 1,
-            Self::QberHigh(Basis::X) => 1 << 1,
-            Self::LockLost => 1 << 2,
-            Self::RateCollapse => 1 << 3,
-            Self::Saturation { .. } => 1 << 4,
-        }
-    }
-
-    /// Wire code and detail byte: 1 QBER (detail basis), 2 lock, 3 rate, 4 saturation (channel).
-    pub const fn code(self) -> (u8, u8) {
-        match self {
-            Self::QberHigh(b) => (1, b as u8),
-            Self::LockLost => (2, 0),
-            Self::RateCollapse => (3, 0),
-            Self::Saturation { channel } => (4, channel),
-        }
-    }
-
-    /// The kind for a wire code and detail byte.
-    pub const fn from_code(code: u8, detail: u8) -> Option<Self> {
-        match (code, detail) {
-            (1, 0) => Some(Self::QberHigh(Basis::Z)),
-            (1, 1) => Some(Self::QberHigh(Basis::X)),
-            (2, _) => Some(Self::LockLost),
-            (3, _) => Some(Self::RateCollapse),
-            (4, c) => Some(Self::Saturation { channel: c }),
-            _ => None,
-        }
-    }
-}
-
-/// One alarm raised or cleared: the payload of a record-type-5 frame.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct AlarmEvent {
-    /// Receiver time the change was decided at, ps.
-    pub t_ps: u64,
-    /// What it is about.
-    pub kind: AlarmKind,
-    /// Raised (`true`) or cleared.
-    pub raised: bool,
-    /// The measured value, ppm: QBER bound, rate over its level, dead fraction (0 for the lock).
-    pub value_ppm: u32,
-    /// The threshold it was compared with, ppm (0 for the lock).
-    pub threshold_ppm: u32,
-}
-
-impl AlarmEvent {
-    /// Write the payload ([`ALARM_LEN`] bytes, layout in `docs/frames.md`); returns its length.
-    pub fn encode(&self, out: &mut [u8]) -> Option<usize> {
-        let dst = out.get_mut(..ALARM_LEN)?;
-        let (code, detail) = self.kind.code();
-        let mut w = Put(dst, 0);
-        w.put(&self.t_ps.to_le_bytes());
-        w.put(&[code, detail, u8::from(self.raised), 0]);
-        w.put(&self.value_ppm.to_le_bytes());
-        w.put(&self.threshold_ppm.to_le_bytes());
-        Some(w.1)
-    }
-
-    /// Read a payload; `None` when its length is not [`ALARM_LEN`] or its codes are unknown.
-    pub fn decode(p: &[u8]) -> Option<Self> {
-        if p.len() != ALARM_LEN {
-            return None;
-        }
-        let mut r = Take(p, 0);
-        let t_ps = r.u64();
-        let (code, detail, raised) = (r.u8(), r.u8(), r.u8());
-        r.u8();
-        if raised > 1 {
-            return None;
-        }
-        Some(Self {
-            t_ps,
-            kind: AlarmKind::from_code(code, detail)?,
-            raised: raised == 1,
-            value_ppm: r.u32(),
-            threshold_ppm: r.u32(),
-        })
     }
 }
 
@@ -454,23 +351,5 @@ mod tests {
             Err(AlarmConfigError::Saturation(0))
         );
         assert!(AlarmConfig::new(110_028, w, 1000, 0, 250_000, 100_000).is_ok());
-    }
-
-    #[test]
-    fn event_payload_round_trips() {
-        let ev = AlarmEvent {
-            t_ps: 0x0102_0304_0506_0708,
-            kind: AlarmKind::Saturation { channel: 3 },
-            raised: true,
-            value_ppm: 123_456,
-            threshold_ppm: 100_000,
-        };
-        let mut buf = [0u8; ALARM_LEN];
-        assert_eq!(ev.encode(&mut buf), Some(ALARM_LEN));
-        assert_eq!(&buf[..12], &[8, 7, 6, 5, 4, 3, 2, 1, 4, 3, 1, 0]);
-        assert_eq!(AlarmEvent::decode(&buf), Some(ev));
-        assert_eq!(AlarmEvent::decode(&buf[..19]), None);
-        buf[8] = 9;
-        assert_eq!(AlarmEvent::decode(&buf), None);
     }
 }

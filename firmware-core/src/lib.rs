@@ -42,7 +42,7 @@
 //!    confidence bounds in fixed point ([`bounds`]: Hoeffding, Wilson, binary entropy) and
 //!    [`alarms`] (QBER bound above the Shor-Preskill ceiling, lock lost, rate collapse,
 //!    saturation); fed from the receiver's traces and sifted bits, off its hot path.
-//! 8. [`frames`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
+//! 8. [`frame_out`] — wire frames out: sifted bits and the final counters as CRC-32C-protected,
 //!    COBS-stuffed records for the post-processing host, alarms and statistics snapshots.
 //! 9. [`wire`] — the sifting conversation over a framed byte link (`embedded-io`): batched
 //!    announcements out, answers in, every bad frame counted by reason; [`ReceiverLink`] is the
@@ -50,6 +50,11 @@
 //!
 //! [`receiver`] strings them together: front end → sifter, behind [`Receiver::push_block`]; its
 //! module doc shows a board building and feeding one.
+//!
+//! Every byte format — the frame (header, CRC-32C, COBS) and one file per record type (key block,
+//! summary, announce, answers, alarm, statistics) with one byte reader and writer — is in
+//! [`formats`], below the stages that use it; [`counts`] holds what the live statistics count,
+//! read by both [`stats`] and [`alarms`].
 //!
 //! Memory is fixed at compile time: the pending queue's capacity is a const generic and the gate
 //! table holds at most [`gates::MAX_GATES`] windows on [`gates::MAX_CHANNELS`] channels.
@@ -75,8 +80,10 @@ pub mod acquire;
 pub mod alarms;
 pub mod bounds;
 pub mod clock;
+pub mod counts;
+pub mod formats;
 pub mod frame;
-pub mod frames;
+pub mod frame_out;
 pub mod front;
 pub mod gates;
 mod log;
@@ -96,8 +103,9 @@ pub use acquire::{AcquireConfig, AcquireParams, AcquiredLock, Acquirer};
 pub use alarms::{AlarmConfig, AlarmEvent, AlarmKind, BoundKind};
 pub use clock::{FixedClock, Located, Numbered, SlotClock, SlotGrid, SlotPos};
 pub use fixed;
+pub use formats::{FrameError, RecordType, Summary};
 pub use frame::{AlignState, FrameAligner, FrameConfig, MarkerSpec, MarkerState, SlotHint};
-pub use frames::{FrameOut, FrameSink};
+pub use frame_out::{FrameOut, FrameSink};
 pub use front::{FrontEnd, Timed};
 pub use gates::{Basis, Gate, GateTable, Lookup};
 pub use numbering::{Absolute, MarkerNumbering, Numbering};

@@ -62,6 +62,7 @@
 
 use crate::accounting::{Accounting, AnswerErrors, Fate, MultiClickEvents};
 use crate::clock::SlotClock;
+use crate::formats::Summary;
 use crate::front::FrontEnd;
 use crate::gates::GateTable;
 use crate::numbering::{Absolute, Numbering};
@@ -344,6 +345,23 @@ impl<C: SlotClock, const PENDING: usize, N: Numbering> Receiver<C, PENDING, N> {
     /// Handle one answer from the transmitter.
     pub fn answer(&mut self, a: Answer, key: &mut impl KeySink) {
         self.sifter.answer(a, &mut self.accounting, key);
+    }
+}
+
+impl Summary {
+    /// The counters of `rx` (frame counters left at zero; [`crate::FrameOut::finish`] fills them).
+    pub fn of<C: SlotClock, const P: usize, N: Numbering>(rx: &Receiver<C, P, N>) -> Self {
+        Self {
+            detections_in: rx.detections_in(),
+            sifted_bits: rx.sifted_bits(),
+            accounting: *rx.accounting(),
+            multi: *rx.multi_click_events(),
+            answer_errors: *rx.answer_errors(),
+            tally: *rx.tally(),
+            multi_tally: *rx.multi_click_tally(),
+            key_blocks: 0,
+            frame_errors: 0,
+        }
     }
 }
 

@@ -1,6 +1,6 @@
 //! Stage 7b — live statistics in bounded memory: what an operator watches while the link runs.
 //!
-//! The receiver's own [`Tally`] holds counts since start. A link that degrades (a drifting
+//! The receiver's own [`Tally`](crate::tally::Tally) holds counts since start. A link that degrades (a drifting
 //! interferometer, a saturating detector, a fibre being bent) shows up first over the recent past,
 //! so [`Monitor`] keeps a **sliding window**: a ring of `BLOCKS` block tallies (const generic),
 //! plus the same counts since start.
@@ -13,7 +13,7 @@
 //! caller may call [`Monitor::advance`] with a time from elsewhere.
 //!
 //! Per block, and since start:
-//! - QBER per basis and intensity: a [`Tally`] of sifted bits (matched basis; tested when the
+//! - QBER per basis and intensity: a [`Tally`](crate::tally::Tally) of sifted bits (matched basis; tested when the
 //!   transmitter revealed its bit), single and squashed multi-click slots together;
 //! - detections per channel (every detection the receiver took in, whatever its fate);
 //! - time locked (sum of gaps between consecutive detections seen while the clock was locked);
@@ -34,236 +34,12 @@
 
 use crate::accounting::Fate;
 use crate::alarms::{AlarmConfig, AlarmEvent, Alarms};
-use crate::gates::{Basis, GateTable, MAX_CHANNELS, MAX_INTENSITIES};
+use crate::gates::Basis;
 use crate::receiver::Trace;
 use crate::sift::{KeySink, Outcome, SiftedBit};
-use crate::tally::Tally;
-use core::fmt;
 
-/// Why a statistics configuration was refused.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub enum StatsConfigError {
-    /// Block length of zero ps.
-    ZeroBlock,
-    /// Dead time not shorter than one block (ps).
-    DeadTime(u64),
-}
-
-impl fmt::Display for StatsConfigError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            Self::ZeroBlock => write!(f, "block_ps must be positive"),
-            Self::DeadTime(d) => write!(f, "dead_time_ps {d} must be shorter than one block"),
-        }
-    }
-}
-
-impl core::error::Error for StatsConfigError {}
-
-/// Validated statistics settings: block length, detector dead time, per-channel gate duty.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct StatsConfig {
-    block_ps: u64,
-    dead_time_ps: u64,
-    channels: u8,
-    duty_ppm: [u32; MAX_CHANNELS],
-}
-
-impl StatsConfig {
-    /// Blocks of `block_ps` receiver time; `dead_time_ps` is the detectors' dead time; the gate
-    /// duty per channel is read from `gates`.
-    pub fn new(
-        block_ps: u64,
-        dead_time_ps: u64,
-        gates: &GateTable,
-    ) -> Result<Self, StatsConfigError> {
-        if block_ps == 0 {
-            return Err(StatsConfigError::ZeroBlock);
-        }
-        if dead_time_ps >= block_ps {
-            return Err(StatsConfigError::DeadTime(dead_time_ps));
-        }
-        let mut duty = [0u64; MAX_CHANNELS];
-        for g in gates.gates() {
-            if let Some(d) = duty.get_mut(usize::from(g.channel)) {
-                *d += u64::from(g.end.to_bits().saturating_sub(g.start.to_bits()));
-            }
-        }
-        let mut duty_ppm = [0u32; MAX_CHANNELS];
-        for (p, d) in duty_ppm.iter_mut().zip(duty) {
-            *p = ((u128::from(d) * 1_000_000) >> 32).min(1_000_000) as u32;
-        }
-        Ok(Self {
-            block_ps,
-            dead_time_ps,
-            channels: gates.channels(),
-            duty_ppm,
-        })
-    }
-
-    /// Block length in ps of receiver time.
-    pub const fn block_ps(&self) -> u64 {
-        self.block_ps
-    }
-
-    /// Detector dead time in ps.
-    pub const fn dead_time_ps(&self) -> u64 {
-        self.dead_time_ps
-    }
-
-    /// Channels described by the gate table.
-    pub const fn channels(&self) -> u8 {
-        self.channels
-    }
-
-    /// Summed gate width of `channel` as a fraction of the slot, ppm (0 for unknown channels).
-    pub fn duty_ppm(&self, channel: u8) -> u32 {
-        self.duty_ppm
-            .get(usize::from(channel))
-            .copied()
-            .unwrap_or(0)
-    }
-}
-
-/// Counts of one block, of the window, or since start.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct Counts {
-    /// Receiver time covered, ps.
-    pub span_ps: u64,
-    /// Time the clock was locked, ps.
-    pub locked_ps: u64,
-    /// Sifted bits by (basis, tx bit, intensity, basis, rx bit); unrevealed bits in `untested`.
-    pub tally: Tally,
-    /// Sifted bits.
-    pub sifted: u64,
-    /// Detections taken in (every fate, every channel).
-    pub detections_in: u64,
-    /// Detections per channel (channels ≥ [`MAX_CHANNELS`] are in `detections_in` only).
-    pub detections: [u64; MAX_CHANNELS],
-    /// Detections outside every gate, per channel.
-    pub off_gate: [u64; MAX_CHANNELS],
-    /// Slots with at least one gated detection.
-    pub gated_slots: u64,
-    /// Slots with two or more gated detections.
-    pub multi_click_slots: u64,
-    /// Gated detections in multi-click slots.
-    pub multi_click_detections: u64,
-}
-
-impl Counts {
-    /// All counts at zero.
-    pub const fn new() -> Self {
-        Self {
-            span_ps: 0,
-            locked_ps: 0,
-            tally: Tally::new(),
-            sifted: 0,
-            detections_in: 0,
-            detections: [0; MAX_CHANNELS],
-            off_gate: [0; MAX_CHANNELS],
-            gated_slots: 0,
-            multi_click_slots: 0,
-            multi_click_detections: 0,
-        }
-    }
-
-    /// Add `o` into `self`, field by field.
-    pub fn add(&mut self, o: &Counts) {
-        self.span_ps += o.span_ps;
-        self.locked_ps += o.locked_ps;
-        let dst = self.tally.counts.iter_mut().flatten().flatten().flatten();
-        let src = o.tally.counts.iter().flatten().flatten().flatten();
-        for (d, s) in dst.flatten().zip(src.flatten()) {
-            *d += s;
-        }
-        let dst = self.tally.untested.iter_mut().flatten();
-        for (d, s) in dst.zip(o.tally.untested.iter().flatten()) {
-            *d += s;
-        }
-        self.sifted += o.sifted;
-        self.detections_in += o.detections_in;
-        for (d, s) in self.detections.iter_mut().zip(o.detections) {
-            *d += s;
-        }
-        for (d, s) in self.off_gate.iter_mut().zip(o.off_gate) {
-            *d += s;
-        }
-        self.gated_slots += o.gated_slots;
-        self.multi_click_slots += o.multi_click_slots;
-        self.multi_click_detections += o.multi_click_detections;
-    }
-
-    /// (errors, tested) of one basis; `intensity = None` sums every class.
-    pub fn errors(&self, basis: Basis, intensity: Option<u8>) -> (u64, u64) {
-        self.tally.errors(basis, intensity)
-    }
-
-    /// QBER in ppm, `None` when nothing was tested.
-    pub fn qber_ppm(&self, basis: Basis, intensity: Option<u8>) -> Option<u32> {
-        self.tally.qber_ppm(basis, intensity)
-    }
-
-    /// Detection rate of `channel` in mHz (0 over an empty span).
-    pub fn rate_mhz(&self, channel: u8) -> u64 {
-        per_second_milli(get(&self.detections, channel), self.span_ps)
-    }
-
-    /// Fraction of time `channel` was dead, ppm: detections × τ over the span (capped at 1e6).
-    pub fn dead_fraction_ppm(&self, channel: u8, dead_time_ps: u64) -> u32 {
-        if self.span_ps == 0 {
-            return 0;
-        }
-        let busy = u128::from(get(&self.detections, channel)) * u128::from(dead_time_ps);
-        (busy * 1_000_000 / u128::from(self.span_ps)).min(1_000_000) as u32
-    }
-
-    /// Detections outside every gate of `channel` per second locked, mHz.
-    pub fn off_gate_rate_mhz(&self, channel: u8) -> u64 {
-        per_second_milli(get(&self.off_gate, channel), self.locked_ps)
-    }
-
-    /// Noise rate of `channel` estimated from its off-gate rate: off-gate / (1 − duty), mHz.
-    pub fn noise_rate_mhz(&self, channel: u8, duty_ppm: u32) -> u64 {
-        let outside = 1_000_000u128.saturating_sub(u128::from(duty_ppm));
-        if outside == 0 {
-            return 0;
-        }
-        (u128::from(self.off_gate_rate_mhz(channel)) * 1_000_000 / outside)
-            .min(u128::from(u64::MAX)) as u64
-    }
-
-    /// Noise counts expected inside `channel`'s gates per second: noise rate × duty, mHz.
-    pub fn in_gate_noise_mhz(&self, channel: u8, duty_ppm: u32) -> u64 {
-        let n = u128::from(self.noise_rate_mhz(channel, duty_ppm));
-        (n * u128::from(duty_ppm) / 1_000_000) as u64
-    }
-
-    /// Multi-click slots over slots with a gated detection, ppm.
-    pub fn multi_click_ppm(&self) -> u32 {
-        crate::bounds::fraction_ppm(self.multi_click_slots, self.gated_slots)
-    }
-
-    /// Multi-click slots per second, mHz.
-    pub fn multi_click_rate_mhz(&self) -> u64 {
-        per_second_milli(self.multi_click_slots, self.span_ps)
-    }
-}
-
-fn get(a: &[u64; MAX_CHANNELS], channel: u8) -> u64 {
-    a.get(usize::from(channel)).copied().unwrap_or(0)
-}
-
-/// `count` per `span_ps` as mHz: count × 1e15 / span (0 over an empty span).
-fn per_second_milli(count: u64, span_ps: u64) -> u64 {
-    if span_ps == 0 {
-        return 0;
-    }
-    (u128::from(count) * 1_000_000_000_000_000 / u128::from(span_ps)).min(u128::from(u64::MAX))
-        as u64
-}
+pub use crate::counts::{Counts, StatsConfig, StatsConfigError};
+pub use crate::formats::statistics::Snapshot;
 
 /// Window length, in blocks, of the default monitor (the board and the host use it).
 pub const DEFAULT_BLOCKS: usize = 8;
@@ -454,7 +230,7 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
 
     /// Close every block that ends at or before `t_ps` (empty ones included).
     pub fn advance(&mut self, t_ps: u64) {
-        let block = self.cfg.block_ps;
+        let block = self.cfg.block_ps();
         let Some(start) = self.block_start_ps else {
             self.block_start_ps = Some(t_ps);
             return;
@@ -481,7 +257,7 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
     }
 
     fn close(&mut self, end_ps: u64, mut counts: Counts) {
-        counts.span_ps = self.cfg.block_ps;
+        counts.span_ps = self.cfg.block_ps();
         if let Some(slot) = self.ring.get_mut(self.head) {
             *slot = counts;
         }
@@ -493,7 +269,7 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
         if self.snapshot.is_some() {
             self.snapshots_replaced += 1;
         }
-        self.snapshot = Some(Snapshot::of(
+        self.snapshot = Some(snapshot(
             end_ps,
             self.blocks_closed,
             self.len as u8,
@@ -521,179 +297,49 @@ impl<K: KeySink, const BLOCKS: usize> KeySink for Tap<'_, K, BLOCKS> {
     }
 }
 
-/// Bytes of a [`Snapshot`] payload (record type 6).
-pub const SNAPSHOT_LEN: usize = 228;
-
-/// The window's statistics at the end of one block: the payload of a record-type-6 frame.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct Snapshot {
-    /// End of the block just closed, ps of receiver time.
-    pub t_ps: u64,
-    /// Blocks closed since start.
-    pub blocks_closed: u64,
-    /// Receiver time the window covers, ps.
-    pub window_ps: u64,
-    /// Time locked within the window, ps.
-    pub locked_ps: u64,
-    /// Closed blocks in the window.
-    pub window_blocks: u8,
-    /// Channels described (entries of `detections` and `off_gate` that mean something).
-    pub channels: u8,
-    /// Active alarms as a bit mask ([`crate::alarms::AlarmKind::bit`]).
-    pub active: u8,
-    /// Window (errors, tested) per `[basis][intensity]`, saturating at u32::MAX.
-    pub tested: [[(u32, u32); MAX_INTENSITIES]; 2],
-    /// Upper confidence bound of the alarm's intensity class per basis, ppm (u32::MAX: no data).
-    pub upper_ppm: [u32; 2],
-    /// Window detections per channel.
-    pub detections: [u32; MAX_CHANNELS],
-    /// Window detections outside every gate, per channel.
-    pub off_gate: [u32; MAX_CHANNELS],
-    /// Window slots with a gated detection.
-    pub gated_slots: u32,
-    /// Window slots with two or more gated detections.
-    pub multi_click_slots: u32,
-}
-
 fn sat32(v: u64) -> u32 {
     u32::try_from(v).unwrap_or(u32::MAX)
 }
 
-impl Snapshot {
-    fn of(
-        t_ps: u64,
-        blocks_closed: u64,
-        window_blocks: u8,
-        w: &Counts,
-        cfg: &StatsConfig,
-        alarms: &Alarms,
-    ) -> Self {
-        let mut s = Self {
-            t_ps,
-            blocks_closed,
-            window_ps: w.span_ps,
-            locked_ps: w.locked_ps,
-            window_blocks,
-            channels: cfg.channels,
-            active: alarms.active(),
-            gated_slots: sat32(w.gated_slots),
-            multi_click_slots: sat32(w.multi_click_slots),
-            ..Self::default()
-        };
-        for b in Basis::ALL {
-            if let Some(row) = s.tested.get_mut(b.index()) {
-                for (i, cell) in row.iter_mut().enumerate() {
-                    let (e, n) = w.errors(b, Some(i as u8));
-                    *cell = (sat32(e), sat32(n));
-                }
-            }
-            if let Some(u) = s.upper_ppm.get_mut(b.index()) {
-                *u = alarms.upper_ppm(w, b).unwrap_or(u32::MAX);
+/// The record of a closed block: the window `w` with its confidence bounds and active alarms.
+fn snapshot(
+    t_ps: u64,
+    blocks_closed: u64,
+    window_blocks: u8,
+    w: &Counts,
+    cfg: &StatsConfig,
+    alarms: &Alarms,
+) -> Snapshot {
+    let mut s = Snapshot {
+        t_ps,
+        blocks_closed,
+        window_ps: w.span_ps,
+        locked_ps: w.locked_ps,
+        window_blocks,
+        channels: cfg.channels(),
+        active: alarms.active(),
+        gated_slots: sat32(w.gated_slots),
+        multi_click_slots: sat32(w.multi_click_slots),
+        ..Snapshot::default()
+    };
+    for b in Basis::ALL {
+        if let Some(row) = s.tested.get_mut(b.index()) {
+            for (i, cell) in row.iter_mut().enumerate() {
+                let (e, n) = w.errors(b, Some(i as u8));
+                *cell = (sat32(e), sat32(n));
             }
         }
-        for (d, v) in s.detections.iter_mut().zip(w.detections) {
-            *d = sat32(v);
+        if let Some(u) = s.upper_ppm.get_mut(b.index()) {
+            *u = alarms.upper_ppm(w, b).unwrap_or(u32::MAX);
         }
-        for (d, v) in s.off_gate.iter_mut().zip(w.off_gate) {
-            *d = sat32(v);
-        }
-        s
     }
-
-    /// Write the payload ([`SNAPSHOT_LEN`] bytes, layout in `docs/frames.md`); returns its length.
-    pub fn encode(&self, out: &mut [u8]) -> Option<usize> {
-        let dst = out.get_mut(..SNAPSHOT_LEN)?;
-        let mut w = Put(dst, 0);
-        w.put(&self.t_ps.to_le_bytes());
-        w.put(&self.blocks_closed.to_le_bytes());
-        w.put(&self.window_ps.to_le_bytes());
-        w.put(&self.locked_ps.to_le_bytes());
-        w.put(&[self.window_blocks, self.channels, self.active, 0]);
-        for &(e, n) in self.tested.iter().flatten() {
-            w.put(&e.to_le_bytes());
-            w.put(&n.to_le_bytes());
-        }
-        for v in self
-            .upper_ppm
-            .iter()
-            .chain(&self.detections)
-            .chain(&self.off_gate)
-            .chain([&self.gated_slots, &self.multi_click_slots])
-        {
-            w.put(&v.to_le_bytes());
-        }
-        Some(w.1)
+    for (d, v) in s.detections.iter_mut().zip(w.detections) {
+        *d = sat32(v);
     }
-
-    /// Read a payload written by [`Self::encode`]; `None` when its length is not
-    /// [`SNAPSHOT_LEN`].
-    pub fn decode(p: &[u8]) -> Option<Self> {
-        if p.len() != SNAPSHOT_LEN {
-            return None;
-        }
-        let mut r = Take(p, 0);
-        let mut s = Self {
-            t_ps: r.u64(),
-            blocks_closed: r.u64(),
-            window_ps: r.u64(),
-            locked_ps: r.u64(),
-            window_blocks: r.u8(),
-            channels: r.u8(),
-            active: r.u8(),
-            ..Self::default()
-        };
-        r.u8();
-        for cell in s.tested.iter_mut().flatten() {
-            *cell = (r.u32(), r.u32());
-        }
-        for v in s
-            .upper_ppm
-            .iter_mut()
-            .chain(&mut s.detections)
-            .chain(&mut s.off_gate)
-        {
-            *v = r.u32();
-        }
-        s.gated_slots = r.u32();
-        s.multi_click_slots = r.u32();
-        Some(s)
+    for (d, v) in s.off_gate.iter_mut().zip(w.off_gate) {
+        *d = sat32(v);
     }
-}
-
-/// Little-endian writer into a fixed buffer (writes past the end are dropped).
-pub(crate) struct Put<'a>(pub(crate) &'a mut [u8], pub(crate) usize);
-
-impl Put<'_> {
-    pub(crate) fn put(&mut self, bytes: &[u8]) {
-        if let Some(d) = self.0.get_mut(self.1..self.1 + bytes.len()) {
-            d.copy_from_slice(bytes);
-        }
-        self.1 += bytes.len();
-    }
-}
-
-/// Little-endian reader over a payload whose length was checked (reads past the end give 0).
-pub(crate) struct Take<'a>(pub(crate) &'a [u8], pub(crate) usize);
-
-impl Take<'_> {
-    fn bytes<const N: usize>(&mut self) -> [u8; N] {
-        let mut a = [0u8; N];
-        if let Some(s) = self.0.get(self.1..self.1 + N) {
-            a.copy_from_slice(s);
-        }
-        self.1 += N;
-        a
-    }
-    pub(crate) fn u8(&mut self) -> u8 {
-        u8::from_le_bytes(self.bytes())
-    }
-    pub(crate) fn u32(&mut self) -> u32 {
-        u32::from_le_bytes(self.bytes())
-    }
-    pub(crate) fn u64(&mut self) -> u64 {
-        u64::from_le_bytes(self.bytes())
-    }
+    s
 }
 
 #[cfg(test)]

@@ -3,9 +3,9 @@
 //! Sifting needs the transmitter's answers, and the classical link that carries them (a UART, SPI,
 //! a pipe) loses, repeats, reorders and damages bytes. This stage speaks the link through the
 //! `embedded-io` [`Read`](embedded_io::Read) / [`Write`](embedded_io::Write) traits with the frame
-//! of [`crate::frames`] (COBS, CRC-32/ISCSI, sequence number): the receiver batches its
-//! announcements into [`RecordType::Announce`](crate::frames::RecordType::Announce) frames, the
-//! transmitter answers each with one [`RecordType::Answers`](crate::frames::RecordType::Answers)
+//! of [`crate::formats`] (COBS, CRC-32/ISCSI, sequence number): the receiver batches its
+//! announcements into [`RecordType::Announce`](crate::formats::RecordType::Announce) frames, the
+//! transmitter answers each with one [`RecordType::Answers`](crate::formats::RecordType::Answers)
 //! frame, and every bad byte ends in a typed [`Reject`] counter, never a panic.
 //!
 //! Both sides must end with the same sifted slots although frames are lost. The receiver decides
@@ -15,22 +15,22 @@
 //! report says its answers were used. `docs/wire-protocol.md` is the contract for the
 //! transmitter team, field by field.
 //!
-//! - [`codec`]: the two payloads, encoded and decoded (both sides).
+//! - The two payloads are [`crate::formats::announce`] and [`crate::formats::answers`].
 //! - [`decoder`]: a streaming frame decoder that resynchronises at each 0x00.
 //! - [`seqwin`]: sequence-number bookkeeping (gaps, duplicates, late frames).
 //! - [`endpoint`]: [`ReceiverLink`], the receiver's side, a [`Transmitter`](crate::Transmitter).
 
-pub mod codec;
 pub mod decoder;
 pub mod endpoint;
 pub mod seqwin;
 
-pub use codec::{AnnounceView, AnswerEntry, AnswersView, Report};
+pub use crate::formats::announce::{AnnounceView, Report};
+pub use crate::formats::answers::{AnswerEntry, AnswersView};
 pub use decoder::FrameDecoder;
 pub use endpoint::{LinkConfig, LinkConfigError, LinkCounters, ReceiverLink};
 pub use seqwin::{SeqClass, SeqWindow};
 
-use crate::frames::FrameError;
+use crate::formats::FrameError;
 use core::fmt;
 
 /// Why an incoming frame, or its contents, was refused.
@@ -43,11 +43,11 @@ pub enum Reject {
     Truncated,
     /// CRC-32/ISCSI does not match.
     BadCrc,
-    /// Version byte other than [`crate::frames::VERSION`].
+    /// Version byte other than [`crate::formats::VERSION`].
     UnknownVersion,
     /// Type code not known.
     UnknownType,
-    /// Declared payload length above [`crate::frames::MAX_PAYLOAD`].
+    /// Declared payload length above [`crate::formats::MAX_PAYLOAD`].
     Oversized,
     /// Declared payload length differs from the bytes present.
     LengthMismatch,

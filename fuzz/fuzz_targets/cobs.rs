@@ -3,7 +3,7 @@
 #![no_main]
 
 use libfuzzer_sys::fuzz_target;
-use slotwise::frames::cobs;
+use slotwise::formats::cobs;
 
 fuzz_target!(|data: &[u8]| {
     let mut out = vec![0u8; data.len() + 8];

@@ -3,7 +3,7 @@
 #![no_main]
 
 use libfuzzer_sys::fuzz_target;
-use slotwise::frames::{decode_frame, encode_frame, RecordType, MAX_FRAME, MAX_RAW};
+use slotwise::formats::{decode_frame, encode_frame, RecordType, MAX_FRAME, MAX_RAW};
 use slotwise::wire::{AnnounceView, AnswersView, FrameDecoder};
 
 fuzz_target!(|data: &[u8]| {

@@ -6,7 +6,10 @@ use crate::clocks::{ClockStages, HostClock, HostNumbering};
 use crate::stats::{BlockPoint, HostMonitor, LiveLog};
 use serde::Serialize;
 use slotwise::fixed::types::U0F32;
-use slotwise::frames::{encode_frame, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, SMALL_RECORD};
+use slotwise::formats::{
+    alarm, encode_frame, statistics, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME,
+};
+use slotwise::frame_out::SMALL_RECORD;
 use slotwise::{AlarmConfig, StatsConfig};
 use slotwise::{
     Basis, Fate, KeySink, Outcome, Receiver, ReceiverConfig, SiftedBit, TdcEvent, Trace,
@@ -226,16 +229,16 @@ impl<T: Transmitter> Session<T> {
     fn drain(&mut self) {
         let first = self.first_t_ps.unwrap_or(0);
         while let Some(ev) = self.monitor.pop_event() {
-            let mut p = [0u8; slotwise::alarms::ALARM_LEN];
-            if let Some(n) = ev.encode(&mut p) {
+            let mut p = [0u8; alarm::LEN];
+            if let Ok(n) = ev.emit(&mut p) {
                 self.frame(RecordType::Alarm, &p[..n]);
                 self.live.frame_counts.0 += 1;
             }
             self.live.events.push(ev);
         }
         if let Some(snap) = self.monitor.take_snapshot() {
-            let mut p = [0u8; slotwise::stats::SNAPSHOT_LEN];
-            if let Some(n) = snap.encode(&mut p) {
+            let mut p = [0u8; statistics::LEN];
+            if let Ok(n) = snap.emit(&mut p) {
                 self.frame(RecordType::Stats, &p[..n]);
                 self.live.frame_counts.1 += 1;
             }

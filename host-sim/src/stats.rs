@@ -13,6 +13,7 @@
 use serde::Serialize;
 use slotwise::alarms::{AlarmEvent, AlarmKind, BoundKind};
 use slotwise::bounds::{hoeffding_upper_ppm, Epsilon};
+use slotwise::formats::RecordType;
 use slotwise::stats::{Snapshot, DEFAULT_BLOCKS};
 use slotwise::{Basis, Counts, Monitor};
 use std::collections::BTreeMap;
@@ -434,9 +435,12 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
             })
             .collect(),
         alarm_events_dropped: a.dropped(),
-        frames: [("alarm", log.frame_counts.0), ("stats", log.frame_counts.1)]
-            .into_iter()
-            .collect(),
+        frames: [
+            (RecordType::Alarm.name(), log.frame_counts.0),
+            (RecordType::Stats.name(), log.frame_counts.1),
+        ]
+        .into_iter()
+        .collect(),
         snapshots_replaced: m.snapshots_replaced(),
     }
 }
@@ -532,8 +536,8 @@ impl std::fmt::Display for StatsReport {
             } else {
                 self.alarms_active.join(", ")
             },
-            self.frames.get("alarm").unwrap_or(&0),
-            self.frames.get("stats").unwrap_or(&0),
+            self.frames.get(RecordType::Alarm.name()).unwrap_or(&0),
+            self.frames.get(RecordType::Stats.name()).unwrap_or(&0),
             self.snapshots_replaced
         )?;
         for e in &self.alarm_events {

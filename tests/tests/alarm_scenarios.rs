@@ -8,7 +8,7 @@
 //! The alarm and statistics frames decode back to the events and snapshots.
 
 use slotwise::alarms::AlarmEvent;
-use slotwise::frames::{decode_frame, RecordType, MAX_FRAME};
+use slotwise::formats::{decode_frame, RecordType, MAX_FRAME};
 use slotwise::stats::Snapshot;
 use slotwise::AlarmConfig;
 use slotwise_sim::cli::{receiver_setup, run_simulated, ClockArgs};
@@ -39,9 +39,9 @@ fn frames_decode<T: slotwise::Transmitter>(res: &SessionResult<T>) {
     for f in &res.live.frames {
         let fr = decode_frame(f, &mut scratch).unwrap();
         match fr.record {
-            RecordType::Alarm => events.push(AlarmEvent::decode(fr.payload).unwrap()),
+            RecordType::Alarm => events.push(AlarmEvent::parse(fr.payload).unwrap()),
             RecordType::Stats => {
-                let s = Snapshot::decode(fr.payload).unwrap();
+                let s = Snapshot::parse(fr.payload).unwrap();
                 assert_eq!(s, res.live.blocks[snaps].snapshot);
                 snaps += 1;
             }

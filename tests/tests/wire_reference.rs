@@ -6,9 +6,9 @@
 //! Skipped (with a note) when Python or the packages cannot be had.
 
 use serde_json::Value;
-use slotwise::frames::{encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
+use slotwise::formats::announce::{self, FLAG_FINAL};
+use slotwise::formats::{answers, encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
 use slotwise::sift::Announcement;
-use slotwise::wire::codec::{encode_announce, encode_answers, FLAG_FINAL};
 use slotwise::wire::{AnswerEntry, Report};
 use slotwise::Basis;
 use std::path::{Path, PathBuf};
@@ -139,8 +139,8 @@ fn wire_frames_read_by_a_python_transmitter_from_the_document() {
     for (seq, s) in &sent {
         let mut p = vec![0u8; MAX_PAYLOAD];
         let (t, n) = match s {
-            Sent::Ann(e, r, f) => (RecordType::Announce, encode_announce(e, *r, *f, &mut p)),
-            Sent::Ans(a, f, e) => (RecordType::Answers, encode_answers(*a, *f, e, &mut p)),
+            Sent::Ann(e, r, f) => (RecordType::Announce, announce::emit(e, *r, *f, &mut p)),
+            Sent::Ans(a, f, e) => (RecordType::Answers, answers::emit(*a, *f, e, &mut p)),
         };
         let f = frame(t, *seq, &p[..n.unwrap()]);
         hex.push(f.iter().map(|b| format!("{b:02x}")).collect::<String>());

@@ -1,6 +1,6 @@
 use super::*;
 use crate::alarms::{AlarmKind, BoundKind};
-use crate::gates::Gate;
+use crate::gates::{Gate, GateTable};
 use fixed::types::U0F32;
 
 const BLOCK_PS: u64 = 1_000_000_000; // 1 ms
@@ -238,10 +238,10 @@ fn snapshot_round_trips() {
     assert_eq!(s.tested[1][0], (10, 10));
     assert_eq!(s.off_gate[1], 10);
     assert_eq!(s.upper_ppm[0], u32::MAX);
-    let mut buf = [0u8; SNAPSHOT_LEN];
-    assert_eq!(s.encode(&mut buf), Some(SNAPSHOT_LEN));
-    assert_eq!(Snapshot::decode(&buf), Some(s));
-    assert_eq!(Snapshot::decode(&buf[1..]), None);
+    let mut buf = [0u8; crate::formats::statistics::LEN];
+    assert_eq!(s.emit(&mut buf), Ok(buf.len()));
+    assert_eq!(Snapshot::parse(&buf), Ok(s));
+    assert!(Snapshot::parse(&buf[1..]).is_err());
 }
 
 #[test]

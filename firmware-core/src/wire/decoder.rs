@@ -5,7 +5,7 @@
 //! up on at once (counted as [`FrameError::Overlong`] when its delimiter arrives), so garbage on
 //! the line costs at most one frame and the decoder resynchronises at the next 0x00.
 
-use crate::frames::{decode_frame, Frame, FrameError, MAX_FRAME, MAX_RAW};
+use crate::formats::{decode_frame, Frame, FrameError, MAX_FRAME, MAX_RAW};
 
 /// Streaming decoder with fixed buffers (about 2.1 KiB: [`MAX_FRAME`] + [`MAX_RAW`] bytes).
 #[derive(Debug)]

@@ -15,14 +15,17 @@
 //! answers count as `unmatched` in [`AnswerErrors`](crate::AnswerErrors)), but both sides' keys
 //! may then differ.
 
-use super::codec::{
-    put_announce_fixed, put_varint, varint_len, AnswerEntry, AnswersView, Report, ANNOUNCE_FIXED,
-    FLAG_FINAL, MAX_ENTRIES,
-};
 use super::decoder::FrameDecoder;
 use super::seqwin::{SeqClass, SeqWindow};
 use super::{Reject, RejectCounts};
-use crate::frames::{seal_in_place, RecordType, HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
+use crate::formats::announce::{
+    emit_fixed, Report, FIXED_LEN as ANNOUNCE_FIXED, FLAG_FINAL, MAX_ENTRIES,
+};
+use crate::formats::answers::{AnswerEntry, AnswersView};
+use crate::formats::bytes::{varint_len, Writer};
+use crate::formats::framing::{
+    seal_in_place, RecordType, HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
+};
 use crate::gates::Basis;
 use crate::sift::{Announcement, Answer, Transmitter};
 use core::fmt;
@@ -338,7 +341,7 @@ where
             return;
         }
         let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
-        if put_announce_fixed(area, 0, 0, self.report, FLAG_FINAL).is_ok() {
+        if emit_fixed(area, 0, 0, self.report, FLAG_FINAL).is_ok() {
             self.emit(ANNOUNCE_FIXED);
         }
         if self.writer.flush().is_err() {
@@ -396,7 +399,7 @@ where
             d.copy_from_slice(s);
         }
         let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
-        let fixed = put_announce_fixed(area, self.batch_first, n as u16, self.report, 0);
+        let fixed = emit_fixed(area, self.batch_first, n as u16, self.report, 0);
         let rec = OpenFrame {
             seq: self.next_seq,
             start,
@@ -597,7 +600,14 @@ where
         if self.batch_n > 0 {
             let at = HEADER_LEN + ANNOUNCE_FIXED + self.batch_deltas;
             let area = self.raw.get_mut(at..).unwrap_or_default();
-            self.batch_deltas += put_varint(a.slot - self.batch_prev, area);
+            // `batch_fits` left room for this delta; a refusal here is counted, never dropped.
+            match Writer::new(area).varint(a.slot - self.batch_prev) {
+                Ok(n) => self.batch_deltas += n,
+                Err(_) => {
+                    self.counters.refused_announcements += 1;
+                    return;
+                }
+            }
         } else {
             self.batch_first = a.slot;
         }

@@ -1,7 +1,8 @@
-use super::codec::*;
 use super::endpoint::MAX_OPEN_FRAMES;
 use super::*;
-use crate::frames::{self, cobs, encode_frame, RecordType, MAX_FRAME, MAX_RAW};
+use crate::formats::announce::FLAG_FINAL;
+use crate::formats::{self, cobs, encode_frame, RecordType, MAX_FRAME, MAX_RAW};
+use crate::formats::{announce, answers};
 use crate::gates::Basis;
 use crate::sift::{Announcement, Answer, Transmitter};
 use proptest::prelude::*;
@@ -81,33 +82,6 @@ fn ann(slot: u64, x: bool) -> Announcement {
     }
 }
 
-// LEB128 examples of the DWARF 5 standard, Table 7.6 (quoted from memory).
-#[test]
-fn leb128_examples() {
-    let cases: [(u64, &[u8]); 7] = [
-        (2, &[0x02]),
-        (127, &[0x7F]),
-        (128, &[0x80, 0x01]),
-        (129, &[0x81, 0x01]),
-        (130, &[0x82, 0x01]),
-        (12857, &[0xB9, 0x64]),
-        (
-            u64::MAX,
-            &[0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x01],
-        ),
-    ];
-    for (v, bytes) in cases {
-        let mut b = [0u8; MAX_VARINT];
-        let n = put_varint(v, &mut b);
-        assert_eq!(&b[..n], bytes, "{v}");
-        assert_eq!(varint_len(v), n);
-        assert_eq!(get_varint(bytes, 0), Ok((v, n)));
-    }
-    // 2^64 does not fit: the tenth byte may only carry one bit.
-    let over = [0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0xFF, 0x02];
-    assert!(get_varint(&over, 0).is_err());
-}
-
 #[test]
 fn announce_and_answers_payloads_round_trip() {
     let entries = [
@@ -121,7 +95,7 @@ fn announce_and_answers_payloads_round_trip() {
         answered_map: 0b101,
     };
     let mut p = [0u8; 64];
-    let n = encode_announce(&entries, report, 0, &mut p).unwrap();
+    let n = announce::emit(&entries, report, 0, &mut p).unwrap();
     // 21 fixed + varints 1, 2, 6 + 1 bitmap byte
     assert_eq!(n, 21 + 1 + 2 + 6 + 1);
     let v = AnnounceView::parse(&p[..n]).unwrap();
@@ -145,7 +119,7 @@ fn announce_and_answers_payloads_round_trip() {
             bit: None,
         },
     ];
-    let n = encode_answers(3, 10, &e, &mut p).unwrap();
+    let n = answers::emit(3, 10, &e, &mut p).unwrap();
     let v = AnswersView::parse(&p[..n]).unwrap();
     assert_eq!((v.ann_seq, v.first_slot), (3, 10));
     assert_eq!(v.iter().collect::<Vec<_>>(), e);
@@ -185,7 +159,7 @@ fn decoder_resynchronises_after_garbage() {
     assert!(results[0].is_err());
     assert!(matches!(
         results[1],
-        Err(frames::FrameError::Overlong { .. })
+        Err(formats::FrameError::Overlong { .. })
     ));
     assert_eq!(results[2], Ok((5, vec![1, 2, 3])));
 }
@@ -208,7 +182,7 @@ fn answer_all(bytes: &[u8], seq0: u16, tx_basis: impl Fn(u64) -> Basis) -> Vec<u
             })
             .collect();
         let mut p = vec![0u8; 600];
-        let n = encode_answers(seq, v.first_slot, &e, &mut p).unwrap();
+        let n = answers::emit(seq, v.first_slot, &e, &mut p).unwrap();
         out.extend(frame_bytes(RecordType::Answers, seq0 + k as u16, &p[..n]));
     }
     out
@@ -279,9 +253,9 @@ fn endpoint_counts_every_kind_of_bad_answer() {
         intensity: 0,
         bit: None,
     }];
-    let n = encode_answers(9, 0, &e, &mut p).unwrap();
+    let n = answers::emit(9, 0, &e, &mut p).unwrap();
     d.extend(frame_bytes(RecordType::Answers, 1, &p[..n])); // never announced
-    let n = encode_answers(0, 0, &e, &mut p).unwrap();
+    let n = answers::emit(0, 0, &e, &mut p).unwrap();
     d.extend(frame_bytes(RecordType::Answers, 2, &p[..n])); // already answered
     d.extend(frame_bytes(RecordType::KeyBlock, 3, &[0; 4])); // wrong direction
     d.extend([0x42, 0x17, 0x00]); // line garbage, then a delimiter
@@ -311,7 +285,7 @@ fn endpoint_counts_every_kind_of_bad_answer() {
     // Answers whose echo of the first slot is wrong.
     l.flush();
     let f = frames_in(&drain(&up));
-    let n = encode_answers(f[0].1, 201, &e, &mut p).unwrap();
+    let n = answers::emit(f[0].1, 201, &e, &mut p).unwrap();
     down.0
         .borrow_mut()
         .extend(frame_bytes(RecordType::Answers, 20, &p[..n]));
@@ -465,10 +439,10 @@ proptest! {
     ) {
         let mut stream = Vec::new();
         for (seq, r) in recs.iter().enumerate() {
-            let mut p = vec![0u8; frames::MAX_PAYLOAD];
+            let mut p = vec![0u8; formats::MAX_PAYLOAD];
             let (t, n) = match r {
-                Rec::Ann(e, rep, f) => (RecordType::Announce, encode_announce(e, *rep, *f, &mut p).unwrap()),
-                Rec::Ans(s, f, e) => (RecordType::Answers, encode_answers(*s, *f, e, &mut p).unwrap()),
+                Rec::Ann(e, rep, f) => (RecordType::Announce, announce::emit(e, *rep, *f, &mut p).unwrap()),
+                Rec::Ans(s, f, e) => (RecordType::Answers, answers::emit(*s, *f, e, &mut p).unwrap()),
             };
             stream.extend(frame_bytes(t, seq as u16, &p[..n]));
         }
@@ -520,7 +494,7 @@ fn documented_example_frames() {
         answered_map: 0b1011,
     };
     let mut p = [0u8; 64];
-    let n = encode_announce(&entries, report, 0, &mut p).unwrap();
+    let n = announce::emit(&entries, report, 0, &mut p).unwrap();
     let a = frame_bytes(RecordType::Announce, 5, &p[..n]);
     let e = [
         AnswerEntry {
@@ -539,7 +513,7 @@ fn documented_example_frames() {
             bit: None,
         },
     ];
-    let n = encode_answers(5, 1000, &e, &mut p).unwrap();
+    let n = answers::emit(5, 1000, &e, &mut p).unwrap();
     let b = frame_bytes(RecordType::Answers, 9, &p[..n]);
     let unstuff = |f: &[u8]| {
         let mut raw = [0u8; 64];

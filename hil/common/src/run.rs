@@ -3,7 +3,7 @@
 
 use crate::transport::{AnswerRecord, AnswerSource, EventSource};
 use heapless::Deque;
-use slotwise::frames::Summary;
+use slotwise::Summary;
 use slotwise::{
     Announcement, Answer, FixedClock, FrameOut, FrameSink, Receiver, TdcEvent, Transmitter,
 };

@@ -24,7 +24,7 @@
 use core::fmt;
 use slotwise::clock::ClockError;
 use slotwise::fixed::types::{U0F32, U32F32};
-use slotwise::frames::crc32c;
+use slotwise::formats::crc32c;
 use slotwise::gates::{GateError, MAX_CHANNELS, MAX_GATES};
 use slotwise::timestamps::UnwrapConfigError;
 use slotwise::{

@@ -44,7 +44,7 @@ fn encoded() -> Vec<u8> {
 /// Recompute the CRC after editing a field (to reach the checks behind the CRC).
 fn reseal(b: &mut [u8]) {
     let n = b.len() - 4;
-    let crc = slotwise::frames::crc32c(&b[..n]).to_le_bytes();
+    let crc = slotwise::formats::crc32c(&b[..n]).to_le_bytes();
     b[n..].copy_from_slice(&crc);
 }
 

@@ -4,7 +4,7 @@
 //! transmitter's answer to each announcement. Captures of `slotwise simulate` come from
 //! `simulated`, synthetic ones from `synth`.
 
-use slotwise::frames::{self, RecordType, Summary};
+use slotwise::formats::{self, AlarmEvent, KeyBlock, RecordType, Snapshot, Summary};
 use slotwise::{Announcement, Answer, FrameSink, TdcEvent};
 use slotwise_hil::transport::encode_event;
 use slotwise_hil::{
@@ -139,29 +139,29 @@ pub fn split_frames(bytes: &[u8]) -> Vec<(usize, &[u8])> {
 /// Check every frame of a stream decodes; returns the summary record. Errors name the file,
 /// the frame and its byte offset.
 pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
-    let mut scratch = vec![0u8; frames::MAX_RAW + 8];
+    let mut scratch = vec![0u8; formats::MAX_RAW + 8];
     let mut summary = None;
     for (k, (offset, f)) in split_frames(bytes).into_iter().enumerate() {
-        let fr = frames::decode_frame(f, &mut scratch)
+        let fr = formats::decode_frame(f, &mut scratch)
             .map_err(|e| format!("{name}: frame {k} at byte {offset}: {e}"))?;
         match fr.record {
             RecordType::KeyBlock => {
-                frames::KeyBlock::parse(fr.payload)
+                KeyBlock::parse(fr.payload)
                     .map_err(|e| format!("{name}: key block {k} at byte {offset}: {e}"))?;
             }
             RecordType::Summary => {
                 summary = Some(
-                    Summary::decode(fr.payload)
+                    Summary::parse(fr.payload)
                         .map_err(|e| format!("{name}: summary {k} at byte {offset}: {e}"))?,
                 );
             }
             RecordType::Alarm => {
-                slotwise::alarms::AlarmEvent::decode(fr.payload)
-                    .ok_or_else(|| format!("{name}: alarm record {k} at byte {offset} invalid"))?;
+                AlarmEvent::parse(fr.payload)
+                    .map_err(|e| format!("{name}: alarm record {k} at byte {offset}: {e}"))?;
             }
             RecordType::Stats => {
-                slotwise::stats::Snapshot::decode(fr.payload)
-                    .ok_or_else(|| format!("{name}: stats record {k} at byte {offset} invalid"))?;
+                Snapshot::parse(fr.payload)
+                    .map_err(|e| format!("{name}: stats record {k} at byte {offset}: {e}"))?;
             }
             RecordType::Announce | RecordType::Answers => {
                 return Err(format!(

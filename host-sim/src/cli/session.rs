@@ -71,7 +71,7 @@ pub(super) fn finish_session(
         l.close();
     }
     let blocks = match key_out {
-        Some(p) => Some(tap.write(p, &slotwise::frames::Summary::of(&res.rx))?),
+        Some(p) => Some(tap.write(p, &slotwise::Summary::of(&res.rx))?),
         None => None,
     };
     let bits = std::mem::take(&mut tap.0.borrow_mut().bits);

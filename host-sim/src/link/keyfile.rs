@@ -3,8 +3,9 @@
 //! (`docs/frames.md`, file rules in `docs/wire-protocol.md`). `slotwise inspect` reads it back.
 
 use serde::Serialize;
-use slotwise::frames::{self, FrameOut, FrameSink, KeyBlock, RecordType, Summary, MAX_RAW};
+use slotwise::formats::{self, KeyBlock, RecordType, Summary, MAX_RAW};
 use slotwise::{Basis, KeySink, SiftedBit};
+use slotwise::{FrameOut, FrameSink};
 use std::cell::RefCell;
 use std::fmt;
 use std::path::Path;
@@ -142,7 +143,7 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
             continue;
         }
         let bad = |reason: String| BadFrame { offset, reason };
-        let f = match frames::decode_frame(piece, &mut scratch) {
+        let f = match formats::decode_frame(piece, &mut scratch) {
             Ok(f) => f,
             Err(e) => {
                 report
@@ -161,7 +162,7 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
                     let bits: Vec<_> = (0..usize::from(kb.n_bits))
                         .filter_map(|k| kb.get(k))
                         .collect();
-                    let count = |p: &dyn Fn(&frames::KeyBit) -> bool| {
+                    let count = |p: &dyn Fn(&formats::KeyBit) -> bool| {
                         bits.iter().filter(|b| p(b)).count() as u16
                     };
                     report.total_bits += u64::from(kb.n_bits);
@@ -179,7 +180,7 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
                     .bad_frames
                     .push(bad(format!("{name}: key block at byte {offset}: {e}"))),
             },
-            RecordType::Summary => match Summary::decode(f.payload) {
+            RecordType::Summary => match Summary::parse(f.payload) {
                 Ok(s) => report.summary = Some((s.sifted_bits, s.key_blocks)),
                 Err(e) => report
                     .bad_frames

@@ -5,8 +5,7 @@
 use crate::scenario::Scenario;
 use crate::sim::rng::{splitmix_at, stream_key, unit_f64};
 use crate::sim::TxChoices;
-use slotwise::frames::{encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
-use slotwise::wire::codec::encode_answers;
+use slotwise::formats::{answers, encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
 use slotwise::wire::{
     AnnounceView, AnswerEntry, FrameDecoder, Reject, RejectCounts, Report, SeqClass, SeqWindow,
 };
@@ -228,7 +227,7 @@ impl HostTransmitter {
             });
         }
         let mut p = vec![0u8; MAX_PAYLOAD];
-        let n = encode_answers(seq, v.first_slot, &entries, &mut p).ok()?;
+        let n = answers::emit(seq, v.first_slot, &entries, &mut p).ok()?;
         let m = encode_frame(
             RecordType::Answers,
             self.next_seq,
@@ -251,8 +250,8 @@ impl HostTransmitter {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use slotwise::frames::decode_frame;
-    use slotwise::wire::codec::{encode_announce, FLAG_FINAL};
+    use slotwise::formats::announce::{self, FLAG_FINAL};
+    use slotwise::formats::decode_frame;
     use slotwise::wire::AnswersView;
     use slotwise::Announcement;
 
@@ -262,7 +261,7 @@ mod tests {
             .map(|&(slot, basis)| Announcement { slot, basis })
             .collect();
         let mut p = vec![0u8; MAX_PAYLOAD];
-        let n = encode_announce(&a, report, flags, &mut p).unwrap();
+        let n = announce::emit(&a, report, flags, &mut p).unwrap();
         let (mut raw, mut out) = (vec![0u8; MAX_RAW], vec![0u8; MAX_FRAME]);
         let m = encode_frame(RecordType::Announce, seq, &p[..n], &mut raw, &mut out).unwrap();
         out.truncate(m);

@@ -26,7 +26,7 @@ mod files;
 use core::fmt::Write as _;
 use core::hint::black_box;
 use files::ShFile;
-use slotwise::frames::Summary;
+use slotwise::Summary;
 use slotwise::{
     Announcement, Answer, Basis, FrameSink, KeySink, Located, Lookup, NullSink, SlotClock,
     TdcEvent, Transmitter, Unwrapper,

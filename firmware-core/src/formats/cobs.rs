@@ -8,25 +8,52 @@
 //! After a full final block no empty trailer block is written (the variant shown in the usual
 //! worked examples); decoders accept both forms, so this costs nothing in compatibility.
 
-use super::FrameError;
+use core::fmt;
+
+/// Why bytes could not be stuffed or unstuffed.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum CobsError {
+    /// The output buffer is too small; `needed` bytes would do.
+    BufferTooSmall {
+        /// Bytes needed.
+        needed: usize,
+    },
+    /// A 0x00 inside the stuffed bytes, or a block running past their end.
+    Broken {
+        /// Byte offset in the stuffed bytes.
+        offset: usize,
+    },
+}
+
+impl fmt::Display for CobsError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::BufferTooSmall { needed } => write!(f, "buffer too small: {needed} bytes needed"),
+            Self::Broken { offset } => write!(f, "byte stuffing broken at stuffed byte {offset}"),
+        }
+    }
+}
+
+impl core::error::Error for CobsError {}
 
 /// Largest COBS encoding of `n` data bytes (without the 0x00 delimiter).
 pub const fn max_encoded_len(n: usize) -> usize {
     n + n / 254 + 1
 }
 
-fn put(dst: &mut [u8], at: usize, byte: u8, needed: usize) -> Result<(), FrameError> {
+fn put(dst: &mut [u8], at: usize, byte: u8, needed: usize) -> Result<(), CobsError> {
     match dst.get_mut(at) {
         Some(d) => {
             *d = byte;
             Ok(())
         }
-        None => Err(FrameError::BufferTooSmall { needed }),
+        None => Err(CobsError::BufferTooSmall { needed }),
     }
 }
 
 /// Encode `src` into `dst` (no delimiter); returns the encoded length in bytes.
-pub fn encode(src: &[u8], dst: &mut [u8]) -> Result<usize, FrameError> {
+pub fn encode(src: &[u8], dst: &mut [u8]) -> Result<usize, CobsError> {
     let needed = max_encoded_len(src.len());
     let mut code_at = 0usize;
     let mut out = 1usize;
@@ -56,24 +83,24 @@ pub fn encode(src: &[u8], dst: &mut [u8]) -> Result<usize, FrameError> {
 
 /// Decode one COBS record `src` (no delimiter) into `dst`; returns the decoded length in bytes.
 ///
-/// A 0x00 inside `src`, or a block running past its end, is a [`FrameError::Cobs`] at that offset.
-pub fn decode(src: &[u8], dst: &mut [u8]) -> Result<usize, FrameError> {
+/// A 0x00 inside `src`, or a block running past its end, is a [`CobsError::Broken`] at that offset.
+pub fn decode(src: &[u8], dst: &mut [u8]) -> Result<usize, CobsError> {
     let mut i = 0usize;
     let mut out = 0usize;
     while let Some(&code) = src.get(i) {
         if code == 0 {
-            return Err(FrameError::Cobs { offset: i });
+            return Err(CobsError::Broken { offset: i });
         }
         let n = usize::from(code) - 1;
         let block = src
             .get(i + 1..i + 1 + n)
-            .ok_or(FrameError::Cobs { offset: i })?;
+            .ok_or(CobsError::Broken { offset: i })?;
         if let Some(z) = block.iter().position(|&b| b == 0) {
-            return Err(FrameError::Cobs { offset: i + 1 + z });
+            return Err(CobsError::Broken { offset: i + 1 + z });
         }
         let needed = out + n + 1;
         dst.get_mut(out..out + n)
-            .ok_or(FrameError::BufferTooSmall { needed })?
+            .ok_or(CobsError::BufferTooSmall { needed })?
             .copy_from_slice(block);
         out += n;
         i += 1 + n;
@@ -170,20 +197,20 @@ mod tests {
         let mut out = [0u8; 16];
         assert_eq!(
             decode(&[0x03, 0x11, 0x00], &mut out),
-            Err(FrameError::Cobs { offset: 2 })
+            Err(CobsError::Broken { offset: 2 })
         );
         assert_eq!(
             decode(&[0x05, 0x11], &mut out),
-            Err(FrameError::Cobs { offset: 0 })
+            Err(CobsError::Broken { offset: 0 })
         );
         assert_eq!(
             decode(&[0x02, 0x11, 0x00], &mut out),
-            Err(FrameError::Cobs { offset: 2 })
+            Err(CobsError::Broken { offset: 2 })
         );
         let mut tiny = [0u8; 2];
         assert!(matches!(
             encode(&[1, 2, 3], &mut tiny),
-            Err(FrameError::BufferTooSmall { needed: 4 })
+            Err(CobsError::BufferTooSmall { needed: 4 })
         ));
     }
 
