@@ -7,6 +7,7 @@
 //!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch.
 
 mod capture;
+mod full;
 mod simulated;
 mod synth;
 
@@ -57,6 +58,10 @@ enum Cmd {
         /// Run directory to fill.
         #[arg(long)]
         out: PathBuf,
+        /// Inputs of the whole receiver (recovered clock with the marker, link endpoint,
+        /// monitor) instead of the configured clock's; needs a capture with `marker = true`.
+        #[arg(long, requires = "from")]
+        full: bool,
     },
     /// Compare the firmware's frames with the host's and print one JSON line.
     Compare {
@@ -144,7 +149,15 @@ fn main() -> ExitCode {
             name,
             slots,
             out,
-        } => prepare(from.as_deref(), synthetic, &name, slots, &out),
+            full,
+        } => match (full, from.as_deref()) {
+            (true, Some(path)) => full::prepare(path, &name, &out).and_then(|line| {
+                fs::write(out.join("host-summary.json"), format!("{line}\n"))
+                    .map(|()| true)
+                    .map_err(|e| format!("{}: {e}", out.display()))
+            }),
+            _ => prepare(from.as_deref(), synthetic, &name, slots, &out),
+        },
         Cmd::Compare {
             dir,
             target,
