@@ -339,3 +339,133 @@ fn write(
     }
     Ok(())
 }
+
+/// Instructions per part from the firmware's report, with the marks' own cost taken out:
+/// (part name, instructions).
+fn part_instructions(
+    report: &BTreeMap<String, String>,
+    per_count: f64,
+) -> Result<Vec<(&'static str, f64)>, String> {
+    let n = |k: &str| crate::num(report, k).map(|v| v as f64);
+    let own = n("mark_pair_own_counts_10000")? / 10_000.0;
+    let parent = n("mark_pair_parent_counts_10000")? / 10_000.0;
+    slotwise_hil::Part::ALL
+        .iter()
+        .map(|p| {
+            let k = |what: &str| n(&format!("part_{}_{what}", p.name()));
+            let net = k("counts")? - k("calls")? * own - k("nested")? * parent;
+            Ok((p.name(), net.max(0.0) * per_count))
+        })
+        .collect()
+}
+
+/// Compare a run of the whole receiver (`slotwise-hil-full`): every frame out and every announce
+/// frame byte for byte; prints one JSON line and says whether it passed.
+pub fn compare(
+    dir: &Path,
+    target: &str,
+    capture: &str,
+    flash: u64,
+    qemu_exit: i32,
+) -> Result<bool, String> {
+    let read = |name: &str| fs::read(dir.join(name)).map_err(|e| format!("{name}: {e}"));
+    let mut line = json!({
+        "target": target,
+        "capture": capture,
+        "qemu_exit": qemu_exit,
+        "flash_bytes": flash,
+        "clock": "recovered",
+        "marker": true,
+        "link": true,
+        "monitor": true,
+        "instructions_acquisition": Value::Null,
+    });
+    if qemu_exit != 0 {
+        line["error"] = json!(format!("firmware exited with code {qemu_exit}"));
+        println!("{line}");
+        return Ok(false);
+    }
+    let report = crate::read_report(&dir.join("report-fw.txt"))?;
+    let num = |k: &str| crate::num(&report, k);
+    let mismatches = |host: &[u8], fw: &[u8]| {
+        let (h, f) = (crate::split_frames(host), crate::split_frames(fw));
+        let bad = (0..h.len().max(f.len()))
+            .filter(|&i| h.get(i).map(|x| x.1) != f.get(i).map(|x| x.1))
+            .count();
+        (h.len(), f.len(), bad)
+    };
+    let (host, fw) = (read("frames-host.bin")?, read("frames-fw.bin")?);
+    let (hf, ff, bad_frames) = mismatches(&host, &fw);
+    let (host_a, fw_a) = (read("announce-host.bin")?, read("announce-fw.bin")?);
+    let (ha, fa, bad_announce) = mismatches(&host_a, &fw_a);
+    let host_summary = crate::check_stream("frames-host.bin", &host)?;
+    let decode_error = crate::check_stream("frames-fw.bin", &fw).err();
+    let detections = num("detections")?;
+    let per_count = num("calib_instructions")? as f64 / (num("calib_counts")? as f64).max(1.0);
+    let parts = part_instructions(&report, per_count)?;
+    let per_det = |v: f64| (v / detections.max(1) as f64 * 10.0).round() / 10.0;
+    let core: f64 = parts
+        .iter()
+        .zip(slotwise_hil::Part::ALL)
+        .filter(|(_, p)| p.is_core())
+        .map(|((_, v), _)| v)
+        .sum();
+    let shim: f64 = parts
+        .iter()
+        .filter(|(n, _)| *n == slotwise_hil::Part::Shim.name())
+        .map(|(_, v)| v)
+        .sum();
+    let problems = [
+        "link_rejected",
+        "link_read_errors",
+        "link_write_errors",
+        "shim_read_errors",
+        "frame_write_errors",
+        "frame_build_errors",
+    ]
+    .iter()
+    .map(|k| num(k))
+    .sum::<Result<u64, String>>()?;
+    let receiver = num("receiver_bytes")?;
+    let frame_out = num("frame_out_bytes")?;
+    line["detections"] = json!(detections);
+    line["frames"] = json!(ff);
+    line["host_frames"] = json!(hf);
+    line["mismatched_frames"] = json!(bad_frames);
+    line["announce_frames"] = json!(fa);
+    line["host_announce_frames"] = json!(ha);
+    line["mismatched_announce_frames"] = json!(bad_announce);
+    line["instructions_per_detection"] = json!(per_det(core));
+    line["instructions_per_detection_by_part"] = json!(parts
+        .iter()
+        .filter(|(n, v)| *n != slotwise_hil::Part::Shim.name() && *v > 0.0)
+        .map(|(n, v)| (n.to_string(), per_det(*v)))
+        .collect::<BTreeMap<_, _>>());
+    line["instructions_shim_per_detection"] = json!(per_det(shim));
+    line["instructions_per_count"] = json!((per_count * 1000.0).round() / 1000.0);
+    line["counter"] = json!(report.get("counter"));
+    line["ram_total_bytes"] = json!(num("ram_total_bytes")?);
+    line["ram_bytes"] = json!(receiver + frame_out);
+    line["receiver_bytes"] = json!(receiver);
+    line["recovered_clock_bytes"] = json!(num("clock_bytes")?);
+    line["link_bytes"] = json!(num("link_bytes")?);
+    line["monitor_bytes"] = json!(num("monitor_bytes")?);
+    line["frame_out_bytes"] = json!(frame_out);
+    line["sifted_bits"] = json!(num("sifted_bits")?);
+    line["alarm_frames"] = json!(num("alarm_frames")?);
+    line["stats_frames"] = json!(num("stats_frames")?);
+    line["aligned"] = json!(num("aligned")? == 1);
+    line["replay_problems"] = json!(problems);
+    if let Some(e) = &decode_error {
+        line["error"] = json!(e);
+    }
+    println!("{line}");
+    Ok(bad_frames == 0
+        && bad_announce == 0
+        && hf == ff
+        && ha == fa
+        && decode_error.is_none()
+        && problems == 0
+        && num("aligned")? == 1
+        && detections == host_summary.detections_in)
+}
