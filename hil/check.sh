@@ -147,7 +147,7 @@ for t in "${TARGETS[@]}"; do
   done
 done
 
-step "where the instructions go (default capture)"
+step "where the instructions go (default capture; whole receiver on default-full)"
 for t in "${TARGETS[@]}"; do
   d="$RUNS/$t-profile"
   rm -rf "$d" && mkdir -p "$d" && cp "$RUNS/default"/{setup.bin,events.bin} "$d/"
@@ -157,6 +157,15 @@ for t in "${TARGETS[@]}"; do
     "$HOST_TOOL" profile --dir "$d" --target "$t" ${full:+--full "$full"}
   else
     echo "$t: profile run failed" >&2; failures=$((failures + 1))
+  fi
+  # The whole receiver, part by part.
+  d="$RUNS/$t-profile-full"
+  rm -rf "$d" && mkdir -p "$d"
+  cp "$RUNS/default-full"/{setup.bin,board.bin,events.bin,answers-link.bin} "$d/"
+  if ./qemu-run.sh "$(profile_elf "$t")" "$d" >/dev/null 2>&1; then
+    "$HOST_TOOL" profile --dir "$d" --target "$t"
+  else
+    echo "$t: whole-receiver profile run failed" >&2; failures=$((failures + 1))
   fi
 done
 

@@ -469,3 +469,29 @@ pub fn compare(
         && num("aligned")? == 1
         && detections == host_summary.detections_in)
 }
+
+/// The profile firmware's whole-receiver breakdown as one JSON line: instructions per detection
+/// for each part (the core's parts, then the harness's shim and semihosting I/O).
+pub fn profile(dir: &Path, target: &str) -> Result<bool, String> {
+    let p = crate::read_report(&dir.join("profile-full-fw.txt"))?;
+    let n = |k: &str| crate::num(&p, k).map(|v| v as f64);
+    let per_count = n("calib_instructions")? / n("calib_counts")?.max(1.0);
+    let detections = n("detections")?.max(1.0);
+    let per_det = |v: f64| (v / detections * 10.0).round() / 10.0;
+    let parts = part_instructions(&p, per_count)?;
+    let mut line = json!({
+        "target": target,
+        "profile": "instructions per detection, whole receiver, default scenario with marker",
+    });
+    let mut core = 0.0;
+    for (name, v) in &parts {
+        line[*name] = json!(per_det(*v));
+        if *name != slotwise_hil::Part::Shim.name() {
+            core += v;
+        }
+    }
+    line["core_total"] = json!(per_det(core));
+    line["harness_semihosting_io"] = json!(per_det(n("io_excluded_counts")? * per_count));
+    println!("{line}");
+    Ok(true)
+}

@@ -275,6 +275,9 @@ fn flash_image_bytes(elf: &Path) -> Result<u64, String> {
 }
 
 fn profile(dir: &Path, target: &str, full: Option<f64>) -> Result<bool, String> {
+    if dir.join("profile-full-fw.txt").exists() {
+        return full::profile(dir, target);
+    }
     let p = read_report(&dir.join("profile-fw.txt"))?;
     let n = |k: &str| -> Result<f64, String> {
         let v = p
