@@ -32,6 +32,9 @@ mod exit;
 mod files;
 
 use core::fmt::Write as _;
+// The core logs through defmt when the feature is on; the logger is this binary's choice.
+#[cfg(feature = "defmt")]
+use defmt_semihosting as _;
 use files::ShFile;
 use slotwise::track::LockState;
 use slotwise_hil::board::BOARD_LEN;
