@@ -31,10 +31,11 @@ mod exit;
 #[path = "../files.rs"]
 mod files;
 
-use core::fmt::Write as _;
 // The core logs through defmt when the feature is on; the logger is this binary's choice.
 #[cfg(feature = "defmt")]
 use defmt_semihosting as _;
+
+use core::fmt::Write as _;
 use files::ShFile;
 use slotwise::track::LockState;
 use slotwise_hil::board::BOARD_LEN;
