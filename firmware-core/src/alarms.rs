@@ -162,6 +162,16 @@ impl AlarmConfig {
         self.min_tested
     }
 
+    /// Rate-collapse floor, ppm of the running level.
+    pub const fn rate_floor_ppm(&self) -> u32 {
+        self.rate_floor_ppm
+    }
+
+    /// Dead-time fraction at which a channel counts as saturated, ppm.
+    pub const fn saturation_ppm(&self) -> u32 {
+        self.saturation_ppm
+    }
+
     /// Upper bound in ppm of `k` errors in `n` tested bits (1e6 when n = 0).
     pub fn upper_ppm(&self, k: u64, n: u64) -> u32 {
         match self.bound {

@@ -394,7 +394,8 @@ pub fn model_qber(s: &Scenario) -> (f64, f64) {
     (out[0], out[1])
 }
 
-fn bucket_s(s: &Scenario) -> f64 {
+/// Time resolution of a session's series and monitor blocks: a fiftieth of the run, in s.
+pub fn bucket_s(s: &Scenario) -> f64 {
     (s.duration_s / 50.0).max(1e-6)
 }
 

@@ -7,7 +7,10 @@
 //! - [`transport`]: event and answer records, and the [`Transport`] a board implements over its
 //!   SPI / UART / USB streams (any `embedded-io` streams will do);
 //! - [`run`]: the loop itself, the replaying transmitter of the firmware and the recording
-//!   transmitter of the host.
+//!   transmitter of the host (the configured clock, answers as records);
+//! - [`full`]: the whole receiver as a board runs it — recovered clock with marker numbering,
+//!   the link endpoint over [`link`]'s shim, the monitor with its alarms — configured by the
+//!   [`board`] file; [`probe`] says which part of the board's work runs.
 #![cfg_attr(not(test), no_std)]
 #![cfg_attr(
     not(test),
@@ -21,10 +24,22 @@
 )]
 #![deny(missing_docs)]
 
+pub mod board;
+pub mod full;
+pub mod link;
+pub mod probe;
 pub mod run;
 pub mod setup;
 pub mod transport;
 
+pub use board::{BoardError, BoardSettings};
+pub use full::{
+    build_clock, build_numbering, build_receiver, ram_total_bytes, BoardClock, FullClock, FullLink,
+    FullMonitor, FullNumbering, FullReceiver, FullRun, FullTotals, LinkEnd, ProbedClock,
+    ProbedLink, ProbedNumbering,
+};
+pub use link::{AnnounceOut, AnswersIn, LinkShared, ANSWER_LAG_FRAMES};
+pub use probe::{Part, Probe};
 pub use run::{
     run, BoardFrameOut, BoardReceiver, Meter, NoMeter, RecordingTx, ReplayStats, ReplayTx,
     RunTotals, BLOCK, KEY_BITS, PENDING,

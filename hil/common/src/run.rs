@@ -3,6 +3,7 @@
 
 use crate::transport::{AnswerRecord, AnswerSource, EventSource};
 use heapless::Deque;
+use slotwise::sift::ANNOUNCE_BATCH;
 use slotwise::Summary;
 use slotwise::{
     Announcement, Answer, FixedClock, FrameOut, FrameSink, Receiver, TdcEvent, Transmitter,
@@ -41,7 +42,7 @@ impl Meter for NoMeter {
 /// announced slot.
 pub struct ReplayTx<A: AnswerSource> {
     answers: A,
-    queue: Deque<Answer, 4>,
+    queue: Deque<Answer, ANNOUNCE_BATCH>,
     stats: ReplayStats,
 }
 
@@ -132,7 +133,7 @@ impl<A: AnswerSource> Transmitter for ReplayTx<A> {
 pub struct RecordingTx<F: FnMut(Announcement) -> Answer, R: FnMut(AnswerRecord)> {
     answer: F,
     record: R,
-    pending: Option<Answer>,
+    pending: Deque<Answer, ANNOUNCE_BATCH>,
 }
 
 impl<F: FnMut(Announcement) -> Answer, R: FnMut(AnswerRecord)> RecordingTx<F, R> {
@@ -141,7 +142,7 @@ impl<F: FnMut(Announcement) -> Answer, R: FnMut(AnswerRecord)> RecordingTx<F, R>
         Self {
             answer,
             record,
-            pending: None,
+            pending: Deque::new(),
         }
     }
 }
@@ -150,11 +151,12 @@ impl<F: FnMut(Announcement) -> Answer, R: FnMut(AnswerRecord)> Transmitter for R
     fn announce(&mut self, a: Announcement) {
         let ans = (self.answer)(a);
         (self.record)(AnswerRecord::of(&ans));
-        self.pending = Some(ans);
+        // The receiver announces at most one batch before it polls.
+        let _ = self.pending.push_back(ans);
     }
 
     fn poll_answer(&mut self) -> Option<Answer> {
-        self.pending.take()
+        self.pending.pop_front()
     }
 }
 

@@ -123,14 +123,15 @@ pub struct Setup {
     pub squash_seed: u64,
 }
 
-struct Writer<'a> {
-    out: &'a mut [u8],
-    at: usize,
-    ok: bool,
+/// Bytes into a buffer; an overrun clears `ok` instead of panicking.
+pub(crate) struct Writer<'a> {
+    pub(crate) out: &'a mut [u8],
+    pub(crate) at: usize,
+    pub(crate) ok: bool,
 }
 
 impl Writer<'_> {
-    fn put(&mut self, bytes: &[u8]) {
+    pub(crate) fn put(&mut self, bytes: &[u8]) {
         match self.out.get_mut(self.at..self.at + bytes.len()) {
             Some(d) => d.copy_from_slice(bytes),
             None => self.ok = false,
@@ -139,13 +140,14 @@ impl Writer<'_> {
     }
 }
 
-struct Reader<'a> {
-    bytes: &'a [u8],
-    at: usize,
+/// Little-endian fields out of a byte slice; errors name the field and its offset.
+pub(crate) struct Reader<'a> {
+    pub(crate) bytes: &'a [u8],
+    pub(crate) at: usize,
 }
 
 impl<'a> Reader<'a> {
-    fn take(&mut self, n: usize, field: &'static str) -> Result<&'a [u8], SetupError> {
+    pub(crate) fn take(&mut self, n: usize, field: &'static str) -> Result<&'a [u8], SetupError> {
         let b = self
             .bytes
             .get(self.at..self.at + n)
@@ -156,21 +158,24 @@ impl<'a> Reader<'a> {
         self.at += n;
         Ok(b)
     }
-    fn u8(&mut self, field: &'static str) -> Result<u8, SetupError> {
+    pub(crate) fn u8(&mut self, field: &'static str) -> Result<u8, SetupError> {
         Ok(self.take(1, field)?.first().copied().unwrap_or(0))
     }
-    fn arr<const N: usize>(&mut self, field: &'static str) -> Result<[u8; N], SetupError> {
+    pub(crate) fn arr<const N: usize>(
+        &mut self,
+        field: &'static str,
+    ) -> Result<[u8; N], SetupError> {
         let mut a = [0u8; N];
         a.copy_from_slice(self.take(N, field)?);
         Ok(a)
     }
-    fn u32(&mut self, field: &'static str) -> Result<u32, SetupError> {
+    pub(crate) fn u32(&mut self, field: &'static str) -> Result<u32, SetupError> {
         Ok(u32::from_le_bytes(self.arr(field)?))
     }
-    fn u64(&mut self, field: &'static str) -> Result<u64, SetupError> {
+    pub(crate) fn u64(&mut self, field: &'static str) -> Result<u64, SetupError> {
         Ok(u64::from_le_bytes(self.arr(field)?))
     }
-    fn bad(&self, len: usize, field: &'static str) -> SetupError {
+    pub(crate) fn bad(&self, len: usize, field: &'static str) -> SetupError {
         SetupError::BadField {
             offset: self.at - len,
             field,

@@ -1,3 +1,4 @@
+use crate::link::{AnnounceOut, AnswersIn};
 use crate::setup::MAX_SETUP_LEN;
 use crate::transport::{decode_event, encode_event, RecordReader, ANSWER_LEN, NOT_REVEALED};
 use crate::*;
@@ -185,4 +186,94 @@ fn replay_counts_a_slot_mismatch_and_withholds_the_answer() {
     });
     let s = *tx.stats();
     assert_eq!((s.announced, s.mismatched, s.missing), (3, 1, 1));
+}
+
+fn board() -> BoardSettings {
+    use slotwise::{AcquireParams, AlarmConfig, LinkConfig, TrackParams};
+    let mut acquire = AcquireParams::new(U32F32::from_num(9999.63), 500);
+    acquire.work_per_call = 4096;
+    BoardSettings {
+        acquire,
+        track: TrackParams::new(2_000, 80_000, 1_000_000_000),
+        reacquire_ppm: 20,
+        hint_t_ps: 1_000_000_000,
+        hint_tx_slot: 130_000,
+        link: LinkConfig::new(1_000_000, 5_000).unwrap(),
+        block_ps: 2_000_000_000,
+        dead_time_ps: 40_000,
+        alarms: AlarmConfig::DEFAULT,
+    }
+}
+
+#[test]
+fn board_file_round_trip_and_refusals() {
+    use crate::board::{BOARD_LEN, BOARD_MAGIC};
+    let mut b = [0u8; BOARD_LEN];
+    assert_eq!(board().encode(&mut b), Ok(BOARD_LEN));
+    assert_eq!(&b[..4], &BOARD_MAGIC);
+    // Offsets from the layout table in board.rs.
+    assert_eq!(
+        u64::from_le_bytes(b[75..83].try_into().unwrap()),
+        1_000_000_000
+    );
+    assert_eq!(u64::from_le_bytes(b[115..123].try_into().unwrap()), 40_000);
+    assert_eq!(BoardSettings::decode(&b), Ok(board()));
+    let mut bad = b;
+    bad[20] ^= 1;
+    assert!(matches!(
+        BoardSettings::decode(&bad),
+        Err(BoardError::Layout(SetupError::BadCrc { offset: 153 }))
+    ));
+    // A zero answer timeout is refused by the core's link configuration.
+    let mut bad = b;
+    bad[91..99].copy_from_slice(&0u64.to_le_bytes());
+    reseal(&mut bad);
+    assert!(matches!(
+        BoardSettings::decode(&bad),
+        Err(BoardError::Link(_))
+    ));
+    assert!(BoardSettings::decode(&b[..100]).is_err());
+}
+
+fn answers_record(index: u32, frame: &[u8]) -> Vec<u8> {
+    let mut r = index.to_le_bytes().to_vec();
+    r.extend_from_slice(frame);
+    r
+}
+
+#[test]
+fn an_answers_frame_is_readable_after_its_announce_frame_and_the_lag() {
+    use embedded_io::{Read, ReadReady, Write};
+    let shared = LinkShared::new(Probe::NONE);
+    let mut stream = answers_record(0, &[5, 6, 7, 0]);
+    stream.extend(answers_record(1, &[8, 0]));
+    let mut rd = AnswersIn::new(&stream[..], &shared);
+    let mut sink = [0u8; 64];
+    let mut wr = AnnounceOut::new(&mut sink[..], &shared);
+    let mut buf = [0u8; 16];
+    for written in 0..=ANSWER_LAG_FRAMES {
+        assert!(!rd.read_ready().unwrap(), "after {written} announce frames");
+        assert_eq!(rd.read(&mut buf).unwrap(), 0);
+        // One announce frame, written in two pieces: counted once, at its delimiter.
+        wr.write_all(&[1, 2]).unwrap();
+        wr.write_all(&[3, 0]).unwrap();
+    }
+    assert_eq!(shared.announce_frames(), ANSWER_LAG_FRAMES + 1);
+    assert!(rd.read_ready().unwrap());
+    // Never past the frame's delimiter, even with room for more.
+    assert_eq!(rd.read(&mut buf).unwrap(), 4);
+    assert_eq!(&buf[..4], &[5, 6, 7, 0]);
+    assert!(!rd.read_ready().unwrap());
+    // At the end of input the rest arrives at once.
+    shared.end_of_input();
+    assert_eq!(rd.read(&mut buf).unwrap(), 2);
+    assert_eq!(rd.read(&mut buf).unwrap(), 0);
+    assert!(rd.idle());
+}
+
+#[test]
+fn end_of_input_never_releases_answers_to_an_announce_frame_not_yet_written() {
+    let shared = LinkShared::new(Probe::NONE);
+    shared.end_of_input();
+    assert!(!shared.released(0));
 }

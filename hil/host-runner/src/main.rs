@@ -7,6 +7,7 @@
 //!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch.
 
 mod capture;
+mod full;
 mod simulated;
 mod synth;
 
@@ -57,6 +58,10 @@ enum Cmd {
         /// Run directory to fill.
         #[arg(long)]
         out: PathBuf,
+        /// Inputs of the whole receiver (recovered clock with the marker, link endpoint,
+        /// monitor) instead of the configured clock's; needs a capture with `marker = true`.
+        #[arg(long, requires = "from")]
+        full: bool,
     },
     /// Compare the firmware's frames with the host's and print one JSON line.
     Compare {
@@ -144,7 +149,15 @@ fn main() -> ExitCode {
             name,
             slots,
             out,
-        } => prepare(from.as_deref(), synthetic, &name, slots, &out),
+            full,
+        } => match (full, from.as_deref()) {
+            (true, Some(path)) => full::prepare(path, &name, &out).and_then(|line| {
+                fs::write(out.join("host-summary.json"), format!("{line}\n"))
+                    .map(|()| true)
+                    .map_err(|e| format!("{}: {e}", out.display()))
+            }),
+            _ => prepare(from.as_deref(), synthetic, &name, slots, &out),
+        },
         Cmd::Compare {
             dir,
             target,
@@ -262,6 +275,9 @@ fn flash_image_bytes(elf: &Path) -> Result<u64, String> {
 }
 
 fn profile(dir: &Path, target: &str, full: Option<f64>) -> Result<bool, String> {
+    if dir.join("profile-full-fw.txt").exists() {
+        return full::profile(dir, target);
+    }
     let p = read_report(&dir.join("profile-fw.txt"))?;
     let n = |k: &str| -> Result<f64, String> {
         let v = p
@@ -304,13 +320,20 @@ fn compare(
     qemu_exit: i32,
 ) -> Result<bool, String> {
     let read = |name: &str| fs::read(dir.join(name)).map_err(|e| format!("{name}: {e}"));
-    let host = read("frames-host.bin")?;
     let flash = flash_image_bytes(elf)?;
+    if dir.join("board.bin").exists() {
+        return full::compare(dir, target, capture, flash, qemu_exit);
+    }
+    let host = read("frames-host.bin")?;
     let mut line = json!({
         "target": target,
         "capture": capture,
         "qemu_exit": qemu_exit,
         "flash_bytes": flash,
+        "clock": "reference",
+        "marker": false,
+        "link": false,
+        "monitor": false,
         "instructions_acquisition": Value::Null,
     });
     if qemu_exit != 0 {
@@ -364,6 +387,9 @@ fn compare(
     line["instructions_per_count"] = json!((per_count * 1000.0).round() / 1000.0);
     line["counter"] = json!(report.get("counter"));
     line["ram_bytes"] = json!(receiver + frame_out);
+    // Everything the board holds: the receiver, the frame writer and the event block (the
+    // replaying transmitter stands in for a link and is not counted).
+    line["ram_total_bytes"] = json!(receiver + frame_out + num(&report, "event_buffer_bytes")?);
     line["receiver_bytes"] = json!(receiver);
     line["frame_out_bytes"] = json!(frame_out);
     line["sifted_bits"] = json!(num(&report, "sifted_bits")?);

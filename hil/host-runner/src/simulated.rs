@@ -11,17 +11,28 @@ use crate::capture::Capture;
 use slotwise::{Answer, GateTable, OverflowPolicy, UnwrapConfig};
 use slotwise_hil::Setup;
 use slotwise_sim::capture::read_all;
-use slotwise_sim::cli::{receiver_setup, ClockArgs};
+use slotwise_sim::cli::{receiver_setup_for, ClockArgs};
 use slotwise_sim::clocks::ClockMode;
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::{clock_truth, receiver_gates, TxChoices};
 use std::path::Path;
+
+/// Prior of the recovered clock's cold search, ±ppm (the simulator's default).
+pub const PRIOR_PPM: u32 = 500;
 
 /// Squashing-rule seed of the simulator's host replay: the scenario seed xor this.
 const SQUASH_SEED_XOR: u64 = 0x5351_5541_5348;
 
 /// The receiver setup of a scenario, with the scenario's true clock (`--clock reference`).
 pub fn setup(s: &Scenario, source: &str) -> Result<Setup, String> {
+    setup_for(s, source, false)
+}
+
+/// The receiver setup as the simulator's host replay builds it: answers handed over directly
+/// (`framed = false`, checked against `--clock reference`), or over the framed link, where the
+/// link endpoint decides when answers expire (`framed = true`, checked against the recovered
+/// clock's setup). The period and origin are the scenario's true clock either way.
+pub fn setup_for(s: &Scenario, source: &str, framed: bool) -> Result<Setup, String> {
     let (delays, gates) = receiver_gates(s);
     let gates = GateTable::new(&delays, &gates)
         .map_err(|e| format!("{source}: scenario gate table: {e}"))?;
@@ -36,17 +47,26 @@ pub fn setup(s: &Scenario, source: &str) -> Result<Setup, String> {
         origin_ps: truth.origin_ps_unwrapped,
         intensities: u8::try_from(s.intensities.len())
             .map_err(|_| format!("{source}: scenario field intensities: too many classes"))?,
-        // As the simulator's host replay (`slotwise_sim::cli::receiver_setup`): 10 ms of slots.
-        answer_timeout_slots: (s.rep_rate_hz * 0.01).max(1.0) as u64,
+        // As the simulator's host replay (`slotwise_sim::cli::receiver_setup_for`): 10 ms of
+        // slots, or the link's decision backed by a timeout that never fires first.
+        answer_timeout_slots: if framed {
+            u64::MAX / 4
+        } else {
+            (s.rep_rate_hz * 0.01).max(1.0) as u64
+        },
         overflow: OverflowPolicy::DropNewest,
         squash_seed: s.seed ^ SQUASH_SEED_XOR,
     };
     // The same receiver the simulator's own replay builds, field for field.
     let args = ClockArgs {
-        clock: ClockMode::Reference,
-        prior_ppm: 500,
+        clock: if framed {
+            ClockMode::Recovered
+        } else {
+            ClockMode::Reference
+        },
+        prior_ppm: PRIOR_PPM,
     };
-    let (cfg, _) = receiver_setup(s, &args).map_err(|e| format!("{source}: {e}"))?;
+    let (cfg, _) = receiver_setup_for(s, &args, framed).map_err(|e| format!("{source}: {e}"))?;
     let ours = setup
         .receiver_config()
         .map_err(|e| format!("{source}: {e}"))?;
@@ -108,7 +128,7 @@ pub const ACQUIRE_LEN: usize = 40;
 /// bandwidth mHz u32, signal rate per s u64, blackout ps u64, reacquisition prior ppm u32.
 pub fn acquire_params(s: &Scenario) -> [u8; ACQUIRE_LEN] {
     use slotwise_sim::clocks::{recovered_params, REACQUIRE_PPM};
-    let (a, t) = recovered_params(s, 500);
+    let (a, t) = recovered_params(s, PRIOR_PPM);
     let mut out = [0u8; ACQUIRE_LEN];
     let fields: [&[u8]; 7] = [
         &a.nominal_period_ps.to_bits().to_le_bytes(),

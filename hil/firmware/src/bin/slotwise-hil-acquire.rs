@@ -40,11 +40,11 @@ type AcqClock = RecoveredClock<2048, 8, 2>;
 const ACQUIRE_LEN: usize = 40;
 
 /// Answers at once, in RAM (the answers do not reach the clock).
-struct EchoTx(Option<Answer>);
+struct EchoTx(heapless::Deque<Answer, { slotwise::sift::ANNOUNCE_BATCH }>);
 
 impl Transmitter for EchoTx {
     fn announce(&mut self, a: Announcement) {
-        self.0 = Some(Answer {
+        let _ = self.0.push_back(Answer {
             slot: a.slot,
             basis: Basis::Z,
             intensity: 0,
@@ -52,7 +52,7 @@ impl Transmitter for EchoTx {
         });
     }
     fn poll_answer(&mut self) -> Option<Answer> {
-        self.0.take()
+        self.0.pop_front()
     }
 }
 
@@ -110,7 +110,7 @@ fn acquire() -> Result<(), i32> {
     let pattern = ArrivalPattern::from_gates(cfg.gates());
     let clock = AcqClock::new(clock_config(&a)?, pattern).map_err(|_| exit::SETUP)?;
     let mut rx: Receiver<AcqClock, PENDING> = Receiver::new(cfg, clock);
-    let mut tx = EchoTx(None);
+    let mut tx = EchoTx(heapless::Deque::new());
 
     let file = ShFile::open(c"events.bin").map_err(|_| exit::IO)?;
     let mut events = IoEvents::new(file);

@@ -5,6 +5,11 @@
 //! Stage by stage through the core's public API: counter unwrapping; delay and slot location;
 //! gate lookup; the whole receiver with an in-RAM transmitter and no key sink; the same with the
 //! frame writer; the difference to the full HIL run is the answer replay's own cost.
+//!
+//! With `board.bin` in the run directory (a run of `slotwise-hil-full`) it profiles the whole
+//! receiver instead: the shared driver with its clock and link endpoint wrapped so that every
+//! call is charged to its part (clock, link endpoint, the rest of the receiver, the monitor), the
+//! harness's transport shim and semihosting I/O kept apart; writes `profile-full-fw.txt`.
 
 #![no_std]
 #![no_main]
@@ -18,10 +23,16 @@ mod arch;
 #[path = "../arch_riscv.rs"]
 #[allow(dead_code)]
 mod arch;
+#[path = "../attrib.rs"]
+mod attrib;
 #[path = "../exit.rs"]
 mod exit;
 #[path = "../files.rs"]
 mod files;
+
+// The core logs through defmt when the feature is on; the logger is this binary's choice.
+#[cfg(feature = "defmt")]
+use defmt_semihosting as _;
 
 use core::fmt::Write as _;
 use core::hint::black_box;
@@ -31,14 +42,19 @@ use slotwise::{
     Announcement, Answer, Basis, FrameSink, KeySink, Located, Lookup, NullSink, SlotClock,
     TdcEvent, Transmitter, Unwrapper,
 };
-use slotwise_hil::{BoardFrameOut, BoardReceiver, EventSource, IoEvents, Setup, BLOCK};
+use slotwise_hil::board::BOARD_LEN;
+use slotwise_hil::{
+    build_clock, build_numbering, AnnounceOut, AnswersIn, BoardFrameOut, BoardReceiver,
+    BoardSettings, EventSource, FullLink, FullMonitor, IoEvents, LinkShared, ProbedClock,
+    ProbedLink, ProbedNumbering, Setup, BLOCK, PENDING,
+};
 
 /// Answers at once, in RAM: Z basis, signal, bit kept secret.
-struct EchoTx(Option<Answer>);
+struct EchoTx(heapless::Deque<Answer, { slotwise::sift::ANNOUNCE_BATCH }>);
 
 impl Transmitter for EchoTx {
     fn announce(&mut self, a: Announcement) {
-        self.0 = Some(Answer {
+        let _ = self.0.push_back(Answer {
             slot: a.slot,
             basis: if a.slot & 7 == 0 { Basis::X } else { Basis::Z },
             intensity: 0,
@@ -46,7 +62,7 @@ impl Transmitter for EchoTx {
         });
     }
     fn poll_answer(&mut self) -> Option<Answer> {
-        self.0.take()
+        self.0.pop_front()
     }
 }
 
@@ -87,7 +103,8 @@ fn for_each_block(mut f: impl FnMut(&[TdcEvent])) -> Result<u64, i32> {
 #[arch::entry]
 fn main() -> ! {
     arch::init_counter();
-    let code = match read_setup().and_then(|s| profile(&s)) {
+    let whole = ShFile::open(c"board.bin").is_ok();
+    let code = match read_setup().and_then(|s| if whole { profile_full(&s) } else { profile(&s) }) {
         Ok(()) => exit::OK,
         Err(code) => code,
     };
@@ -143,7 +160,7 @@ fn profile(setup: &Setup) -> Result<(), i32> {
     let clock0 = setup.clock().map_err(|_| exit::SETUP)?;
     let mut receiver = 0u64;
     let mut rx = BoardReceiver::new(cfg, clock0);
-    let mut tx = EchoTx(None);
+    let mut tx = EchoTx(heapless::Deque::new());
     for_each_block(|block| {
         measured(&mut receiver, || {
             rx.push_block(block, &mut tx, &mut NullSink)
@@ -204,4 +221,95 @@ fn profile(setup: &Setup) -> Result<(), i32> {
     ShFile::create(c"profile-fw.txt")
         .and_then(|mut f| f.write_all_bytes(r.as_bytes()))
         .map_err(|_| exit::REPORT)
+}
+
+/// The whole receiver through the shared driver, each part charged on its own.
+fn profile_full(setup: &Setup) -> Result<(), i32> {
+    let mut b = [0u8; BOARD_LEN + 1];
+    let n = ShFile::open(c"board.bin")
+        .and_then(|mut f| f.read_all(&mut b))
+        .map_err(|_| exit::SETUP)?;
+    let board = BoardSettings::decode(b.get(..n).unwrap_or(&[])).map_err(|_| exit::SETUP)?;
+    let cfg = setup.receiver_config().map_err(|_| exit::SETUP)?;
+    let stats = board.stats_config(cfg.gates()).map_err(|_| exit::SETUP)?;
+    let clock = ProbedClock {
+        inner: build_clock(setup, &board).map_err(|_| exit::SETUP)?,
+        probe: attrib::PROBE,
+    };
+    let open = |name: &core::ffi::CStr| ShFile::open(name).map_err(|_| exit::IO);
+    let mut events = IoEvents::new(open(c"events.bin")?);
+    let mut out = BoardFrameOut::new(NullFrames);
+    let numbering = ProbedNumbering {
+        inner: build_numbering().map_err(|_| exit::SETUP)?,
+        probe: attrib::PROBE,
+    };
+    let mut rx: slotwise::Receiver<_, PENDING, _> =
+        slotwise::Receiver::with_numbering(cfg, clock, numbering);
+    let mut monitor = FullMonitor::new(stats, board.alarms);
+    let shared = LinkShared::new(attrib::PROBE);
+    let mut link = ProbedLink {
+        inner: FullLink::new(
+            board.link,
+            AnswersIn::new(open(c"answers-link.bin")?, &shared),
+            AnnounceOut::new(NullWriter, &shared),
+        ),
+        probe: attrib::PROBE,
+    };
+    let (calib_instructions, calib_counts) = arch::calibrate();
+    let (mark_own, mark_parent) = attrib::calibrate(10_000);
+    let io_before = files::excluded();
+    let totals = slotwise_hil::FullRun {
+        rx: &mut rx,
+        link: &mut link,
+        monitor: &mut monitor,
+        out: &mut out,
+        probe: attrib::PROBE,
+    }
+    .run(&mut events, board.hint_t_ps, board.hint_tx_slot)
+    .map_err(|_| exit::IO)?;
+    let io = files::excluded() - io_before;
+    black_box(out.key_blocks());
+
+    let mut r: heapless::String<2048> = heapless::String::new();
+    let mut ok = writeln!(r, "counter {}", arch::COUNTER).is_ok();
+    for (name, counts, calls, nested) in attrib::totals() {
+        ok &= writeln!(r, "part_{name}_counts {counts}").is_ok();
+        ok &= writeln!(r, "part_{name}_calls {calls}").is_ok();
+        ok &= writeln!(r, "part_{name}_nested {nested}").is_ok();
+    }
+    let rows: [(&str, u64); 7] = [
+        ("calib_instructions", calib_instructions),
+        ("calib_counts", calib_counts),
+        ("detections", totals.detections),
+        ("sifted_bits", rx.sifted_bits()),
+        ("io_excluded_counts", io),
+        ("mark_pair_own_counts_10000", mark_own),
+        ("mark_pair_parent_counts_10000", mark_parent),
+    ];
+    for (k, v) in rows {
+        ok &= writeln!(r, "{k} {v}").is_ok();
+    }
+    if !ok {
+        return Err(exit::REPORT);
+    }
+    ShFile::create(c"profile-full-fw.txt")
+        .and_then(|mut f| f.write_all_bytes(r.as_bytes()))
+        .map_err(|_| exit::REPORT)
+}
+
+/// Announce frames dropped in RAM (the transmitter's side is the prepared answers file).
+struct NullWriter;
+
+impl embedded_io::ErrorType for NullWriter {
+    type Error = core::convert::Infallible;
+}
+
+impl embedded_io::Write for NullWriter {
+    fn write(&mut self, buf: &[u8]) -> Result<usize, Self::Error> {
+        black_box(buf);
+        Ok(buf.len())
+    }
+    fn flush(&mut self) -> Result<(), Self::Error> {
+        Ok(())
+    }
 }
