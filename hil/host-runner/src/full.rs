@@ -12,14 +12,14 @@
 use crate::capture::VecFrames;
 use crate::simulated::{self, PRIOR_PPM};
 use serde_json::{json, Value};
-use slotwise::frames::Summary;
 use slotwise::wire::LinkConfig;
+use slotwise::Summary;
 use slotwise::TdcEvent;
 use slotwise_hil::board::BOARD_LEN;
 use slotwise_hil::transport::encode_event;
 use slotwise_hil::{
     build_receiver, AnnounceOut, AnswersIn, BoardFrameOut, BoardSettings, EventSource, FullLink,
-    FullMonitor, FullReceiver, FullRun, FullTotals, LinkShared, Probe, Setup,
+    FullMonitor, FullRun, FullTotals, LinkShared, Probe, Setup,
 };
 use slotwise_sim::capture::read_all;
 use slotwise_sim::clocks::{recovered_params, simulated_hint, REACQUIRE_PPM};
@@ -239,7 +239,7 @@ fn run(
         }
     };
     let summary = Summary::of(&*rx);
-    let aligned = rx.clock().aligned();
+    let aligned = rx.numbering().aligned();
     let out = *out;
     Ok(HostFull {
         frames: out.into_sink(),
