@@ -10,17 +10,16 @@
 use crate::board::{BoardError, BoardSettings};
 use crate::link::{AnnounceOut, AnswersIn};
 use crate::probe::{Part, Probe};
-use crate::run::{BoardFrameOut, BLOCK, KEY_BITS, PENDING};
+use crate::run::{BoardFrameOut, BLOCK, KEY_BITS};
 use crate::transport::EventSource;
 use crate::Setup;
 use embedded_io::{Read, Write};
 use slotwise::acquire::fold::ArrivalPattern;
 use slotwise::formats::{alarm, statistics};
-use slotwise::stats::DEFAULT_BLOCKS;
 use slotwise::{
-    Announcement, Answer, FrameConfig, FrameSink, Located, MarkerNumbering, Monitor, Numbered,
-    Numbering, Receiver, ReceiverLink, RecordType, RecoveredClock, SlotClock, Summary, TdcEvent,
-    Transmitter,
+    Announcement, Answer, Fate, FrameConfig, FrameSink, Located, MarkerNumbering, Monitor,
+    Numbered, Numbering, Receiver, ReceiverLink, RecordType, RecoveredClock, SlotClock, Summary,
+    TdcEvent, Transmitter,
 };
 
 /// The recovered clock with the host replay's capacities: 2048 stored detections, 8 candidates,
@@ -31,16 +30,23 @@ pub type FullClock = FullRecovered;
 /// The board's numbering: the public marker and the classical channel's hint.
 pub type FullNumbering = MarkerNumbering;
 /// The whole receiver's pipeline.
-pub type FullReceiver = Receiver<FullClock, PENDING, FullNumbering>;
+pub type FullReceiver = Receiver<FullClock, FULL_PENDING, FullNumbering>;
+/// Detected slots waiting for answers on the board: one batch being filled
+/// ([`slotwise::sift::ANNOUNCE_BATCH`]) and the announce frames in flight (the answers to frame
+/// k arrive after frame k + 2 is sent: three frames of [`LINK_BATCH`]), with a batch to spare.
+pub const FULL_PENDING: usize = 5 * slotwise::sift::ANNOUNCE_BATCH;
 /// Announcements per announce frame.
-pub const LINK_BATCH: usize = 64;
+pub const LINK_BATCH: usize = slotwise::sift::ANNOUNCE_BATCH;
 /// Announced slots the endpoint keeps until their answers arrive or expire.
-pub const LINK_OUT: usize = 512;
+pub const LINK_OUT: usize = FULL_PENDING;
 /// The link endpoint over the HIL's shim.
 pub type FullLink<'a, R, W> =
     ReceiverLink<AnswersIn<'a, R>, AnnounceOut<'a, W>, LINK_BATCH, LINK_OUT>;
 /// The live-statistics monitor (the host session's window).
-pub type FullMonitor = Monitor<DEFAULT_BLOCKS>;
+pub type FullMonitor = Monitor<MONITOR_BLOCKS>;
+/// Blocks in the monitor's sliding window on the board (the host keeps
+/// [`slotwise::stats::DEFAULT_BLOCKS`]).
+pub const MONITOR_BLOCKS: usize = 4;
 
 /// Bytes of everything the board holds for the whole receiver: receiver with its clock, link
 /// endpoint with its buffers, monitor, frame writer and the event block.
@@ -114,12 +120,15 @@ pub struct FullTotals {
     pub alarm_frames: u64,
     /// Statistics records written.
     pub stats_frames: u64,
+    /// Detections taken in before the steady state (the first detection that reached the sifter:
+    /// clock locked, slots numbered); `None` if it was never reached.
+    pub steady_from: Option<u64>,
 }
 
 /// The board's state for one run, borrowed.
 pub struct FullRun<'r, C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> {
     /// The receiver.
-    pub rx: &'r mut Receiver<C, PENDING, N>,
+    pub rx: &'r mut Receiver<C, FULL_PENDING, N>,
     /// The transmitter: the link endpoint.
     pub link: &'r mut T,
     /// The monitor.
@@ -189,7 +198,7 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
             if n == 0 {
                 break;
             }
-            for &ev in buf.iter().take(n) {
+            for (seen, &ev) in buf.iter().take(n).enumerate() {
                 let (tr, locked) = {
                     let _r = self.probe.part(Part::Receiver);
                     let tr =
@@ -197,6 +206,10 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
                             .push(ev, &mut *self.link, &mut self.monitor.tap(&mut *self.out));
                     (tr, self.rx.clock().locked())
                 };
+                if totals.steady_from.is_none() && tr.fate == Fate::InFlight {
+                    totals.steady_from = Some(totals.detections + seen as u64);
+                    self.probe.steady();
+                }
                 let _m = self.probe.part(Part::Monitor);
                 self.monitor.observe(&tr, locked);
                 self.drain_events(&mut totals);

@@ -36,7 +36,7 @@ pub use board::{BoardError, BoardSettings};
 pub use full::{
     build_clock, build_numbering, build_receiver, ram_total_bytes, BoardClock, FullClock, FullLink,
     FullMonitor, FullNumbering, FullReceiver, FullRun, FullTotals, LinkEnd, ProbedClock,
-    ProbedLink, ProbedNumbering,
+    ProbedLink, ProbedNumbering, FULL_PENDING, MONITOR_BLOCKS,
 };
 pub use link::{AnnounceOut, AnswersIn, LinkShared, ANSWER_LAG_FRAMES};
 pub use probe::{Part, Probe};

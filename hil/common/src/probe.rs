@@ -50,21 +50,39 @@ impl Part {
 pub struct Probe {
     enter: fn(Part),
     leave: fn(),
+    steady: fn(),
 }
 
 fn no_enter(_: Part) {}
 fn no_leave() {}
+fn no_steady() {}
 
 impl Probe {
     /// Hooks that do nothing (the host).
     pub const NONE: Self = Self {
         enter: no_enter,
         leave: no_leave,
+        steady: no_steady,
     };
 
     /// Call `enter` at the start of each part and `leave` at its end.
     pub const fn new(enter: fn(Part), leave: fn()) -> Self {
-        Self { enter, leave }
+        Self {
+            enter,
+            leave,
+            steady: no_steady,
+        }
+    }
+
+    /// Also call `steady` once, outside every part, when the receiver reaches its steady state
+    /// (clock locked and slots numbered: the first detection that reaches the sifter).
+    pub const fn with_steady(self, steady: fn()) -> Self {
+        Self { steady, ..self }
+    }
+
+    /// The receiver has reached its steady state (see [`Self::with_steady`]).
+    pub fn steady(&self) {
+        (self.steady)();
     }
 
     /// Mark `part` as running until the returned guard drops.

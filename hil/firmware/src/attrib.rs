@@ -88,8 +88,46 @@ fn leave() {
     });
 }
 
-/// The probe that charges the firmware's counter to the running part.
-pub const PROBE: Probe = Probe::new(enter, leave);
+/// Counts, calls and nested starts per part when the steady state began.
+static STEADY: Mutex<RefCell<Option<Totals>>> = Mutex::new(RefCell::new(None));
+
+type Totals = [(&'static str, u64, u64, u64); PARTS];
+
+fn steady() {
+    let now = totals();
+    critical_section::with(|cs| {
+        let mut s = STEADY.borrow_ref_mut(cs);
+        if s.is_none() {
+            *s = Some(now);
+        }
+    });
+}
+
+/// The probe that charges the firmware's counter to the running part and notes the counts when
+/// the receiver reaches its steady state.
+pub const PROBE: Probe = Probe::new(enter, leave).with_steady(steady);
+
+/// Per part, since the steady state began: (name, counter units, calls, nested starts); all zero
+/// when it never began.
+#[allow(dead_code)] // read by the whole-receiver build; the profile build reports whole runs
+pub fn steady_totals() -> Totals {
+    let now = totals();
+    let at = critical_section::with(|cs| *STEADY.borrow_ref(cs));
+    let mut out = now;
+    for (o, n) in out.iter_mut().zip(now) {
+        let s = at
+            .as_ref()
+            .and_then(|a| a.iter().find(|x| x.0 == n.0).copied())
+            .unwrap_or(n);
+        *o = (
+            n.0,
+            n.1.saturating_sub(s.1),
+            n.2.saturating_sub(s.2),
+            n.3.saturating_sub(s.3),
+        );
+    }
+    out
+}
 
 /// Per part: (name, counter units charged, calls, parts started inside it).
 pub fn totals() -> [(&'static str, u64, u64, u64); PARTS] {

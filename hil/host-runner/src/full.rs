@@ -345,13 +345,23 @@ fn part_instructions(
     report: &BTreeMap<String, String>,
     per_count: f64,
 ) -> Result<Vec<(&'static str, f64)>, String> {
+    counted_instructions(report, "part", per_count)
+}
+
+/// As [`part_instructions`] for the counts under `prefix` (`part`: the whole run; `steady`: from
+/// the steady state on).
+fn counted_instructions(
+    report: &BTreeMap<String, String>,
+    prefix: &str,
+    per_count: f64,
+) -> Result<Vec<(&'static str, f64)>, String> {
     let n = |k: &str| crate::num(report, k).map(|v| v as f64);
     let own = n("mark_pair_own_counts_10000")? / 10_000.0;
     let parent = n("mark_pair_parent_counts_10000")? / 10_000.0;
     slotwise_hil::Part::ALL
         .iter()
         .map(|p| {
-            let k = |what: &str| n(&format!("part_{}_{what}", p.name()));
+            let k = |what: &str| n(&format!("{prefix}_{}_{what}", p.name()));
             let net = k("counts")? - k("calls")? * own - k("nested")? * parent;
             Ok((p.name(), net.max(0.0) * per_count))
         })
@@ -441,6 +451,24 @@ pub fn compare(
         .map(|(n, v)| (n.to_string(), per_det(*v)))
         .collect::<BTreeMap<_, _>>());
     line["instructions_shim_per_detection"] = json!(per_det(shim));
+    // From the first detection that reached the sifter (clock locked, slots numbered) on.
+    let steady_from = num("steady_from")?;
+    let steady_n = detections.saturating_sub(steady_from).max(1) as f64;
+    let steady = counted_instructions(&report, "steady", per_count)?;
+    let steady_core: f64 = steady
+        .iter()
+        .zip(slotwise_hil::Part::ALL)
+        .filter(|(_, p)| p.is_core())
+        .map(|((_, v), _)| v)
+        .sum();
+    line["steady_from_detection"] = json!(steady_from);
+    line["instructions_per_detection_steady"] =
+        json!((steady_core / steady_n * 10.0).round() / 10.0);
+    line["instructions_per_detection_steady_by_part"] = json!(steady
+        .iter()
+        .filter(|(n, v)| *n != slotwise_hil::Part::Shim.name() && *v > 0.0)
+        .map(|(n, v)| (n.to_string(), (v / steady_n * 10.0).round() / 10.0))
+        .collect::<BTreeMap<_, _>>());
     line["instructions_per_count"] = json!((per_count * 1000.0).round() / 1000.0);
     line["counter"] = json!(report.get("counter"));
     line["ram_total_bytes"] = json!(num("ram_total_bytes")?);

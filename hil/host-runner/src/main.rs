@@ -81,8 +81,16 @@ enum Cmd {
         #[arg(long)]
         qemu_exit: i32,
     },
-    /// Read `compare` JSON lines on stdin and print each budget as met or missed.
-    Budgets,
+    /// Read `compare` JSON lines on stdin: print the board's targets as met or missed, and fail
+    /// when a figure exceeds the committed budget file by more than 10 %.
+    Budgets {
+        /// The committed figures (`hil/budget.json`).
+        #[arg(long)]
+        committed: PathBuf,
+        /// Write the figures read as the new committed ones.
+        #[arg(long)]
+        update: bool,
+    },
     /// Turn the firmware's stage-by-stage profile into one JSON line (instructions per event).
     Profile {
         /// Run directory of a profile run.
@@ -97,23 +105,49 @@ enum Cmd {
     },
 }
 
-/// Budgets of the board build (thumbv7em, default capture): name, JSON field, limit.
-const BUDGETS: [(&str, &str, f64); 4] = [
-    ("core state RAM, bytes", "ram_bytes", 16.0 * 1024.0),
-    ("flash image, bytes", "flash_bytes", 64.0 * 1024.0),
+/// The board's targets (thumbv7em): name, JSON field, limit. Reported as met or missed.
+const TARGETS: [(&str, &str, f64); 5] = [
     (
-        "instructions per detection",
-        "instructions_per_detection",
-        150.0,
+        "instructions per detection, whole receiver, steady state",
+        "instructions_per_detection_steady",
+        100.0,
     ),
+    (
+        "RAM for everything the board holds, bytes",
+        "ram_total_bytes",
+        32.0 * 1024.0,
+    ),
+    ("flash image, bytes", "flash_bytes", 64.0 * 1024.0),
     (
         "instructions to the first clock lock",
         "instructions_acquisition",
         20e6,
     ),
+    (
+        "instructions per detection, reference clock",
+        "instructions_per_detection",
+        150.0,
+    ),
 ];
 
-fn budgets() -> Result<bool, String> {
+/// Figures held to the committed budget file: a run may not exceed its committed value by more
+/// than [`MARGIN`].
+const HELD: [&str; 5] = [
+    "instructions_per_detection",
+    "instructions_per_detection_steady",
+    "instructions_acquisition",
+    "ram_total_bytes",
+    "flash_bytes",
+];
+
+/// Allowed growth over the committed figure.
+const MARGIN: f64 = 0.10;
+
+/// Read `compare` JSON lines on stdin: print the board's targets as met or missed (reported) and
+/// check every held figure against `committed` (fails on more than [`MARGIN`] above it); with
+/// `update`, write the figures read as the new committed ones instead.
+fn budgets(committed: &Path, update: bool) -> Result<bool, String> {
+    let mut measured = serde_json::Map::new();
     for line in std::io::stdin().lines() {
         let line = line.map_err(|e| format!("stdin: {e}"))?;
         let Ok(r) = serde_json::from_str::<Value>(&line) else {
@@ -122,23 +156,47 @@ fn budgets() -> Result<bool, String> {
         let (Some(target), Some(capture)) = (r["target"].as_str(), r["capture"].as_str()) else {
             continue;
         };
-        for (name, field, limit) in BUDGETS {
-            let value = r[field].as_f64();
-            let verdict = match value {
-                Some(v) if v <= limit => "met",
-                Some(_) => "MISSED",
-                None => "not measured",
-            };
-            let shown = value.map_or("-".to_string(), |v| v.to_string());
-            let scope = if target.starts_with("thumbv7em") {
-                "budget"
-            } else {
-                "for reference"
-            };
-            println!("{target} {capture}: {name} {shown} ({scope} {limit}) {verdict}");
+        if target.starts_with("thumbv7em") {
+            for (name, field, limit) in TARGETS {
+                if let Some(v) = r[field].as_f64() {
+                    let verdict = if v <= limit { "met" } else { "MISSED" };
+                    println!("{target} {capture}: {name} {v} (target {limit}) {verdict}");
+                }
+            }
+        }
+        for field in HELD {
+            if let Some(v) = r[field].as_f64() {
+                measured.insert(format!("{target}/{capture}/{field}"), json!(v));
+            }
         }
     }
-    Ok(true)
+    if update {
+        let text =
+            serde_json::to_string_pretty(&Value::Object(measured)).map_err(|e| e.to_string())?;
+        fs::write(committed, text + "\n").map_err(|e| format!("{}: {e}", committed.display()))?;
+        println!("budget file rewritten: {}", committed.display());
+        return Ok(true);
+    }
+    let text =
+        fs::read_to_string(committed).map_err(|e| format!("{}: {e}", committed.display()))?;
+    let budget: Value = serde_json::from_str(&text)
+        .map_err(|e| format!("{}: not JSON: {e}", committed.display()))?;
+    let mut ok = true;
+    for (key, v) in &measured {
+        let v = v.as_f64().unwrap_or(0.0);
+        match budget[key.as_str()].as_f64() {
+            Some(b) if v > b * (1.0 + MARGIN) => {
+                println!("REGRESSION {key}: {v} against the committed {b} (more than 10 % above)");
+                ok = false;
+            }
+            Some(_) => {}
+            None => println!("{key}: {v} has no committed figure (hil/check.sh --update-budget)"),
+        }
+    }
+    if ok {
+        println!("every figure within 10 % of {}", committed.display());
+    }
+    Ok(ok)
 }
 
 fn main() -> ExitCode {
@@ -165,7 +223,7 @@ fn main() -> ExitCode {
             elf,
             qemu_exit,
         } => compare(&dir, &target, &capture, &elf, qemu_exit),
-        Cmd::Budgets => budgets(),
+        Cmd::Budgets { committed, update } => budgets(&committed, update),
         Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
     };
     match result {

@@ -114,6 +114,17 @@ fn run() -> Result<(), i32> {
         ok &= writeln!(r, "part_{name}_calls {calls}").is_ok();
         ok &= writeln!(r, "part_{name}_nested {nested}").is_ok();
     }
+    for (name, counts, calls, nested) in attrib::steady_totals() {
+        ok &= writeln!(r, "steady_{name}_counts {counts}").is_ok();
+        ok &= writeln!(r, "steady_{name}_calls {calls}").is_ok();
+        ok &= writeln!(r, "steady_{name}_nested {nested}").is_ok();
+    }
+    ok &= writeln!(
+        r,
+        "steady_from {}",
+        totals.steady_from.unwrap_or(totals.detections)
+    )
+    .is_ok();
     let c = link.counters();
     let size = core::mem::size_of::<FullReceiver>;
     let lines: [(&str, u64); 34] = [

@@ -46,7 +46,7 @@ use slotwise_hil::board::BOARD_LEN;
 use slotwise_hil::{
     build_clock, build_numbering, AnnounceOut, AnswersIn, BoardFrameOut, BoardReceiver,
     BoardSettings, EventSource, FullLink, FullMonitor, IoEvents, LinkShared, ProbedClock,
-    ProbedLink, ProbedNumbering, Setup, BLOCK, PENDING,
+    ProbedLink, ProbedNumbering, Setup, BLOCK, FULL_PENDING,
 };
 
 /// Answers at once, in RAM: Z basis, signal, bit kept secret.
@@ -243,7 +243,7 @@ fn profile_full(setup: &Setup) -> Result<(), i32> {
         inner: build_numbering().map_err(|_| exit::SETUP)?,
         probe: attrib::PROBE,
     };
-    let mut rx: slotwise::Receiver<_, PENDING, _> =
+    let mut rx: slotwise::Receiver<_, FULL_PENDING, _> =
         slotwise::Receiver::with_numbering(cfg, clock, numbering);
     let mut monitor = FullMonitor::new(stats, board.alarms);
     let shared = LinkShared::new(attrib::PROBE);
