@@ -49,13 +49,6 @@ pub struct Answer {
 pub trait Transmitter {
     /// Send (or queue) one announcement.
     fn announce(&mut self, a: Announcement);
-    /// Send a batch of announcements, in slot order. The receiver announces in batches; the
-    /// default sends them one by one.
-    fn announce_batch(&mut self, batch: &[Announcement]) {
-        for &a in batch {
-            self.announce(a);
-        }
-    }
     /// Take the next answer that has arrived, if any.
     fn poll_answer(&mut self) -> Option<Answer>;
     /// Slot below which the link will deliver no more answers: the receiver expires what still
@@ -226,11 +219,13 @@ impl<const N: usize> PendingQueue<N> {
     }
 
     /// The entries from position `from` (0 = oldest) to the newest, in slot order.
+    #[inline]
     pub fn tail(&self, from: usize) -> impl Iterator<Item = &Pending> {
         self.q.iter().skip(from)
     }
 
     /// Find the waiting entry for `slot` and mark it answered; returns a copy of it.
+    #[inline]
     pub fn take(&mut self, slot: u64) -> Option<Pending> {
         // Slots in the queue are unique and increasing, and answers come in announcement order:
         // the oldest waiting entry is the usual match, the newest the next best; search only

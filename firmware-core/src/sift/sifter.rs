@@ -11,7 +11,7 @@
 //!
 //! ## Serving the transmitter in batches
 //! Talking to the transmitter is per-batch work, not per-slot work. Queued slots are announced
-//! together ([`Transmitter::announce_batch`]) and answers are drained together:
+//! together and answers are drained together:
 //! - when [`ANNOUNCE_BATCH`] slots wait to be announced ([`Sifter::flush`]): announce, drain the
 //!   answers, and expire what the link says it will never answer
 //!   ([`Transmitter::answers_final_below`]);
@@ -279,34 +279,18 @@ impl<const PENDING: usize> Sifter<PENDING> {
         }
     }
 
-    /// Announce the unannounced tail of the queue as one batch.
+    /// Announce the unannounced tail of the queue, oldest first.
+    #[inline]
     fn announce(&mut self, tx: &mut impl Transmitter) {
         if self.unannounced == 0 {
             return;
         }
-        let mut batch = [Announcement {
-            slot: 0,
-            basis: Basis::Z,
-        }; ANNOUNCE_BATCH];
         let from = self.pending.len().saturating_sub(self.unannounced);
-        let mut n = 0;
         for p in self.pending.tail(from) {
-            if let Some(b) = batch.get_mut(n) {
-                *b = Announcement {
-                    slot: p.slot,
-                    basis: p.basis,
-                };
-                n += 1;
-            }
-            if n == ANNOUNCE_BATCH {
-                tx.announce_batch(&batch);
-                n = 0;
-            }
-        }
-        if let Some(rest) = batch.get(..n) {
-            if !rest.is_empty() {
-                tx.announce_batch(rest);
-            }
+            tx.announce(Announcement {
+                slot: p.slot,
+                basis: p.basis,
+            });
         }
         self.unannounced = 0;
     }
