@@ -28,6 +28,17 @@ fn paused<T>(f: impl FnOnce() -> T) -> T {
     r
 }
 
+/// The whole of the host file `name` in a buffer of `N` bytes: (buffer, bytes read). A missing
+/// or unreadable file is the setup's failure ([`crate::exit::SETUP`]).
+#[allow(dead_code)] // the binaries that read their inputs in one piece use it
+pub fn read_file<const N: usize>(name: &CStr) -> Result<([u8; N], usize), i32> {
+    let mut b = [0u8; N];
+    let n = ShFile::open(name)
+        .and_then(|mut f| f.read_all(&mut b))
+        .map_err(|_| crate::exit::SETUP)?;
+    Ok((b, n))
+}
+
 /// A host file reached through semihosting.
 pub struct ShFile(semihosting::fs::File);
 

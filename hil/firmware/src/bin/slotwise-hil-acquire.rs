@@ -71,14 +71,6 @@ fn panic(_info: &core::panic::PanicInfo<'_>) -> ! {
     semihosting::process::exit(exit::PANIC)
 }
 
-fn read_file<const N: usize>(name: &core::ffi::CStr) -> Result<([u8; N], usize), i32> {
-    let mut b = [0u8; N];
-    let n = ShFile::open(name)
-        .and_then(|mut f| f.read_all(&mut b))
-        .map_err(|_| exit::SETUP)?;
-    Ok((b, n))
-}
-
 fn le<const N: usize>(b: &[u8], at: usize) -> Result<[u8; N], i32> {
     let mut a = [0u8; N];
     a.copy_from_slice(b.get(at..at + N).ok_or(exit::SETUP)?);
@@ -100,9 +92,9 @@ fn clock_config(b: &[u8]) -> Result<RecoveredConfig, i32> {
 }
 
 fn acquire() -> Result<(), i32> {
-    let (s, n) = read_file::<{ slotwise_hil::setup::MAX_SETUP_LEN + 1 }>(c"setup.bin")?;
+    let (s, n) = files::read_file::<{ slotwise_hil::setup::MAX_SETUP_LEN + 1 }>(c"setup.bin")?;
     let setup = Setup::decode(s.get(..n).unwrap_or(&[])).map_err(|_| exit::SETUP)?;
-    let (a, n) = read_file::<{ ACQUIRE_LEN + 1 }>(c"acquire.bin")?;
+    let (a, n) = files::read_file::<{ ACQUIRE_LEN + 1 }>(c"acquire.bin")?;
     if n != ACQUIRE_LEN {
         return Err(exit::SETUP);
     }

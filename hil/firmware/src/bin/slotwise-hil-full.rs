@@ -61,18 +61,10 @@ fn panic(_info: &core::panic::PanicInfo<'_>) -> ! {
     semihosting::process::exit(exit::PANIC)
 }
 
-fn read_file<const N: usize>(name: &core::ffi::CStr) -> Result<([u8; N], usize), i32> {
-    let mut b = [0u8; N];
-    let n = ShFile::open(name)
-        .and_then(|mut f| f.read_all(&mut b))
-        .map_err(|_| exit::SETUP)?;
-    Ok((b, n))
-}
-
 fn run() -> Result<(), i32> {
-    let (s, n) = read_file::<{ slotwise_hil::setup::MAX_SETUP_LEN + 1 }>(c"setup.bin")?;
+    let (s, n) = files::read_file::<{ slotwise_hil::setup::MAX_SETUP_LEN + 1 }>(c"setup.bin")?;
     let setup = Setup::decode(s.get(..n).unwrap_or(&[])).map_err(|_| exit::SETUP)?;
-    let (b, n) = read_file::<{ BOARD_LEN + 1 }>(c"board.bin")?;
+    let (b, n) = files::read_file::<{ BOARD_LEN + 1 }>(c"board.bin")?;
     let board = BoardSettings::decode(b.get(..n).unwrap_or(&[])).map_err(|_| exit::SETUP)?;
     let cfg = setup.receiver_config().map_err(|_| exit::SETUP)?;
     let stats = board.stats_config(cfg.gates()).map_err(|_| exit::SETUP)?;

@@ -225,10 +225,7 @@ fn profile(setup: &Setup) -> Result<(), i32> {
 
 /// The whole receiver through the shared driver, each part charged on its own.
 fn profile_full(setup: &Setup) -> Result<(), i32> {
-    let mut b = [0u8; BOARD_LEN + 1];
-    let n = ShFile::open(c"board.bin")
-        .and_then(|mut f| f.read_all(&mut b))
-        .map_err(|_| exit::SETUP)?;
+    let (b, n) = files::read_file::<{ BOARD_LEN + 1 }>(c"board.bin")?;
     let board = BoardSettings::decode(b.get(..n).unwrap_or(&[])).map_err(|_| exit::SETUP)?;
     let cfg = setup.receiver_config().map_err(|_| exit::SETUP)?;
     let stats = board.stats_config(cfg.gates()).map_err(|_| exit::SETUP)?;
