@@ -14,6 +14,45 @@
 //!   channel has fixed the offset modulo the marker period. A new clock epoch or a misalignment
 //!   raised by the marker check restarts the alignment, so no detection is numbered with a stale
 //!   offset.
+//!
+//! # Examples
+//!
+//! A distributed reference clock whose slot 0 is the transmitter's, with the public marker
+//! declared: marker slots are counted as such and never sifted.
+//!
+//! ```
+//! use slotwise::fixed::types::{U0F32, U32F32};
+//! use slotwise::{
+//!     Absolute, Basis, Fate, FixedClock, Gate, GateTable, MarkerSpec, NullSink, OverflowPolicy,
+//!     Receiver, ReceiverConfig, TdcEvent, Transmitter, UnwrapConfig,
+//! };
+//! # struct Silent;
+//! # impl Transmitter for Silent {
+//! #     fn announce(&mut self, _: slotwise::Announcement) {}
+//! #     fn poll_answer(&mut self) -> Option<slotwise::Answer> { None }
+//! # }
+//! let z0 = Gate {
+//!     channel: 0,
+//!     start: U0F32::from_num(0.2),
+//!     end: U0F32::from_num(0.4),
+//!     basis: Basis::Z,
+//!     bit: 0,
+//! };
+//! let gates = GateTable::new(&[0], &[z0]).unwrap();
+//! let cfg = ReceiverConfig::new(UnwrapConfig::new(48, 1).unwrap(), gates, 1, 1_000,
+//!     OverflowPolicy::DropNewest, 1).unwrap();
+//! let clock = FixedClock::new(U32F32::from_num(1_000), 0).unwrap();
+//! let marker = MarkerSpec::standard();
+//! let mut rx: Receiver<FixedClock, 16, Absolute> =
+//!     Receiver::with_numbering(cfg, clock, Absolute::with_marker(marker));
+//!
+//! // One detection in the first marker slot, one in the slot after it.
+//! let m = (0..).find(|&s| marker.is_marker_slot(s)).unwrap();
+//! let events = [m, m + 1].map(|s| TdcEvent { count: s * 1_000 + 300, channel: 0 });
+//! rx.push_block(&events, &mut Silent, &mut NullSink);
+//! assert_eq!(rx.accounting()[Fate::Marker], 1);
+//! assert_eq!(rx.accounting()[Fate::InFlight], 1);
+//! ```
 
 use crate::clock::{Numbered, SlotClock};
 use crate::frame::{AlignState, FrameConfig, FrameError, MarkerSpec, SlotHint, StandardAligner};

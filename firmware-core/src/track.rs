@@ -40,7 +40,7 @@
 //! gains are Rice's (App. C) for that interval, so the closed loop keeps its noise bandwidth B_n
 //! and damping ζ in time: θ' = B_n·T_u'/(ζ + 1/(4ζ)), K1' = 4ζθ'/(1 + 2ζθ' + θ'²),
 //! K2' = 4θ'²/(1 + 2ζθ' + θ'²); the anchor moves by −K1'·ē and ν by −K2'·ē/T_u'.
-//! How they map to the per-detection gains [derived]: for small θ, K1 ≈ 4ζθ and K2 ≈ 4θ², so
+//! How they map to the per-detection gains (derived here): for small θ, K1 ≈ 4ζθ and K2 ≈ 4θ², so
 //! K1' ≈ N·K1 and K2'/T_u' ≈ N·K2/T_u: applied to a mean of N residuals, each detection moves the
 //! loop as much as before, only later. The mean of N residuals has variance σ²/N at the rate
 //! R/N, so the phase noise σ²·2B_n·T_u' /N = σ²·2B_n/R is unchanged; what is lost is up to N − 1
