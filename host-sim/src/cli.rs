@@ -89,6 +89,12 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
 --skip-damaged is given: then they are stepped over and listed.")]
     Replay(ReplayArgs),
     /// Show a capture's header and block statistics, or a key file's blocks, and check every CRC.
+    #[command(long_about = "\
+Show a capture's header and block statistics, or a sifted-key file's (`.swkey`) blocks, and check
+every CRC. Damaged blocks are listed with block index, byte offset and field. The report ends with
+a verdict (JSON: `verdict`): good; damaged (blocks lost, or the end checks failed); or incomplete
+(no verified end record: cut short). Exit status: 0 for a good capture, 1 for a damaged or
+incomplete one (after the full report) or a file that is not a capture.")]
     Inspect(InspectArgs),
     /// Secret-key-rate estimate from a summary's tallies (an estimate, not a certification).
     #[command(long_about = crate::keyrate::cmd::LONG_ABOUT)]
@@ -255,7 +261,8 @@ pub struct ReplayArgs {
     pub alarms: AlarmArgs,
     /// Capture file, or a CSV file (`.csv`) of `t_ps,channel` lines.
     pub capture: PathBuf,
-    /// Scenario describing the link (default: the one stored in the capture header).
+    /// Scenario describing the link (default: the one stored in the capture header; a CSV has
+    /// none, so it needs this).
     #[arg(long)]
     pub scenario: Option<PathBuf>,
     /// Write the JSON summary here.
@@ -608,7 +615,7 @@ pub fn replay_capture(
     let (mut session, tap) = open_session(cfg, clock, s, link, false, trace)?;
     let mut skipped = None;
     let pb = progress(size, "replaying");
-    if path.extension().is_some_and(|e| e == "csv") {
+    if csv_io::is_csv_path(path) {
         let r = csv_io::CsvReader::new(BufReader::new(file), &name)?;
         let mut block = Vec::with_capacity(4096);
         for ev in r {
@@ -686,6 +693,15 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
     let name = a.capture.display().to_string();
     let mut s = match &a.scenario {
         Some(p) => Scenario::load(p)?,
+        // By extension, as `replay_capture` picks CSV by it: a content sniff could name the flag
+        // for a file that would then still be read as a capture.
+        None if csv_io::is_csv_path(&a.capture) => {
+            return Err(format!(
+                "{name}: a `t_ps,channel` CSV carries no receiver description (no scenario); \
+                 give one with --scenario S.toml"
+            )
+            .into());
+        }
         None => {
             let f = File::open(&a.capture).map_err(|e| format!("{name}: {e}"))?;
             let r = CaptureReader::new(BufReader::new(f), &name)?;
@@ -740,10 +756,12 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
 
 fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
     if keyfile::is_key_file(&a.capture) {
-        emit(a.json, &keyfile::inspect(&a.capture)?)
-    } else {
-        emit(a.json, &capture::inspect(&a.capture)?)
+        return emit(a.json, &keyfile::inspect(&a.capture)?);
     }
+    let r = capture::inspect(&a.capture)?;
+    emit(a.json, &r)?;
+    // The report is out in full; the exit status is what tells a script it was not good.
+    r.problem().map_or(Ok(()), |p| Err(p.into()))
 }
 
 fn bench_pipeline(a: &crate::bench_pipeline::PipelineArgs) -> Result<(), AnyErr> {

@@ -20,6 +20,12 @@ use crate::capture::{CaptureError, CaptureHeader, CaptureReader, CaptureWriter, 
 /// The header line every CSV capture starts with.
 pub const CSV_HEADER: &str = "t_ps,channel";
 
+/// Whether `slotwise replay` reads `path` as CSV rather than as a capture: by its `.csv`
+/// extension, as `slotwise inspect` picks key files by `.swkey`.
+pub fn is_csv_path(path: &std::path::Path) -> bool {
+    path.extension().is_some_and(|e| e == "csv")
+}
+
 /// What was wrong with a CSV line.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub enum CsvErrorKind {

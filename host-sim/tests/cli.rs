@@ -227,3 +227,85 @@ fn bad_inputs_name_the_file_and_the_problem() {
         "{err}"
     );
 }
+
+/// Run `slotwise inspect FILE --json`: exit success, the JSON report, and standard error.
+fn inspect_json(file: &Path) -> (bool, serde_json::Value, String) {
+    let out = slotwise(&["inspect", file.to_str().unwrap(), "--json"]);
+    let err = String::from_utf8_lossy(&out.stderr).into_owned();
+    let v = serde_json::from_slice(&out.stdout).unwrap_or_else(|e| panic!("{e}: {err}"));
+    (out.status.success(), v, err)
+}
+
+#[test]
+fn inspect_exit_status_tells_good_from_damaged_and_cut_short() {
+    let dir = tmp("verdict");
+    let cap = dir.join("good.swcap");
+    let scen = "../scenarios/efficient-bb84-1ghz-10km.toml";
+    let c = cap.to_str().unwrap();
+    ok(&["simulate", scen, "-o", c, "--duration-s", "0.002"]);
+    let (good, v, _) = inspect_json(&cap);
+    assert!(good);
+    assert_eq!(v["verdict"], "good");
+    assert!(ok(&["inspect", c]).contains("verdict              good"));
+    let bytes = std::fs::read(&cap).unwrap();
+    let first_block = v["header_bytes"].as_u64().unwrap();
+    assert!(v["good_blocks"].as_u64().unwrap() > 1, "{v}");
+
+    // One flipped byte in block 0's payload (its 28-byte head comes first, docs/capture-format.md
+    // §4): the full report still comes out, names block 0 at its offset, and the exit fails.
+    let flipped = dir.join("flipped.swcap");
+    let mut b = bytes.clone();
+    b[first_block as usize + 40] ^= 0x10;
+    std::fs::write(&flipped, &b).unwrap();
+    let (good, v, err) = inspect_json(&flipped);
+    assert!(!good, "{err}");
+    assert_eq!(v["verdict"], "damaged");
+    assert_eq!(v["damage"][0]["index"], 0);
+    assert_eq!(v["damage"][0]["offset"], first_block);
+    assert!(
+        err.contains("flipped.swcap") && err.contains("damaged"),
+        "{err}"
+    );
+    let out = slotwise(&["inspect", flipped.to_str().unwrap()]);
+    assert!(!out.status.success());
+    let text = String::from_utf8_lossy(&out.stdout);
+    assert!(
+        text.contains(&format!("block 0 at byte {first_block}:")) && text.contains("block_crc"),
+        "{text}"
+    );
+    assert!(text.contains("verdict              damaged"), "{text}");
+
+    // Cut short: without the 24-byte end record, and in the middle of a block.
+    for (name, len) in [("noend", bytes.len() - 24), ("half", bytes.len() / 2)] {
+        let cut = dir.join(format!("{name}.swcap"));
+        std::fs::write(&cut, &bytes[..len]).unwrap();
+        let (good, v, err) = inspect_json(&cut);
+        assert!(!good, "{name}: {err}");
+        assert_eq!(v["verdict"], "incomplete", "{name}");
+        assert_eq!(v["end_record_ok"], false, "{name}");
+        assert!(err.contains("incomplete"), "{name}: {err}");
+    }
+
+    let help = ok(&["inspect", "--help"]);
+    assert!(
+        help.contains("Exit status") && help.contains("incomplete"),
+        "{help}"
+    );
+}
+
+#[test]
+fn csv_replay_without_scenario_names_the_flag() {
+    let dir = tmp("csvnoscen");
+    let csv = dir.join("events.csv");
+    std::fs::write(&csv, "t_ps,channel\n1000,0\n2000,1\n").unwrap();
+    let out = slotwise(&["replay", csv.to_str().unwrap()]);
+    assert!(!out.status.success());
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("events.csv")
+            && err.contains("no receiver description")
+            && err.contains("--scenario S.toml"),
+        "{err}"
+    );
+    assert!(!err.contains("magic"), "{err}");
+}

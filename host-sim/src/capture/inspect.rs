@@ -41,6 +41,31 @@ pub struct Damage {
     pub reason: String,
 }
 
+/// The one-word judgement of an [`InspectReport`], which `slotwise inspect` turns into its exit
+/// status so that a script can tell a damaged capture from a good one.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Verdict {
+    /// Every block verified and a verified end record closed the file.
+    Good,
+    /// The end record verified but blocks were lost, or the end checks failed.
+    Damaged,
+    /// No verified end record: the file was cut short or its end record is damaged, so how
+    /// much is missing is not known (blocks may also have been lost before).
+    Incomplete,
+}
+
+impl Verdict {
+    /// The verdict's name as it appears in the report.
+    pub fn as_str(self) -> &'static str {
+        match self {
+            Verdict::Good => "good",
+            Verdict::Damaged => "damaged",
+            Verdict::Incomplete => "incomplete",
+        }
+    }
+}
+
 /// What [`inspect`] found in a capture.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct InspectReport {
@@ -80,6 +105,34 @@ pub struct InspectReport {
     pub end_record_ok: bool,
     /// A fault found at the end (header block count disagreeing, data after the end record).
     pub end_error: Option<String>,
+    /// Good, damaged or incomplete, from the fields above.
+    pub verdict: Verdict,
+}
+
+impl InspectReport {
+    /// `None` for a good capture; otherwise one line saying why not, naming the file.
+    pub fn problem(&self) -> Option<String> {
+        let why = match self.verdict {
+            Verdict::Good => return None,
+            Verdict::Damaged => "damaged",
+            Verdict::Incomplete => "incomplete (no verified end record)",
+        };
+        Some(format!(
+            "{}: capture {why}: {} damaged stretches, {} blocks lost",
+            self.source, self.damaged_stretches, self.blocks_lost
+        ))
+    }
+
+    /// The verdict the damage and end-record fields imply.
+    fn judge(&self) -> Verdict {
+        if !self.end_record_ok {
+            Verdict::Incomplete
+        } else if self.damaged_stretches > 0 || self.end_error.is_some() {
+            Verdict::Damaged
+        } else {
+            Verdict::Good
+        }
+    }
 }
 
 /// Read a capture file with the skipping reader and summarise it. Only header faults and I/O
@@ -114,6 +167,7 @@ pub fn inspect(path: impl AsRef<Path>) -> Result<InspectReport, CaptureError> {
         damage: Vec::new(),
         end_record_ok: false,
         end_error: None,
+        verdict: Verdict::Incomplete,
     };
     let mut newest_ticks: u64 = 0;
     let mut block: Vec<TdcEvent> = Vec::new();
@@ -184,6 +238,7 @@ pub fn inspect(path: impl AsRef<Path>) -> Result<InspectReport, CaptureError> {
     if report.header.counter_bits < 64 {
         report.wraps = newest_ticks >> report.header.counter_bits;
     }
+    report.verdict = report.judge();
     Ok(report)
 }
 
@@ -286,6 +341,7 @@ impl fmt::Display for InspectReport {
         if let Some(e) = &self.end_error {
             row(f, "end check", e.clone())?;
         }
+        row(f, "verdict", self.verdict.as_str().to_owned())?;
         Ok(())
     }
 }

@@ -23,7 +23,7 @@ use std::path::Path;
 
 pub use error::{CaptureError, ErrorKind};
 pub use header::CaptureHeader;
-pub use inspect::{inspect, Damage, EventsPerBlock, InspectReport, MAX_LISTED_DAMAGE};
+pub use inspect::{inspect, Damage, EventsPerBlock, InspectReport, Verdict, MAX_LISTED_DAMAGE};
 pub use reader::{BlockInfo, BlockOutcome, CaptureReader, SkippedBlock};
 pub use skipped::{SkipReport, SkippedStretch};
 pub use writer::CaptureWriter;

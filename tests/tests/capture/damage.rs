@@ -1,7 +1,7 @@
 //! Damaged captures: each case names file, byte offset and field; skipping recovers the rest.
 
 use super::*;
-use slotwise_sim::capture::{inspect, BlockOutcome, ErrorKind};
+use slotwise_sim::capture::{inspect, BlockOutcome, ErrorKind, Verdict};
 
 // ---------------------------------------------------------------- damage in one block
 
@@ -153,6 +153,7 @@ fn inspect_reports_statistics_wraps_and_damage() {
     assert_eq!(report.wraps, expected_wraps);
     assert!(report.end_record_ok);
     assert_eq!(report.damaged_stretches, 0);
+    assert_eq!((report.verdict, report.problem()), (Verdict::Good, None));
     assert_eq!(report.total_bytes, std::fs::metadata(&path).unwrap().len());
 
     // Damage block 1 and inspect again.
@@ -169,8 +170,11 @@ fn inspect_reports_statistics_wraps_and_damage() {
         (1, offsets[1])
     );
     assert!(report.damage[0].reason.contains("'block_crc'"));
+    assert_eq!(report.verdict, Verdict::Damaged);
+    assert!(report.problem().is_some_and(|p| p.contains("damaged")));
     let json = serde_json::to_value(&report).unwrap();
     assert_eq!(json["good_blocks"], 3);
+    assert_eq!(json["verdict"], "damaged");
     assert_eq!(json["header"]["counter_bits"], 32);
     let table = report.to_string();
     assert!(table.contains("counter wraps"), "{table}");
