@@ -10,7 +10,8 @@
 //!
 //! 0. [`words`] — raw binary TDC records (4- or 8-byte words with time, channel and kind bit
 //!    fields) become [`TdcEvent`]s: rollover records widen the narrow hardware counter, every
-//!    record ends in one counter; for a board reading a FIFO and the host importing raw words.
+//!    record ends in one counter. It sits before the receiver (which takes [`TdcEvent`]s): a
+//!    board reading a FIFO and the host importing raw words run it themselves.
 //! 1. [`timestamps`] — TDC counter values (any width from 32 to 64 bits, wrapping) become a
 //!    monotonic picosecond time base; slightly reordered neighbours are handled.
 //! 2. [`clock`] — the [`SlotClock`] seam: a delay-corrected time becomes the clock's own slot and
