@@ -8,6 +8,10 @@
 //!
 //! Data flows through one module per stage, in this order ([`Receiver::push`] runs them so):
 //!
+//! 0. [`words`] — raw binary TDC records (4- or 8-byte words with time, channel and kind bit
+//!    fields) become [`TdcEvent`]s: rollover records widen the narrow hardware counter, every
+//!    record ends in one counter. It sits before the receiver (which takes [`TdcEvent`]s): a
+//!    board reading a FIFO and the host importing raw words run it themselves.
 //! 1. [`timestamps`] — TDC counter values (any width from 32 to 64 bits, wrapping) become a
 //!    monotonic picosecond time base; slightly reordered neighbours are handled.
 //! 2. [`clock`] — the [`SlotClock`] seam: a delay-corrected time becomes the clock's own slot and
@@ -96,6 +100,7 @@ pub mod tally;
 pub mod timestamps;
 pub mod track;
 pub mod wire;
+pub mod words;
 
 pub use accounting::{Accounting, AnswerErrors, Fate, MultiClickEvents};
 pub use acquire::fold::ArrivalPattern;
@@ -120,3 +125,7 @@ pub use tally::{MultiPhoton, Tally};
 pub use timestamps::{Detection, TdcEvent, UnwrapConfig, Unwrapper};
 pub use track::{LockState, TrackConfig, TrackParams, Tracker};
 pub use wire::{LinkConfig, LinkCounters, ReceiverLink};
+pub use words::{
+    BitField, Decoded, Endian, KindField, RecordFate, WordCounts, WordDecoder, WordError,
+    WordFormat, WordFormatError, WordLayout,
+};
