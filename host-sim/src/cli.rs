@@ -19,6 +19,7 @@ use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 mod alarm_args;
+mod import_args;
 mod session;
 
 pub use alarm_args::AlarmArgs;
@@ -108,6 +109,7 @@ pipeline`): throughput of the whole receiver on three simulated captures (defaul
 high rate, 1e-6 per slot), the read floor, stage shares and scaling tables. `slotwise bench sync`
 is the clock-recovery benchmark.")]
     Bench(BenchArgs),
+    Import(import_args::ImportArgs),
 }
 
 /// `slotwise bench`: a subcommand, or the pipeline benchmark's options.
@@ -303,6 +305,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Replay(a) => replay(a),
         Command::Inspect(a) => inspect(a),
         Command::Keyrate(a) => crate::keyrate::cmd::run(&a),
+        Command::Import(a) => import_args::run(&a),
         Command::Bench(b) => match b.command {
             Some(BenchCommand::Sync(a)) => bench_sync(&a),
             Some(BenchCommand::Pipeline(a)) => bench_pipeline(&a),

@@ -8,6 +8,7 @@ pub mod capture;
 pub mod cli;
 pub mod clocks;
 pub mod csv_io;
+pub mod import;
 pub mod keyrate;
 pub mod link;
 pub mod marker;

@@ -1,0 +1,402 @@
+//! Text exports: delimited lines with a time column and a channel column.
+
+use std::fmt;
+use std::fs::File;
+use std::io::{BufRead, BufReader, Read, Seek, Write};
+use std::path::Path;
+use std::str::FromStr;
+
+use slotwise::TdcEvent;
+
+use super::decimal::{parse_decimal, TimeUnit};
+use super::{close_capture, open_capture, with_output, CaptureTdc, ImportError, ImportSummary};
+use super::{MAX_CAPTURE_CHANNEL, MAX_LINE_BYTES};
+
+/// A column of a text export: by its header name, or by its number counted from 1.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum Column {
+    /// The column whose header field is this name.
+    Name(String),
+    /// The column at this position, counted from 1.
+    Number(usize),
+}
+
+impl FromStr for Column {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, String> {
+        match s.parse::<usize>() {
+            Ok(0) => Err("columns are numbered from 1".into()),
+            Ok(n) => Ok(Self::Number(n)),
+            Err(_) if s.is_empty() => Err("empty column name".into()),
+            Err(_) => Ok(Self::Name(s.to_owned())),
+        }
+    }
+}
+
+/// What separates the fields of a line.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Delimiter {
+    /// One character (`,`, `;`, `\t` …).
+    Char(char),
+    /// Any run of spaces and tabs.
+    Whitespace,
+}
+
+impl FromStr for Delimiter {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, String> {
+        match s {
+            "whitespace" | "space" => Ok(Self::Whitespace),
+            "tab" | "\\t" => Ok(Self::Char('\t')),
+            _ => {
+                let mut c = s.chars();
+                match (c.next(), c.next()) {
+                    (Some(ch), None) => Ok(Self::Char(ch)),
+                    _ => Err(format!(
+                        "expected one character, 'tab' or 'whitespace', got {s:?}"
+                    )),
+                }
+            }
+        }
+    }
+}
+
+/// Input channel numbers mapped to capture channels (`1=0,2=1,5=2`).
+#[derive(Clone, Debug, Default, PartialEq, Eq)]
+pub struct ChannelMap(pub Vec<(i64, u8)>);
+
+impl FromStr for ChannelMap {
+    type Err = String;
+
+    fn from_str(s: &str) -> Result<Self, String> {
+        let mut pairs: Vec<(i64, u8)> = Vec::new();
+        for item in s.split(',').map(str::trim).filter(|i| !i.is_empty()) {
+            let (from, to) = item
+                .split_once('=')
+                .ok_or_else(|| format!("{item:?}: expected INPUT=CHANNEL"))?;
+            let from: i64 = from
+                .trim()
+                .parse()
+                .map_err(|_| format!("{item:?}: input channel is not an integer"))?;
+            let to: u8 = to
+                .trim()
+                .parse()
+                .ok()
+                .filter(|c| *c <= MAX_CAPTURE_CHANNEL)
+                .ok_or_else(|| {
+                    format!("{item:?}: capture channel is not in 0..={MAX_CAPTURE_CHANNEL}")
+                })?;
+            if pairs.iter().any(|(f, _)| *f == from) {
+                return Err(format!("input channel {from} is mapped twice"));
+            }
+            pairs.push((from, to));
+        }
+        if pairs.is_empty() {
+            return Err("empty channel map".into());
+        }
+        Ok(Self(pairs))
+    }
+}
+
+impl ChannelMap {
+    fn get(&self, from: i64) -> Option<u8> {
+        self.0.iter().find(|(f, _)| *f == from).map(|(_, t)| *t)
+    }
+}
+
+/// A text import's options, as given.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct TextImport {
+    /// Field separator.
+    pub delimiter: Delimiter,
+    /// The first line that is neither blank nor a comment names the columns.
+    pub header: bool,
+    /// Where the time is.
+    pub time: Column,
+    /// Where the channel is.
+    pub channel: Column,
+    /// Unit of the time column.
+    pub unit: TimeUnit,
+    /// Input channels to capture channels; without it the input channel is the capture channel.
+    pub channel_map: Option<ChannelMap>,
+    /// Lines starting with this (after leading spaces) are comments; empty: no comments.
+    pub comment: String,
+    /// The capture's counter width (bits), tick (ps) and highest channel.
+    pub tdc: CaptureTdc,
+}
+
+const DROP_UNMAPPED: &str = "channel not in map";
+const DROP_RANGE: &str = "channel out of range";
+
+/// Running counts of a text import.
+#[derive(Default)]
+struct Tally {
+    lines: u64,
+    header: u64,
+    comment: u64,
+    blank: u64,
+    imported: u64,
+    unmapped: u64,
+    out_of_range: u64,
+}
+
+/// Column positions (from 0) and names for messages, known after the header.
+struct Resolved {
+    time: (usize, String),
+    channel: (usize, String),
+}
+
+impl TextImport {
+    /// The highest capture channel: `--max-channel`, else the map's highest target.
+    pub fn max_channel(given: Option<u8>, map: Option<&ChannelMap>) -> Result<u8, ImportError> {
+        let from_map = map.and_then(|m| m.0.iter().map(|(_, t)| *t).max());
+        match (given, from_map) {
+            (Some(g), Some(m)) if m > g => Err(ImportError::Options(format!(
+                "--channel-map sends events to channel {m}, above --max-channel {g}"
+            ))),
+            (Some(g), _) => Ok(g),
+            (None, Some(m)) => Ok(m),
+            (None, None) => Err(ImportError::Options(
+                "give --max-channel N (the capture holds channels 0..=N) or a --channel-map".into(),
+            )),
+        }
+    }
+
+    /// Import the file `input` into the capture `out`; `progress` gets the input bytes read.
+    pub fn run_file(
+        &self,
+        input: &Path,
+        out: &Path,
+        progress: impl FnMut(u64),
+    ) -> Result<ImportSummary, ImportError> {
+        let name = input.display().to_string();
+        let file = File::open(input).map_err(|e| ImportError::io(&name, e))?;
+        let out_name = out.display().to_string();
+        with_output(out, |w| {
+            self.run(BufReader::new(file), &name, w, &out_name, progress)
+        })
+    }
+
+    fn check(&self) -> Result<(), ImportError> {
+        self.tdc.validate()?;
+        if [&self.time, &self.channel].contains(&&Column::Number(0)) {
+            return Err(ImportError::Options("columns are numbered from 1".into()));
+        }
+        if !self.header {
+            for (opt, col) in [
+                ("--time-column", &self.time),
+                ("--channel-column", &self.channel),
+            ] {
+                if let Column::Name(n) = col {
+                    return Err(ImportError::Options(format!(
+                        "{opt} {n:?} names a column, but --no-header says there is no header \
+                         line: give its number (from 1)"
+                    )));
+                }
+            }
+        }
+        Ok(())
+    }
+
+    /// Import the lines read from `r` (named `source` in errors) into a capture on `w`.
+    pub fn run<R: BufRead, W: Write + Seek>(
+        &self,
+        mut r: R,
+        source: &str,
+        w: W,
+        out_name: &str,
+        mut progress: impl FnMut(u64),
+    ) -> Result<(ImportSummary, W), ImportError> {
+        self.check()?;
+        let mut writer = open_capture(w, &self.tdc, out_name)?;
+        let mask = self.tdc.counter_mask();
+        let mut t = Tally::default();
+        let mut resolved = match self.header {
+            true => None,
+            false => Some(
+                self.resolve(None)
+                    .map_err(|(_, reason)| ImportError::Options(reason))?,
+            ),
+        };
+        let mut buf = Vec::new();
+        let mut read = 0u64;
+        loop {
+            buf.clear();
+            let limit = MAX_LINE_BYTES as u64 + 1;
+            let n = (&mut r)
+                .take(limit)
+                .read_until(b'\n', &mut buf)
+                .map_err(|e| ImportError::io(source, e))?;
+            if n == 0 {
+                break;
+            }
+            read += n as u64;
+            t.lines += 1;
+            let line_no = t.lines;
+            let err = move |field: &str, text: &str, reason: String| ImportError::Line {
+                source: source.to_owned(),
+                line: line_no,
+                field: field.to_owned(),
+                text: text.chars().take(120).collect(),
+                reason,
+            };
+            if n as u64 == limit && buf.last() != Some(&b'\n') {
+                return Err(err(
+                    "line",
+                    "",
+                    format!("longer than {MAX_LINE_BYTES} bytes"),
+                ));
+            }
+            let line = std::str::from_utf8(&buf)
+                .map_err(|_| err("line", &String::from_utf8_lossy(&buf), "not UTF-8".into()))?;
+            let line = line.trim_end_matches(['\n', '\r']);
+            let trimmed = line.trim_start();
+            if trimmed.trim_end().is_empty() {
+                t.blank += 1;
+            } else if !self.comment.is_empty() && trimmed.starts_with(self.comment.as_str()) {
+                t.comment += 1;
+            } else if let Some(cols) = &resolved {
+                let ev = self.event(line, cols, &err)?;
+                match ev {
+                    Ok(ev) => {
+                        let ev = TdcEvent {
+                            count: ev.count & mask,
+                            channel: ev.channel,
+                        };
+                        writer.push(ev).map_err(|e| ImportError::io(out_name, e))?;
+                        t.imported += 1;
+                    }
+                    Err(DROP_UNMAPPED) => t.unmapped += 1,
+                    Err(_) => t.out_of_range += 1,
+                }
+            } else {
+                t.header += 1;
+                let names: Vec<&str> = self.fields(line).collect();
+                resolved = Some(
+                    self.resolve(Some(&names))
+                        .map_err(|(field, reason)| err(&field, line, reason))?,
+                );
+            }
+            if t.lines % 4096 == 0 {
+                progress(read);
+            }
+        }
+        progress(read);
+        let (blocks, sink) = close_capture(writer, out_name)?;
+        let summary = ImportSummary {
+            source: source.to_owned(),
+            unit: "line",
+            total: t.lines,
+            imported: t.imported,
+            other: vec![
+                ("header", t.header),
+                ("comment", t.comment),
+                ("blank", t.blank),
+            ],
+            dropped: vec![(DROP_UNMAPPED, t.unmapped), (DROP_RANGE, t.out_of_range)],
+            blocks,
+            counter_bits: self.tdc.counter_bits,
+            tick_ps: self.tdc.tick_ps,
+            channel_count: self.tdc.max_channel + 1,
+        };
+        Ok((summary, sink))
+    }
+
+    fn fields<'a>(&self, line: &'a str) -> impl Iterator<Item = &'a str> + 'a {
+        let parts: Box<dyn Iterator<Item = &'a str>> = match self.delimiter {
+            Delimiter::Char(c) => Box::new(line.split(c)),
+            Delimiter::Whitespace => Box::new(line.split_whitespace()),
+        };
+        parts.map(|f| {
+            let f = f.trim();
+            f.strip_prefix('"')
+                .and_then(|g| g.strip_suffix('"'))
+                .unwrap_or(f)
+        })
+    }
+
+    /// Column positions from the header's names (or from the numbers given, without a header).
+    fn resolve(&self, names: Option<&[&str]>) -> Result<Resolved, (String, String)> {
+        let find = |col: &Column, role: &str| -> Result<(usize, String), (String, String)> {
+            match (col, names) {
+                (Column::Number(n), Some(names)) => Ok((
+                    n - 1,
+                    names
+                        .get(n - 1)
+                        .map_or_else(|| format!("column {n}"), |s| s.to_string()),
+                )),
+                (Column::Number(n), None) => Ok((n - 1, format!("{role} (column {n})"))),
+                (Column::Name(want), Some(names)) => names
+                    .iter()
+                    .position(|h| h == want)
+                    .map(|i| (i, want.clone()))
+                    .ok_or_else(|| {
+                        (
+                            "header".to_owned(),
+                            format!("no column named {want:?} for the {role}"),
+                        )
+                    }),
+                (Column::Name(want), None) => {
+                    Err(("header".into(), format!("no header for {want:?}")))
+                }
+            }
+        };
+        Ok(Resolved {
+            time: find(&self.time, "time")?,
+            channel: find(&self.channel, "channel")?,
+        })
+    }
+
+    /// One data line: an event, a reason to drop it, or an error naming the field.
+    fn event(
+        &self,
+        line: &str,
+        cols: &Resolved,
+        err: &dyn Fn(&str, &str, String) -> ImportError,
+    ) -> Result<Result<TdcEvent, &'static str>, ImportError> {
+        let get = |(i, name): &(usize, String)| {
+            self.fields(line).nth(*i).ok_or_else(|| {
+                let n = self.fields(line).count();
+                err(
+                    name,
+                    line,
+                    format!("the line has {n} fields, column {} is missing", i + 1),
+                )
+            })
+        };
+        let time_text = get(&cols.time)?;
+        let chan_text = get(&cols.channel)?;
+        let count = parse_decimal(time_text)
+            .and_then(|d| d.to_ticks(self.unit, self.tdc.tick_ps))
+            .map_err(|e| err(&cols.time.1, time_text, format!("time: {e}")))?;
+        let input: i64 = chan_text.parse().map_err(|_| {
+            err(
+                &cols.channel.1,
+                chan_text,
+                "channel: not an integer".to_owned(),
+            )
+        })?;
+        let channel = match &self.channel_map {
+            Some(map) => match map.get(input) {
+                Some(c) => c,
+                None => return Ok(Err(DROP_UNMAPPED)),
+            },
+            None => match u8::try_from(input) {
+                Ok(c) if c <= self.tdc.max_channel => c,
+                _ => return Ok(Err(DROP_RANGE)),
+            },
+        };
+        Ok(Ok(TdcEvent { count, channel }))
+    }
+}
+
+impl fmt::Display for Column {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::Name(n) => f.write_str(n),
+            Self::Number(n) => write!(f, "{n}"),
+        }
+    }
+}
