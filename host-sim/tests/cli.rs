@@ -1,33 +1,11 @@
 //! The `slotwise` binary end to end: demo, simulate, inspect, replay (with trace, plots, JSON),
 //! CSV round trip, and the errors a user sees for bad input.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::{ok, slotwise, tmp as tmp_in};
+use std::process::Command;
 
-fn slotwise(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_slotwise"))
-        .args(args)
-        .current_dir(env!("CARGO_MANIFEST_DIR"))
-        .output()
-        .expect("run slotwise")
-}
-
-fn ok(args: &[&str]) -> String {
-    let out = slotwise(args);
-    assert!(
-        out.status.success(),
-        "slotwise {args:?} failed:\n{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8_lossy(&out.stdout).into_owned()
-}
-
-fn tmp(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("slotwise-cli-{}-{name}", std::process::id()));
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
+use std::path::Path;
 
 fn json(path: &Path) -> serde_json::Value {
     serde_json::from_str(&std::fs::read_to_string(path).unwrap()).unwrap()
@@ -308,4 +286,8 @@ fn csv_replay_without_scenario_names_the_flag() {
         "{err}"
     );
     assert!(!err.contains("magic"), "{err}");
+}
+
+fn tmp(name: &str) -> std::path::PathBuf {
+    tmp_in("cli", name)
 }

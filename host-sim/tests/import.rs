@@ -1,41 +1,13 @@
 //! `slotwise import` end to end: text and binary exports become captures, read back with the
 //! capture reader; bad input is reported with file, line or record offset, and field.
 
-use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+mod common;
+use common::{fails, ok, tmp as tmp_in};
+
+use std::path::Path;
 
 use slotwise::TdcEvent;
 use slotwise_sim::capture::{self, FLAG_IMPORTED};
-
-fn slotwise(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_slotwise"))
-        .args(args)
-        .output()
-        .expect("run slotwise")
-}
-
-fn ok(args: &[&str]) -> String {
-    let out = slotwise(args);
-    assert!(
-        out.status.success(),
-        "slotwise {args:?} failed:\n{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
-    String::from_utf8_lossy(&out.stdout).into_owned()
-}
-
-fn fails(args: &[&str]) -> String {
-    let out = slotwise(args);
-    assert!(!out.status.success(), "slotwise {args:?} should fail");
-    String::from_utf8_lossy(&out.stderr).into_owned()
-}
-
-fn tmp(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("slotwise-import-{}-{name}", std::process::id()));
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
 
 fn s(p: &Path) -> &str {
     p.to_str().unwrap()
@@ -313,4 +285,8 @@ fn every_line_and_record_ends_in_one_summary_row() {
         .unwrap();
     assert_eq!((sum.total, sum.imported, sum.row("rollover")), (4, 1, 1));
     assert_eq!(sum.settled(), sum.total);
+}
+
+fn tmp(name: &str) -> std::path::PathBuf {
+    tmp_in("import", name)
 }

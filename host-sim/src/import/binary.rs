@@ -1,13 +1,12 @@
 //! Binary exports: fixed-width records decoded by the core's `slotwise::words` decoder.
 
-use std::fs::File;
 use std::io::{ErrorKind, Read, Seek, Write};
 use std::path::Path;
 
 use slotwise::words::{RecordFate, WordDecoder, WordFormat, WordLayout};
 use slotwise::TdcEvent;
 
-use super::{close_capture, open_capture, with_output, CaptureTdc, ImportError, ImportSummary};
+use super::{close_capture, file_to_file, open_capture, CaptureTdc, ImportError, ImportSummary};
 use super::{EVENT_BATCH, READ_BLOCK_BYTES};
 
 /// A checked binary import: the record layout and the capture's TDC description.
@@ -70,10 +69,9 @@ impl BinaryImport {
         out: &Path,
         progress: impl FnMut(u64),
     ) -> Result<ImportSummary, ImportError> {
-        let name = input.display().to_string();
-        let file = File::open(input).map_err(|e| ImportError::io(&name, e))?;
-        let out_name = out.display().to_string();
-        with_output(out, |w| self.run(file, &name, w, &out_name, progress))
+        file_to_file(input, out, |file, name, w, out_name| {
+            self.run(file, name, w, out_name, progress)
+        })
     }
 
     /// Import the records read from `r` (named `source` in errors) into a capture on `w`.

@@ -213,6 +213,19 @@ impl fmt::Display for ImportSummary {
 
 /// Create `out`, run `body` on a buffered writer into it, patch the block count; on any error
 /// the half-written file is removed so no truncated capture is left behind.
+/// Open `input` and create `out`, then run `body` on (input file, its name, output, its name);
+/// the output is removed when `body` fails.
+pub(crate) fn file_to_file<T>(
+    input: &Path,
+    out: &Path,
+    body: impl FnOnce(File, &str, BufWriter<File>, &str) -> Result<(T, BufWriter<File>), ImportError>,
+) -> Result<T, ImportError> {
+    let name = input.display().to_string();
+    let file = File::open(input).map_err(|e| ImportError::io(&name, e))?;
+    let out_name = out.display().to_string();
+    with_output(out, |w| body(file, &name, w, &out_name))
+}
+
 pub(crate) fn with_output<T>(
     out: &Path,
     body: impl FnOnce(BufWriter<File>) -> Result<(T, BufWriter<File>), ImportError>,

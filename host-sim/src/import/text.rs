@@ -1,7 +1,6 @@
 //! Text exports: delimited lines with a time column and a channel column.
 
 use std::fmt;
-use std::fs::File;
 use std::io::{BufRead, BufReader, Read, Seek, Write};
 use std::path::Path;
 use std::str::FromStr;
@@ -9,7 +8,7 @@ use std::str::FromStr;
 use slotwise::TdcEvent;
 
 use super::decimal::{parse_decimal, TimeUnit};
-use super::{close_capture, open_capture, with_output, CaptureTdc, ImportError, ImportSummary};
+use super::{close_capture, file_to_file, open_capture, CaptureTdc, ImportError, ImportSummary};
 use super::{MAX_CAPTURE_CHANNEL, MAX_LINE_BYTES};
 
 /// A column of a text export: by its header name, or by its number counted from 1.
@@ -171,11 +170,8 @@ impl TextImport {
         out: &Path,
         progress: impl FnMut(u64),
     ) -> Result<ImportSummary, ImportError> {
-        let name = input.display().to_string();
-        let file = File::open(input).map_err(|e| ImportError::io(&name, e))?;
-        let out_name = out.display().to_string();
-        with_output(out, |w| {
-            self.run(BufReader::new(file), &name, w, &out_name, progress)
+        file_to_file(input, out, |file, name, w, out_name| {
+            self.run(BufReader::new(file), name, w, out_name, progress)
         })
     }
 
