@@ -3,8 +3,7 @@
 use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
 use crate::clocks::{self, ClockMode, ClockStages};
 use crate::csv_io;
-use crate::link::keyfile;
-use crate::link::{HostTx, LinkModel};
+use crate::link::{keyfile, HostTx, LinkModel};
 use crate::plots;
 use crate::replay::{SessionResult, TraceRequest, TruthTag};
 use crate::scenario::Scenario;
@@ -631,6 +630,7 @@ pub fn replay_capture(
         session.push_block(&block);
     } else {
         let mut r = CaptureReader::new(BufReader::new(file), &name)?;
+        r.header().check_receiver(cfg.tdc(), cfg.gates(), &name)?;
         let mut block = Vec::new();
         loop {
             if skip_damaged {

@@ -2,7 +2,7 @@
 //! CSV round trip, and the errors a user sees for bad input.
 
 mod common;
-use common::{ok, slotwise, tmp as tmp_in};
+use common::{fails, ok, slotwise, tmp as tmp_in};
 use std::process::Command;
 
 use std::path::Path;
@@ -290,4 +290,33 @@ fn csv_replay_without_scenario_names_the_flag() {
 
 fn tmp(name: &str) -> std::path::PathBuf {
     tmp_in("cli", name)
+}
+
+#[test]
+fn replay_refuses_a_receiver_that_contradicts_the_capture() {
+    let d = tmp("contradiction");
+    let cap = d.join("bench.swcap");
+    let cap = cap.to_str().unwrap();
+    ok(&[
+        "simulate",
+        "../scenarios/bench-100mhz-30km.toml",
+        "-o",
+        cap,
+        "--duration-s",
+        "0.002",
+    ]);
+    // The bench link's TDC is 48 bits at 1 ps; the polarization scenario describes 32 bits.
+    let err = fails(&[
+        "replay",
+        cap,
+        "--scenario",
+        "../scenarios/polarization-bb84-50mhz.toml",
+    ]);
+    assert!(err.contains("counter_bits"), "{err}");
+    assert!(err.contains("48") && err.contains("32"), "{err}");
+    assert!(err.contains("bench.swcap"), "{err}");
+    // The scenario that made it replays without a word about the receiver.
+    let out = slotwise(&["replay", cap]);
+    assert!(out.status.success());
+    assert!(!String::from_utf8_lossy(&out.stderr).contains("warning"));
 }

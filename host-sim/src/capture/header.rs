@@ -6,7 +6,8 @@ use super::{
     crc32c, DEFAULT_BLOCK_EVENTS, FLAGS_KNOWN_REQUIRED, FLAGS_REQUIRED_MASK, FORMAT_MAJOR,
     FORMAT_VERSION, MAGIC, MAX_BLOCK_EVENTS, MAX_HEADER_EXTENSION, MAX_METADATA_BYTES,
 };
-use slotwise::UnwrapConfig;
+use slotwise::gates::{level_channel, MAX_LEVEL};
+use slotwise::{GateTable, UnwrapConfig};
 
 /// Offset of the format version (u16).
 pub(crate) const OFF_VERSION: usize = 8;
@@ -55,6 +56,45 @@ pub struct CaptureHeader {
 }
 
 impl CaptureHeader {
+    /// Check the receiver described for a replay (its TDC and its gate table) against this
+    /// capture of file `name`. A different counter width or tick would turn the times into
+    /// nonsense, so it is refused with both values named; channels the receiver does not describe
+    /// are only warned about (their detections are counted `rejected_channel`).
+    pub fn check_receiver(
+        &self,
+        tdc: &UnwrapConfig,
+        gates: &GateTable,
+        name: &str,
+    ) -> Result<(), String> {
+        let refuse = |field: &str, capture: u64, receiver: u64| {
+            format!(
+                "{name}: field '{field}': the capture says {capture}, the receiver description \
+                 says {receiver}; replay with the description of the hardware that recorded it"
+            )
+        };
+        if self.counter_bits != tdc.counter_bits() {
+            let (c, r) = (self.counter_bits, tdc.counter_bits());
+            return Err(refuse("counter_bits", c.into(), r.into()));
+        }
+        if self.resolution_ps != tdc.resolution_ps() {
+            let (c, r) = (self.resolution_ps, tdc.resolution_ps());
+            return Err(refuse("resolution_ps", c.into(), r.into()));
+        }
+        // With photon-number levels the channel byte carries the level too.
+        let channels = match gates.photon_levels() {
+            true => level_channel(gates.channels().saturating_sub(1), MAX_LEVEL).saturating_add(1),
+            false => gates.channels(),
+        };
+        if self.channel_count > channels {
+            eprintln!(
+                "warning: {name}: field 'channel_count': the capture has {} channels, the receiver \
+                 describes {channels}; detections on the others are counted rejected_channel",
+                self.channel_count
+            );
+        }
+        Ok(())
+    }
+
     /// A header for a TDC with the given (validated) counter width and tick, and `channel_count`
     /// channels; default block size, no flags, no metadata, unknown block count.
     pub fn new(tdc: UnwrapConfig, channel_count: u8) -> Self {
