@@ -11,7 +11,7 @@
 //!   exponential average over blocks, weight 1/8, fed only with blocks that did not collapse and
 //!   seeded by the first [`RATE_WARMUP_BLOCKS`] blocks).
 //! - **Detector saturation**: a channel's dead-time fraction over a block (see
-//!   [`crate::stats`]) at or above `saturation_ppm`.
+//!   `stats`) at or above `saturation_ppm`.
 //!
 //! Each change raises or clears an [`AlarmEvent`] stamped with the receiver time it was decided
 //! at (block end for block conditions, the detection's time for the lock). Events wait in a

@@ -4,7 +4,7 @@
 //! This module holds the [`SlotClock`] seam and [`FixedClock`], the clock handed in by
 //! configuration (links with a distributed reference clock use it). Recovering the clock from the
 //! detections themselves ([`crate::RecoveredClock`]) plugs into the same seam. Which absolute
-//! slot number a clock's slot has is a separate stage ([`crate::numbering`]), so any clock
+//! slot number a clock's slot has is a separate stage (`numbering`), so any clock
 //! combines with any numbering.
 //!
 //! Slot assignment avoids a division per detection: the slot estimate is the elapsed time
@@ -51,7 +51,7 @@ pub enum Numbered {
 
 /// A slot clock: the seam between the time base and the gates. It maps a delay-corrected time
 /// to a slot of its own numbering and a position in the slot; it does not know the transmitter's
-/// absolute numbers (that is the job of a [`crate::numbering::Numbering`] stage).
+/// absolute numbers (that is the job of a `Numbering` stage).
 ///
 /// Two clocks implement it: [`FixedClock`] (period and origin from configuration, a distributed
 /// reference) and [`crate::RecoveredClock`] (acquired and tracked from the detections).

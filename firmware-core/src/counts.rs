@@ -1,10 +1,10 @@
 //! What live statistics count: the counts of one block (or a window, or since start) and the
 //! validated settings that turn them into rates.
 //!
-//! [`crate::stats`] fills these while detections pass and [`crate::alarms`] judges them; both
+//! `stats` fills these while detections pass and `alarms` judges them; both
 //! read them from here, so neither imports the other to learn a type. The quantities and the
 //! methods behind them (dead time of a non-paralysable detector, off-gate noise over 1 − duty)
-//! are described in [`crate::stats`].
+//! are described in `stats`.
 
 use crate::gates::{Basis, GateTable, MAX_CHANNELS};
 use crate::tally::Tally;

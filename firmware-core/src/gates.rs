@@ -55,6 +55,14 @@ impl Basis {
     /// Both bases, Z first.
     pub const ALL: [Basis; 2] = [Basis::Z, Basis::X];
 
+    /// The basis's name in reports: `Z` or `X`.
+    pub const fn name(self) -> &'static str {
+        match self {
+            Basis::Z => "Z",
+            Basis::X => "X",
+        }
+    }
+
     /// Array index of this basis (Z = 0, X = 1).
     pub const fn index(self) -> usize {
         self as usize

@@ -5,7 +5,7 @@
 //! (`scenarios/highrate-1ghz-5km-snspd.toml`) and a sparse link at about 1e-6 detections per slot
 //! (`scenarios/sparse-100mhz-1e-6-per-slot.toml`). Each is pushed through the core's
 //! [`slotwise::Receiver`] as the demo builds it (recovered clock with marker alignment,
-//! [`crate::cli::receiver_setup`]) until the clock is locked and the numbering aligned; the rest
+//! [`crate::setup::receiver_setup`]) until the clock is locked and the numbering aligned; the rest
 //! of the capture is the steady state that is timed, on one core, with the clock recovered and
 //! with the scenario's reference clock. The transmitter's answers are recorded once and replayed
 //! from memory, so the transmitter costs a few nanoseconds, not the simulator's choice function.
@@ -20,10 +20,10 @@
 pub mod scaling;
 pub mod stages;
 
-use crate::cli::{receiver_setup, ClockArgs};
 use crate::clocks::{self, ClockMode, HostClock, HostRecovered};
 use crate::replay::HOST_PENDING;
 use crate::scenario::Scenario;
+use crate::setup::{receiver_setup, ClockArgs};
 use crate::sim::{SimTransmitter, Simulator};
 use serde::Serialize;
 use slotwise::{Answer, TdcEvent};
@@ -255,7 +255,7 @@ pub struct Warm {
 fn aligned(rx: &HostReceiver) -> bool {
     match rx.clock() {
         HostClock::Reference(_) => true,
-        HostClock::Recovered(_) => rx.clock().locked() && rx.numbering().state().0 == "aligned",
+        HostClock::Recovered(_) => rx.clock().locked() && rx.numbering().aligned(),
     }
 }
 
@@ -649,33 +649,6 @@ impl fmt::Display for PipelineReport {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::cli::{BenchCommand, Cli, Command};
-    use clap::Parser;
-
-    fn bench(args: &[&str]) -> crate::cli::BenchArgs {
-        let cli = Cli::try_parse_from(["slotwise", "bench"].iter().chain(args)).unwrap();
-        match cli.command {
-            Command::Bench(b) => b,
-            other => panic!("{other:?}"),
-        }
-    }
-
-    #[test]
-    fn plain_bench_is_the_pipeline_benchmark_and_sync_still_parses() {
-        let b = bench(&["--json", "--capture", "default,sparse", "--reps", "3"]);
-        assert!(b.command.is_none());
-        assert!(b.pipeline.json);
-        assert_eq!(
-            b.pipeline.capture,
-            vec![CaptureName::Default, CaptureName::Sparse]
-        );
-        assert_eq!(b.pipeline.reps, Some(3));
-        let b = bench(&["pipeline", "--count-only"]);
-        assert!(matches!(b.command, Some(BenchCommand::Pipeline(a)) if a.count_only));
-        let b = bench(&["sync", "--quick"]);
-        assert!(matches!(b.command, Some(BenchCommand::Sync(a)) if a.quick));
-    }
-
     #[test]
     fn bench_scenarios_are_valid_and_named_after_what_they_are() {
         for c in CaptureName::ALL {

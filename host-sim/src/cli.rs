@@ -1,17 +1,18 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
 use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
-use crate::clocks::{self, ClockMode, ClockStages};
+use crate::clocks::ClockStages;
 use crate::csv_io;
 use crate::link::{keyfile, HostTx, LinkModel};
 use crate::plots;
 use crate::replay::{SessionResult, TraceRequest, TruthTag};
 use crate::scenario::Scenario;
+pub use crate::setup::{receiver_setup, receiver_setup_for, ClockArgs};
 use crate::sim::{self, Simulator};
 use crate::summary::{summarize, Summary};
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressStyle};
-use slotwise::{OverflowPolicy, ReceiverConfig, SiftedBit, UnwrapConfig};
+use slotwise::{ReceiverConfig, SiftedBit, UnwrapConfig};
 use std::fs::File;
 use std::io::{BufReader, BufWriter, IsTerminal, Write};
 use std::path::{Path, PathBuf};
@@ -132,18 +133,6 @@ pub enum BenchCommand {
     /// Clock recovery: period error against the Cramér-Rao bound, detections to lock, false locks
     /// on noise, relock after a blackout and a phase jump, cost per detection.
     Sync(crate::bench_sync::BenchSyncArgs),
-}
-
-/// How the receiver gets its clock.
-#[derive(Args, Debug, Clone)]
-pub struct ClockArgs {
-    /// `recovered`: find period and phase from the detections (no clock cable);
-    /// `reference`: use the scenario's true clock, as a link with a distributed reference would.
-    #[arg(long, value_enum, default_value_t = ClockMode::Recovered)]
-    pub clock: ClockMode,
-    /// Prior on the transmitter's period for recovery: nominal ± this many ppm (1..=1000).
-    #[arg(long, default_value_t = 500)]
-    pub prior_ppm: u32,
 }
 
 /// How the transmitter's answers reach the receiver.
@@ -323,46 +312,6 @@ fn load_scenario(path: Option<&Path>, duration_s: Option<f64>) -> Result<Scenari
         s.validate("--duration-s")?;
     }
     Ok(s)
-}
-
-/// The receiver configuration the scenario's optics imply, with the chosen clock.
-pub fn receiver_setup(
-    s: &Scenario,
-    clock: &ClockArgs,
-) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
-    receiver_setup_for(s, clock, false)
-}
-
-/// As [`receiver_setup`]; with `framed`, the link endpoint decides when answers expire (its
-/// timeout is the scenario's 10 ms of slots) and the receiver's own timeout only backs it up.
-pub fn receiver_setup_for(
-    s: &Scenario,
-    clock: &ClockArgs,
-    framed: bool,
-) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
-    let (delays, gates) = sim::receiver_gates(s);
-    let table = slotwise::GateTable::new(&delays, &gates)?;
-    let table = if s.pnr.is_some() {
-        table.with_photon_levels()
-    } else {
-        table
-    };
-    let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
-    let timeout_slots = if framed {
-        u64::MAX / 4
-    } else {
-        (s.rep_rate_hz * 0.01).max(1.0) as u64
-    };
-    let cfg = ReceiverConfig::new(
-        tdc,
-        table,
-        s.intensities.len() as u8,
-        timeout_slots,
-        OverflowPolicy::DropNewest,
-        s.seed ^ 0x5351_5541_5348,
-    )?;
-    let clock = clocks::build(s, cfg.gates(), clock.clock, clock.prior_ppm)?;
-    Ok((cfg, clock))
 }
 
 fn progress(total: u64, what: &str) -> ProgressBar {

@@ -288,6 +288,14 @@ impl HostClock {
 }
 
 impl HostNumbering {
+    /// Whether detections get the transmitter's absolute slot numbers now.
+    pub fn aligned(&self) -> bool {
+        match self {
+            Self::Absolute(_) => true,
+            Self::Marker(n) => n.aligned(),
+        }
+    }
+
     /// How the slot numbering stands, and how often it was re-established.
     pub fn state(&self) -> (String, u32) {
         use slotwise::AlignState as A;

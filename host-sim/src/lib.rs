@@ -12,9 +12,11 @@ pub mod import;
 pub mod keyrate;
 pub mod link;
 pub mod marker;
+pub mod normal;
 pub mod plots;
 pub mod replay;
 pub mod scenario;
+pub mod setup;
 pub mod sim;
 pub mod stats;
 #[cfg(feature = "proptest-strategies")]

@@ -176,7 +176,7 @@ pub fn fold_profile(
                 )))?;
                 let label = format!(
                     "{}{}",
-                    crate::replay::basis_name(g.basis),
+                    g.basis.name(),
                     if g.basis == Basis::X {
                         if g.bit == 0 {
                             "+"

@@ -208,14 +208,10 @@ impl<T: Transmitter> Session<T> {
         let q = |b: Basis| {
             let (e, n) = w.errors(b, Some(cfg.intensity()));
             if n == 0 {
-                return format!("{} -", basis_name(b));
+                return format!("{} -", b.name());
             }
             let ub = f64::from(cfg.upper_ppm(e, n)) * 1e-4;
-            format!(
-                "{} {:.2}% (≤{ub:.2}%)",
-                basis_name(b),
-                1e2 * e as f64 / n as f64
-            )
+            format!("{} {:.2}% (≤{ub:.2}%)", b.name(), 1e2 * e as f64 / n as f64)
         };
         format!(
             "{} {} alarms {:#07b}",
@@ -365,11 +361,7 @@ impl<T: Transmitter> Session<T> {
             .gate
             .and_then(|g| self.cfg.gates().gate(g).map(|x| (g, x)))
         {
-            Some((g, x)) => (
-                g.to_string(),
-                basis_name(x.basis).to_string(),
-                x.bit.to_string(),
-            ),
+            Some((g, x)) => (g.to_string(), x.basis.name().to_string(), x.bit.to_string()),
             None => (String::new(), String::new(), String::new()),
         };
         let decision = tr.fate.name();
@@ -450,14 +442,6 @@ pub struct SessionResult<T: Transmitter> {
     pub live: LiveLog,
     /// Receiver time of the first detection, ps (the origin of every `t_s`).
     pub first_t_ps: u64,
-}
-
-/// Short name of a basis for reports.
-pub fn basis_name(b: Basis) -> &'static str {
-    match b {
-        Basis::Z => "Z",
-        Basis::X => "X",
-    }
 }
 
 /// A phase as an f64 fraction of the slot (for reports).

@@ -3,12 +3,14 @@
 //! `docs/scenario.md`; [`Scenario::from_toml_str`] refuses unknown keys and out-of-range values with
 //! an error that names the file, the line and the key.
 
-use crate::sim::faults::Faults;
 use serde::{Deserialize, Serialize};
+use specs::{Faults, PnrSpec, SourceKind, SourceSpec};
 use std::fmt;
 use std::path::Path;
 
 mod alarms;
+pub mod layout;
+pub mod specs;
 pub use alarms::{AlarmsToml, BoundName};
 
 /// The default scenario's text (BRIEF §6), committed as `scenarios/bench-100mhz-30km.toml`.
@@ -123,10 +125,10 @@ pub struct Scenario {
     pub faults: Faults,
     /// Photon-number-resolving detectors (default: threshold detectors); see `docs/scenario.md`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub pnr: Option<crate::sim::PnrSpec>,
+    pub pnr: Option<PnrSpec>,
     /// The light source (default: an attenuated laser); see `docs/scenario.md`.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub source: Option<crate::sim::SourceSpec>,
+    pub source: Option<SourceSpec>,
 }
 
 fn default_true() -> bool {
@@ -443,7 +445,7 @@ impl Scenario {
         if self.tdc_resolution_ps == 0 {
             return Err(c.err("tdc_resolution_ps", "must be at least 1 ps"));
         }
-        let w_ps = crate::sim::gate_half_width_ps(self);
+        let w_ps = layout::gate_half_width_ps(self);
         if f64::from(self.tdc_resolution_ps) > w_ps {
             return Err(c.err(
                 "tdc_resolution_ps",
@@ -464,7 +466,7 @@ impl Scenario {
                 "counter value times resolution would overflow 64-bit picoseconds during the run",
             ));
         }
-        let channels = usize::from(crate::sim::channels(self));
+        let channels = usize::from(layout::channels(self));
         if let Some(d) = &self.channel_delays_ps {
             if d.len() != channels {
                 return Err(c.err(
@@ -480,11 +482,7 @@ impl Scenario {
             }
         }
         self.faults
-            .check(
-                self.duration_s,
-                crate::sim::channels(self),
-                self.dead_time_ns,
-            )
+            .check(self.duration_s, layout::channels(self), self.dead_time_ns)
             .map_err(|(key, m)| c.err(key, m))?;
         if let Some(p) = &self.pnr {
             if !(1..=64).contains(&p.pixels) {
@@ -510,7 +508,7 @@ impl Scenario {
             if let Some(w) = src.wavelength_nm {
                 c.range("wavelength_nm", w, Closed(300.0), Closed(2000.0))?;
             }
-            if src.kind == crate::sim::SourceKind::SinglePhoton {
+            if src.kind == SourceKind::SinglePhoton {
                 if let Some(mu) = self
                     .intensities
                     .iter()
@@ -525,7 +523,7 @@ impl Scenario {
                 }
             }
         }
-        let earliest = crate::sim::earliest_click_offset_ps(self);
+        let earliest = layout::earliest_click_offset_ps(self);
         if self.start_offset() + earliest < 0.0 {
             return Err(c.err(
                 "start_offset_ps",
@@ -572,7 +570,7 @@ impl Scenario {
     pub fn delays_ps(&self) -> Vec<i64> {
         self.channel_delays_ps
             .clone()
-            .unwrap_or_else(|| vec![0; usize::from(crate::sim::channels(self))])
+            .unwrap_or_else(|| vec![0; usize::from(layout::channels(self))])
     }
 
     /// Serialise back to TOML text.

@@ -18,6 +18,8 @@ use slotwise::stats::{Snapshot, DEFAULT_BLOCKS};
 use slotwise::{Basis, Counts, Monitor};
 use std::collections::BTreeMap;
 
+pub use crate::normal::{normal_isf, normal_upper_tail};
+
 /// The monitor the host runs: the board's default window.
 pub type HostMonitor = Monitor<DEFAULT_BLOCKS>;
 
@@ -46,44 +48,6 @@ pub fn ln_gamma(x: f64) -> f64 {
         a += c / (x + i as f64);
     }
     0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + a.ln()
-}
-
-/// Upper tail Q(x) = 1 − Φ(x) of the standard normal law, for x ≥ 0 (relative error ~1e-12).
-///
-/// Below x = 3 the Taylor series Φ(x) = 1/2 + φ(x)·Σ x^(2k+1)/(1·3·…·(2k+1)) (Marsaglia, J. Stat.
-/// Softw. 11(4), 2004); from 3 on Laplace's continued fraction Q(x) = φ(x)/(x + 1/(x + 2/(x + …))),
-/// evaluated backwards from depth 200, which avoids the cancellation of 1/2 − Φ in the far tail.
-pub fn normal_upper_tail(x: f64) -> f64 {
-    let phi = (-0.5 * x * x).exp() / (2.0 * std::f64::consts::PI).sqrt();
-    if x < 3.0 {
-        let (mut term, mut sum, mut k) = (x, x, 1.0);
-        while term.abs() > 1e-17 * sum.abs() {
-            term *= x * x / (2.0 * k + 1.0);
-            sum += term;
-            k += 1.0;
-        }
-        0.5 - phi * sum
-    } else {
-        let mut d = x;
-        for k in (1..=200).rev() {
-            d = x + f64::from(k) / d;
-        }
-        phi / d
-    }
-}
-
-/// z with Q(z) = ε for ε in (0, 1/2] (bisection on ln Q, which cannot fail on a monotone tail).
-pub fn normal_isf(eps: f64) -> f64 {
-    let (mut lo, mut hi) = (0.0f64, 40.0f64);
-    for _ in 0..200 {
-        let mid = 0.5 * (lo + hi);
-        if normal_upper_tail(mid).ln() > eps.ln() {
-            lo = mid;
-        } else {
-            hi = mid;
-        }
-    }
-    0.5 * (lo + hi)
 }
 
 /// One-sided ε of the QBER alarm's bound: 1/`one_in` for Hoeffding; for Wilson the ε its Q16.16
@@ -350,7 +314,7 @@ fn qber_rows(c: &Counts, scope: &'static str, intensities: u8, m: &HostMonitor) 
             let (e, n) = c.errors(b, i);
             let ppm = |v: u32| f64::from(v) * 1e-6;
             rows.push(QberRow {
-                basis: crate::replay::basis_name(b),
+                basis: b.name(),
                 intensity: i,
                 scope,
                 errors: e,

@@ -174,14 +174,7 @@ pub fn summarize<T: Transmitter>(
                     for rbit in 0..2u8 {
                         let n = t.count(tb, tbit, i, rb, rbit);
                         if n > 0 {
-                            let k = format!(
-                                "{}{}/{}/{}{}",
-                                crate::replay::basis_name(tb),
-                                tbit,
-                                i,
-                                crate::replay::basis_name(rb),
-                                rbit
-                            );
+                            let k = format!("{}{}/{}/{}{}", tb.name(), tbit, i, rb.name(), rbit);
                             tally.insert(k, n);
                         }
                     }

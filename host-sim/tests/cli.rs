@@ -320,3 +320,29 @@ fn replay_refuses_a_receiver_that_contradicts_the_capture() {
     assert!(out.status.success());
     assert!(!String::from_utf8_lossy(&out.stderr).contains("warning"));
 }
+
+#[test]
+fn plain_bench_is_the_pipeline_benchmark_and_sync_still_parses() {
+    use clap::Parser;
+    use slotwise_sim::bench_pipeline::CaptureName;
+    use slotwise_sim::cli::{BenchArgs, BenchCommand, Cli, Command};
+    fn bench(args: &[&str]) -> BenchArgs {
+        let cli = Cli::try_parse_from(["slotwise", "bench"].iter().chain(args)).unwrap();
+        match cli.command {
+            Command::Bench(b) => b,
+            other => panic!("{other:?}"),
+        }
+    }
+    let b = bench(&["--json", "--capture", "default,sparse", "--reps", "3"]);
+    assert!(b.command.is_none());
+    assert!(b.pipeline.json);
+    assert_eq!(
+        b.pipeline.capture,
+        vec![CaptureName::Default, CaptureName::Sparse]
+    );
+    assert_eq!(b.pipeline.reps, Some(3));
+    let b = bench(&["pipeline", "--count-only"]);
+    assert!(matches!(b.command, Some(BenchCommand::Pipeline(a)) if a.count_only));
+    let b = bench(&["sync", "--quick"]);
+    assert!(matches!(b.command, Some(BenchCommand::Sync(a)) if a.quick));
+}

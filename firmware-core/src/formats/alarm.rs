@@ -2,7 +2,7 @@
 //!
 //! Payload, 20 bytes little-endian: `t_ps u64 | code u8 | detail u8 | raised u8 | reserved u8 |
 //! value_ppm u32 | threshold_ppm u32` (`docs/frames.md`). The conditions themselves are decided
-//! in [`crate::alarms`]; this module only knows their bytes.
+//! in `alarms`; this module only knows their bytes.
 
 use super::bytes::{Reader, Writer};
 use super::framing::FrameError;

@@ -4,7 +4,7 @@
 //! | window_blocks u8 | channels u8 | active u8 | reserved u8 | (errors u32, tested u32) per
 //! [basis][intensity] | upper_ppm u32 × 2 | detections u32 × 16 | off_gate u32 × 16 |
 //! gated_slots u32 | multi_click_slots u32` (`docs/frames.md`). The monitor that fills it is
-//! [`crate::stats`].
+//! `stats`.
 
 use super::bytes::{Reader, Writer};
 use super::framing::FrameError;

@@ -5,7 +5,7 @@
 //! [`Accounting::from_words`], so the record follows that struct without naming its fields), the
 //! multi-click events, the answer errors, the single-click and multi-click tallies (row-major),
 //! key blocks and frame errors. `docs/frames.md` lists every word's offset. The receiver fills
-//! one with `Summary::of` (in [`crate::receiver`], which sits above this module).
+//! one with `Summary::of` (in `receiver`, which sits above this module).
 
 use super::bytes::{Reader, Writer};
 use super::framing::{FrameError, MAX_PAYLOAD};

@@ -11,9 +11,9 @@
 
 use super::stages::{self, CountSink, Recording, ReplayAnswers};
 use super::{simulate, state_bytes, time_reps, warm_up, CaptureName, PipelineArgs, Timing};
-use crate::cli::{receiver_setup, ClockArgs};
 use crate::clocks::{self, ClockMode, HostClock, HostNumbering};
 use crate::scenario::Scenario;
+use crate::setup::{receiver_setup, ClockArgs};
 use crate::sim::{self, SimTransmitter};
 use serde::Serialize;
 use slotwise::{Receiver, TdcEvent};

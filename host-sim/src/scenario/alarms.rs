@@ -119,7 +119,7 @@ impl Scenario {
         }
         let bound = match a.bound {
             BoundName::Wilson => BoundKind::Wilson {
-                z_q16: (crate::stats::normal_isf(a.epsilon) * 65536.0).round() as u32,
+                z_q16: (crate::normal::normal_isf(a.epsilon) * 65536.0).round() as u32,
             },
             BoundName::Hoeffding => BoundKind::Hoeffding(
                 Epsilon::one_in((1.0 / a.epsilon).round() as u64)

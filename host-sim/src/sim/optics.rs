@@ -17,41 +17,19 @@
 
 use super::rng::Stream;
 use super::tx::TxChoice;
+pub use crate::scenario::layout::{
+    channels, earliest_click_offset_ps, gate_half_width_ps, POLARIZATION_POSITION, TIME_BIN_EARLY,
+    TIME_BIN_SEPARATION,
+};
 use crate::scenario::{Encoding, Scenario};
 use slotwise::fixed::types::U0F32;
 use slotwise::{Basis, Gate};
-
-/// Time-bin early-bin arrival position, fraction of the slot.
-pub const TIME_BIN_EARLY: f64 = 0.2;
-/// Time-bin separation Δ (and interferometer delay), fraction of the slot.
-pub const TIME_BIN_SEPARATION: f64 = 0.25;
-/// Polarization arrival position, fraction of the slot.
-pub const POLARIZATION_POSITION: f64 = 0.3;
-
-/// Number of detectors (TDC channels) of the scenario's receiver: 3 (time-bin) or 4 (polarization).
-pub fn channels(s: &Scenario) -> u8 {
-    match s.encoding {
-        Encoding::TimeBin => 3,
-        Encoding::Polarization => 4,
-    }
-}
 
 /// Arrival position number `pos` (0 = E, 1 = M, 2 = L; polarization has only 0), fraction of T.
 pub fn position_fraction(encoding: Encoding, pos: u8) -> f64 {
     match encoding {
         Encoding::TimeBin => TIME_BIN_EARLY + TIME_BIN_SEPARATION * f64::from(pos),
         Encoding::Polarization => POLARIZATION_POSITION,
-    }
-}
-
-/// Gate half-width w, ps: time-bin min(0.45 Δ, max(4σ, 0.02 T)), polarization
-/// min(0.45 T, max(4σ, 0.05 T)).
-pub fn gate_half_width_ps(s: &Scenario) -> f64 {
-    let t = s.period_ps();
-    let sigma4 = 4.0 * s.jitter_ps;
-    match s.encoding {
-        Encoding::TimeBin => (0.45 * TIME_BIN_SEPARATION * t).min(sigma4.max(0.02 * t)),
-        Encoding::Polarization => (0.45 * t).min(sigma4.max(0.05 * t)),
     }
 }
 
@@ -124,17 +102,6 @@ pub fn receiver_gates(s: &Scenario) -> (Vec<i64>, Vec<Gate>) {
         })
         .collect();
     (s.delays_ps(), gates)
-}
-
-/// Lower bound on (click time − slot start) over every detector and position, ps.
-pub fn earliest_click_offset_ps(s: &Scenario) -> f64 {
-    let min_skew = s
-        .channel_delays_ps
-        .as_ref()
-        .and_then(|d| d.iter().min().copied())
-        .unwrap_or(0)
-        .min(0);
-    min_skew as f64 - super::rng::NORMAL_BOUND * s.jitter_ps - 1.0
 }
 
 /// Where one detected photon ends up: detector and arrival position number.

@@ -9,19 +9,8 @@
 //! common practice) — the check in the tests.
 
 use super::rng::Stream;
-use serde::{Deserialize, Serialize};
 
-/// The `[pnr]` table of a scenario: every detector is a pixelated photon-number-resolving one.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct PnrSpec {
-    /// Pixels per detector (1..=64).
-    pub pixels: u32,
-    /// Detection efficiency of each pixel (fraction); replaces `detector_efficiency` in η.
-    pub pixel_efficiency: f64,
-    /// Recovery time of a pixel after it fires, ns.
-    pub pixel_recovery_ns: f64,
-}
+pub use crate::scenario::specs::PnrSpec;
 
 /// Channel bytes a capture of scenario `s` can hold: the detectors, or with photon-number
 /// levels every detector at every level (`slotwise::gates::level_channel`).

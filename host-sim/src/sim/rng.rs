@@ -11,8 +11,7 @@
 /// The SplitMix64 increment γ = 2^64 / φ, odd.
 pub const GOLDEN_GAMMA: u64 = 0x9E37_79B9_7F4A_7C15;
 
-/// Largest |z| a [`Stream::normal`] draw can reach: √(−2 ln 2^−53) ≈ 8.572 (53-bit uniforms).
-pub const NORMAL_BOUND: f64 = 8.58;
+pub use crate::scenario::layout::NORMAL_BOUND;
 
 /// The SplitMix64 output finaliser (a bijection on 64-bit words).
 pub const fn mix64(z: u64) -> u64 {

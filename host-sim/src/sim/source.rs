@@ -8,32 +8,8 @@
 //! survives loss η independently (binomial thinning, common practice).
 
 use super::rng::Stream;
-use serde::{Deserialize, Serialize};
 
-/// The `[source]` table of a scenario.
-#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct SourceSpec {
-    /// What emits the pulses.
-    pub kind: SourceKind,
-    /// g2(0) of a single-photon source (dimensionless, [0, 1]); ignored by the laser.
-    #[serde(default)]
-    pub g2: f64,
-    /// Emission wavelength, nm (recorded for the reader; fibre loss and detector figures are
-    /// given by their own keys).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub wavelength_nm: Option<f64>,
-}
-
-/// Source kinds.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "kebab-case")]
-pub enum SourceKind {
-    /// Attenuated laser: Poisson photon numbers (g2(0) = 1).
-    Laser,
-    /// Sub-Poissonian source with the given g2(0).
-    SinglePhoton,
-}
+pub use crate::scenario::specs::{SourceKind, SourceSpec};
 
 /// Photon-number statistics of the pulses, as the simulator draws them.
 #[derive(Clone, Copy, Debug, PartialEq)]
