@@ -70,11 +70,23 @@ impl<C: SlotClock, N: Numbering> FrontEnd<C, N> {
         self.numbering.hint(&self.clock, t_ps, tx_slot);
     }
 
-    /// Step 1: unwrap the counter and remove the channel's delay. `t_raw` receives the unwrapped
-    /// time when the time base accepted it (for traces).
+    /// The detector channel and photon-number level of a raw channel byte (the gate table's
+    /// split, [`GateTable::split_channel`]).
     #[inline(always)]
-    pub fn time(&mut self, ev: TdcEvent, t_raw: &mut Option<u64>) -> Result<Timed, Fate> {
-        let (channel, level) = self.gates.split_channel(ev.channel);
+    pub fn split_channel(&self, raw: u8) -> (u8, u8) {
+        self.gates.split_channel(raw)
+    }
+
+    /// Step 1: unwrap the counter and remove the delay of `channel` (with its photon-number
+    /// `level`, both from [`Self::split_channel`]). `t_raw` receives the unwrapped time when the
+    /// time base accepted it (for traces).
+    #[inline(always)]
+    pub fn time(
+        &mut self,
+        ev: TdcEvent,
+        (channel, level): (u8, u8),
+        t_raw: &mut Option<u64>,
+    ) -> Result<Timed, Fate> {
         let det = self.unwrapper.unwrap(ev).map_err(|_| Fate::RejectedTime)?;
         *t_raw = Some(det.t_ps);
         let delay = self.gates.delay_ps(channel).ok_or(Fate::RejectedChannel)?;

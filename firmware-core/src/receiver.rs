@@ -297,14 +297,15 @@ impl<C: SlotClock, const PENDING: usize, N: Numbering> Receiver<C, PENDING, N> {
         key: &mut impl KeySink,
     ) -> Trace {
         self.detections_in += 1;
+        let split = self.front.split_channel(ev.channel);
         let mut trace = Trace {
             t_ps: None,
-            channel: self.cfg.gates.split_channel(ev.channel).0,
+            channel: split.0,
             slot: None,
             gate: None,
             fate: Fate::InFlight,
         };
-        if let Err(fate) = self.stages(ev, &mut trace, tx, key) {
+        if let Err(fate) = self.stages(ev, split, &mut trace, tx, key) {
             trace.fate = fate;
             self.accounting.add(fate, 1);
         }
@@ -317,11 +318,12 @@ impl<C: SlotClock, const PENDING: usize, N: Numbering> Receiver<C, PENDING, N> {
     fn stages(
         &mut self,
         ev: TdcEvent,
+        split: (u8, u8),
         trace: &mut Trace,
         tx: &mut impl Transmitter,
         key: &mut impl KeySink,
     ) -> Result<(), Fate> {
-        let d = self.front.time(ev, &mut trace.t_ps)?;
+        let d = self.front.time(ev, split, &mut trace.t_ps)?;
         let pos = self.front.slot(&d)?;
         trace.slot = Some((pos.slot, pos.phase));
         let (i, g) = self.front.gate(&d, &pos)?;

@@ -77,7 +77,7 @@ pub fn truncated(st: &mut StageState, events: &[TdcEvent], depth: Depth) -> u64 
     let f = &mut st.front;
     for &ev in black_box(events) {
         let mut t_raw = None;
-        let Ok(d) = f.time(ev, &mut t_raw) else {
+        let Ok(d) = f.time(ev, f.split_channel(ev.channel), &mut t_raw) else {
             continue;
         };
         if depth == Depth::Unwrap {
