@@ -19,8 +19,6 @@ pub struct Timed {
     pub channel: u8,
     /// Photon-number level from the channel byte (1 for threshold detectors).
     pub level: u8,
-    /// Unwrapped time in ps, before the channel delay.
-    pub t_raw_ps: u64,
     /// Delay-corrected time in ps.
     pub t_ps: u64,
 }
@@ -97,7 +95,6 @@ impl<C: SlotClock, N: Numbering> FrontEnd<C, N> {
         Ok(Timed {
             channel,
             level,
-            t_raw_ps: det.t_ps,
             t_ps,
         })
     }
