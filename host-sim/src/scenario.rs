@@ -5,7 +5,6 @@
 
 use serde::{Deserialize, Serialize};
 use specs::{Faults, PnrSpec, SourceKind, SourceSpec};
-use std::fmt;
 use std::path::Path;
 
 mod alarms;
@@ -135,176 +134,15 @@ fn default_true() -> bool {
     true
 }
 
-/// A scenario that could not be read: which file, where, which key, and why.
-#[derive(Clone, Debug, PartialEq, Eq)]
-pub struct ScenarioError {
-    /// File name (or other source name) the text came from.
-    pub source: String,
-    /// 1-based line of the offending key, when known.
-    pub line: Option<usize>,
-    /// 1-based column, when known.
-    pub column: Option<usize>,
-    /// Byte offset into the text, when known.
-    pub byte: Option<usize>,
-    /// The offending key, when known.
-    pub key: Option<String>,
-    /// What is wrong.
-    pub message: String,
-}
-
-impl fmt::Display for ScenarioError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "{}:", self.source)?;
-        if let Some(l) = self.line {
-            write!(f, " line {l}")?;
-            if let Some(c) = self.column {
-                write!(f, ", column {c}")?;
-            }
-            if let Some(b) = self.byte {
-                write!(f, " (byte {b})")?;
-            }
-            write!(f, ":")?;
-        }
-        if let Some(k) = &self.key {
-            write!(f, " key '{k}':")?;
-        }
-        write!(f, " {}", self.message)
-    }
-}
-
-impl std::error::Error for ScenarioError {}
-
-/// Line, column (both 1-based) and key name at a byte offset of a TOML text.
-fn locate(text: &str, byte: usize) -> (usize, usize, Option<String>) {
-    let byte = byte.min(text.len());
-    let before = text.get(..byte).unwrap_or("");
-    let line = before.matches('\n').count() + 1;
-    let line_start = before.rfind('\n').map_or(0, |i| i + 1);
-    let column = before.len() - line_start + 1;
-    let line_text = text
-        .get(line_start..)
-        .unwrap_or("")
-        .lines()
-        .next()
-        .unwrap_or("");
-    let key = line_text
-        .split_once('=')
-        .map(|(k, _)| k.trim().to_string())
-        .filter(|k| !k.is_empty() && !k.starts_with('#'));
-    (line, column, key)
-}
-
-/// Byte offset of the line that assigns `key` at the top level, if any.
-fn find_key(text: &str, key: &str) -> Option<usize> {
-    let mut offset = 0;
-    for line in text.split_inclusive('\n') {
-        let header = line.trim().trim_start_matches('[').trim_end_matches(']');
-        if line.trim_start().starts_with('[') && header.trim() == key {
-            return Some(offset + (line.len() - line.trim_start().len()));
-        }
-        if let Some((k, _)) = line.split_once('=') {
-            if k.trim() == key {
-                return Some(offset + (line.len() - line.trim_start().len()));
-            }
-        }
-        offset += line.len();
-    }
-    None
-}
-
-struct Check<'a> {
-    source: &'a str,
-    text: &'a str,
-}
-
-impl Check<'_> {
-    fn err(&self, key: &str, message: impl Into<String>) -> ScenarioError {
-        let (line, column, byte) = match find_key(self.text, key) {
-            Some(b) => {
-                let (l, c, _) = locate(self.text, b);
-                (Some(l), Some(c), Some(b))
-            }
-            None => (None, None, None),
-        };
-        ScenarioError {
-            source: self.source.to_string(),
-            line,
-            column,
-            byte,
-            key: Some(key.to_string()),
-            message: message.into(),
-        }
-    }
-
-    fn finite(&self, key: &str, v: f64) -> Result<(), ScenarioError> {
-        if v.is_finite() {
-            Ok(())
-        } else {
-            Err(self.err(key, "must be a finite number"))
-        }
-    }
-
-    /// `lo <= v <= hi` (closed) or `lo < v < hi` (open), chosen per bound.
-    fn range(&self, key: &str, v: f64, lo: Bound, hi: Bound) -> Result<(), ScenarioError> {
-        self.finite(key, v)?;
-        let ok_lo = match lo {
-            Bound::Closed(x) => v >= x,
-            Bound::Open(x) => v > x,
-        };
-        let ok_hi = match hi {
-            Bound::Closed(x) => v <= x,
-            Bound::Open(x) => v < x,
-        };
-        if ok_lo && ok_hi {
-            return Ok(());
-        }
-        let l = match lo {
-            Bound::Closed(x) => format!("[{x}"),
-            Bound::Open(x) => format!("({x}"),
-        };
-        let h = match hi {
-            Bound::Closed(x) => format!("{x}]"),
-            Bound::Open(x) => format!("{x})"),
-        };
-        Err(self.err(key, format!("must lie in {l},{h}, got {v}")))
-    }
-}
-
-#[derive(Clone, Copy)]
-enum Bound {
-    Closed(f64),
-    Open(f64),
-}
+pub use crate::tomlcheck::TomlError as ScenarioError;
+use crate::tomlcheck::{Bound, Check};
 
 use Bound::{Closed, Open};
 
 impl Scenario {
     /// Parse and validate a scenario; `source_name` (usually the file path) names it in errors.
     pub fn from_toml_str(text: &str, source_name: &str) -> Result<Self, ScenarioError> {
-        let s: Scenario = toml::from_str(text).map_err(|e| {
-            let missing = e
-                .message()
-                .strip_prefix("missing field `")
-                .and_then(|m| m.split_once('`'))
-                .map(|(k, _)| k.to_string());
-            let (line, column, byte, key) = match e.span() {
-                // A missing key has no place in the text; name it instead.
-                _ if missing.is_some() => (None, None, None, missing),
-                Some(span) => {
-                    let (l, c, k) = locate(text, span.start);
-                    (Some(l), Some(c), Some(span.start), k)
-                }
-                None => (None, None, None, None),
-            };
-            ScenarioError {
-                source: source_name.to_string(),
-                line,
-                column,
-                byte,
-                key,
-                message: e.message().trim().to_string(),
-            }
-        })?;
+        let s: Scenario = crate::tomlcheck::parse(text, source_name)?;
         s.validate_text(source_name, text)?;
         Ok(s)
     }

@@ -2,7 +2,8 @@
 //! (percent, ε), turned into a validated [`slotwise::AlarmConfig`]. Keys, ranges and defaults are
 //! in `docs/scenario.md`; every default reproduces [`slotwise::AlarmConfig::DEFAULT`].
 
-use super::{Bound, Check, Scenario, ScenarioError};
+use super::{Scenario, ScenarioError};
+use crate::tomlcheck::{Bound, Check, TomlError};
 use serde::{Deserialize, Serialize};
 use slotwise::alarms::{AlarmConfigError, BoundKind};
 use slotwise::bounds::Epsilon;
@@ -64,12 +65,6 @@ fn ppm(pct: f64) -> u32 {
     (pct * 1e4).round() as u32
 }
 
-/// Prefix a key with its table so the error reads `key 'alarms.epsilon'`.
-fn in_table(mut e: ScenarioError) -> ScenarioError {
-    e.key = e.key.map(|k| format!("alarms.{k}"));
-    e
-}
-
 impl Scenario {
     /// The board's alarm thresholds from the `[alarms]` table (defaults when it is absent).
     pub fn alarm_config(&self) -> Result<AlarmConfig, ScenarioError> {
@@ -81,39 +76,44 @@ impl Scenario {
         source: &str,
         text: &str,
     ) -> Result<AlarmConfig, ScenarioError> {
-        let c = Check { source, text };
-        let a = &self.alarms;
-        let err = |key: &str, m: String| in_table(c.err(key, m));
-        let range = |key: &str, v: f64, lo: Bound, hi: Bound| c.range(key, v, lo, hi);
+        self.alarms
+            .config(self.intensities.len(), &Check { source, text })
+    }
+}
+
+impl AlarmsToml {
+    /// The board's thresholds for a receiver of `intensities` classes, checked through
+    /// [`AlarmConfig::new`]; errors name the key as `alarms.<key>`, placed by `c`.
+    pub fn config(&self, intensities: usize, c: &Check) -> Result<AlarmConfig, TomlError> {
+        let a = self;
+        let err = |key: &str, m: String| c.err(&format!("alarms.{key}"), m);
+        let range =
+            |key: &str, v: f64, lo: Bound, hi: Bound| c.range(&format!("alarms.{key}"), v, lo, hi);
         range(
             "qber_ceiling_pct",
             a.qber_ceiling_pct,
             Bound::Open(0.0),
             Bound::Closed(50.0),
-        )
-        .map_err(in_table)?;
-        range("epsilon", a.epsilon, Bound::Closed(1e-18), Bound::Open(0.5)).map_err(in_table)?;
+        )?;
+        range("epsilon", a.epsilon, Bound::Closed(1e-18), Bound::Open(0.5))?;
         range(
             "rate_floor_pct",
             a.rate_floor_pct,
             Bound::Open(0.0),
             Bound::Open(100.0),
-        )
-        .map_err(in_table)?;
+        )?;
         range(
             "saturation_pct",
             a.saturation_pct,
             Bound::Open(0.0),
             Bound::Closed(100.0),
-        )
-        .map_err(in_table)?;
-        if usize::from(a.intensity) >= self.intensities.len() {
+        )?;
+        if usize::from(a.intensity) >= intensities {
             return Err(err(
                 "intensity",
                 format!(
-                    "class {} does not exist ({} intensities)",
-                    a.intensity,
-                    self.intensities.len()
+                    "class {} does not exist ({intensities} intensities)",
+                    a.intensity
                 ),
             ));
         }
