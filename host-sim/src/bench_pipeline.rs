@@ -272,7 +272,7 @@ pub fn warm_up(
         s,
         &ClockArgs {
             clock: mode,
-            prior_ppm: 500,
+            prior_ppm: Some(500),
         },
     )?;
     let mut rx = stages.receiver::<HOST_PENDING>(cfg);

@@ -354,7 +354,7 @@ pub fn model_qber(s: &Scenario) -> (f64, f64) {
 
 /// Time resolution of a session's series and monitor blocks: a fiftieth of the run, in s.
 pub fn bucket_s(s: &Scenario) -> f64 {
-    (s.duration_s / 50.0).max(1e-6)
+    s.monitor_block_s()
 }
 
 /// Simulate a scenario and push every detection through the core with the simulator's truth

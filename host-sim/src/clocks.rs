@@ -2,12 +2,12 @@
 //! distributed reference) or the clock recovered from the detections, configured from the
 //! scenario's hardware by the documented rules of the core's acquisition and tracking stages.
 
+use crate::profile::{Checked, ClockToml, Profile};
 use crate::scenario::Scenario;
 use crate::sim;
 use serde::Serialize;
 use slotwise::acquire::{AcquireConfig, AcquireParams};
 use slotwise::fixed::types::U32F32;
-use slotwise::frame::{FrameConfig, MarkerSpec};
 use slotwise::recovered::{RecoveredClock, RecoveredConfig};
 use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackParams};
 use slotwise::{
@@ -190,73 +190,95 @@ impl HostClock {
     }
 }
 
-/// Expected rate of in-gate signal detections per second, from the channel model.
-pub fn signal_rate_per_s(s: &Scenario) -> f64 {
-    let m = sim::channel_model(s);
-    let gain: f64 = m.intensities.iter().map(|i| i.prob * i.gain).sum();
-    (gain - m.y0).max(1e-12) * s.rep_rate_hz
-}
-
 /// Prior (ppm) of a narrow reacquisition around the last good period, after a loss.
 pub const REACQUIRE_PPM: u32 = 20;
 
-/// The recovered clock's settings for a scenario's hardware.
+/// The recovered clock's settings for a scenario's hardware (its profile's `[clock]`, see
+/// [`recovered_params_for`]).
+pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackParams) {
+    recovered_params_for(&ClockToml::of_scenario(s), prior_ppm)
+}
+
+/// The recovered clock's settings for a receiver's `[clock]` table.
 ///
 /// Prior ±`prior_ppm` around the nominal period; loop bandwidth from the core's rule
 /// ([`bandwidth_for_mhz`]) with the expected signal rate, a drift allowance of
 /// max(|drift|, 0.1 ppm/s), and σ² = jitter² + the window's uniform-noise share; blackout after
 /// the longer of 1 ms and 50 expected detections.
-pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackParams) {
-    let period = s.period_ps();
+pub fn recovered_params_for(k: &ClockToml, prior_ppm: u32) -> (AcquireParams, TrackParams) {
+    let period = 1e12 / k.rep_rate_hz;
     let mut a = AcquireParams::new(U32F32::from_num(period), prior_ppm);
     a.work_per_call = 4096;
-    let rate = signal_rate_per_s(s);
-    let drift_ppb = (s.clock_drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
+    let rate = k.signal_rate_hz;
+    let drift_ppb = (k.drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
     let w = 1.0 / 16.0;
     let window_sigma2 = 2.0 * w * (w * period).powi(2) / 3.0;
-    let sigma = (s.jitter_ps.powi(2) + window_sigma2).sqrt().max(1.0) as u64;
+    let sigma = (k.jitter_ps.powi(2) + window_sigma2).sqrt().max(1.0) as u64;
     let rate_u = rate.max(1.0) as u64;
     let b = bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
     let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
     (a, TrackParams::new(b.max(1), rate_u, blackout_ps))
 }
 
-/// Build the scenario's clock and numbering in the chosen mode (recovered:
-/// [`recovered_params`], numbered by the marker; reference: the scenario's true clock, marker
-/// slots excluded).
+/// Build the scenario's clock and numbering in the chosen mode, as for its profile
+/// ([`Profile::from_scenario`], [`build_for`]).
 pub fn build(
     s: &Scenario,
     gates: &GateTable,
     mode: ClockMode,
     prior_ppm: u32,
 ) -> Result<ClockStages, Box<dyn std::error::Error>> {
+    let p = Profile::from_scenario(s);
+    let checked = p.check(&s.name)?;
+    build_for(&p, &checked, gates, mode, prior_ppm)
+}
+
+/// Build a receiver's clock and numbering in the chosen mode. Recovered:
+/// [`recovered_params_for`], numbered by the marker. Reference: the profile's
+/// `[clock.reference]`, marker slots (when there is a marker) excluded.
+pub fn build_for(
+    p: &Profile,
+    checked: &Checked,
+    gates: &GateTable,
+    mode: ClockMode,
+    prior_ppm: u32,
+) -> Result<ClockStages, Box<dyn std::error::Error>> {
     match mode {
-        ClockMode::Reference => Ok(ClockStages {
-            clock: HostClock::Reference(sim::clock_truth(s)?.fixed_clock()),
-            numbering: HostNumbering::Absolute(match s.marker {
-                true => Absolute::with_marker(MarkerSpec::standard()),
-                false => Absolute::new(),
-            }),
-        }),
-        ClockMode::Recovered => {
-            let (a, t) = recovered_params(s, prior_ppm);
-            let cfg =
-                RecoveredConfig::new(AcquireConfig::new(a)?, TrackConfig::new(t)?, REACQUIRE_PPM)?;
-            if !s.marker {
+        ClockMode::Reference => {
+            let Some(clock) = checked.reference else {
                 return Err(format!(
-                    "scenario '{}': the recovered clock needs the public marker to number slots \
-                     as the transmitter does (set `marker = true`, or use --clock reference)",
-                    s.name
+                    "'{}': --clock reference needs the reference slot grid ([clock.reference] \
+                     with period_ps and slot0_ps in the profile)",
+                    p.name
                 )
                 .into());
-            }
+            };
+            Ok(ClockStages {
+                clock: HostClock::Reference(clock),
+                numbering: HostNumbering::Absolute(match checked.marker {
+                    Some(m) => Absolute::with_marker(m),
+                    None => Absolute::new(),
+                }),
+            })
+        }
+        ClockMode::Recovered => {
+            let (a, t) = recovered_params_for(&p.clock, prior_ppm);
+            let cfg =
+                RecoveredConfig::new(AcquireConfig::new(a)?, TrackConfig::new(t)?, REACQUIRE_PPM)?;
+            let Some(frame) = checked.frame else {
+                return Err(format!(
+                    "'{}': the recovered clock needs the public marker to number slots as the \
+                     transmitter does ([marker] enabled = true in a profile, marker = true in a \
+                     scenario), or use --clock reference",
+                    p.name
+                )
+                .into());
+            };
             let pattern = slotwise::acquire::fold::ArrivalPattern::from_gates(gates);
             let clock = HostRecovered::new(cfg, pattern)?;
             Ok(ClockStages {
                 clock: HostClock::Recovered(Box::new(clock)),
-                numbering: HostNumbering::Marker(Box::new(MarkerNumbering::new(
-                    FrameConfig::standard(),
-                )?)),
+                numbering: HostNumbering::Marker(Box::new(MarkerNumbering::new(frame)?)),
             })
         }
     }

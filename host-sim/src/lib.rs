@@ -14,6 +14,7 @@ pub mod link;
 pub mod marker;
 pub mod normal;
 pub mod plots;
+pub mod profile;
 pub mod replay;
 pub mod scenario;
 pub mod setup;

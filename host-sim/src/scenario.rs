@@ -372,6 +372,12 @@ impl Scenario {
         Ok(())
     }
 
+    /// Length of one live-statistics block (and of the time series' buckets): a fiftieth of the
+    /// run, at least 1 µs, in s.
+    pub fn monitor_block_s(&self) -> f64 {
+        (self.duration_s / 50.0).max(1e-6)
+    }
+
     /// True time from the start of the capture to the start of slot 0, ps.
     pub fn start_offset(&self) -> f64 {
         match self.start_offset_ps {

@@ -1,12 +1,14 @@
-//! The receiver a host run builds for a scenario: gate table and TDC from the scenario's optics,
-//! the sifting settings, and the clock and numbering stages (`clocks`). Below the command line,
-//! so the benchmarks, the tests and the tools build receivers without going through the CLI.
+//! The receiver a host run builds, from a receiver profile (`docs/receiver-profile.md`): gate
+//! table, TDC and sifting settings checked by the core's constructors, and the clock and
+//! numbering stages (`clocks`). A scenario's receiver is its profile
+//! ([`Profile::from_scenario`]), so a simulated and a hand-described receiver take one path. Below
+//! the command line, so the benchmarks, the tests and the tools build receivers without the CLI.
 
 use crate::clocks::{self, ClockMode, ClockStages};
+use crate::profile::{Checked, Profile};
 use crate::scenario::Scenario;
-use crate::sim;
 use clap::Args;
-use slotwise::{OverflowPolicy, ReceiverConfig, UnwrapConfig};
+use slotwise::ReceiverConfig;
 
 type AnyErr = Box<dyn std::error::Error>;
 
@@ -14,12 +16,14 @@ type AnyErr = Box<dyn std::error::Error>;
 #[derive(Args, Debug, Clone)]
 pub struct ClockArgs {
     /// `recovered`: find period and phase from the detections (no clock cable);
-    /// `reference`: use the scenario's true clock, as a link with a distributed reference would.
+    /// `reference`: use the reference slot grid (a scenario's true clock, or a profile's
+    /// [clock.reference]), as a link with a distributed reference would.
     #[arg(long, value_enum, default_value_t = ClockMode::Recovered)]
     pub clock: ClockMode,
-    /// Prior on the transmitter's period for recovery: nominal ± this many ppm (1..=1000).
-    #[arg(long, default_value_t = 500)]
-    pub prior_ppm: u32,
+    /// Prior on the transmitter's period for recovery: nominal ± this many ppm (1..=1000;
+    /// default: the profile's clock.prior_ppm, 500 for a scenario).
+    #[arg(long)]
+    pub prior_ppm: Option<u32>,
 }
 
 /// The receiver configuration the scenario's optics imply, with the chosen clock.
@@ -37,27 +41,31 @@ pub fn receiver_setup_for(
     clock: &ClockArgs,
     framed: bool,
 ) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
-    let (delays, gates) = sim::receiver_gates(s);
-    let table = slotwise::GateTable::new(&delays, &gates)?;
-    let table = if s.pnr.is_some() {
-        table.with_photon_levels()
-    } else {
-        table
-    };
-    let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)?;
-    let timeout_slots = if framed {
-        u64::MAX / 4
-    } else {
-        (s.rep_rate_hz * 0.01).max(1.0) as u64
-    };
-    let cfg = ReceiverConfig::new(
-        tdc,
-        table,
-        s.intensities.len() as u8,
-        timeout_slots,
-        OverflowPolicy::DropNewest,
-        s.seed ^ 0x5351_5541_5348,
-    )?;
-    let clock = clocks::build(s, cfg.gates(), clock.clock, clock.prior_ppm)?;
-    Ok((cfg, clock))
+    let p = Profile::from_scenario(s);
+    let checked = p.check(&s.name)?;
+    profile_setup(&p, &checked, clock, framed)
+}
+
+/// The receiver a checked profile describes, with the chosen clock; with `framed`, as in
+/// [`receiver_setup_for`].
+pub fn profile_setup(
+    p: &Profile,
+    checked: &Checked,
+    clock: &ClockArgs,
+    framed: bool,
+) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
+    let mut cfg = checked.receiver;
+    if framed {
+        cfg = ReceiverConfig::new(
+            *cfg.tdc(),
+            *cfg.gates(),
+            cfg.intensities(),
+            u64::MAX / 4,
+            p.sifting.overflow.policy(),
+            p.sifting.squash_seed,
+        )?;
+    }
+    let prior = clock.prior_ppm.unwrap_or(p.clock.prior_ppm);
+    let stages = clocks::build_for(p, checked, cfg.gates(), clock.clock, prior)?;
+    Ok((cfg, stages))
 }

@@ -776,6 +776,13 @@ impl ClockTruth {
     }
 }
 
+/// Expected rate of in-gate signal detections per second, from the channel model.
+pub fn signal_rate_per_s(s: &Scenario) -> f64 {
+    let m = channel_model(s);
+    let gain: f64 = m.intensities.iter().map(|i| i.prob * i.gain).sum();
+    (gain - m.y0).max(1e-12) * s.rep_rate_hz
+}
+
 /// The true slot grid on the core's time base for this scenario's capture.
 ///
 /// The core's unwrapper starts from the first event's raw count, so the base is the unbounded tick

@@ -111,7 +111,7 @@ pub fn run_buckets<T: Transmitter>(
     s.validate(&s.name).unwrap_or_else(|e| panic!("{e}"));
     let clock = ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm,
+        prior_ppm: Some(prior_ppm),
     };
     let (cfg, host_clock) = receiver_setup(s, &clock).unwrap();
     let truth = sim::clock_truth(s).unwrap();

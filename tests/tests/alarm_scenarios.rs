@@ -21,7 +21,7 @@ use slotwise_sim::stats::{stats_config, StatsReport};
 fn recovered() -> ClockArgs {
     ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     }
 }
 

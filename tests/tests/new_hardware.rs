@@ -17,7 +17,7 @@ fn load(name: &str) -> Scenario {
 fn reference() -> ClockArgs {
     ClockArgs {
         clock: ClockMode::Reference,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     }
 }
 

@@ -31,7 +31,7 @@ impl KeySink for Bits {
 fn receiver(s: &Scenario) -> Box<Receiver<HostClock, PENDING, HostNumbering>> {
     let clock = ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     };
     let (cfg, c) = receiver_setup(s, &clock).unwrap();
     c.receiver(cfg)

@@ -16,7 +16,7 @@ use slotwise_sim::summary::Summary;
 fn recovered(prior_ppm: u32) -> ClockArgs {
     ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm,
+        prior_ppm: Some(prior_ppm),
     }
 }
 

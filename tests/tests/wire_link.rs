@@ -20,7 +20,7 @@ use std::collections::HashMap;
 fn clock() -> ClockArgs {
     ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     }
 }
 

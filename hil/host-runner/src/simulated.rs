@@ -64,7 +64,7 @@ pub fn setup_for(s: &Scenario, source: &str, framed: bool) -> Result<Setup, Stri
         } else {
             ClockMode::Reference
         },
-        prior_ppm: PRIOR_PPM,
+        prior_ppm: Some(PRIOR_PPM),
     };
     let (cfg, _) = receiver_setup_for(s, &args, framed).map_err(|e| format!("{source}: {e}"))?;
     let ours = setup

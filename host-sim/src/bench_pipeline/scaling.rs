@@ -11,7 +11,7 @@
 
 use super::stages::{self, CountSink, Recording, ReplayAnswers};
 use super::{simulate, state_bytes, time_reps, warm_up, CaptureName, PipelineArgs, Timing};
-use crate::clocks::{self, ClockMode, HostClock, HostNumbering};
+use crate::clocks::{ClockMode, HostClock, HostNumbering};
 use crate::scenario::Scenario;
 use crate::setup::{receiver_setup, ClockArgs};
 use crate::sim::{self, SimTransmitter};
@@ -82,7 +82,7 @@ pub struct ScalingReport {
 }
 
 fn expected_rate(s: &Scenario) -> f64 {
-    clocks::signal_rate_per_s(s) + s.dark_count_hz * f64::from(sim::channels(s))
+    sim::signal_rate_per_s(s) + s.dark_count_hz * f64::from(sim::channels(s))
 }
 
 /// The high-rate link with its added loss set for `rate` detections per second.
@@ -127,7 +127,7 @@ fn capacity_row<const P: usize>(
         s,
         &ClockArgs {
             clock: ClockMode::Reference,
-            prior_ppm: 500,
+            prior_ppm: Some(500),
         },
     )?;
     let rx = stages.receiver::<P>(cfg);

@@ -19,7 +19,7 @@ fn tmp(name: &str) -> std::path::PathBuf {
 fn replay(path: &Path, s: &Scenario, skip: bool) -> Result<Summary, String> {
     let clock = ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     };
     let (cfg, c) = receiver_setup(s, &clock).unwrap();
     replay_capture(path, cfg, c, s, skip, None, None, None, None).map_err(|e| e.to_string())
@@ -47,7 +47,7 @@ fn skip_damaged_reports_lost_blocks_and_leaves_the_rest_unchanged() {
     };
     let clock = ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     };
     let good = tmp("good.swcap");
     run_simulated(&s, &clock, Some(&good)).unwrap();

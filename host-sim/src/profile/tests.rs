@@ -1,0 +1,168 @@
+use super::*;
+use crate::scenario::Scenario;
+
+fn scenario(name: &str) -> Scenario {
+    Scenario::load(format!("{}/../scenarios/{name}.toml", env!("CARGO_MANIFEST_DIR"))).unwrap()
+}
+
+#[test]
+fn every_committed_scenario_gives_a_profile_that_round_trips() {
+    let dir = format!("{}/../scenarios", env!("CARGO_MANIFEST_DIR"));
+    for entry in std::fs::read_dir(dir).unwrap() {
+        let path = entry.unwrap().path();
+        let s = Scenario::load(&path).unwrap();
+        let p = Profile::from_scenario(&s);
+        let checked = p.check("from-scenario").unwrap();
+        let text = p.to_toml_string();
+        let (back, checked_back) = Profile::from_toml_str(&text, "written").unwrap();
+        assert_eq!(back, p, "{}", path.display());
+        assert_eq!(checked_back, checked, "{}", path.display());
+    }
+}
+
+#[test]
+fn the_default_marker_is_the_standard_one() {
+    let p = Profile::from_scenario(&scenario("bench-100mhz-30km"));
+    let c = p.check("p").unwrap();
+    assert_eq!(c.marker, Some(MarkerSpec::standard()));
+    assert_eq!(c.frame, Some(FrameConfig::standard()));
+}
+
+#[test]
+fn the_reference_is_the_simulators_true_grid() {
+    let s = scenario("bench-100mhz-30km");
+    let c = Profile::from_scenario(&s).check("p").unwrap();
+    assert_eq!(
+        c.reference,
+        Some(crate::sim::clock_truth(&s).unwrap().fixed_clock())
+    );
+}
+
+/// A hand-written profile: four detectors at 0.55 of the slot with skews, no marker.
+const HAND: &str = r#"
+name = "four-detector bench"
+
+[tdc]
+counter_bits = 48
+tick_ps = 1
+
+[clock]
+rep_rate_hz = 250e6
+signal_rate_hz = 5000
+
+[protocol]
+kind = "bb84"
+intensities = [0.5]
+
+[marker]
+enabled = false
+
+[[channels]]
+channel = 0
+name = "H"
+delay_ps = 310
+
+[[channels]]
+channel = 1
+name = "V"
+delay_ps = -120
+
+[[gates]]
+channel = 0
+centre_slot = 0.55
+half_width_ps = 400
+basis = "Z"
+bit = 0
+
+[[gates]]
+channel = 1
+centre_ps = 2200
+half_width_slot = 0.1
+basis = "Z"
+bit = 1
+"#;
+
+fn err(text: &str) -> TomlError {
+    Profile::from_toml_str(text, "p.toml").unwrap_err()
+}
+
+fn line_of(text: &str, needle: &str, nth: usize) -> usize {
+    text.lines()
+        .enumerate()
+        .filter(|(_, l)| l.trim() == needle)
+        .nth(nth)
+        .unwrap()
+        .0
+        + 1
+}
+
+#[test]
+fn a_hand_written_profile_checks_and_places_its_windows() {
+    let (p, c) = Profile::from_toml_str(HAND, "p.toml").unwrap();
+    assert_eq!(p.period_ps(), 4000.0);
+    // 0.55 ± 400/4000 and 2200/4000 ± 0.1 of the slot.
+    assert!((c.windows[0].0 - 0.45).abs() < 1e-12 && (c.windows[0].1 - 0.65).abs() < 1e-12);
+    assert!((c.windows[1].0 - 0.45).abs() < 1e-12 && (c.windows[1].1 - 0.65).abs() < 1e-12);
+    assert_eq!(c.receiver.gates().channels(), 2);
+    assert_eq!(c.receiver.answer_timeout_slots(), 2_500_000);
+    assert!(c.marker.is_none());
+    let text = gate_layout_text(&p, &c);
+    assert!(text.contains("ch0  H |"), "{text}");
+    assert!(gate_layout_svg(&p, &c).starts_with("<svg"));
+}
+
+#[test]
+fn overlapping_gates_are_named_with_their_line() {
+    let text = HAND.replace("channel = 1\ncentre_ps", "channel = 0\ncentre_ps");
+    let e = err(&text);
+    assert_eq!(e.key.as_deref(), Some("gates[1]"), "{e}");
+    assert_eq!(e.line, Some(line_of(&text, "[[gates]]", 1)), "{e}");
+    assert!(e.message.contains("overlaps gates[0] on channel 0"), "{e}");
+}
+
+#[test]
+fn an_unknown_channel_is_named() {
+    let text = HAND.replace("channel = 1\ncentre_ps", "channel = 5\ncentre_ps");
+    let e = err(&text);
+    assert_eq!(e.key.as_deref(), Some("gates[1].channel"), "{e}");
+    assert!(e.message.contains("channel 5 is not described"), "{e}");
+    assert_eq!(e.line, Some(line_of(&text, "channel = 5", 0)), "{e}");
+}
+
+#[test]
+fn a_window_wider_than_the_slot_is_refused() {
+    let e = err(&HAND.replace("half_width_ps = 400", "half_width_ps = 2500"));
+    assert_eq!(e.key.as_deref(), Some("gates[0].half_width_ps"), "{e}");
+    assert!(e.message.contains("wider than the 4000.0 ps slot"), "{e}");
+}
+
+#[test]
+fn ranges_and_unknown_keys_are_named() {
+    let e = err(&HAND.replace("counter_bits = 48", "counter_bits = 20"));
+    assert_eq!(e.key.as_deref(), Some("tdc.counter_bits"), "{e}");
+    assert!(e.message.contains("32..=64"), "{e}");
+    let e = err(&HAND.replace("rep_rate_hz = 250e6", "rep_rate_hz = 250e6\nspeed = 3"));
+    assert!(e.message.contains("unknown field `speed`"), "{e}");
+    assert!(e.line.is_some(), "{e}");
+    let e = err(&HAND.replace("channel = 1\nname", "channel = 2\nname"));
+    assert_eq!(e.key.as_deref(), Some("channels[1].channel"), "{e}");
+    assert!(e.message.contains("--channel-map"), "{e}");
+    let e = err(&HAND.replace("intensities = [0.5]", "intensities = [0.5, 0.1, 0.0, 0.2]"));
+    assert_eq!(e.key.as_deref(), Some("protocol.intensities"), "{e}");
+}
+
+#[test]
+fn the_recovered_clock_without_a_marker_says_what_to_do() {
+    let (p, c) = Profile::from_toml_str(HAND, "p.toml").unwrap();
+    let e = crate::clocks::build_for(
+        &p,
+        &c,
+        c.receiver.gates(),
+        crate::clocks::ClockMode::Recovered,
+        500,
+    )
+    .err()
+    .unwrap()
+    .to_string();
+    assert!(e.contains("--clock reference"), "{e}");
+}
