@@ -20,6 +20,7 @@ use std::time::Instant;
 
 mod alarm_args;
 mod import_args;
+mod profile_args;
 mod session;
 
 pub use alarm_args::AlarmArgs;
@@ -110,6 +111,7 @@ high rate, 1e-6 per slot), the read floor, stage shares and scaling tables. `slo
 is the clock-recovery benchmark.")]
     Bench(BenchArgs),
     Import(import_args::ImportArgs),
+    Profile(profile_args::ProfileArgs),
 }
 
 /// `slotwise bench`: a subcommand, or the pipeline benchmark's options.
@@ -294,6 +296,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Inspect(a) => inspect(a),
         Command::Keyrate(a) => crate::keyrate::cmd::run(&a),
         Command::Import(a) => import_args::run(&a),
+        Command::Profile(a) => profile_args::run(&a),
         Command::Bench(b) => match b.command {
             Some(BenchCommand::Sync(a)) => bench_sync(&a),
             Some(BenchCommand::Pipeline(a)) => bench_pipeline(&a),

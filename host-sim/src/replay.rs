@@ -18,8 +18,7 @@ use slotwise::{
 use std::collections::BTreeMap;
 use std::io::Write;
 
-/// Pending-queue capacity used on the host.
-pub const HOST_PENDING: usize = 4096;
+pub use crate::profile::HOST_PENDING;
 
 /// The receiver as the host runs it: the host's clock and numbering stages, [`HOST_PENDING`].
 pub type HostReceiver = Receiver<HostClock, HOST_PENDING, HostNumbering>;
