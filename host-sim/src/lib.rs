@@ -22,3 +22,4 @@ pub mod stats;
 #[cfg(feature = "proptest-strategies")]
 pub mod strategies;
 pub mod summary;
+pub mod txrecord;
