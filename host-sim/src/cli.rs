@@ -22,8 +22,10 @@ mod alarm_args;
 mod import_args;
 mod profile_args;
 mod session;
+mod tx_record;
 
 pub use alarm_args::AlarmArgs;
+pub use tx_record::TxRecordArgs;
 use session::{add_link, finish_session, open_session};
 
 type AnyErr = Box<dyn std::error::Error>;
@@ -76,7 +78,11 @@ Alarm thresholds: the scenario's [alarms] table (docs/scenario.md), or --qber-ce
 Run a scenario file through the physical link simulator (source, fibre, detectors, drifting
 transmitter clock, TDC) and write the raw TDC events as a capture (docs/capture-format.md) or, with
 --csv, as `t_ps,channel` lines. The scenario text is stored in the capture's header so that
-`slotwise replay` can find the transmitter again.")]
+`slotwise replay` can find the transmitter again.
+
+Beside it goes the transmitter record of the run (docs/transmitter-record.md): OUT.swtx, what was
+sent in every slot; when that would exceed 64 MiB, OUT.swtx.csv, the sparse form holding the slots
+k-1, k, k+1 around each detection. --tx-record PATH writes it elsewhere, --no-tx-record skips it.")]
     Simulate(SimulateArgs),
     /// Replay a capture through the firmware core and report what happened.
     #[command(long_about = "\
@@ -92,7 +98,8 @@ Damaged blocks stop the replay with an error naming the file, byte offset and fi
     Replay(ReplayArgs),
     /// Show a capture's header and block statistics, or a key file's blocks, and check every CRC.
     #[command(long_about = "\
-Show a capture's header and block statistics, or a sifted-key file's (`.swkey`) blocks, and check
+Show a capture's header and block statistics, a sifted-key file's (`.swkey`) blocks, or a
+transmitter record (`.swtx`, `.swtx.csv`: range, what was sent per basis and intensity), and check
 every CRC. Damaged blocks are listed with block index, byte offset and field. The report ends with
 a verdict (JSON: `verdict`): good; damaged (blocks lost, or the end checks failed); or incomplete
 (no verified end record: cut short). Exit status: 0 for a good capture, 1 for a damaged or
@@ -241,6 +248,8 @@ pub struct SimulateArgs {
     /// Override the scenario's duration in seconds.
     #[arg(long)]
     pub duration_s: Option<f64>,
+    #[command(flatten)]
+    pub record: TxRecordArgs,
 }
 
 #[derive(Args, Debug)]
@@ -280,7 +289,8 @@ pub struct ReplayArgs {
 
 #[derive(Args, Debug)]
 pub struct InspectArgs {
-    /// Capture file, or a sifted-key file (`.swkey`).
+    /// Capture file, a sifted-key file (`.swkey`), or a transmitter record (`.swtx`,
+    /// `.swtx.csv`).
     pub capture: PathBuf,
     /// Print the report as JSON.
     #[arg(long)]
@@ -510,6 +520,7 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
     } else {
         Sink::Cap(CaptureWriter::new(out, capture_header(&s)?)?)
     };
+    let mut record = tx_record::RecordOut::open(&a.record, &a.out, &s)?;
     loop {
         block.clear();
         if simulator.next_block(&mut block, 4096) == 0 {
@@ -519,6 +530,9 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
             match &mut sink {
                 Sink::Cap(w) => w.push(e.event)?,
                 Sink::Csv(w) => w.push(e.event)?,
+            }
+            if let Some(r) = record.as_mut() {
+                r.observe(e)?;
             }
         }
         n += block.len() as u64;
@@ -544,6 +558,9 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
         s.duration_s,
         s.rep_rate_hz
     )?;
+    if let Some(r) = record {
+        writeln!(out, "{}", r.finish()?)?;
+    }
     out.flush()?;
     Ok(())
 }
@@ -712,6 +729,11 @@ fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
 fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
     if keyfile::is_key_file(&a.capture) {
         return emit(a.json, &keyfile::inspect(&a.capture)?);
+    }
+    if crate::txrecord::is_record_file(&a.capture) {
+        let r = crate::txrecord::inspect(&a.capture)?;
+        emit(a.json, &r)?;
+        return r.problem().map_or(Ok(()), |p| Err(p.into()));
     }
     let r = capture::inspect(&a.capture)?;
     emit(a.json, &r)?;

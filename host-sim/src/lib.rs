@@ -24,3 +24,4 @@ pub mod stats;
 pub mod strategies;
 pub mod summary;
 pub mod tomlcheck;
+pub mod txrecord;

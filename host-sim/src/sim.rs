@@ -34,7 +34,7 @@ pub use optics::{
 };
 pub use pnr::PnrSpec;
 pub use source::{Source, SourceKind, SourceSpec};
-pub use tx::{SimTransmitter, TxChoice, TxChoices};
+pub use tx::{SimTransmitter, TxChoice, TxChoices, TxSource};
 
 use crate::scenario::Scenario;
 use merge::{Held, Merger};

@@ -23,6 +23,8 @@ use std::path::Path;
 
 pub use error::{CaptureError, ErrorKind};
 pub use header::CaptureHeader;
+/// Little-endian field readers, shared with the transmitter record's reader.
+pub(crate) use header::{le_u16, le_u32, le_u64};
 pub use inspect::{inspect, Damage, EventsPerBlock, InspectReport, Verdict, MAX_LISTED_DAMAGE};
 pub use reader::{BlockInfo, BlockOutcome, CaptureReader, SkippedBlock};
 pub use skipped::{SkipReport, SkippedStretch};

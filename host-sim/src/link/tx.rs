@@ -4,7 +4,7 @@
 
 use crate::scenario::Scenario;
 use crate::sim::rng::{splitmix_at, stream_key, unit_f64};
-use crate::sim::TxChoices;
+use crate::sim::TxSource;
 use slotwise::formats::{answers, encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
 use slotwise::wire::{
     AnnounceView, AnswerEntry, FrameDecoder, Reject, RejectCounts, Report, SeqClass, SeqWindow,
@@ -62,11 +62,14 @@ pub struct TxCounters {
     pub fate_unknown: u64,
     /// Reports marked final seen.
     pub final_reports: u64,
+    /// Announcements of slots the transmitter's source does not hold (answered as a basis
+    /// mismatch with no bit revealed: never key, nothing invented).
+    pub unrecorded: u64,
 }
 
 /// The transmitter behind the link.
 pub struct HostTransmitter {
-    choices: TxChoices,
+    choices: TxSource,
     reveal_key: u64,
     test_fraction: f64,
     dec: FrameDecoder,
@@ -83,9 +86,15 @@ pub struct HostTransmitter {
 impl HostTransmitter {
     /// A transmitter with the scenario's choices revealing `test_fraction` of the answered bits.
     pub fn new(s: &Scenario, test_fraction: f64) -> Self {
+        Self::with_source(TxSource::seeded(s), s.seed, test_fraction)
+    }
+
+    /// A transmitter answering from `source`, revealing `test_fraction` of the answered bits as
+    /// drawn from `seed` (the scenario's seed).
+    pub fn with_source(source: TxSource, seed: u64, test_fraction: f64) -> Self {
         Self {
-            choices: TxChoices::new(s),
-            reveal_key: stream_key(s.seed, STREAM_REVEAL),
+            choices: source,
+            reveal_key: stream_key(seed, STREAM_REVEAL),
             test_fraction,
             dec: FrameDecoder::new(),
             seen: SeqWindow::new(),
@@ -198,15 +207,23 @@ impl HostTransmitter {
         for a in v.iter() {
             self.counters.announcements += 1;
             let c = self.choices.choice(a.slot);
-            if c.intensity > 3 || self.choices.is_marker_slot(a.slot) {
+            // The answers record has no "no answer" entry: a slot without content is answered
+            // as a mismatch that reveals nothing, so no key bit can come from it.
+            let withheld = AnswerEntry {
+                basis_match: false,
+                intensity: 0,
+                bit: None,
+            };
+            if c.is_some_and(|c| c.intensity > 3) || self.choices.is_marker_slot(a.slot) {
                 self.counters.marker_announcements += 1;
-                entries.push(AnswerEntry {
-                    basis_match: false,
-                    intensity: 0,
-                    bit: None,
-                });
+                entries.push(withheld);
                 continue;
             }
+            let Some(c) = c else {
+                self.counters.unrecorded += 1;
+                entries.push(withheld);
+                continue;
+            };
             let revealed = self.revealed(a.slot);
             let basis_match = c.basis == a.basis;
             if basis_match {
@@ -250,6 +267,8 @@ impl HostTransmitter {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::sim::TxChoices;
+    use crate::txrecord::{TxRecord, TxRecordHeader};
     use slotwise::formats::announce::{self, FLAG_FINAL};
     use slotwise::formats::decode_frame;
     use slotwise::wire::AnswersView;
@@ -324,5 +343,46 @@ mod tests {
             (1, 1, 0)
         );
         assert!(tx.closed() && tx.unresolved_frames() == 0);
+    }
+
+    #[test]
+    fn slots_the_record_lacks_are_withheld_and_counted() {
+        let s = Scenario::default_bench();
+        let choices = TxChoices::new(&s);
+        // The record holds the odd key slots of 1..40 only.
+        let held = (1..40u64).filter(|k| k % 2 == 1 && !choices.is_marker_slot(*k));
+        let header = TxRecordHeader::new(0..100, 3).with_marker(true);
+        let record =
+            TxRecord::from_slots(header, held.map(|k| (k, choices.choice(k))), "mem").unwrap();
+        let mut tx =
+            HostTransmitter::with_source(TxSource::Record(std::rc::Rc::new(record)), s.seed, 1.0);
+        let slots: Vec<(u64, Basis)> = (1..40u64)
+            .filter(|k| !choices.is_marker_slot(*k))
+            .map(|k| (k, choices.choice(k).basis))
+            .collect();
+        let out = tx.receive(&announce_frame(0, &slots, Report::default(), 0));
+        let mut scratch = vec![0u8; MAX_RAW];
+        let f = decode_frame(&out[0], &mut scratch).unwrap();
+        let v = AnswersView::parse(f.payload).unwrap();
+        let mut missing = 0;
+        for (e, &(slot, _)) in v.iter().zip(&slots) {
+            if slot % 2 == 0 {
+                missing += 1;
+                assert_eq!((e.basis_match, e.bit, e.intensity), (false, None, 0), "{slot}");
+            } else {
+                let c = choices.choice(slot);
+                assert_eq!((e.basis_match, e.bit), (true, Some(c.bit)), "{slot}");
+            }
+        }
+        assert_eq!(tx.counters().unrecorded, missing);
+        assert_eq!(tx.counters().marker_announcements, 0);
+        let report = Report {
+            resolved_below: 1,
+            answered_map: 0b1,
+        };
+        tx.receive(&announce_frame(1, &[], report, FLAG_FINAL));
+        // Only recorded slots became key; the withheld ones were never matched.
+        assert!(!tx.key().is_empty());
+        assert!(tx.key().keys().all(|k| k % 2 == 1));
     }
 }

@@ -5,26 +5,16 @@
 
 use super::rng::{splitmix_at, stream_key, unit_f64};
 use crate::scenario::{Protocol, Scenario};
+use crate::txrecord::TxRecord;
 use slotwise::frame::{MarkerSpec, MarkerState};
 use slotwise::{Announcement, Answer, Basis, Transmitter};
 use std::collections::VecDeque;
+use std::rc::Rc;
 
 /// Stream number of the transmitter's choices.
 pub const STREAM_TX: u64 = 1;
 
-/// Intensity index of a vacuum marker slot (no light; matches no intensity class).
-pub const MARKER_VACUUM: u8 = u8::MAX;
-
-/// The state prepared in one slot.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub struct TxChoice {
-    /// Preparation basis.
-    pub basis: Basis,
-    /// Bit (0 or 1); always 0 for the X state of the three-state protocol.
-    pub bit: u8,
-    /// Intensity class index (0 = signal).
-    pub intensity: u8,
-}
+pub use crate::txrecord::{TxChoice, MARKER_VACUUM};
 
 /// The transmitter's random choices for every slot, computed on demand.
 #[derive(Clone, Debug, PartialEq)]
@@ -109,12 +99,12 @@ impl TxChoices {
         }
     }
 
-    /// Number of slots of each intensity class among `slots` (index = class; unused classes 0).
     /// Whether `slot` is a marker slot (never announced, never counted as sent key material).
     pub fn is_marker_slot(&self, slot: u64) -> bool {
         self.marker.is_some_and(|m| m.is_marker_slot(slot))
     }
 
+    /// Number of slots of each intensity class among `slots` (index = class; unused classes 0).
     pub fn count_sent(&self, slots: std::ops::Range<u64>) -> [u64; 3] {
         let mut n = [0u64; 3];
         for k in slots {
@@ -129,11 +119,53 @@ impl TxChoices {
     }
 }
 
+/// Where a transmitter takes its answers from: the scenario's seeded generator, or the record of
+/// what a transmitter really sent (which may not hold every slot).
+#[derive(Clone, Debug)]
+pub enum TxSource {
+    /// Every slot's choice computed from the scenario's seed.
+    Seeded(TxChoices),
+    /// The slots a transmitter record holds; the others have no answer.
+    Record(Rc<TxRecord>),
+}
+
+impl TxSource {
+    /// The scenario's seeded choices.
+    pub fn seeded(s: &Scenario) -> Self {
+        Self::Seeded(TxChoices::new(s))
+    }
+
+    /// What was sent in `slot`; `None` when the source does not hold that slot.
+    pub fn choice(&self, slot: u64) -> Option<TxChoice> {
+        match self {
+            Self::Seeded(c) => Some(c.choice(slot)),
+            Self::Record(r) => r.choice(slot),
+        }
+    }
+
+    /// Whether `slot` is a marker slot (never announced, never counted as sent key material).
+    pub fn is_marker_slot(&self, slot: u64) -> bool {
+        match self {
+            Self::Seeded(c) => c.is_marker_slot(slot),
+            Self::Record(r) => r.is_marker_slot(slot),
+        }
+    }
+
+    /// Number of known non-marker slots of each intensity class among `slots` (index = class).
+    pub fn count_sent(&self, slots: std::ops::Range<u64>) -> [u64; 3] {
+        match self {
+            Self::Seeded(c) => c.count_sent(slots),
+            Self::Record(r) => r.count_sent(slots),
+        }
+    }
+}
+
 /// A transmitter for replays: answers every announcement at once, revealing basis, intensity and
-/// the bit (every detected slot is a test slot).
+/// the bit (every detected slot is a test slot). A slot its source does not hold gets no answer,
+/// so the receiver expires it as unanswered.
 #[derive(Clone, Debug)]
 pub struct SimTransmitter {
-    choices: TxChoices,
+    source: TxSource,
     answers: VecDeque<Answer>,
     announcements: u64,
 }
@@ -141,8 +173,13 @@ pub struct SimTransmitter {
 impl SimTransmitter {
     /// A transmitter that knows the scenario's choices.
     pub fn new(s: &Scenario) -> Self {
+        Self::with_source(TxSource::seeded(s))
+    }
+
+    /// A transmitter answering from `source`.
+    pub fn with_source(source: TxSource) -> Self {
         Self {
-            choices: TxChoices::new(s),
+            source,
             answers: VecDeque::new(),
             announcements: 0,
         }
@@ -153,16 +190,26 @@ impl SimTransmitter {
         self.announcements
     }
 
-    /// The choices it answers from.
-    pub fn choices(&self) -> &TxChoices {
-        &self.choices
+    /// The seeded choices it answers from, when its source is the scenario's generator.
+    pub fn choices(&self) -> Option<&TxChoices> {
+        match &self.source {
+            TxSource::Seeded(c) => Some(c),
+            TxSource::Record(_) => None,
+        }
+    }
+
+    /// The source it answers from.
+    pub fn source(&self) -> &TxSource {
+        &self.source
     }
 }
 
 impl Transmitter for SimTransmitter {
     fn announce(&mut self, a: Announcement) {
         self.announcements += 1;
-        let c = self.choices.choice(a.slot);
+        let Some(c) = self.source.choice(a.slot) else {
+            return;
+        };
         self.answers.push_back(Answer {
             slot: a.slot,
             basis: c.basis,
@@ -242,7 +289,7 @@ mod tests {
             basis: Basis::X,
         });
         let a = t.poll_answer().unwrap();
-        let c = t.choices().choice(17);
+        let c = t.choices().unwrap().choice(17);
         assert_eq!(
             (a.slot, a.basis, a.intensity, a.bit),
             (17, c.basis, c.intensity, Some(c.bit))
