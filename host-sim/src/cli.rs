@@ -1,32 +1,33 @@
 //! The `slotwise` command line: demo, simulate, replay, inspect.
 
-use crate::capture::{self, BlockOutcome, CaptureHeader, CaptureReader, CaptureWriter, SkipReport};
-use crate::clocks::ClockStages;
+use crate::capture::{self, CaptureHeader, CaptureWriter};
 use crate::csv_io;
 use crate::link::{keyfile, HostTx, LinkModel};
 use crate::plots;
-use crate::replay::{SessionResult, TraceRequest, TruthTag};
+use crate::replay::{SessionResult, TruthTag};
 use crate::scenario::Scenario;
 pub use crate::setup::{receiver_setup, receiver_setup_for, ClockArgs};
 use crate::sim::{self, Simulator};
 use crate::summary::{summarize, Summary};
 use clap::{Args, Parser, Subcommand};
 use indicatif::{ProgressBar, ProgressStyle};
-use slotwise::{ReceiverConfig, SiftedBit, UnwrapConfig};
+use slotwise::{SiftedBit, UnwrapConfig};
 use std::fs::File;
-use std::io::{BufReader, BufWriter, IsTerminal, Write};
+use std::io::{BufWriter, IsTerminal, Write};
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
 mod alarm_args;
 mod import_args;
 mod profile_args;
+mod replay_cmd;
 mod session;
 mod tx_record;
 
 pub use alarm_args::AlarmArgs;
 pub use tx_record::TxRecordArgs;
-use session::{add_link, finish_session, open_session};
+pub use replay_cmd::{replay_capture, ReplayArgs, ReplayPlan};
+use session::{add_link, finish_session, host_tx, open_session};
 
 type AnyErr = Box<dyn std::error::Error>;
 
@@ -194,12 +195,12 @@ pub struct LinkArgs {
 }
 
 impl LinkArgs {
-    /// The link model for scenario `s`, or `None` for the direct exchange.
-    pub fn model(&self, s: &Scenario, default: LinkMode) -> Result<Option<LinkModel>, AnyErr> {
+    /// The link model on top of `base` (e.g. [`LinkModel::perfect`] for a scenario), or `None`
+    /// for the direct exchange.
+    pub fn model(&self, base: LinkModel, default: LinkMode) -> Result<Option<LinkModel>, AnyErr> {
         if self.link.unwrap_or(default) == LinkMode::Direct {
             return Ok(None);
         }
-        let base = LinkModel::perfect(s);
         let m = LinkModel {
             loss: self.link_loss,
             dup: self.link_dup,
@@ -253,41 +254,6 @@ pub struct SimulateArgs {
 }
 
 #[derive(Args, Debug)]
-pub struct ReplayArgs {
-    #[command(flatten)]
-    pub clock: ClockArgs,
-    #[command(flatten)]
-    pub link: LinkArgs,
-    #[command(flatten)]
-    pub alarms: AlarmArgs,
-    /// Capture file, or a CSV file (`.csv`) of `t_ps,channel` lines.
-    pub capture: PathBuf,
-    /// Scenario describing the link (default: the one stored in the capture header; a CSV has
-    /// none, so it needs this).
-    #[arg(long)]
-    pub scenario: Option<PathBuf>,
-    /// Write the JSON summary here.
-    #[arg(long)]
-    pub json: Option<PathBuf>,
-    /// Draw plots into this folder: fold profile, clock, QBER and rate over time, live statistics
-    /// with bounds and alarms (SVG, and PNG when a font is found).
-    #[arg(long)]
-    pub plots: Option<PathBuf>,
-    /// Write a per-detection trace (CSV) for the time range below.
-    #[arg(long)]
-    pub trace: Option<PathBuf>,
-    /// Start of the traced range, in seconds on the capture's time base.
-    #[arg(long, default_value_t = 0.0)]
-    pub trace_from_s: f64,
-    /// End of the traced range, in seconds (default: 1 ms after the start).
-    #[arg(long)]
-    pub trace_to_s: Option<f64>,
-    /// Step over damaged blocks instead of stopping at the first one.
-    #[arg(long)]
-    pub skip_damaged: bool,
-}
-
-#[derive(Args, Debug)]
 pub struct InspectArgs {
     /// Capture file, a sifted-key file (`.swkey`), or a transmitter record (`.swtx`,
     /// `.swtx.csv`).
@@ -302,7 +268,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
     match cli.command {
         Command::Demo(a) => demo(a),
         Command::Simulate(a) => simulate(a),
-        Command::Replay(a) => replay(a),
+        Command::Replay(a) => replay_cmd::run(a),
         Command::Inspect(a) => inspect(a),
         Command::Keyrate(a) => crate::keyrate::cmd::run(&a),
         Command::Import(a) => import_args::run(&a),
@@ -392,9 +358,11 @@ pub fn run_simulated_linked(
     key_out: Option<&Path>,
 ) -> Result<(Summary, SessionResult<HostTx>, Vec<SiftedBit>), AnyErr> {
     let started = Instant::now();
-    let (cfg, host_clock) = receiver_setup_for(s, clock, link.is_some())?;
+    let plan = ReplayPlan::of_scenario(s)?;
+    let (cfg, host_clock) = plan.setup.receiver(clock, link.is_some())?;
     let truth = sim::clock_truth(s)?;
-    let (mut session, tap) = open_session(cfg, host_clock, s, link, true, None)?;
+    let tx = host_tx(plan.source, plan.reveal_seed, link)?;
+    let (mut session, tap) = open_session(cfg, host_clock, &plan.setup, tx, plan.hint, true, None)?;
     let mut writer = match capture {
         Some(p) => Some(CaptureWriter::new(
             BufWriter::new(File::create(p).map_err(|e| format!("{}: {e}", p.display()))?),
@@ -446,7 +414,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     a.alarms.apply(&mut s)?;
     std::fs::create_dir_all(&a.out)?;
     let cap_path = a.out.join("demo.swcap");
-    let link = a.link.model(&s, LinkMode::Framed)?;
+    let link = a.link.model(LinkModel::perfect(&s), LinkMode::Framed)?;
     let key_path = a
         .link
         .key_out
@@ -457,7 +425,17 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let cfg = *res.rx.config();
     // The capture must replay to exactly the same result through the same core (and link).
     let (cfg2, clock2) = receiver_setup_for(&s, &a.clock, link.is_some())?;
-    let again = replay_capture(&cap_path, cfg2, clock2, &s, false, None, None, link, None)?;
+    let again = replay_capture(
+        &cap_path,
+        cfg2,
+        clock2,
+        ReplayPlan::of_scenario(&s)?,
+        false,
+        None,
+        None,
+        link,
+        None,
+    )?;
     let same = again.accounting == summary.accounting && again.sifted_bits == summary.sifted_bits;
     let json = a.out.join("summary.json");
     std::fs::write(&json, serde_json::to_string_pretty(&summary)? + "\n")?;
@@ -562,167 +540,6 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
         writeln!(out, "{}", r.finish()?)?;
     }
     out.flush()?;
-    Ok(())
-}
-
-/// Replay a capture file through the core (answers over the framed link `link` when given,
-/// sifted key blocks to `key_out`); returns the summary.
-#[allow(clippy::too_many_arguments)]
-pub fn replay_capture(
-    path: &Path,
-    cfg: ReceiverConfig,
-    clock: ClockStages,
-    s: &Scenario,
-    skip_damaged: bool,
-    trace: Option<TraceRequest>,
-    plots_dir: Option<&Path>,
-    link: Option<LinkModel>,
-    key_out: Option<&Path>,
-) -> Result<Summary, AnyErr> {
-    let started = Instant::now();
-    let name = path.display().to_string();
-    let file = File::open(path).map_err(|e| format!("{name}: {e}"))?;
-    let size = file.metadata().map(|m| m.len()).unwrap_or(0);
-    let (mut session, tap) = open_session(cfg, clock, s, link, false, trace)?;
-    let mut skipped = None;
-    let pb = progress(size, "replaying");
-    if csv_io::is_csv_path(path) {
-        let r = csv_io::CsvReader::new(BufReader::new(file), &name)?;
-        let mut block = Vec::with_capacity(4096);
-        for ev in r {
-            block.push(ev?);
-            if block.len() == 4096 {
-                session.push_block(&block);
-                block.clear();
-            }
-        }
-        session.push_block(&block);
-    } else {
-        let mut r = CaptureReader::new(BufReader::new(file), &name)?;
-        r.header().check_receiver(cfg.tdc(), cfg.gates(), &name)?;
-        let mut block = Vec::new();
-        loop {
-            if skip_damaged {
-                match r.next_block_skipping(&mut block)? {
-                    None => break,
-                    Some(BlockOutcome::Block(_)) => session.push_block(&block),
-                    Some(BlockOutcome::Skipped(sk)) => skipped
-                        .get_or_insert_with(SkipReport::default)
-                        .push(&sk, r.header().max_block_events),
-                }
-            } else if r.next_block(&mut block)?.is_some() {
-                session.push_block(&block);
-            } else {
-                break;
-            }
-            pb.set_position(r.offset());
-            if !pb.is_hidden() {
-                pb.set_message(format!("replaying {}", session.live_status()));
-            }
-        }
-        if let Some(rep) = skipped.as_mut() {
-            rep.finish(r.declared_events(), r.events_read());
-        }
-    }
-    pb.finish_and_clear();
-    let (res, bits, blocks) = finish_session(session, &tap, key_out)?;
-    let mut summary = summarize(
-        &name,
-        &res,
-        res.rx.clock().period_ps().unwrap_or(f64::NAN),
-        None,
-        None,
-        started.elapsed().as_secs_f64(),
-    )
-    .with_scenario(s);
-    add_link(&mut summary, &res, &bits, blocks, key_out);
-    summary.skipped = skipped;
-    if let Some(dir) = plots_dir {
-        std::fs::create_dir_all(dir)?;
-        let mut files = plots::fold_profile(
-            dir,
-            &res.fold,
-            cfg.gates(),
-            &format!("Fold profile — {name}"),
-        )?;
-        let tx_clock = sim::TxClock::from_scenario(s);
-        let truth_period = |t_s: f64| tx_clock.period_at_ps(tx_clock.start_ps() + t_s * 1e12);
-        files.extend(plots::clock_series(dir, &res.buckets, Some(&truth_period))?);
-        files.extend(plots::qber_and_rate(
-            dir,
-            &res.buckets,
-            usize::from(cfg.gates().channels()),
-        )?);
-        files.extend(plots::stats::live_stats(dir, &res)?);
-        for f in files {
-            eprintln!("wrote {}", f.display());
-        }
-    }
-    Ok(summary)
-}
-
-fn replay(a: ReplayArgs) -> Result<(), AnyErr> {
-    let name = a.capture.display().to_string();
-    let mut s = match &a.scenario {
-        Some(p) => Scenario::load(p)?,
-        // By extension, as `replay_capture` picks CSV by it: a content sniff could name the flag
-        // for a file that would then still be read as a capture.
-        None if csv_io::is_csv_path(&a.capture) => {
-            return Err(format!(
-                "{name}: a `t_ps,channel` CSV carries no receiver description (no scenario); \
-                 give one with --scenario S.toml"
-            )
-            .into());
-        }
-        None => {
-            let f = File::open(&a.capture).map_err(|e| format!("{name}: {e}"))?;
-            let r = CaptureReader::new(BufReader::new(f), &name)?;
-            let meta = &r.header().metadata;
-            if meta.trim().is_empty() {
-                return Err(format!(
-                    "{name}: the capture header holds no scenario; give one with --scenario FILE"
-                )
-                .into());
-            }
-            Scenario::from_toml_str(meta, &format!("{name} (header metadata)"))?
-        }
-    };
-    a.alarms.apply(&mut s)?;
-    let link = a.link.model(&s, LinkMode::Direct)?;
-    let (cfg, clock) = receiver_setup_for(&s, &a.clock, link.is_some())?;
-    let trace = match &a.trace {
-        Some(p) => {
-            let from_ps = (a.trace_from_s * 1e12) as u64;
-            let to_ps = a
-                .trace_to_s
-                .map(|t| (t * 1e12) as u64)
-                .unwrap_or(from_ps + 1_000_000_000);
-            Some(TraceRequest {
-                out: Box::new(BufWriter::new(File::create(p)?)),
-                from_ps,
-                to_ps,
-            })
-        }
-        None => None,
-    };
-    let summary = replay_capture(
-        &a.capture,
-        cfg,
-        clock,
-        &s,
-        a.skip_damaged,
-        trace,
-        a.plots.as_deref(),
-        link,
-        a.link.key_out.as_deref(),
-    )?;
-    let mut out = stdout();
-    write!(out, "{summary}")?;
-    out.flush()?;
-    if let Some(j) = &a.json {
-        std::fs::write(j, serde_json::to_string_pretty(&summary)? + "\n")?;
-        eprintln!("wrote {}", j.display());
-    }
     Ok(())
 }
 

@@ -56,6 +56,12 @@ pub struct LinkModel {
 impl LinkModel {
     /// A perfect link with the scenario's timeout (no loss, no delay, every bit revealed).
     pub fn perfect(s: &Scenario) -> Self {
+        Self::perfect_for((s.rep_rate_hz * 0.01).max(1.0) as u64, s.seed ^ 0x4C49_4E4B)
+    }
+
+    /// A perfect link whose endpoint expires answers after `answer_timeout_slots`; `seed` seeds
+    /// the faults set on top of it.
+    pub fn perfect_for(answer_timeout_slots: u64, seed: u64) -> Self {
         Self {
             loss: 0.0,
             dup: 0.0,
@@ -63,9 +69,9 @@ impl LinkModel {
             corrupt: 0.0,
             latency_slots: 0,
             reorder_slots: 50_000,
-            seed: s.seed ^ 0x4C49_4E4B,
+            seed,
             test_fraction: 1.0,
-            answer_timeout_slots: (s.rep_rate_hz * 0.01).max(1.0) as u64,
+            answer_timeout_slots,
             flush_age_slots: 5000,
         }
     }
@@ -272,6 +278,11 @@ pub struct FramedLink {
 impl FramedLink {
     /// A link with model `model` to a transmitter that knows the scenario's choices.
     pub fn new(s: &Scenario, model: LinkModel) -> Result<Self, String> {
+        Self::with_transmitter(HostTransmitter::new(s, model.test_fraction), model)
+    }
+
+    /// A link with model `model` to the transmitter `tx`.
+    pub fn with_transmitter(tx: HostTransmitter, model: LinkModel) -> Result<Self, String> {
         model.validate()?;
         let cfg = LinkConfig::new(model.answer_timeout_slots, model.flush_age_slots)
             .map_err(|e| e.to_string())?;
@@ -281,7 +292,7 @@ impl FramedLink {
             down: Channel::new(model, 0x444F),
             partial: Vec::new(),
             inbox: VecDeque::new(),
-            tx: HostTransmitter::new(s, model.test_fraction),
+            tx,
         }));
         let ep = HostEndpoint::new(cfg, DownReader(shared.clone()), UpWriter(shared.clone()));
         Ok(Self {
@@ -389,6 +400,30 @@ impl HostTx {
         match self {
             Self::Framed(l) => Some(l),
             Self::Direct(_) => None,
+        }
+    }
+
+    /// Announcements the transmitter took.
+    pub fn announced(&self) -> u64 {
+        match self {
+            Self::Direct(t) => t.announcements(),
+            Self::Framed(l) => l.with_tx(|t| t.counters().announcements),
+        }
+    }
+
+    /// Announcements of slots the transmitter's source does not hold.
+    pub fn unrecorded(&self) -> u64 {
+        match self {
+            Self::Direct(t) => t.unrecorded(),
+            Self::Framed(l) => l.with_tx(|t| t.counters().unrecorded),
+        }
+    }
+
+    /// Lowest and highest slot announced.
+    pub fn announced_range(&self) -> Option<(u64, u64)> {
+        match self {
+            Self::Direct(t) => t.announced_range(),
+            Self::Framed(l) => l.with_tx(|t| t.announced_range()),
         }
     }
 

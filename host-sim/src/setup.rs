@@ -5,10 +5,13 @@
 //! the command line, so the benchmarks, the tests and the tools build receivers without the CLI.
 
 use crate::clocks::{self, ClockMode, ClockStages};
+use crate::link::LinkModel;
 use crate::profile::{Checked, Profile};
-use crate::scenario::Scenario;
+use crate::scenario::{AlarmsToml, Scenario};
+use crate::tomlcheck::TomlError;
 use clap::Args;
 use slotwise::ReceiverConfig;
+use std::path::Path;
 
 type AnyErr = Box<dyn std::error::Error>;
 
@@ -41,9 +44,7 @@ pub fn receiver_setup_for(
     clock: &ClockArgs,
     framed: bool,
 ) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
-    let p = Profile::from_scenario(s);
-    let checked = p.check(&s.name)?;
-    profile_setup(&p, &checked, clock, framed)
+    ReceiverSetup::from_scenario(s)?.receiver(clock, framed)
 }
 
 /// The receiver a checked profile describes, with the chosen clock; with `framed`, as in
@@ -68,4 +69,55 @@ pub fn profile_setup(
     let prior = clock.prior_ppm.unwrap_or(p.clock.prior_ppm);
     let stages = clocks::build_for(p, checked, cfg.gates(), clock.clock, prior)?;
     Ok((cfg, stages))
+}
+
+/// A receiver described once — its profile and what the core's constructors made of it — from
+/// which a host run builds the core, the clock and numbering stages, the monitor and the link.
+#[derive(Clone, Debug)]
+pub struct ReceiverSetup {
+    /// The profile.
+    pub profile: Profile,
+    /// The core's configurations it gives.
+    pub checked: Checked,
+}
+
+impl ReceiverSetup {
+    /// The simulator's receiver for scenario `s` ([`Profile::from_scenario`]).
+    pub fn from_scenario(s: &Scenario) -> Result<Self, TomlError> {
+        let profile = Profile::from_scenario(s);
+        let checked = profile.check(&s.name)?;
+        Ok(Self { profile, checked })
+    }
+
+    /// The receiver a profile file describes.
+    pub fn load(path: &Path) -> Result<Self, TomlError> {
+        let (profile, checked) = Profile::load(path)?;
+        Ok(Self { profile, checked })
+    }
+
+    /// The same receiver with other alarm thresholds (errors name `source`).
+    pub fn with_alarms(mut self, alarms: AlarmsToml, source: &str) -> Result<Self, TomlError> {
+        self.profile.alarms = alarms;
+        self.checked = self.profile.check(source)?;
+        Ok(self)
+    }
+
+    /// The core's configuration and the clock stages (see [`profile_setup`]).
+    pub fn receiver(
+        &self,
+        clock: &ClockArgs,
+        framed: bool,
+    ) -> Result<(ReceiverConfig, ClockStages), AnyErr> {
+        profile_setup(&self.profile, &self.checked, clock, framed)
+    }
+
+    /// Length of one live-statistics block, s.
+    pub fn block_s(&self) -> f64 {
+        self.profile.monitor.block_s
+    }
+
+    /// A perfect framed link for this receiver: its answer timeout, faults seeded by `seed`.
+    pub fn link_base(&self, seed: u64) -> LinkModel {
+        LinkModel::perfect_for(self.checked.receiver.answer_timeout_slots(), seed)
+    }
 }

@@ -1,6 +1,6 @@
 //! Command-line overrides of a scenario's `[alarms]` table (docs/scenario.md).
 
-use crate::scenario::{BoundName, Scenario, ScenarioError};
+use crate::scenario::{AlarmsToml, BoundName, Scenario, ScenarioError};
 use clap::Args;
 
 const HEADING: &str = "Alarms (override the scenario's [alarms] table, docs/scenario.md)";
@@ -33,7 +33,15 @@ fn parse_bound(s: &str) -> Result<BoundName, String> {
 impl AlarmArgs {
     /// Write the overrides into `s` and check them; errors name the option's key.
     pub fn apply(&self, s: &mut Scenario) -> Result<(), ScenarioError> {
-        let a = &mut s.alarms;
+        self.apply_to(&mut s.alarms);
+        s.alarm_config().map(|_| ()).map_err(|e| ScenarioError {
+            source: "command line".into(),
+            ..e
+        })
+    }
+
+    /// Write the overrides into an `[alarms]` table (the caller checks the result).
+    pub fn apply_to(&self, a: &mut AlarmsToml) {
         if let Some(v) = self.qber_ceiling {
             a.qber_ceiling_pct = v;
         }
@@ -43,9 +51,5 @@ impl AlarmArgs {
         if let Some(v) = self.alarm_bound {
             a.bound = v;
         }
-        s.alarm_config().map(|_| ()).map_err(|e| ScenarioError {
-            source: "command line".into(),
-            ..e
-        })
     }
 }

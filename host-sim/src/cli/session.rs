@@ -2,53 +2,54 @@
 //! monitor, the key tap and the classical-channel hint, and finished with the link's last frames
 //! and the key file.
 
-use super::{bucket_s, AnyErr};
-use crate::clocks::{self, ClockStages};
+use super::AnyErr;
+use crate::clocks::ClockStages;
 use crate::link::keyfile::KeyTap;
 use crate::link::report::link_summary;
+use crate::link::tx::HostTransmitter;
 use crate::link::{FramedLink, HostTx, LinkModel};
 use crate::replay::{Session, SessionResult, TraceRequest};
-use crate::scenario::Scenario;
-use crate::sim::SimTransmitter;
+use crate::setup::ReceiverSetup;
+use crate::sim::{SimTransmitter, TxSource};
 use crate::summary::Summary;
 use slotwise::{ReceiverConfig, SiftedBit};
 use std::path::Path;
 
-/// A session of the core `cfg` on `clock` for scenario `s`: answers over the framed `link` when
-/// given (else handed over directly), the monitor with the scenario's alarms, a key tap, and the
-/// transmitter's numbering hint. `truth_checked` when the simulator's truth comes with the events.
+/// A session of the core `cfg` on `clock` for the receiver `rs`, answered by `tx`: the monitor
+/// with the receiver's alarms, a key tap, and the classical channel's hello when there is one.
+/// `truth_checked` when the simulator's truth comes with the events.
 pub(super) fn open_session(
     cfg: ReceiverConfig,
     stages: ClockStages,
-    s: &Scenario,
-    link: Option<LinkModel>,
+    rs: &ReceiverSetup,
+    tx: HostTx,
+    hint: Option<(u64, u64)>,
     truth_checked: bool,
     trace: Option<TraceRequest>,
 ) -> Result<(Session<HostTx>, KeyTap), AnyErr> {
-    let mut session = Session::new(
-        cfg,
-        stages,
-        host_tx(s, link)?,
-        bucket_s(s),
-        truth_checked,
-        trace,
-    )?
-    .with_monitor(
-        crate::stats::stats_config(s, cfg.gates(), bucket_s(s))?,
-        s.alarm_config()?,
-    );
+    let mut session = Session::new(cfg, stages, tx, rs.block_s(), truth_checked, trace)?
+        .with_monitor(rs.checked.stats, rs.checked.alarms);
     let tap = KeyTap::new();
     session.set_key_tap(Box::new(tap.clone()));
-    let (hint_t, hint_slot) = clocks::simulated_hint(s)?;
-    session.hint(hint_t, hint_slot);
+    if let Some((t_ps, slot)) = hint {
+        session.hint(t_ps, slot);
+    }
     Ok((session, tap))
 }
 
-/// The host transmitter for a run: over the framed link when `link` is given.
-fn host_tx(s: &Scenario, link: Option<LinkModel>) -> Result<HostTx, AnyErr> {
+/// The host transmitter answering from `source`: over the framed link when `link` is given
+/// (revealing the bits `reveal_seed` picks), else in memory.
+pub(super) fn host_tx(
+    source: TxSource,
+    reveal_seed: u64,
+    link: Option<LinkModel>,
+) -> Result<HostTx, AnyErr> {
     Ok(match link {
-        Some(m) => HostTx::Framed(Box::new(FramedLink::new(s, m)?)),
-        None => HostTx::Direct(Box::new(SimTransmitter::new(s))),
+        Some(m) => HostTx::Framed(Box::new(FramedLink::with_transmitter(
+            HostTransmitter::with_source(source, reveal_seed, m.test_fraction),
+            m,
+        )?)),
+        None => HostTx::Direct(Box::new(SimTransmitter::with_source(source))),
     })
 }
 

@@ -79,6 +79,7 @@ pub struct HostTransmitter {
     key: BTreeMap<u64, TxKeyBit>,
     closed: bool,
     counters: TxCounters,
+    announced: Option<(u64, u64)>,
     raw: Vec<u8>,
     enc: Vec<u8>,
 }
@@ -103,6 +104,7 @@ impl HostTransmitter {
             key: BTreeMap::new(),
             closed: false,
             counters: TxCounters::default(),
+            announced: None,
             raw: vec![0; MAX_RAW],
             enc: vec![0; MAX_FRAME],
         }
@@ -111,6 +113,11 @@ impl HostTransmitter {
     /// Whether a final report arrived.
     pub fn closed(&self) -> bool {
         self.closed
+    }
+
+    /// Lowest and highest slot announced so far.
+    pub fn announced_range(&self) -> Option<(u64, u64)> {
+        self.announced
     }
 
     /// Counters.
@@ -206,6 +213,8 @@ impl HostTransmitter {
         let mut matched = Vec::new();
         for a in v.iter() {
             self.counters.announcements += 1;
+            let (lo, hi) = self.announced.unwrap_or((a.slot, a.slot));
+            self.announced = Some((lo.min(a.slot), hi.max(a.slot)));
             let c = self.choices.choice(a.slot);
             // The answers record has no "no answer" entry: a slot without content is answered
             // as a mismatch that reveals nothing, so no key bit can come from it.

@@ -168,6 +168,8 @@ pub struct SimTransmitter {
     source: TxSource,
     answers: VecDeque<Answer>,
     announcements: u64,
+    unrecorded: u64,
+    announced: Option<(u64, u64)>,
 }
 
 impl SimTransmitter {
@@ -182,7 +184,19 @@ impl SimTransmitter {
             source,
             answers: VecDeque::new(),
             announcements: 0,
+            unrecorded: 0,
+            announced: None,
         }
+    }
+
+    /// Announcements of slots its source does not hold (left unanswered).
+    pub fn unrecorded(&self) -> u64 {
+        self.unrecorded
+    }
+
+    /// Lowest and highest slot announced so far.
+    pub fn announced_range(&self) -> Option<(u64, u64)> {
+        self.announced
     }
 
     /// Announcements received so far.
@@ -207,7 +221,10 @@ impl SimTransmitter {
 impl Transmitter for SimTransmitter {
     fn announce(&mut self, a: Announcement) {
         self.announcements += 1;
+        let (lo, hi) = self.announced.unwrap_or((a.slot, a.slot));
+        self.announced = Some((lo.min(a.slot), hi.max(a.slot)));
         let Some(c) = self.source.choice(a.slot) else {
+            self.unrecorded += 1;
             return;
         };
         self.answers.push_back(Answer {

@@ -5,7 +5,7 @@
 
 use slotwise::TdcEvent;
 use slotwise_sim::capture::{CaptureReader, CaptureWriter};
-use slotwise_sim::cli::{receiver_setup, replay_capture, run_simulated, ClockArgs};
+use slotwise_sim::cli::{receiver_setup, replay_capture, run_simulated, ClockArgs, ReplayPlan};
 use slotwise_sim::clocks::ClockMode;
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::summary::Summary;
@@ -22,7 +22,8 @@ fn replay(path: &Path, s: &Scenario, skip: bool) -> Result<Summary, String> {
         prior_ppm: Some(500),
     };
     let (cfg, c) = receiver_setup(s, &clock).unwrap();
-    replay_capture(path, cfg, c, s, skip, None, None, None, None).map_err(|e| e.to_string())
+    let plan = ReplayPlan::of_scenario(s).unwrap();
+    replay_capture(path, cfg, c, plan, skip, None, None, None, None).map_err(|e| e.to_string())
 }
 
 /// The parts of a summary that must not change (timings and the skip report excluded).
