@@ -103,7 +103,13 @@ pub fn parse_decimal(s: &str) -> Result<Decimal, DecimalError> {
             return Err(DecimalError::Syntax);
         }
         let e: i64 = e.parse().map_err(|_| DecimalError::TooLong)?;
-        scale = if neg { scale + e } else { scale - e };
+        // An exponent near i64::MAX must be refused, not wrapped into a small scale.
+        scale = if neg {
+            scale.checked_add(e)
+        } else {
+            scale.checked_sub(e)
+        }
+        .ok_or(DecimalError::TooLong)?;
     }
     if scale < 0 {
         let up = 10u128
@@ -182,5 +188,13 @@ mod tests {
         }
         assert_eq!(parse_decimal("-1"), Err(DecimalError::Negative));
         assert_eq!(parse_decimal("1e400"), Err(DecimalError::TooLong));
+        // Exponents at the edge of i64: refused, never an overflow.
+        for huge in [
+            "0.1e-9223372036854775807",
+            "1e-9223372036854775807",
+            "1e9223372036854775807",
+        ] {
+            assert_eq!(parse_decimal(huge), Err(DecimalError::TooLong), "{huge:?}");
+        }
     }
 }

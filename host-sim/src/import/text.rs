@@ -180,6 +180,19 @@ impl TextImport {
         if [&self.time, &self.channel].contains(&&Column::Number(0)) {
             return Err(ImportError::Options("columns are numbered from 1".into()));
         }
+        // The capture writer would refuse such an event mid-file, with no line to name.
+        if let Some(m) = self
+            .channel_map
+            .as_ref()
+            .and_then(|m| m.0.iter().map(|(_, t)| *t).max())
+        {
+            if m > self.tdc.max_channel {
+                return Err(ImportError::Options(format!(
+                    "--channel-map sends events to channel {m}, above the highest channel {}",
+                    self.tdc.max_channel
+                )));
+            }
+        }
         if !self.header {
             for (opt, col) in [
                 ("--time-column", &self.time),
