@@ -166,3 +166,49 @@ fn the_recovered_clock_without_a_marker_says_what_to_do() {
     .to_string();
     assert!(e.contains("--clock reference"), "{e}");
 }
+
+mod props {
+    use super::*;
+    use proptest::prelude::*;
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(256))]
+
+        /// A hand-written profile with one line dropped or one value replaced: the parser never
+        /// panics, an error names the file, and whatever parses round-trips to the same
+        /// configurations (the proptest form of the `profile_toml` fuzz target).
+        #[test]
+        fn edited_profiles_fail_cleanly_or_round_trip(
+            line in 0usize..60,
+            value in prop_oneof![
+                Just(String::new()),
+                (-1e12f64..1e12).prop_map(|v| v.to_string()),
+                (0u64..1 << 40).prop_map(|v| v.to_string()),
+                Just("\"Z\"".to_string()),
+                Just("[1, 2".to_string()),
+                Just("nan".to_string()),
+            ],
+            drop in any::<bool>(),
+        ) {
+            let edited: Vec<String> = HAND
+                .lines()
+                .enumerate()
+                .filter(|&(i, _)| !(drop && i == line))
+                .map(|(i, l)| match l.split_once(" = ") {
+                    Some((k, _)) if !drop && i == line => format!("{k} = {value}"),
+                    _ => l.to_string(),
+                })
+                .collect();
+            let text = edited.join("\n");
+            match Profile::from_toml_str(&text, "edit.toml") {
+                Err(e) => prop_assert!(e.to_string().starts_with("edit.toml:"), "{}", e),
+                Ok((p, c)) => {
+                    let (back, again) =
+                        Profile::from_toml_str(&p.to_toml_string(), "rt").unwrap();
+                    prop_assert_eq!(back, p);
+                    prop_assert_eq!(again, c);
+                }
+            }
+        }
+    }
+}
