@@ -282,7 +282,9 @@ fn csv_replay_without_scenario_names_the_flag() {
     assert!(
         err.contains("events.csv")
             && err.contains("no receiver description")
-            && err.contains("--scenario S.toml"),
+            && err.contains("--scenario S.toml")
+            && err.contains("--profile P.toml")
+            && err.contains("--tx-record"),
         "{err}"
     );
     assert!(!err.contains("magic"), "{err}");
