@@ -25,7 +25,7 @@ use std::io::Read;
 use std::ops::Range;
 use std::path::Path;
 
-pub use dense::{read_dense, DenseRead, DenseWriter, RecordDamage};
+pub use dense::{dense_size, read_dense, DenseRead, DenseWriter, RecordDamage};
 pub use error::{Location, RangeMismatch, TxErrorKind, TxRecordError};
 pub use inspect::{inspect, RecordReport};
 pub use sparse::{read_sparse, SparseWriter};

@@ -7,7 +7,7 @@ use crate::clocks;
 use crate::scenario::Scenario;
 use crate::sim::{SimEvent, TxChoices, TxClock};
 use crate::txrecord::{
-    DenseWriter, SparseWriter, TxRecordHeader, DEFAULT_BLOCK_SLOTS, FLAG_SIMULATED,
+    dense_size, DenseWriter, SparseWriter, TxRecordHeader, DEFAULT_BLOCK_SLOTS, FLAG_SIMULATED,
 };
 use clap::Args;
 use std::collections::BTreeSet;
@@ -34,15 +34,6 @@ pub struct TxRecordArgs {
     /// Do not write the transmitter record.
     #[arg(long)]
     pub no_tx_record: bool,
-}
-
-/// Bytes of a dense record of `slots` slots in blocks of `block_slots`.
-pub fn dense_bytes(slots: u64, block_slots: u32) -> u64 {
-    let bs = u64::from(block_slots.max(2));
-    let full = slots / bs;
-    let rest = slots % bs;
-    let block = |n: u64| 28 + n.div_ceil(2);
-    56 + full * block(bs) + if rest > 0 { block(rest) } else { 0 } + 24
 }
 
 struct Sparse {
@@ -110,7 +101,7 @@ impl RecordOut {
             .with_marker(s.marker)
             .with_hello(hello_t, hello_slot)
             .with_flags(FLAG_SIMULATED);
-        let dense_bytes = dense_bytes(end, DEFAULT_BLOCK_SLOTS);
+        let dense_bytes = dense_size(end, DEFAULT_BLOCK_SLOTS);
         let sparse = dense_bytes > MAX_DENSE_BYTES;
         let path = match &args.tx_record {
             Some(p) => p.clone(),

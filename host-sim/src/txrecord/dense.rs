@@ -33,6 +33,17 @@ const OFF_HELLO_T: usize = 36;
 const OFF_HELLO_SLOT: usize = 44;
 const OFF_HEADER_CRC: usize = 52;
 
+/// Bytes of a dense record of `slots` slots in blocks of `block_slots` (even) slots.
+pub fn dense_size(slots: u64, block_slots: u32) -> u64 {
+    let bs = u64::from(block_slots.max(2));
+    let block = |n: u64| (BLOCK_HEAD_LEN as u64 + 4) + n.div_ceil(2);
+    let rest = match slots % bs {
+        0 => 0,
+        r => block(r),
+    };
+    HEADER_LEN as u64 + (slots / bs) * block(bs) + rest + END_LEN as u64
+}
+
 fn header_field(o: usize) -> &'static str {
     match o {
         0..=7 => "magic",
