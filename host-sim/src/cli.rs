@@ -24,8 +24,8 @@ mod session;
 mod tx_record;
 
 pub use alarm_args::AlarmArgs;
-pub use tx_record::TxRecordArgs;
 use session::{add_link, finish_session, open_session};
+pub use tx_record::TxRecordArgs;
 
 type AnyErr = Box<dyn std::error::Error>;
 

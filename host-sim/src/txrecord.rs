@@ -446,7 +446,9 @@ impl TxRecord {
     /// Every recorded slot in ascending order with its choice.
     pub fn iter(&self) -> Box<dyn Iterator<Item = (u64, TxChoice)> + '_> {
         match &self.store {
-            Store::Dense(_) => Box::new(self.range().filter_map(|k| self.choice(k).map(|c| (k, c)))),
+            Store::Dense(_) => {
+                Box::new(self.range().filter_map(|k| self.choice(k).map(|c| (k, c))))
+            }
             Store::Sparse { slots, codes } => Box::new(
                 slots
                     .iter()

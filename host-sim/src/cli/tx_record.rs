@@ -79,18 +79,27 @@ impl Sparse {
     }
 }
 
-/// The record being written during a `simulate` run.
+enum Form {
+    Dense(DenseWriter<BufWriter<File>>),
+    Sparse(Box<Sparse>),
+}
+
+/// The record being written during a `simulate` run (its file is created before the run, so a
+/// path that cannot be written fails at once).
 pub(super) struct RecordOut {
     path: PathBuf,
-    header: TxRecordHeader,
-    sparse: Option<Sparse>,
+    form: Form,
     choices: TxChoices,
     dense_bytes: u64,
 }
 
 impl RecordOut {
     /// Plan the record of scenario `s` beside `out`; `None` with `--no-tx-record`.
-    pub(super) fn open(args: &TxRecordArgs, out: &Path, s: &Scenario) -> Result<Option<Self>, AnyErr> {
+    pub(super) fn open(
+        args: &TxRecordArgs,
+        out: &Path,
+        s: &Scenario,
+    ) -> Result<Option<Self>, AnyErr> {
         if args.no_tx_record {
             return Ok(None);
         }
@@ -115,15 +124,16 @@ impl RecordOut {
             )
             .into());
         }
-        let sparse = if sparse {
-            let file = File::create(&path).map_err(|e| format!("{}: {e}", path.display()))?;
-            let mut w = SparseWriter::new(BufWriter::new(file), header.clone())?;
+        let file = File::create(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+        let file = BufWriter::new(file);
+        let form = if sparse {
+            let mut w = SparseWriter::new(file, header)?;
             w.comment(
                 "sparse: holds the slots k-1, k, k+1 around each simulated detection, k its true \
                  slot (for noise clicks, the slot at the click's true time); every other slot is \
                  not recorded",
             )?;
-            Some(Sparse {
+            Form::Sparse(Box::new(Sparse {
                 w,
                 pending: BTreeSet::new(),
                 next: 0,
@@ -131,14 +141,13 @@ impl RecordOut {
                 choices: TxChoices::new(s),
                 clock: TxClock::from_scenario(s),
                 detections: 0,
-            })
+            }))
         } else {
-            None
+            Form::Dense(DenseWriter::new(file, header)?)
         };
         Ok(Some(Self {
             path,
-            header,
-            sparse,
+            form,
             choices: TxChoices::new(s),
             dense_bytes,
         }))
@@ -146,19 +155,19 @@ impl RecordOut {
 
     /// Take one simulated detection (the sparse form records the slots around it).
     pub(super) fn observe(&mut self, e: &SimEvent) -> Result<(), AnyErr> {
-        match self.sparse.as_mut() {
-            Some(sp) => sp.observe(e),
-            None => Ok(()),
+        match &mut self.form {
+            Form::Sparse(sp) => sp.observe(e),
+            Form::Dense(_) => Ok(()),
         }
     }
 
     /// Write the record out (the dense form all at once, in constant memory); returns the line
     /// that says what was written.
     pub(super) fn finish(self) -> Result<String, AnyErr> {
-        let r = self.header.range();
         let name = self.path.display();
-        match self.sparse {
-            Some(mut sp) => {
+        match self.form {
+            Form::Sparse(mut sp) => {
+                let r = sp.w.header().range();
                 while let Some(k) = sp.pending.pop_first() {
                     sp.write(k)?;
                 }
@@ -173,9 +182,8 @@ impl RecordOut {
                     self.dense_bytes >> 20
                 ))
             }
-            None => {
-                let file = File::create(&self.path).map_err(|e| format!("{name}: {e}"))?;
-                let mut w = DenseWriter::new(BufWriter::new(file), self.header.clone())?;
+            Form::Dense(mut w) => {
+                let r = w.header().range();
                 for k in r.clone() {
                     w.push(Some(self.choices.choice(k)))?;
                 }

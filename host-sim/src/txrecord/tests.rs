@@ -42,12 +42,20 @@ fn doc_example() -> Vec<u8> {
         .with_block_slots(4);
     dense_bytes(
         header,
-        &[Some(z(1, 0)), Some(x(0, 1)), Some(VACUUM), None, Some(z(0, 1))],
+        &[
+            Some(z(1, 0)),
+            Some(x(0, 1)),
+            Some(VACUUM),
+            None,
+            Some(z(0, 1)),
+        ],
     )
 }
 
 fn hex_block(doc: &str, tag: &str) -> Vec<u8> {
-    let start = doc.find(&format!("```hex {tag}")).expect("hex block in the doc");
+    let start = doc
+        .find(&format!("```hex {tag}"))
+        .expect("hex block in the doc");
     let body = &doc[start..];
     let body = &body[body.find('\n').unwrap() + 1..];
     let body = &body[..body.find("```").unwrap()];
@@ -117,7 +125,9 @@ fn errors_name_offset_and_field() {
         matches!(e.kind, TxErrorKind::Common(ErrorKind::Truncated { .. })),
         "{e}"
     );
-    assert!(e.to_string().starts_with(&format!("r.swtx: byte {cut} (block 1)")));
+    assert!(e
+        .to_string()
+        .starts_with(&format!("r.swtx: byte {cut} (block 1)")));
 
     let e = err(&good[..good.len() - dense::END_LEN]);
     assert_eq!(e.field, "end_record");
@@ -128,7 +138,13 @@ fn errors_name_offset_and_field() {
     let e = err(&bad);
     let crc_at = (dense::HEADER_LEN + dense::BLOCK_HEAD_LEN + 2) as u64;
     assert_eq!((e.offset(), e.field), (Some(crc_at), "block_crc"));
-    assert_eq!(e.at, Location::Byte { offset: crc_at, block: Some(0) });
+    assert_eq!(
+        e.at,
+        Location::Byte {
+            offset: crc_at,
+            block: Some(0)
+        }
+    );
     // The message quoted in docs/transmitter-record.md §3.5 (CRC values from an independent
     // bitwise CRC-32C, check value 0xE3069283 per the CRC catalogue).
     assert_eq!(
@@ -166,7 +182,13 @@ fn a_reserved_code_names_its_slot_even_with_a_good_crc() {
     b[crc_at..crc_at + 4].copy_from_slice(&crc.to_le_bytes());
     let e = read_dense(&b[..], "r.swtx", false).unwrap_err();
     assert_eq!((e.offset(), e.field), (Some(at as u64), "payload"));
-    assert_eq!(e.kind, TxErrorKind::BadCode { slot: 63, code: 0xF });
+    assert_eq!(
+        e.kind,
+        TxErrorKind::BadCode {
+            slot: 63,
+            code: 0xF
+        }
+    );
 }
 
 fn sparse_text(body: &str) -> String {
@@ -176,8 +198,14 @@ fn sparse_text(body: &str) -> String {
 #[test]
 fn sparse_faults_name_line_column_and_field() {
     let read = |t: &str| read_sparse(Cursor::new(t.to_owned()), "tx.csv");
-    let r = read(&sparse_text("12,Z,1,0\n# a comment\n64 , - , - , vacuum\n70,X,0,1\n")).unwrap();
-    assert_eq!((r.choice(12), r.choice(64), r.choice(70)), (Some(z(1, 0)), Some(VACUUM), Some(x(0, 1))));
+    let r = read(&sparse_text(
+        "12,Z,1,0\n# a comment\n64 , - , - , vacuum\n70,X,0,1\n",
+    ))
+    .unwrap();
+    assert_eq!(
+        (r.choice(12), r.choice(64), r.choice(70)),
+        (Some(z(1, 0)), Some(VACUUM), Some(x(0, 1)))
+    );
     assert_eq!(r.choice(13), None);
     let cases = [
         ("12,Z,2,0\n", 5, 3, "bit"),
@@ -203,12 +231,20 @@ fn sparse_faults_name_line_column_and_field() {
     let e = read("# slot_count = 5\nslot,basis,bit,intensity\n").unwrap_err();
     assert_eq!((e.line(), e.field), (Some(2), "first_slot"));
     let e = read("# first_slot = x1\n").unwrap_err();
-    assert_eq!(e.at, Location::Line { line: 1, column: 16 });
+    assert_eq!(
+        e.at,
+        Location::Line {
+            line: 1,
+            column: 16
+        }
+    );
 }
 
 #[test]
 fn range_check_names_both_ranges() {
-    let r = read_dense(&doc_example()[..], "r.swtx", false).unwrap().record;
+    let r = read_dense(&doc_example()[..], "r.swtx", false)
+        .unwrap()
+        .record;
     assert!(r.check_range(62..67).is_ok());
     assert!(r.check_range(63..65).is_ok());
     let e = r.check_range(0..100).unwrap_err();
