@@ -84,6 +84,11 @@ fn invalid(msg: String) -> io::Error {
     io::Error::new(io::ErrorKind::InvalidInput, msg)
 }
 
+/// Whether `n` is a valid block size: even, 2..=[`MAX_BLOCK_SLOTS`].
+fn block_slots_ok(n: u32) -> bool {
+    (2..=MAX_BLOCK_SLOTS).contains(&n) && n.is_multiple_of(2)
+}
+
 /// Check the fields a writer must get right; the message names the field.
 fn validate(h: &TxRecordHeader) -> Result<(), String> {
     if !(1..=3).contains(&h.intensity_classes) {
@@ -92,7 +97,7 @@ fn validate(h: &TxRecordHeader) -> Result<(), String> {
             h.intensity_classes
         ));
     }
-    if h.block_slots < 2 || h.block_slots > MAX_BLOCK_SLOTS || h.block_slots % 2 != 0 {
+    if !block_slots_ok(h.block_slots) {
         return Err(format!(
             "field 'block_slots': {} is not an even number in 2..={MAX_BLOCK_SLOTS}",
             h.block_slots
@@ -211,7 +216,7 @@ impl<W: Write> DenseWriter<W> {
                     self.header.intensity_classes
                 ))
             })?;
-        if self.in_block % 2 == 0 {
+        if self.in_block.is_multiple_of(2) {
             self.payload.push(code);
         } else if let Some(last) = self.payload.last_mut() {
             *last |= code << 4;
@@ -393,7 +398,7 @@ fn parse_header(b: &[u8], got: usize, name: &str) -> Result<TxRecordHeader, TxRe
         let kind = common(ErrorKind::UnknownFlags { bits: unknown });
         return Err(err(OFF_FLAGS, kind));
     }
-    if h.block_slots < 2 || h.block_slots > MAX_BLOCK_SLOTS || h.block_slots % 2 != 0 {
+    if !block_slots_ok(h.block_slots) {
         return Err(err(
             OFF_BLOCK_SLOTS,
             TxErrorKind::BadValue {
