@@ -25,9 +25,9 @@ mod session;
 mod tx_record;
 
 pub use alarm_args::AlarmArgs;
-pub use tx_record::TxRecordArgs;
 pub use replay_cmd::{replay_capture, ReplayArgs, ReplayPlan};
 use session::{add_link, finish_session, host_tx, open_session};
+pub use tx_record::TxRecordArgs;
 
 type AnyErr = Box<dyn std::error::Error>;
 

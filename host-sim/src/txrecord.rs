@@ -25,7 +25,7 @@ use std::io::Read;
 use std::ops::Range;
 use std::path::Path;
 
-pub use dense::{read_dense, DenseRead, DenseWriter, RecordDamage};
+pub use dense::{dense_size, read_dense, DenseRead, DenseWriter, RecordDamage};
 pub use error::{Location, RangeMismatch, TxErrorKind, TxRecordError};
 pub use inspect::{inspect, RecordReport};
 pub use sparse::{read_sparse, SparseWriter};
@@ -369,7 +369,7 @@ impl TxRecord {
                     .and_then(|j| n.get(j))
                     .copied()
                     .unwrap_or(CODE_NOT_RECORDED | CODE_NOT_RECORDED << 4);
-                if i % 2 == 0 {
+                if i.is_multiple_of(2) {
                     byte & 0x0F
                 } else {
                     byte >> 4
@@ -412,7 +412,7 @@ impl TxRecord {
     }
 
     /// Number of recorded non-marker slots of each intensity class among `slots` (index = class;
-    /// vacuum and unrecorded slots are not counted), as [`crate::sim::TxChoices::count_sent`].
+    /// vacuum and unrecorded slots are not counted), as the seeded choices count them.
     pub fn count_sent(&self, slots: Range<u64>) -> [u64; 3] {
         let mut n = [0u64; 3];
         let mut add = |k: u64, code: u8| {
@@ -446,7 +446,9 @@ impl TxRecord {
     /// Every recorded slot in ascending order with its choice.
     pub fn iter(&self) -> Box<dyn Iterator<Item = (u64, TxChoice)> + '_> {
         match &self.store {
-            Store::Dense(_) => Box::new(self.range().filter_map(|k| self.choice(k).map(|c| (k, c)))),
+            Store::Dense(_) => {
+                Box::new(self.range().filter_map(|k| self.choice(k).map(|c| (k, c))))
+            }
             Store::Sparse { slots, codes } => Box::new(
                 slots
                     .iter()

@@ -7,7 +7,7 @@ use crate::clocks;
 use crate::scenario::Scenario;
 use crate::sim::{SimEvent, TxChoices, TxClock};
 use crate::txrecord::{
-    DenseWriter, SparseWriter, TxRecordHeader, DEFAULT_BLOCK_SLOTS, FLAG_SIMULATED,
+    dense_size, DenseWriter, SparseWriter, TxRecordHeader, DEFAULT_BLOCK_SLOTS, FLAG_SIMULATED,
 };
 use clap::Args;
 use std::collections::BTreeSet;
@@ -34,15 +34,6 @@ pub struct TxRecordArgs {
     /// Do not write the transmitter record.
     #[arg(long)]
     pub no_tx_record: bool,
-}
-
-/// Bytes of a dense record of `slots` slots in blocks of `block_slots`.
-pub fn dense_bytes(slots: u64, block_slots: u32) -> u64 {
-    let bs = u64::from(block_slots.max(2));
-    let full = slots / bs;
-    let rest = slots % bs;
-    let block = |n: u64| 28 + n.div_ceil(2);
-    56 + full * block(bs) + if rest > 0 { block(rest) } else { 0 } + 24
 }
 
 struct Sparse {
@@ -88,18 +79,27 @@ impl Sparse {
     }
 }
 
-/// The record being written during a `simulate` run.
+enum Form {
+    Dense(DenseWriter<BufWriter<File>>),
+    Sparse(Box<Sparse>),
+}
+
+/// The record being written during a `simulate` run (its file is created before the run, so a
+/// path that cannot be written fails at once).
 pub(super) struct RecordOut {
     path: PathBuf,
-    header: TxRecordHeader,
-    sparse: Option<Sparse>,
+    form: Form,
     choices: TxChoices,
     dense_bytes: u64,
 }
 
 impl RecordOut {
     /// Plan the record of scenario `s` beside `out`; `None` with `--no-tx-record`.
-    pub(super) fn open(args: &TxRecordArgs, out: &Path, s: &Scenario) -> Result<Option<Self>, AnyErr> {
+    pub(super) fn open(
+        args: &TxRecordArgs,
+        out: &Path,
+        s: &Scenario,
+    ) -> Result<Option<Self>, AnyErr> {
         if args.no_tx_record {
             return Ok(None);
         }
@@ -110,7 +110,7 @@ impl RecordOut {
             .with_marker(s.marker)
             .with_hello(hello_t, hello_slot)
             .with_flags(FLAG_SIMULATED);
-        let dense_bytes = dense_bytes(end, DEFAULT_BLOCK_SLOTS);
+        let dense_bytes = dense_size(end, DEFAULT_BLOCK_SLOTS);
         let sparse = dense_bytes > MAX_DENSE_BYTES;
         let path = match &args.tx_record {
             Some(p) => p.clone(),
@@ -124,15 +124,16 @@ impl RecordOut {
             )
             .into());
         }
-        let sparse = if sparse {
-            let file = File::create(&path).map_err(|e| format!("{}: {e}", path.display()))?;
-            let mut w = SparseWriter::new(BufWriter::new(file), header.clone())?;
+        let file = File::create(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+        let file = BufWriter::new(file);
+        let form = if sparse {
+            let mut w = SparseWriter::new(file, header)?;
             w.comment(
                 "sparse: holds the slots k-1, k, k+1 around each simulated detection, k its true \
                  slot (for noise clicks, the slot at the click's true time); every other slot is \
                  not recorded",
             )?;
-            Some(Sparse {
+            Form::Sparse(Box::new(Sparse {
                 w,
                 pending: BTreeSet::new(),
                 next: 0,
@@ -140,14 +141,13 @@ impl RecordOut {
                 choices: TxChoices::new(s),
                 clock: TxClock::from_scenario(s),
                 detections: 0,
-            })
+            }))
         } else {
-            None
+            Form::Dense(DenseWriter::new(file, header)?)
         };
         Ok(Some(Self {
             path,
-            header,
-            sparse,
+            form,
             choices: TxChoices::new(s),
             dense_bytes,
         }))
@@ -155,19 +155,19 @@ impl RecordOut {
 
     /// Take one simulated detection (the sparse form records the slots around it).
     pub(super) fn observe(&mut self, e: &SimEvent) -> Result<(), AnyErr> {
-        match self.sparse.as_mut() {
-            Some(sp) => sp.observe(e),
-            None => Ok(()),
+        match &mut self.form {
+            Form::Sparse(sp) => sp.observe(e),
+            Form::Dense(_) => Ok(()),
         }
     }
 
     /// Write the record out (the dense form all at once, in constant memory); returns the line
     /// that says what was written.
     pub(super) fn finish(self) -> Result<String, AnyErr> {
-        let r = self.header.range();
         let name = self.path.display();
-        match self.sparse {
-            Some(mut sp) => {
+        match self.form {
+            Form::Sparse(mut sp) => {
+                let r = sp.w.header().range();
                 while let Some(k) = sp.pending.pop_first() {
                     sp.write(k)?;
                 }
@@ -182,9 +182,8 @@ impl RecordOut {
                     self.dense_bytes >> 20
                 ))
             }
-            None => {
-                let file = File::create(&self.path).map_err(|e| format!("{name}: {e}"))?;
-                let mut w = DenseWriter::new(BufWriter::new(file), self.header.clone())?;
+            Form::Dense(mut w) => {
+                let r = w.header().range();
                 for k in r.clone() {
                     w.push(Some(self.choices.choice(k)))?;
                 }

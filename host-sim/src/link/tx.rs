@@ -377,7 +377,11 @@ mod tests {
         for (e, &(slot, _)) in v.iter().zip(&slots) {
             if slot % 2 == 0 {
                 missing += 1;
-                assert_eq!((e.basis_match, e.bit, e.intensity), (false, None, 0), "{slot}");
+                assert_eq!(
+                    (e.basis_match, e.bit, e.intensity),
+                    (false, None, 0),
+                    "{slot}"
+                );
             } else {
                 let c = choices.choice(slot);
                 assert_eq!((e.basis_match, e.bit), (true, Some(c.bit)), "{slot}");

@@ -9,8 +9,8 @@ use super::error::{TxErrorKind, TxRecordError};
 use super::{
     decode_choice, encode_choice, protocol_code, protocol_of_code, TxChoice, TxRecord,
     TxRecordHeader, BLOCK_SYNC, CODE_NOT_RECORDED, END_SYNC, FLAGS_KNOWN_REQUIRED,
-    FLAGS_REQUIRED_MASK, FLAG_HELLO, FORMAT_MAJOR, FORMAT_VERSION, MAGIC, MAX_BLOCK_SLOTS,
-    MARKER_VACUUM,
+    FLAGS_REQUIRED_MASK, FLAG_HELLO, FORMAT_MAJOR, FORMAT_VERSION, MAGIC, MARKER_VACUUM,
+    MAX_BLOCK_SLOTS,
 };
 use crate::capture::{crc32c, le_u16, le_u32, le_u64, ErrorKind};
 use std::io::{self, Read, Write};
@@ -32,6 +32,17 @@ const OFF_SLOT_COUNT: usize = 28;
 const OFF_HELLO_T: usize = 36;
 const OFF_HELLO_SLOT: usize = 44;
 const OFF_HEADER_CRC: usize = 52;
+
+/// Bytes of a dense record of `slots` slots in blocks of `block_slots` (even) slots.
+pub fn dense_size(slots: u64, block_slots: u32) -> u64 {
+    let bs = u64::from(block_slots.max(2));
+    let block = |n: u64| (BLOCK_HEAD_LEN as u64 + 4) + n.div_ceil(2);
+    let rest = match slots % bs {
+        0 => 0,
+        r => block(r),
+    };
+    HEADER_LEN as u64 + (slots / bs) * block(bs) + rest + END_LEN as u64
+}
 
 fn header_field(o: usize) -> &'static str {
     match o {
@@ -73,6 +84,11 @@ fn invalid(msg: String) -> io::Error {
     io::Error::new(io::ErrorKind::InvalidInput, msg)
 }
 
+/// Whether `n` is a valid block size: even, 2..=[`MAX_BLOCK_SLOTS`].
+fn block_slots_ok(n: u32) -> bool {
+    (2..=MAX_BLOCK_SLOTS).contains(&n) && n.is_multiple_of(2)
+}
+
 /// Check the fields a writer must get right; the message names the field.
 fn validate(h: &TxRecordHeader) -> Result<(), String> {
     if !(1..=3).contains(&h.intensity_classes) {
@@ -81,7 +97,7 @@ fn validate(h: &TxRecordHeader) -> Result<(), String> {
             h.intensity_classes
         ));
     }
-    if h.block_slots < 2 || h.block_slots > MAX_BLOCK_SLOTS || h.block_slots % 2 != 0 {
+    if !block_slots_ok(h.block_slots) {
         return Err(format!(
             "field 'block_slots': {} is not an even number in 2..={MAX_BLOCK_SLOTS}",
             h.block_slots
@@ -89,7 +105,9 @@ fn validate(h: &TxRecordHeader) -> Result<(), String> {
     }
     let unknown = h.flags & FLAGS_REQUIRED_MASK & !FLAGS_KNOWN_REQUIRED;
     if unknown != 0 {
-        return Err(format!("field 'flags': unknown required bits 0x{unknown:08X}"));
+        return Err(format!(
+            "field 'flags': unknown required bits 0x{unknown:08X}"
+        ));
     }
     if (h.flags & FLAG_HELLO != 0) != h.hello.is_some() {
         return Err("field 'flags': the hello flag and the hello fields disagree".into());
@@ -198,7 +216,7 @@ impl<W: Write> DenseWriter<W> {
                     self.header.intensity_classes
                 ))
             })?;
-        if self.in_block % 2 == 0 {
+        if self.in_block.is_multiple_of(2) {
             self.payload.push(code);
         } else if let Some(last) = self.payload.last_mut() {
             *last |= code << 4;
@@ -380,7 +398,7 @@ fn parse_header(b: &[u8], got: usize, name: &str) -> Result<TxRecordHeader, TxRe
         let kind = common(ErrorKind::UnknownFlags { bits: unknown });
         return Err(err(OFF_FLAGS, kind));
     }
-    if h.block_slots < 2 || h.block_slots > MAX_BLOCK_SLOTS || h.block_slots % 2 != 0 {
+    if !block_slots_ok(h.block_slots) {
         return Err(err(
             OFF_BLOCK_SLOTS,
             TxErrorKind::BadValue {
@@ -439,11 +457,14 @@ fn check_block(
     let first = h.first_slot + k * u64::from(h.block_slots);
     let stated = le_u64(b, 12);
     if stated != first {
-        return Err(err(12, common(ErrorKind::OutOfRange {
-            value: stated,
-            min: first,
-            max: first,
-        })));
+        return Err(err(
+            12,
+            common(ErrorKind::OutOfRange {
+                value: stated,
+                min: first,
+                max: first,
+            }),
+        ));
     }
     let count = le_u32(b, 20);
     if count != n {
@@ -465,12 +486,19 @@ fn check_block(
         };
         if !ok {
             let slot = first + i as u64;
-            return Err(err(BLOCK_HEAD_LEN + i / 2, TxErrorKind::BadCode { slot, code }));
+            return Err(err(
+                BLOCK_HEAD_LEN + i / 2,
+                TxErrorKind::BadCode { slot, code },
+            ));
         }
         recorded += u64::from(code != CODE_NOT_RECORDED);
     }
     if n % 2 == 1 {
-        let pad = b.get(BLOCK_HEAD_LEN + plen - 1).copied().unwrap_or_default() >> 4;
+        let pad = b
+            .get(BLOCK_HEAD_LEN + plen - 1)
+            .copied()
+            .unwrap_or_default()
+            >> 4;
         if pad != 0 {
             return Err(TxRecordError::at_byte(
                 name,
@@ -532,7 +560,10 @@ pub fn read_dense<R: Read>(mut r: R, name: &str, skip: bool) -> Result<DenseRead
         match check_block(&buf, k, n, &h, pos, name) {
             Ok(rec) => {
                 recorded += rec;
-                nibbles.extend_from_slice(buf.get(BLOCK_HEAD_LEN..BLOCK_HEAD_LEN + plen).unwrap_or_default());
+                nibbles.extend_from_slice(
+                    buf.get(BLOCK_HEAD_LEN..BLOCK_HEAD_LEN + plen)
+                        .unwrap_or_default(),
+                );
             }
             Err(e) if skip => {
                 damage.push(RecordDamage {
@@ -551,10 +582,21 @@ pub fn read_dense<R: Read>(mut r: R, name: &str, skip: bool) -> Result<DenseRead
     let got = fill(&mut r, &mut end).map_err(io)?;
     let fault = |o: usize, kind| TxRecordError::at_byte(name, pos + o as u64, end_field(o), kind);
     let verified = if got == 0 {
-        Err(fault(0, common(ErrorKind::MissingEndRecord { blocks: block_count })))
+        Err(fault(
+            0,
+            common(ErrorKind::MissingEndRecord {
+                blocks: block_count,
+            }),
+        ))
     } else if end.get(..got.min(4)) != END_SYNC.get(..got.min(4)) {
         let found = le_u32(&end, 0).to_le_bytes();
-        Err(fault(0, TxErrorKind::BadSync { found, expected: END_SYNC }))
+        Err(fault(
+            0,
+            TxErrorKind::BadSync {
+                found,
+                expected: END_SYNC,
+            },
+        ))
     } else if got < END_LEN {
         let missing = (END_LEN - got) as u64;
         Err(fault(got, common(ErrorKind::Truncated { missing })))
@@ -565,7 +607,14 @@ pub fn read_dense<R: Read>(mut r: R, name: &str, skip: bool) -> Result<DenseRead
             Ok(())
         } else {
             let covered_from = pos;
-            Err(fault(20, common(ErrorKind::CrcMismatch { stored, computed, covered_from })))
+            Err(fault(
+                20,
+                common(ErrorKind::CrcMismatch {
+                    stored,
+                    computed,
+                    covered_from,
+                }),
+            ))
         }
     };
     if let Err(e) = verified {
@@ -577,7 +626,15 @@ pub fn read_dense<R: Read>(mut r: R, name: &str, skip: bool) -> Result<DenseRead
     }
     let end_at = pos + END_LEN as u64;
     let mismatch = |o: usize, what, declared, found| {
-        fault(o, common(ErrorKind::CountMismatch { what, declared, found, end_offset: end_at }))
+        fault(
+            o,
+            common(ErrorKind::CountMismatch {
+                what,
+                declared,
+                found,
+                end_offset: end_at,
+            }),
+        )
     };
     let blocks = le_u64(&end, 4);
     let stated = le_u64(&end, 12);
@@ -587,7 +644,12 @@ pub fn read_dense<R: Read>(mut r: R, name: &str, skip: bool) -> Result<DenseRead
     } else if damage.is_empty() && stated != recorded {
         Err(mismatch(12, "recorded slots", stated, recorded))
     } else if fill(&mut r, &mut extra).map_err(io)? > 0 {
-        Err(TxRecordError::at_byte(name, end_at, "trailing_data", common(ErrorKind::TrailingData)))
+        Err(TxRecordError::at_byte(
+            name,
+            end_at,
+            "trailing_data",
+            common(ErrorKind::TrailingData),
+        ))
     } else {
         Ok(())
     };

@@ -94,7 +94,12 @@ pub struct TxRecordError {
 
 impl TxRecordError {
     /// An error at byte `offset` of the dense form.
-    pub(crate) fn at_byte(source: &str, offset: u64, field: &'static str, kind: TxErrorKind) -> Self {
+    pub(crate) fn at_byte(
+        source: &str,
+        offset: u64,
+        field: &'static str,
+        kind: TxErrorKind,
+    ) -> Self {
         Self {
             source: source.to_owned(),
             at: Location::Byte {

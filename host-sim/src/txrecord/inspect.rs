@@ -148,7 +148,10 @@ impl fmt::Display for RecordReport {
         row(
             f,
             "transmitter record",
-            format!("{} ({}, {} bytes)", self.source, self.form, self.total_bytes),
+            format!(
+                "{} ({}, {} bytes)",
+                self.source, self.form, self.total_bytes
+            ),
         )?;
         row(
             f,

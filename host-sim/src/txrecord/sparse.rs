@@ -112,6 +112,11 @@ impl<W: Write> SparseWriter<W> {
         Ok(())
     }
 
+    /// The header as written.
+    pub fn header(&self) -> &TxRecordHeader {
+        &self.header
+    }
+
     /// Slots written so far.
     pub fn recorded(&self) -> u64 {
         self.recorded
@@ -373,7 +378,11 @@ pub fn read_sparse<R: BufRead>(r: R, name: &str) -> Result<TxRecord, TxRecordErr
             continue;
         }
         let Some(h) = &header else {
-            let normal: String = trimmed.split(',').map(str::trim).collect::<Vec<_>>().join(",");
+            let normal: String = trimmed
+                .split(',')
+                .map(str::trim)
+                .collect::<Vec<_>>()
+                .join(",");
             if normal != COLUMNS {
                 return Err(TxRecordError::at_line(
                     name,
