@@ -423,23 +423,30 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let (summary, res, _) =
         run_simulated_linked(&s, &a.clock, Some(&cap_path), link, Some(&key_path))?;
     let cfg = *res.rx.config();
-    // The capture must replay to exactly the same result through the same core (and link).
-    let (cfg2, clock2) = receiver_setup_for(&s, &a.clock, link.is_some())?;
-    let again = replay_capture(
-        &cap_path,
-        cfg2,
-        clock2,
-        ReplayPlan::of_scenario(&s)?,
-        false,
-        None,
-        None,
-        link,
-        None,
+    // The capture must replay to exactly the same result through the same core (and link), with
+    // the receiver read back from the profile file the demo writes: the path a capture from real
+    // hardware takes.
+    let profile_path = a.out.join("receiver.toml");
+    std::fs::write(
+        &profile_path,
+        crate::profile::Profile::from_scenario(&s).to_toml_string(),
     )?;
+    let plan_profile = crate::setup::ReceiverSetup::load(&profile_path)?;
+    let plan = ReplayPlan {
+        setup: plan_profile.clone(),
+        ..ReplayPlan::of_scenario(&s)?
+    };
+    let (cfg2, clock2) = plan.setup.receiver(&a.clock, link.is_some())?;
+    let again = replay_capture(&cap_path, cfg2, clock2, plan, false, None, None, link, None)?;
     let same = again.accounting == summary.accounting && again.sifted_bits == summary.sifted_bits;
     let json = a.out.join("summary.json");
     std::fs::write(&json, serde_json::to_string_pretty(&summary)? + "\n")?;
-    let mut files = vec![cap_path.clone(), json, key_path];
+    let gates_svg = a.out.join("gates.svg");
+    std::fs::write(
+        &gates_svg,
+        crate::profile::gate_layout_svg(&plan_profile.profile, &plan_profile.checked),
+    )?;
+    let mut files = vec![cap_path.clone(), json, key_path, profile_path, gates_svg];
     files.extend(plots::fold_profile(
         &a.out,
         &res.fold,
@@ -464,7 +471,8 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     writeln!(out, "{}", crate::keyrate::cmd::demo_line(&summary, &s))?;
     writeln!(
         out,
-        "capture replay {} (the written capture replays to the same counters)",
+        "capture replay {} (the written capture replays to the same counters through the \
+         receiver profile receiver.toml)",
         if same { "identical" } else { "DIFFERENT" }
     )?;
     writeln!(out, "files:")?;
