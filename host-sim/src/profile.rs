@@ -287,6 +287,9 @@ impl Default for MonitorToml {
     }
 }
 
+/// A gate window as slot fractions `[lo, hi)`.
+pub type Window = (f64, f64);
+
 /// A profile turned into the core's configurations.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Checked {
@@ -303,7 +306,7 @@ pub struct Checked {
     /// The reference clock, when the profile has one.
     pub reference: Option<FixedClock>,
     /// Each gate's window as slot fractions `[lo, hi)` after clipping to the slot.
-    pub windows: Vec<(f64, f64)>,
+    pub windows: Vec<Window>,
 }
 
 impl Profile {
@@ -345,7 +348,10 @@ impl Profile {
                 UnwrapConfigError::CounterBits(_) => "tdc.counter_bits",
                 UnwrapConfigError::ZeroResolution => "tdc.tick_ps",
             };
-            c.err(key, format!("{e} (expected counter_bits in 32..=64, tick_ps ≥ 1)"))
+            c.err(
+                key,
+                format!("{e} (expected counter_bits in 32..=64, tick_ps ≥ 1)"),
+            )
         })?;
         let k = &self.clock;
         c.range(
@@ -366,7 +372,12 @@ impl Profile {
             Bound::Open(0.0),
             Bound::Closed(1e11),
         )?;
-        c.range("clock.jitter_ps", k.jitter_ps, Bound::Closed(0.0), Bound::Closed(1e5))?;
+        c.range(
+            "clock.jitter_ps",
+            k.jitter_ps,
+            Bound::Closed(0.0),
+            Bound::Closed(1e5),
+        )?;
         c.range(
             "clock.drift_ppm_per_s",
             k.drift_ppm_per_s,
@@ -387,7 +398,10 @@ impl Profile {
             None => None,
             Some(r) => {
                 let q = U32F32::checked_from_num(r.period_ps).ok_or_else(|| {
-                    c.err("clock.reference.period_ps", "out of range (2 ps .. 2^31 ps)")
+                    c.err(
+                        "clock.reference.period_ps",
+                        "out of range (2 ps .. 2^31 ps)",
+                    )
                 })?;
                 Some(FixedClock::new(q, r.slot0_ps).map_err(|e| {
                     c.err(
@@ -429,10 +443,7 @@ impl Profile {
         if s.pending_capacity == 0 || s.pending_capacity > HOST_PENDING {
             return Err(c.err(
                 "sifting.pending_capacity",
-                format!(
-                    "must lie in 1..={HOST_PENDING}, got {}",
-                    s.pending_capacity
-                ),
+                format!("must lie in 1..={HOST_PENDING}, got {}", s.pending_capacity),
             ));
         }
         let overflow = s.overflow.policy();
@@ -518,10 +529,7 @@ impl Profile {
             return Err(c.err("channels", "needs at least one [[channels]] entry"));
         }
         if self.channels.len() > MAX_CHANNELS {
-            return Err(c.err(
-                "channels",
-                format!("at most {} channels", MAX_CHANNELS),
-            ));
+            return Err(c.err("channels", format!("at most {} channels", MAX_CHANNELS)));
         }
         let mut delays = Vec::new();
         for (i, ch) in self.channels.iter().enumerate() {
@@ -554,7 +562,7 @@ impl Profile {
     }
 
     /// The core's gates and each window as clipped slot fractions.
-    fn gate_list(&self, c: &Check) -> Result<(Vec<Gate>, Vec<(f64, f64)>), TomlError> {
+    fn gate_list(&self, c: &Check) -> Result<(Vec<Gate>, Vec<Window>), TomlError> {
         if self.gates.is_empty() {
             return Err(c.err("gates", "needs at least one [[gates]] entry"));
         }
@@ -604,7 +612,10 @@ impl Profile {
             if !(centre.is_finite() && (0.0..1.0).contains(&centre)) {
                 return Err(c.err(
                     &ckey,
-                    format!("the centre must lie within the slot [0, {period:.1} ps), got {:.1} ps", centre * period),
+                    format!(
+                        "the centre must lie within the slot [0, {period:.1} ps), got {:.1} ps",
+                        centre * period
+                    ),
                 ));
             }
             let wkey = key(if g.half_width_slot.is_some() {
@@ -677,7 +688,9 @@ fn gate_error(c: &Check, gates: &[GateToml], e: GateError) -> TomlError {
             let ch = gates.get(b).map_or(0, |g| g.channel);
             c.err(
                 &format!("gates[{b}]"),
-                format!("overlaps gates[{a}] on channel {ch}: windows on one channel must not overlap"),
+                format!(
+                    "overlaps gates[{a}] on channel {ch}: windows on one channel must not overlap"
+                ),
             )
         }
         GateError::EmptyWindow(i) => c.err(&format!("gates[{i}]"), e.to_string()),

@@ -29,9 +29,7 @@ pub mod tx;
 
 pub use clock::TxClock;
 pub use model::{channel_model, ChannelModel, IntensityModel};
-pub use optics::{
-    channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, receiver_gates, GateSpec,
-};
+pub use optics::{channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, GateSpec};
 pub use pnr::PnrSpec;
 pub use source::{Source, SourceKind, SourceSpec};
 pub use tx::{SimTransmitter, TxChoice, TxChoices, TxSource};

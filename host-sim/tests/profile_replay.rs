@@ -23,14 +23,7 @@ const SCENARIO: &str = "../scenarios/bench-100mhz-30km.toml";
 fn simulated(d: &Path) -> (PathBuf, PathBuf, PathBuf) {
     let cap = d.join("run.swcap");
     let profile = d.join("receiver.toml");
-    ok(&[
-        "simulate",
-        SCENARIO,
-        "-o",
-        s(&cap),
-        "--duration-s",
-        "0.05",
-    ]);
+    ok(&["simulate", SCENARIO, "-o", s(&cap), "--duration-s", "0.05"]);
     ok(&["profile", "from-scenario", SCENARIO, "-o", s(&profile)]);
     (cap, d.join("run.swtx"), profile)
 }
@@ -44,7 +37,10 @@ fn profile_and_record_replay_to_the_scenario_replays_counters() {
     let d = tmp("roundtrip");
     let (cap, record, profile) = simulated(&d);
     for clock in ["recovered", "reference"] {
-        let (a, b) = (d.join(format!("p-{clock}.json")), d.join(format!("s-{clock}.json")));
+        let (a, b) = (
+            d.join(format!("p-{clock}.json")),
+            d.join(format!("s-{clock}.json")),
+        );
         let by_profile = ok(&[
             "replay",
             s(&cap),
@@ -74,7 +70,10 @@ fn a_profile_alone_names_the_record_flag() {
     let d = tmp("norecord");
     let (cap, _, profile) = simulated(&d);
     let err = fails(&["replay", s(&cap), "--profile", s(&profile)]);
-    assert!(err.contains("receiver.toml") && err.contains("--tx-record"), "{err}");
+    assert!(
+        err.contains("receiver.toml") && err.contains("--tx-record"),
+        "{err}"
+    );
     assert!(err.contains("run.swtx is beside the capture"), "{err}");
 }
 

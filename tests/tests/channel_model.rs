@@ -11,13 +11,12 @@
 
 use slotwise::Fate;
 use slotwise::{
-    Basis, FixedClock, GateTable, KeySink, OverflowPolicy, Receiver, ReceiverConfig, SiftedBit,
-    Tally, UnwrapConfig,
+    Basis, FixedClock, KeySink, OverflowPolicy, Receiver, ReceiverConfig, SiftedBit, Tally,
+    UnwrapConfig,
 };
 use slotwise_sim::scenario::Scenario;
-use slotwise_sim::sim::{
-    channel_model, clock_truth, receiver_gates, Kind, SimTransmitter, Simulator, TxChoices,
-};
+use slotwise_sim::setup::ReceiverSetup;
+use slotwise_sim::sim::{channel_model, clock_truth, Kind, SimTransmitter, Simulator, TxChoices};
 use std::collections::HashMap;
 
 fn scenario(file: &str) -> Scenario {
@@ -70,8 +69,11 @@ struct Run {
 /// Replay a scenario through the core with the true fixed clock and an answering transmitter.
 fn run(s: &Scenario) -> Run {
     let truth = clock_truth(s).unwrap();
-    let (delays, gates) = receiver_gates(s);
-    let table = GateTable::new(&delays, &gates).unwrap();
+    let table = *ReceiverSetup::from_scenario(s)
+        .unwrap()
+        .checked
+        .receiver
+        .gates();
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps).unwrap();
     let cfg = ReceiverConfig::new(
         tdc,

@@ -22,7 +22,8 @@ use slotwise::acquire::fold::{ArrivalPattern, Fold, TABLE_BITS, TABLE_ONE};
 use slotwise::fixed::types::U0F32;
 use slotwise::{GateTable, UnwrapConfig, Unwrapper};
 use slotwise_sim::scenario::Scenario;
-use slotwise_sim::sim::{clock_truth, receiver_gates, Simulator};
+use slotwise_sim::setup::ReceiverSetup;
+use slotwise_sim::sim::{clock_truth, Simulator};
 use std::path::{Path, PathBuf};
 
 const SCRIPT: &str = r#"
@@ -84,8 +85,11 @@ fn numpy_python() -> Result<PathBuf, String> {
 fn detections(n: usize) -> (Vec<(u64, u8)>, u64, GateTable) {
     let mut s = Scenario::default_bench();
     s.duration_s = 0.01;
-    let (delays, gates) = receiver_gates(&s);
-    let table = GateTable::new(&delays, &gates).unwrap();
+    let table = *ReceiverSetup::from_scenario(&s)
+        .unwrap()
+        .checked
+        .receiver
+        .gates();
     let mut un = Unwrapper::new(UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps).unwrap());
     let dets: Vec<(u64, u8)> = Simulator::new(&s)
         .take(n)

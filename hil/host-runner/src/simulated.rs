@@ -8,13 +8,14 @@
 //! a different numbering.
 
 use crate::capture::Capture;
-use slotwise::{Answer, GateTable, OverflowPolicy, UnwrapConfig};
+use slotwise::{Answer, OverflowPolicy, UnwrapConfig};
 use slotwise_hil::Setup;
 use slotwise_sim::capture::read_all;
 use slotwise_sim::cli::{receiver_setup_for, ClockArgs};
 use slotwise_sim::clocks::ClockMode;
 use slotwise_sim::scenario::Scenario;
-use slotwise_sim::sim::{clock_truth, receiver_gates, TxChoices};
+use slotwise_sim::setup::ReceiverSetup;
+use slotwise_sim::sim::{clock_truth, TxChoices};
 use std::path::Path;
 
 /// Prior of the recovered clock's cold search, ±ppm (the simulator's default).
@@ -33,9 +34,11 @@ pub fn setup(s: &Scenario, source: &str) -> Result<Setup, String> {
 /// link endpoint decides when answers expire (`framed = true`, checked against the recovered
 /// clock's setup). The period and origin are the scenario's true clock either way.
 pub fn setup_for(s: &Scenario, source: &str, framed: bool) -> Result<Setup, String> {
-    let (delays, gates) = receiver_gates(s);
-    let gates = GateTable::new(&delays, &gates)
-        .map_err(|e| format!("{source}: scenario gate table: {e}"))?;
+    let gates = *ReceiverSetup::from_scenario(s)
+        .map_err(|e| format!("{source}: scenario receiver: {e}"))?
+        .checked
+        .receiver
+        .gates();
     let tdc = UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps)
         .map_err(|e| format!("{source}: scenario field tdc_bits / tdc_resolution_ps: {e}"))?;
     let truth = clock_truth(s).map_err(|e| format!("{source}: scenario clock: {e}"))?;

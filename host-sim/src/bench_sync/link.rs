@@ -124,8 +124,10 @@ pub fn noise_only_scenario(seed: u64, duration_s: f64) -> Result<Scenario, Box<d
 
 /// The core's gate table for a scenario's receiver.
 pub fn gate_table(s: &Scenario) -> Result<GateTable, Box<dyn Error>> {
-    let (delays, gates) = sim::receiver_gates(s);
-    Ok(GateTable::new(&delays, &gates)?)
+    Ok(*crate::setup::ReceiverSetup::from_scenario(s)?
+        .checked
+        .receiver
+        .gates())
 }
 
 /// Environment variable that sets the tracking loop's `update_every` for this benchmark only.

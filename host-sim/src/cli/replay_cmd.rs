@@ -66,7 +66,6 @@ pub struct ReplayArgs {
     pub skip_damaged: bool,
 }
 
-
 /// What a replay answers from: the receiver, the transmitter's choices, the hello that anchors
 /// the numbering, and the scenario when the capture is simulated (its truth goes in the summary).
 pub struct ReplayPlan {
@@ -315,8 +314,9 @@ fn plan(a: &ReplayArgs) -> Result<ReplayPlan, AnyErr> {
     } else {
         let mut s = match &a.scenario {
             Some(p) => Scenario::load(p)?,
-            None => header_scenario(&a.capture, &name)?
-                .ok_or_else(|| no_receiver(&a.capture, &name))?,
+            None => {
+                header_scenario(&a.capture, &name)?.ok_or_else(|| no_receiver(&a.capture, &name))?
+            }
         };
         a.alarms.apply(&mut s)?;
         ReplayPlan::of_scenario(&s)?

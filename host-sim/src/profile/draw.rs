@@ -43,7 +43,10 @@ pub fn gate_layout_text(p: &Profile, c: &Checked) -> String {
             ch.delay_ps
         );
     }
-    let _ = writeln!(out, "gate  ch  basis bit  window (ps)           window (slot)");
+    let _ = writeln!(
+        out,
+        "gate  ch  basis bit  window (ps)           window (slot)"
+    );
     for (i, (g, &(lo, hi))) in p.gates.iter().zip(&c.windows).enumerate() {
         let _ = writeln!(
             out,

@@ -2,7 +2,11 @@ use super::*;
 use crate::scenario::Scenario;
 
 fn scenario(name: &str) -> Scenario {
-    Scenario::load(format!("{}/../scenarios/{name}.toml", env!("CARGO_MANIFEST_DIR"))).unwrap()
+    Scenario::load(format!(
+        "{}/../scenarios/{name}.toml",
+        env!("CARGO_MANIFEST_DIR")
+    ))
+    .unwrap()
 }
 
 #[test]
@@ -165,6 +169,31 @@ fn the_recovered_clock_without_a_marker_says_what_to_do() {
     .unwrap()
     .to_string();
     assert!(e.contains("--clock reference"), "{e}");
+}
+
+#[test]
+fn default_gates_form_a_valid_table() {
+    let s = Scenario::default_bench();
+    assert_eq!(crate::scenario::layout::channels(&s), 3);
+    // 100 MHz, 35 ps: w = min(0.45·2500, max(140, 200)) = 200 ps.
+    assert!((crate::scenario::layout::gate_half_width_ps(&s) - 200.0).abs() < 1e-9);
+    let t = *Profile::from_scenario(&s)
+        .check("bench")
+        .unwrap()
+        .receiver
+        .gates();
+    assert_eq!(t.gates().len(), 8);
+    let lookup = |ch, x: f64| match t.lookup(ch, slotwise::fixed::types::U0F32::from_num(x)) {
+        slotwise::Lookup::Gate(i) => t.gate(i).map(|g| (g.basis, g.bit)),
+        slotwise::Lookup::Outside => None,
+    };
+    assert_eq!(lookup(0, 0.2), Some((slotwise::Basis::Z, 0)));
+    assert_eq!(lookup(0, 0.45), Some((slotwise::Basis::Z, 1)));
+    assert_eq!(lookup(0, 0.7), None);
+    assert_eq!(lookup(1, 0.45), Some((slotwise::Basis::X, 0)));
+    assert_eq!(lookup(2, 0.45), Some((slotwise::Basis::X, 1)));
+    assert_eq!(lookup(2, 0.7), Some((slotwise::Basis::Z, 1)));
+    assert_eq!(lookup(1, 0.2 + 0.021), None);
 }
 
 mod props {

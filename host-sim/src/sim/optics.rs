@@ -22,8 +22,7 @@ pub use crate::scenario::layout::{
     TIME_BIN_SEPARATION,
 };
 use crate::scenario::{Encoding, Scenario};
-use slotwise::fixed::types::U0F32;
-use slotwise::{Basis, Gate};
+use slotwise::Basis;
 
 /// Arrival position number `pos` (0 = E, 1 = M, 2 = L; polarization has only 0), fraction of T.
 pub fn position_fraction(encoding: Encoding, pos: u8) -> f64 {
@@ -50,7 +49,7 @@ pub struct GateSpec {
     pub bit: u8,
 }
 
-/// The gates of the scenario's receiver, in floating point (see [`receiver_gates`]).
+/// The gates of the scenario's receiver, in floating point (its profile's `[[gates]]`).
 pub fn gate_specs(s: &Scenario) -> Vec<GateSpec> {
     let w = gate_half_width_ps(s) / s.period_ps();
     let g = |channel: u8, pos: u8, basis: Basis, bit: u8| {
@@ -82,26 +81,6 @@ pub fn gate_specs(s: &Scenario) -> Vec<GateSpec> {
             g(3, 0, Basis::X, 1),
         ],
     }
-}
-
-/// The core's gate table for these optics: per-channel delays (the configured skews, which the
-/// core subtracts), in ps, and the windows as Q0.32 slot fractions.
-pub fn receiver_gates(s: &Scenario) -> (Vec<i64>, Vec<Gate>) {
-    let gates = gate_specs(s)
-        .into_iter()
-        .map(|g| Gate {
-            channel: g.channel,
-            start: U0F32::saturating_from_num(g.lo),
-            end: if g.hi >= 1.0 {
-                U0F32::MAX
-            } else {
-                U0F32::saturating_from_num(g.hi)
-            },
-            basis: g.basis,
-            bit: g.bit,
-        })
-        .collect();
-    (s.delays_ps(), gates)
 }
 
 /// Where one detected photon ends up: detector and arrival position number.
@@ -196,7 +175,6 @@ pub fn route(encoding: Encoding, p_z: f64, e_d: f64, tx: TxChoice, rng: &mut Str
 #[cfg(test)]
 mod tests {
     use super::*;
-    use slotwise::GateTable;
 
     #[test]
     fn outcome_reads_the_positions_as_the_gate_table_does() {
@@ -213,29 +191,6 @@ mod tests {
             }
         }
         assert_eq!(outcome(Encoding::TimeBin, 0, 2), None);
-    }
-
-    #[test]
-    fn default_gates_form_a_valid_table() {
-        let s = Scenario::default_bench();
-        assert_eq!(channels(&s), 3);
-        // 100 MHz, 35 ps: w = min(0.45·2500, max(140, 200)) = 200 ps.
-        assert!((gate_half_width_ps(&s) - 200.0).abs() < 1e-9);
-        let (delays, gates) = receiver_gates(&s);
-        assert_eq!(delays, vec![0, 0, 0]);
-        let t = GateTable::new(&delays, &gates).unwrap();
-        assert_eq!(t.gates().len(), 8);
-        let lookup = |ch, x: f64| match t.lookup(ch, U0F32::from_num(x)) {
-            slotwise::Lookup::Gate(i) => t.gate(i).map(|g| (g.basis, g.bit)),
-            slotwise::Lookup::Outside => None,
-        };
-        assert_eq!(lookup(0, 0.2), Some((Basis::Z, 0)));
-        assert_eq!(lookup(0, 0.45), Some((Basis::Z, 1)));
-        assert_eq!(lookup(0, 0.7), None);
-        assert_eq!(lookup(1, 0.45), Some((Basis::X, 0)));
-        assert_eq!(lookup(2, 0.45), Some((Basis::X, 1)));
-        assert_eq!(lookup(2, 0.7), Some((Basis::Z, 1)));
-        assert_eq!(lookup(1, 0.2 + 0.021), None);
     }
 
     #[test]

@@ -143,7 +143,7 @@ fn clock_truth_places_slots_on_the_core_time_base_across_a_wrap() {
     assert_eq!(truth.wraps_before_first, 1);
     let mut u = Unwrapper::new(UnwrapConfig::new(s.tdc_bits, s.tdc_resolution_ps).unwrap());
     let clock = truth.fixed_clock();
-    let (delays, _) = receiver_gates(&s);
+    let delays = s.delays_ps();
     let mut checked = 0;
     let mut wraps = 0;
     let mut prev = None;
