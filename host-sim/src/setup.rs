@@ -121,3 +121,28 @@ impl ReceiverSetup {
         LinkModel::perfect_for(self.checked.receiver.answer_timeout_slots(), seed)
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_recovered_clock_without_a_marker_says_what_to_do() {
+        let mut s = Scenario::default_bench();
+        s.marker = false;
+        let recovered = ClockArgs {
+            clock: ClockMode::Recovered,
+            prior_ppm: None,
+        };
+        let e = ReceiverSetup::from_scenario(&s)
+            .unwrap()
+            .receiver(&recovered, false)
+            .err()
+            .unwrap()
+            .to_string();
+        assert!(
+            e.contains("[marker] enabled = true") && e.contains("--clock reference"),
+            "{e}"
+        );
+    }
+}

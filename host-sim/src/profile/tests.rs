@@ -156,22 +156,6 @@ fn ranges_and_unknown_keys_are_named() {
 }
 
 #[test]
-fn the_recovered_clock_without_a_marker_says_what_to_do() {
-    let (p, c) = Profile::from_toml_str(HAND, "p.toml").unwrap();
-    let e = crate::clocks::build_for(
-        &p,
-        &c,
-        c.receiver.gates(),
-        crate::clocks::ClockMode::Recovered,
-        500,
-    )
-    .err()
-    .unwrap()
-    .to_string();
-    assert!(e.contains("--clock reference"), "{e}");
-}
-
-#[test]
 fn default_gates_form_a_valid_table() {
     let s = Scenario::default_bench();
     assert_eq!(crate::scenario::layout::channels(&s), 3);
