@@ -104,3 +104,27 @@ fn a_record_of_another_slot_range_is_refused_with_both_ranges() {
     );
     assert!(err.contains("the run needs slots "), "{err}");
 }
+
+#[test]
+fn a_profile_at_another_rate_than_the_capture_is_warned_about_with_both_rates() {
+    let d = tmp("otherrate");
+    let (cap, record, profile) = simulated(&d);
+    let text = std::fs::read_to_string(&profile)
+        .unwrap()
+        .replace("rep_rate_hz = 100000000.0", "rep_rate_hz = 50000000.0");
+    let other = d.join("half-rate.toml");
+    std::fs::write(&other, text).unwrap();
+    let out = common::slotwise(&[
+        "replay",
+        s(&cap),
+        "--profile",
+        s(&other),
+        "--tx-record",
+        s(&record),
+    ]);
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("at 100000000 Hz") && err.contains("expects 50000000 Hz"),
+        "{err}"
+    );
+}

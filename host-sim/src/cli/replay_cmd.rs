@@ -282,16 +282,6 @@ fn plan(a: &ReplayArgs) -> Result<ReplayPlan, AnyErr> {
         let mut alarms = setup.profile.alarms.clone();
         a.alarms.apply_to(&mut alarms);
         let setup = setup.with_alarms(alarms, "command line")?;
-        if let Some(s) = header_scenario(&a.capture, &name).ok().flatten() {
-            if s.rep_rate_hz != setup.profile.clock.rep_rate_hz {
-                eprintln!(
-                    "warning: {name} was simulated at {} Hz but the profile {} expects {} Hz",
-                    s.rep_rate_hz,
-                    p.display(),
-                    setup.profile.clock.rep_rate_hz
-                );
-            }
-        }
         let Some(r) = &record else {
             return Err(format!(
                 "{}: a profile describes the receiver only; give what the transmitter sent with \
@@ -323,6 +313,16 @@ fn plan(a: &ReplayArgs) -> Result<ReplayPlan, AnyErr> {
     };
     if let Some(r) = record {
         plan = plan.with_record(r);
+    }
+    if let Some(h) = header_scenario(&a.capture, &name).ok().flatten() {
+        let rate = plan.setup.profile.clock.rep_rate_hz;
+        if h.rep_rate_hz != rate {
+            eprintln!(
+                "warning: {name} was recorded from a link at {} Hz (its header's scenario '{}'), \
+                 but the receiver given expects {rate} Hz: gates and clock will not fit",
+                h.rep_rate_hz, h.name
+            );
+        }
     }
     let needs_hello = a.clock.clock == ClockMode::Recovered && plan.setup.checked.frame.is_some();
     if plan.hint.is_none() && needs_hello {
