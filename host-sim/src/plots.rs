@@ -373,20 +373,32 @@ pub fn clock_series(
                 .draw()?;
             line(&mut chart, rms, colour(0), "residual rms".into())?;
             legend(&mut chart, SeriesLabelPosition::UpperRight)?;
+            // Without a true clock (a capture from real hardware) the estimate is drawn against
+            // its own first value: the transmitter's drift as the receiver saw it.
+            let first = self.b.iter().find_map(|b| b.period_ps);
             let err: Vec<(f64, f64)> = self
                 .b
                 .iter()
                 .filter_map(|b| {
                     let p = b.period_ps?;
-                    let reference = self.truth.map(|f| f(b.t_s)).unwrap_or(p);
+                    let reference = match self.truth {
+                        Some(f) => f(b.t_s),
+                        None => first?,
+                    };
                     Some((b.t_s, (p - reference) / reference * 1e9))
                 })
                 .collect();
             let emax = err.iter().map(|p| p.1.abs()).fold(1.0, f64::max) * 1.2;
-            let caption = if self.truth.is_some() {
-                "Period error against the scenario's clock"
+            let (caption, label) = if self.truth.is_some() {
+                (
+                    "Period error against the scenario's clock",
+                    "estimate − truth",
+                )
             } else {
-                "Period error (no reference known)"
+                (
+                    "Period estimate since the first lock (no true clock known)",
+                    "estimate − first estimate",
+                )
             };
             let mut chart = ChartBuilder::on(&bottom)
                 .caption(caption, ("sans-serif", 20))
@@ -397,9 +409,9 @@ pub fn clock_series(
             chart
                 .configure_mesh()
                 .x_desc("time (s)")
-                .y_desc("period error (ppb)")
+                .y_desc("period (ppb)")
                 .draw()?;
-            line(&mut chart, err, colour(1), "estimate − truth".into())?;
+            line(&mut chart, err, colour(1), label.into())?;
             legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             Ok(())
         }
