@@ -138,7 +138,7 @@ def simulate(rng, n_slots, noise_hz):
     return codes, period_ps, t[order], det[order], true_slot[order], land[order]
 
 
-def expected_qber(codes_n_key, noise_hz):
+def expected_qber(noise_hz):
     """Expected QBER of sifted signal (class 0) detections in either basis, from the model."""
     p0 = p_click(INTENSITIES[0])
     # Per key slot, class 0 sent in basis B and measured in B: 0.8 * 1/2 * p0 * 1/2.
@@ -146,7 +146,15 @@ def expected_qber(codes_n_key, noise_hz):
     # Noise in the two gates of basis B in a class-0 slot sent in basis B: random bit.
     noise = 2 * noise_hz * (2 * GATE_HALF_PS) * 1e-12 * INTENSITY_PROBS[0] * 0.5
     # Jitter 50 ps against a 300 ps half-width: the signal lost outside the gate is < 1e-8.
-    return (MISALIGN * signal + 0.5 * noise) / (signal + noise), noise / (signal + noise)
+    return (MISALIGN * signal + 0.5 * noise) / (signal + noise)
+
+
+def expected_noise_share_sifted(noise_hz):
+    """Share of noise among all sifted detections (every class), from the model: per key slot,
+    detections whose basis matches the one sent (half of them)."""
+    signal = sum(q * p_click(mu) for q, mu in zip(INTENSITY_PROBS, INTENSITIES)) * 0.5
+    noise = len(DETECTORS) * noise_hz * (2 * GATE_HALF_PS) * 1e-12 * 0.5
+    return noise / (signal + noise)
 
 
 def write_text(path, t_ps_int, det):
@@ -281,8 +289,8 @@ def main():
     write_record(os.path.join(a.outdir, "record-cut.swtx.csv"), codes, needed, hello_cut,
                  hello_slot, a.slots)
 
-    n_key = a.slots - a.slots // 64
-    qber, noise_share = expected_qber(n_key, a.noise_hz)
+    qber = expected_qber(a.noise_hz)
+    noise_share = expected_noise_share_sifted(a.noise_hz)
     sig = true_slot >= 0
     signal_rate = sig.sum() / (a.slots * period_ps * 1e-12)
     write_profile(a.outdir, signal_rate)
@@ -305,7 +313,7 @@ def main():
         "run_end_ps": {"whole": int(t_text[-1]), "cut": int(t_cut[-1])},
         "hello": {"slot": hello_slot, "whole_t_ps": hello_text, "cut_t_ps": hello_cut},
         "expected_qber_signal": qber,
-        "expected_noise_share_sifted_signal": noise_share,
+        "expected_noise_share_sifted": noise_share,
         "script_tested": {
             b: {"tested": int((tested & ((det >> 1) == i)).sum()),
                 "errors": int((err & ((det >> 1) == i)).sum())}
