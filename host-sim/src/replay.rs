@@ -88,6 +88,13 @@ impl Sink {
 
     fn flush_trace(&mut self, slot: u64, outcome: &str) {
         if let Some(lines) = self.trace_pending.remove(&slot) {
+            // Every detection of a slot with two or more gated clicks is counted `multi_click`
+            // (the slot's own outcome goes to `multi_click_events`); the trace says the same.
+            let outcome = if lines.len() > 1 {
+                Fate::MultiClick.name()
+            } else {
+                outcome
+            };
             if let Some(out) = self.trace_out.as_mut() {
                 for l in lines {
                     if let Err(e) = writeln!(out, "{l},{outcome}") {
