@@ -24,6 +24,9 @@ cargo fmt --all -- --check
 step "clippy (host, all targets, warnings are errors)"
 cargo clippy --workspace --all-targets -- -D warnings
 
+step "fuzz targets compile (stable check; running them needs nightly, see below)"
+cargo check --manifest-path fuzz/Cargo.toml --bins --target-dir target
+
 step "clippy (firmware-core for thumbv7em, defmt on)"
 cargo clippy -p slotwise --target thumbv7em-none-eabihf --features defmt -- -D warnings
 

@@ -11,7 +11,7 @@ use slotwise::{
 use slotwise_sim::cli::{receiver_setup, ClockArgs};
 use slotwise_sim::clocks::ClockMode;
 use slotwise_sim::scenario::Scenario;
-use slotwise_sim::sim::{self, SimTransmitter};
+use slotwise_sim::sim::SimTransmitter;
 
 fuzz_target!(|data: &[u8]| {
     if data.len() < 8 {
@@ -30,8 +30,11 @@ fuzz_target!(|data: &[u8]| {
     s.tdc_bits = bits;
     let tx_s = s.clone();
     // Fixed clock with a period from the header.
-    let (delays, gates) = sim::receiver_gates(&s);
-    let table = slotwise::GateTable::new(&delays, &gates).expect("bench gates");
+    let table = *slotwise_sim::setup::ReceiverSetup::from_scenario(&s)
+        .expect("bench receiver")
+        .checked
+        .receiver
+        .gates();
     let tdc = UnwrapConfig::new(bits, 1 + u32::from(head[1] % 4)).expect("valid width");
     let policy = if head[2] & 1 == 0 {
         OverflowPolicy::DropNewest
@@ -56,7 +59,7 @@ fuzz_target!(|data: &[u8]| {
     // The recovered clock, configured as the host does.
     let args = ClockArgs {
         clock: ClockMode::Recovered,
-        prior_ppm: 500,
+        prior_ppm: Some(500),
     };
     if let Ok((cfg, stages)) = receiver_setup(&s, &args) {
         let mut rx = stages.receiver::<64>(cfg);

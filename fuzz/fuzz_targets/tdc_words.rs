@@ -1,33 +1,19 @@
-//! The binary TDC record decoder on arbitrary bytes: the format comes from the first bytes (any
+//! The binary TDC record decoder on arbitrary bytes: the format comes from the first 11 bytes (any
 //! layout `WordFormat::new` accepts), the rest is the record stream cut at arbitrary places.
 //! Nothing may panic, and every record read ends in exactly one outcome counter.
 #![no_main]
 
 use libfuzzer_sys::fuzz_target;
-use slotwise::words::{BitField, Endian, KindField, WordDecoder, WordFormat, WordLayout};
+use slotwise::words::{WordDecoder, WordFormat};
+use slotwise_sim::import::checks::binary_description;
 use slotwise::TdcEvent;
 
 fuzz_target!(|data: &[u8]| {
-    let Some((head, rest)) = data.split_first_chunk::<10>() else {
+    let Some((head, rest)) = data.split_first_chunk::<11>() else {
         return;
     };
-    let layout = WordLayout {
-        record_bytes: if head[0] & 1 == 0 { 4 } else { 8 },
-        endian: if head[0] & 2 == 0 {
-            Endian::Little
-        } else {
-            Endian::Big
-        },
-        time: BitField::new(head[1] % 64, head[2] % 64),
-        channel: BitField::new(head[3] % 64, head[4] % 9),
-        kind: (head[0] & 4 != 0).then(|| KindField {
-            field: BitField::new(head[5] % 64, 1 + head[6] % 8),
-            event: head[7] & 3,
-            rollover: (head[7] >> 2) & 3,
-            rollover_count: BitField::new(head[8] % 64, head[9] % 33),
-        }),
-        max_channel: head[9],
-    };
+    // The same layouts the importer's checks explore (the 11th byte picks only its tick).
+    let (layout, _, _) = binary_description(head);
     let Ok(fmt) = WordFormat::new(layout) else {
         return;
     };

@@ -1,17 +1,17 @@
 //! Property tests of the importers, the proptest forms of the `import_text` and `import_binary`
-//! fuzz targets: arbitrary lines and records never panic and every one of them ends in exactly
+//! fuzz targets (both run the checks of `slotwise_sim::import::checks`): arbitrary lines and records never panic and every one of them ends in exactly
 //! one summary row (or the import stops naming it, and everything before it imports); a generated
 //! valid text export imports to exactly the expected ticks and channels.
 
 use std::io::Cursor;
 
 use proptest::prelude::*;
-use slotwise::words::{BitField, Endian, KindField, WordError, WordLayout};
 use slotwise::TdcEvent;
-use slotwise_sim::capture::CaptureReader;
+use slotwise_sim::import::checks::{
+    check_binary, check_text, line_count, read_back, text_description,
+};
 use slotwise_sim::import::{
-    BinaryImport, CaptureTdc, ChannelMap, Column, Delimiter, ImportError, ImportSummary,
-    TextImport, TimeUnit,
+    CaptureTdc, ChannelMap, Column, Delimiter, ImportError, ImportSummary, TextImport, TimeUnit,
 };
 
 const UNITS: [TimeUnit; 5] = [
@@ -22,80 +22,10 @@ const UNITS: [TimeUnit; 5] = [
     TimeUnit::Ticks,
 ];
 
-/// Every event of an in-memory capture, as stored.
-fn read_back(bytes: &[u8]) -> Vec<TdcEvent> {
-    let mut r = CaptureReader::new(bytes, "mem.swcap").expect("written capture");
-    let (mut all, mut block) = (Vec::new(), Vec::new());
-    while r.next_block(&mut block).expect("written block").is_some() {
-        all.extend_from_slice(&block);
-    }
-    all
-}
-
 fn run_text(import: &TextImport, text: &[u8]) -> Result<(ImportSummary, Vec<u8>), ImportError> {
     let sink = Cursor::new(Vec::new());
     let (sum, sink) = import.run(text, "mem.txt", sink, "mem.swcap", |_| {})?;
     Ok((sum, sink.into_inner()))
-}
-
-/// The same description the `import_text` fuzz target derives from its first 8 bytes.
-fn text_description(head: [u8; 8]) -> TextImport {
-    let delimiter = match head[0] % 6 {
-        0 => Delimiter::Char(','),
-        1 => Delimiter::Char(';'),
-        2 => Delimiter::Char('\t'),
-        3 => Delimiter::Char(' '),
-        4 => Delimiter::Char('|'),
-        _ => Delimiter::Whitespace,
-    };
-    let header = head[0] & 0x40 != 0;
-    let by_name = header && head[0] & 0x80 != 0;
-    let column = |b: u8, name: &str| match by_name {
-        true => Column::Name(name.to_owned()),
-        false => Column::Number(1 + usize::from(b % 4)),
-    };
-    let channel_map = (head[5] & 1 != 0).then(|| {
-        let from = i64::from(head[5] >> 4);
-        ChannelMap(vec![(from, 0), (from + 3, head[5] >> 1 & 7), (-1, 1)])
-    });
-    let max_channel = match &channel_map {
-        Some(m) => TextImport::max_channel(None, Some(m)).unwrap(),
-        None => head[5] >> 1 & 7,
-    };
-    TextImport {
-        delimiter,
-        header,
-        time: column(head[1], "t"),
-        channel: column(head[2], "ch"),
-        unit: UNITS[usize::from(head[3] % 5)],
-        channel_map,
-        comment: ["", "#", "//", "%"][usize::from(head[6] % 4)].to_owned(),
-        tdc: CaptureTdc {
-            counter_bits: 32 + head[7] % 33,
-            tick_ps: 1 + u32::from(head[4] % 16),
-            max_channel,
-        },
-    }
-}
-
-/// Lines as the importer reads them: each ends at `\n`, a last one may lack it.
-fn line_count(text: &[u8]) -> u64 {
-    let ends = text.iter().filter(|b| **b == b'\n').count() as u64;
-    ends + u64::from(text.last().is_some_and(|b| *b != b'\n'))
-}
-
-/// The first `n` lines of `text`, with their line ends.
-fn first_lines(text: &[u8], n: u64) -> &[u8] {
-    if n == 0 {
-        return &[];
-    }
-    let end = text
-        .iter()
-        .enumerate()
-        .filter(|(_, b)| **b == b'\n')
-        .nth(n as usize - 1)
-        .map_or(text.len(), |(i, _)| i + 1);
-    &text[..end]
 }
 
 /// A description's bytes and lines that are often valid under it: small integers (a time and a
@@ -142,117 +72,12 @@ fn text_case() -> impl Strategy<Value = ([u8; 8], Vec<u8>)> {
         })
 }
 
-/// Finished: every line in one row, and the capture holds exactly the imported events. Stopped:
-/// the error names a line of the input, and the lines before it import on their own.
-fn check_text(import: &TextImport, text: &[u8]) -> Result<(), TestCaseError> {
-    match run_text(import, text) {
-        Ok((sum, bytes)) => {
-            prop_assert_eq!(sum.total, line_count(text));
-            prop_assert_eq!(sum.settled(), sum.total, "{}", sum);
-            let events = read_back(&bytes);
-            prop_assert_eq!(events.len() as u64, sum.imported);
-            prop_assert!(events.iter().all(|e| e.channel <= import.tdc.max_channel));
-        }
-        Err(err) => {
-            let ImportError::Line { line, .. } = err else {
-                return Err(TestCaseError::fail(format!("not a line error: {err}")));
-            };
-            let shown = err.to_string();
-            let prefix = format!("mem.txt: line {line}, field '");
-            prop_assert!(shown.starts_with(&prefix), "{}", shown);
-            prop_assert!((1..=line_count(text)).contains(&line), "{}", shown);
-            let (sum, _) = run_text(import, first_lines(text, line - 1))
-                .map_err(|e| TestCaseError::fail(format!("lines before line {line}: {e}")))?;
-            prop_assert_eq!((sum.total, sum.settled()), (line - 1, line - 1));
-        }
-    }
-    Ok(())
-}
-
-/// The same layout the `import_binary` fuzz target derives from its first 11 bytes.
-fn binary_layout(head: &[u8; 11]) -> WordLayout {
-    WordLayout {
-        record_bytes: if head[0] & 1 == 0 { 4 } else { 8 },
-        endian: if head[0] & 2 == 0 {
-            Endian::Little
-        } else {
-            Endian::Big
-        },
-        time: BitField::new(head[1] % 64, head[2] % 64),
-        channel: BitField::new(head[3] % 64, head[4] % 9),
-        kind: (head[0] & 4 != 0).then(|| KindField {
-            field: BitField::new(head[5] % 64, 1 + head[6] % 8),
-            event: head[7] & 3,
-            rollover: (head[7] >> 2) & 3,
-            rollover_count: BitField::new(head[8] % 64, head[9] % 33),
-        }),
-        max_channel: head[9],
-    }
-}
-
 /// Layout bytes the importer accepts (the fuzz seeds): 32-bit little-endian words with kind and
 /// wrap count, and 64-bit big-endian words without rollover records.
 const GOOD_HEADS: [[u8; 11]; 2] = [
     [4, 0, 20, 20, 4, 30, 1, 9, 24, 6, 0x70],
     [3, 0, 40, 56, 8, 0, 0, 0, 0, 2, 0],
 ];
-
-fn check_binary(head: [u8; 11], file: &[u8]) -> Result<(), TestCaseError> {
-    let layout = binary_layout(&head);
-    let counter_bits = (head[0] & 8 != 0).then_some(32 + head[10] % 33);
-    let tick_ps = 1 + u32::from(head[10] >> 4);
-    let import = match BinaryImport::new(layout, counter_bits, tick_ps) {
-        Ok(i) => i,
-        Err(ImportError::Options(_)) => return Ok(()),
-        Err(e) => return Err(TestCaseError::fail(format!("layout check: {e}"))),
-    };
-    let run = |bytes: &[u8]| {
-        let sink = Cursor::new(Vec::new());
-        import
-            .run(bytes, "mem.bin", sink, "mem.swcap", |_| {})
-            .map(|(sum, sink)| (sum, sink.into_inner()))
-    };
-    let rb = usize::from(layout.record_bytes);
-    let whole = (file.len() / rb) as u64;
-    match run(file) {
-        Ok((sum, bytes)) => {
-            prop_assert_eq!(file.len() % rb, 0, "a partial record was accepted");
-            prop_assert_eq!(sum.total, whole);
-            prop_assert_eq!(sum.settled(), sum.total, "{}", sum);
-            let events = read_back(&bytes);
-            prop_assert_eq!(events.len() as u64, sum.imported);
-            prop_assert!(events.iter().all(|e| e.channel <= layout.max_channel));
-        }
-        Err(err) => {
-            let ImportError::PartialRecord {
-                record,
-                error: WordError::PartialRecord { offset, have, need },
-                ..
-            } = err
-            else {
-                return Err(TestCaseError::fail(format!("not a partial record: {err}")));
-            };
-            prop_assert_eq!(record, whole);
-            prop_assert_eq!(offset, whole * rb as u64);
-            prop_assert_eq!(
-                (usize::from(have), usize::from(need)),
-                (file.len() % rb, rb)
-            );
-            let shown = err.to_string();
-            let prefix = format!("mem.bin: record {record}, field 'record'");
-            prop_assert!(shown.starts_with(&prefix), "{}", shown);
-            prop_assert!(
-                shown.contains(&format!("byte offset {offset}")),
-                "{}",
-                shown
-            );
-            let (sum, _) = run(&file[..file.len() - file.len() % rb])
-                .map_err(|e| TestCaseError::fail(format!("whole records: {e}")))?;
-            prop_assert_eq!((sum.total, sum.settled()), (whole, whole));
-        }
-    }
-    Ok(())
-}
 
 /// A valid export as the test writes it, and what must come out.
 #[derive(Debug)]
@@ -419,7 +244,7 @@ proptest! {
 
     #[test]
     fn arbitrary_text_lines_end_in_one_row_or_a_named_line((head, text) in text_case()) {
-        check_text(&text_description(head), &text)?;
+        check_text(&head, &text).map_err(TestCaseError::fail)?;
     }
 
     #[test]
@@ -427,7 +252,7 @@ proptest! {
         head in any::<[u8; 8]>(),
         text in prop::collection::vec(any::<u8>(), 0..200),
     ) {
-        check_text(&text_description(head), &text)?;
+        check_text(&head, &text).map_err(TestCaseError::fail)?;
     }
 
     #[test]
@@ -440,14 +265,14 @@ proptest! {
         whole_records in any::<bool>(),
     ) {
         let keep = if whole_records { file.len() / 8 * 8 } else { file.len() };
-        check_binary(head, &file[..keep])?;
+        check_binary(&head, &file[..keep]).map_err(TestCaseError::fail)?;
     }
 
     #[test]
     fn valid_text_export_imports_to_the_exact_ticks(ex in valid_export()) {
         let (sum, bytes) = run_text(&ex.import, ex.text.as_bytes())
             .map_err(|e| TestCaseError::fail(format!("{e}\n{}", ex.text)))?;
-        prop_assert_eq!(read_back(&bytes), ex.expected.clone(), "{}", ex.text);
+        prop_assert_eq!(read_back(&bytes).unwrap(), ex.expected.clone(), "{}", ex.text);
         prop_assert_eq!(sum.imported, ex.expected.len() as u64);
         for (name, n) in ex.rows {
             prop_assert_eq!(sum.row(name), n, "row {}", name);
@@ -459,7 +284,7 @@ proptest! {
 
 #[test]
 fn a_channel_map_above_the_highest_channel_is_refused_before_reading() {
-    let mut import = text_description([0x40, 0, 1, 0, 0, 0, 1, 32]);
+    let mut import = text_description(&[0x40, 0, 1, 0, 0, 0, 1, 32]);
     import.channel_map = Some(ChannelMap(vec![(1, 0), (2, 5)]));
     import.tdc.max_channel = 3;
     let err = run_text(&import, b"t,ch\n1,2\n").unwrap_err();
@@ -469,7 +294,7 @@ fn a_channel_map_above_the_highest_channel_is_refused_before_reading() {
 
 #[test]
 fn an_exponent_at_the_edge_of_i64_is_a_line_error() {
-    let import = text_description([0x00, 0, 1, 1, 0, 2, 1, 32]);
+    let import = text_description(&[0x00, 0, 1, 1, 0, 2, 1, 32]);
     let err = run_text(&import, b"1.5e-9223372036854775807,0\n").unwrap_err();
     assert!(
         err.to_string().starts_with("mem.txt: line 1, field "),

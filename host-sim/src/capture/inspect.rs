@@ -64,6 +64,15 @@ impl Verdict {
             Verdict::Incomplete => "incomplete",
         }
     }
+
+    /// `None` when good; otherwise what is wrong, for a one-line problem report.
+    pub fn problem(self) -> Option<&'static str> {
+        match self {
+            Verdict::Good => None,
+            Verdict::Damaged => Some("damaged"),
+            Verdict::Incomplete => Some("incomplete (no verified end record)"),
+        }
+    }
 }
 
 /// What [`inspect`] found in a capture.
@@ -112,11 +121,7 @@ pub struct InspectReport {
 impl InspectReport {
     /// `None` for a good capture; otherwise one line saying why not, naming the file.
     pub fn problem(&self) -> Option<String> {
-        let why = match self.verdict {
-            Verdict::Good => return None,
-            Verdict::Damaged => "damaged",
-            Verdict::Incomplete => "incomplete (no verified end record)",
-        };
+        let why = self.verdict.problem()?;
         Some(format!(
             "{}: capture {why}: {} damaged stretches, {} blocks lost",
             self.source, self.damaged_stretches, self.blocks_lost

@@ -14,6 +14,7 @@
 #![warn(missing_docs)]
 
 mod binary;
+pub mod checks;
 mod decimal;
 mod text;
 

@@ -52,11 +52,7 @@ pub struct RecordReport {
 impl RecordReport {
     /// `None` for a good record; otherwise one line saying why not, naming the file.
     pub fn problem(&self) -> Option<String> {
-        let why = match self.verdict {
-            Verdict::Good => return None,
-            Verdict::Damaged => "damaged",
-            Verdict::Incomplete => "incomplete (no verified end record)",
-        };
+        let why = self.verdict.problem()?;
         Some(format!(
             "{}: transmitter record {why}: {} damaged blocks",
             self.source,
