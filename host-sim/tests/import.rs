@@ -196,6 +196,29 @@ fn binary_rollover_records_widen_the_counter() {
 }
 
 #[test]
+fn binary_channels_go_through_the_channel_map() {
+    let d = tmp("binarymap");
+    let input = d.join("export.bin");
+    let out = d.join("export.swcap");
+    // Detector inputs 1, 2, 5, 7 become channels 0..=3; input 3 is not in the map.
+    let records = [
+        word(1, 1, 10),
+        word(1, 2, 20),
+        word(1, 3, 30),
+        word(1, 5, 40),
+        word(1, 7, 50),
+    ];
+    std::fs::write(&input, records.concat()).unwrap();
+    let opts = format!("{LAYOUT} --channel-map 1=0,2=1,5=2,7=3");
+    let text = ok(&import("binary", &input, &out, &opts));
+    let (header, events) = capture::read_all(&out).unwrap();
+    assert_eq!(header.channel_count, 4);
+    assert_eq!(events, vec![ev(10, 0), ev(20, 1), ev(40, 2), ev(50, 3)]);
+    assert_eq!(row(&text, "imported"), 4);
+    assert_eq!(row(&text, "dropped: channel not in map"), 1);
+}
+
+#[test]
 fn truncated_binary_reports_the_partial_record_offset() {
     let d = tmp("truncated");
     let input = d.join("cut.bin");

@@ -139,6 +139,10 @@ pub struct BinaryArgs {
     /// channels 0..=N. Default: the largest the channel field holds, at most 254.
     #[arg(long, value_name = "N")]
     pub max_channel: Option<u8>,
+    /// Decoded channels to capture channels, `IN=OUT,...` (e.g. `1=0,2=1,5=2`); events on
+    /// other channels are dropped and counted, and the capture holds 0..=the highest OUT.
+    #[arg(long, value_name = "MAP")]
+    pub channel_map: Option<ChannelMap>,
     /// Length of one counter tick in picoseconds.
     #[arg(long, value_name = "T")]
     pub tick_ps: u32,
@@ -225,7 +229,11 @@ fn binary_import(a: &BinaryArgs) -> Result<BinaryImport, crate::import::ImportEr
         kind,
         max_channel,
     };
-    BinaryImport::new(layout, a.counter_bits, a.tick_ps)
+    let import = BinaryImport::new(layout, a.counter_bits, a.tick_ps)?;
+    match &a.channel_map {
+        Some(m) => import.with_channel_map(m),
+        None => Ok(import),
+    }
 }
 
 fn text_import(a: &TextArgs) -> Result<TextImport, crate::import::ImportError> {

@@ -7,6 +7,7 @@ use slotwise::words::{RecordFate, WordDecoder, WordFormat, WordLayout};
 use slotwise::TdcEvent;
 
 use super::{close_capture, file_to_file, open_capture, CaptureTdc, ImportError, ImportSummary};
+use super::{ChannelMap, TextImport};
 use super::{EVENT_BATCH, READ_BLOCK_BYTES};
 
 /// A checked binary import: the record layout and the capture's TDC description.
@@ -14,6 +15,8 @@ use super::{EVENT_BATCH, READ_BLOCK_BYTES};
 pub struct BinaryImport {
     format: WordFormat,
     tdc: CaptureTdc,
+    /// Decoded channel to capture channel (`None`: dropped as not in the map), when mapped.
+    map: Option<[Option<u8>; 256]>,
 }
 
 impl BinaryImport {
@@ -54,7 +57,29 @@ impl BinaryImport {
             max_channel: layout.max_channel,
         };
         tdc.validate()?;
-        Ok(Self { format, tdc })
+        Ok(Self {
+            format,
+            tdc,
+            map: None,
+        })
+    }
+
+    /// Send decoded channels through `map` (`IN=OUT` pairs); events on other channels are
+    /// dropped and counted, and the capture holds channels `0..=` the highest target.
+    pub fn with_channel_map(mut self, map: &ChannelMap) -> Result<Self, ImportError> {
+        let mut table = [None; 256];
+        for &(from, to) in &map.0 {
+            let Some(slot) = usize::try_from(from).ok().and_then(|i| table.get_mut(i)) else {
+                return Err(ImportError::Options(format!(
+                    "--channel-map {from}={to}: a binary channel field holds 0..=255"
+                )));
+            };
+            *slot = Some(to);
+        }
+        self.tdc.max_channel = TextImport::max_channel(None, Some(map))?;
+        self.tdc.validate()?;
+        self.map = Some(table);
+        Ok(self)
     }
 
     /// The capture's TDC description.
@@ -95,6 +120,7 @@ impl BinaryImport {
             EVENT_BATCH
         ];
         let mut read = 0u64;
+        let mut unmapped = 0u64;
         loop {
             let n = match r.read(&mut buf) {
                 Ok(0) => break,
@@ -107,10 +133,20 @@ impl BinaryImport {
             while !rest.is_empty() {
                 let d = decoder.decode(rest, &mut events);
                 for ev in events.get(..d.events).unwrap_or_default() {
+                    let channel = match &self.map {
+                        None => ev.channel,
+                        Some(m) => match m.get(usize::from(ev.channel)).copied().flatten() {
+                            Some(c) => c,
+                            None => {
+                                unmapped += 1;
+                                continue;
+                            }
+                        },
+                    };
                     // The capture stores the counter modulo its width, as a TDC of that width would.
                     let ev = TdcEvent {
                         count: ev.count & mask,
-                        channel: ev.channel,
+                        channel,
                     };
                     writer.push(ev).map_err(|e| ImportError::io(out_name, e))?;
                 }
@@ -136,7 +172,7 @@ impl BinaryImport {
             source: source.to_owned(),
             unit: "record",
             total: counts.records,
-            imported: counts.get(RecordFate::Event),
+            imported: counts.get(RecordFate::Event) - unmapped,
             other: vec![("rollover", counts.get(RecordFate::Rollover))],
             dropped: Vec::new(),
             blocks,
@@ -150,6 +186,9 @@ impl BinaryImport {
             RecordFate::CounterOverflow,
         ] {
             summary.dropped.push((fate.name(), counts.get(fate)));
+        }
+        if self.map.is_some() {
+            summary.dropped.push((super::text::DROP_UNMAPPED, unmapped));
         }
         Ok((summary, sink))
     }

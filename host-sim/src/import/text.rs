@@ -126,7 +126,8 @@ pub struct TextImport {
     pub tdc: CaptureTdc,
 }
 
-const DROP_UNMAPPED: &str = "channel not in map";
+/// Summary row of events whose channel the map does not name.
+pub(super) const DROP_UNMAPPED: &str = "channel not in map";
 const DROP_RANGE: &str = "channel out of range";
 
 /// Running counts of a text import.
