@@ -28,7 +28,7 @@ pub mod source;
 pub mod tx;
 
 pub use clock::TxClock;
-pub use model::{channel_model, ChannelModel, IntensityModel};
+pub use model::{channel_model, signal_rate_per_s, ChannelModel, IntensityModel};
 pub use optics::{channels, earliest_click_offset_ps, gate_half_width_ps, gate_specs, GateSpec};
 pub use pnr::PnrSpec;
 pub use source::{Source, SourceKind, SourceSpec};
@@ -772,13 +772,6 @@ impl ClockTruth {
         FixedClock::new(self.period_q32, self.origin_ps_unwrapped)
             .unwrap_or_else(|e| panic!("period checked when the truth was built: {e}"))
     }
-}
-
-/// Expected rate of in-gate signal detections per second, from the channel model.
-pub fn signal_rate_per_s(s: &Scenario) -> f64 {
-    let m = channel_model(s);
-    let gain: f64 = m.intensities.iter().map(|i| i.prob * i.gain).sum();
-    (gain - m.y0).max(1e-12) * s.rep_rate_hz
 }
 
 /// The true slot grid on the core's time base for this scenario's capture.

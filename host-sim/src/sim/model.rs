@@ -310,6 +310,13 @@ impl ChannelModel {
     }
 }
 
+/// Expected rate of in-gate signal detections per second, from the channel model.
+pub fn signal_rate_per_s(s: &Scenario) -> f64 {
+    let m = channel_model(s);
+    let gain: f64 = m.intensities.iter().map(|i| i.prob * i.gain).sum();
+    (gain - m.y0).max(1e-12) * s.rep_rate_hz
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
