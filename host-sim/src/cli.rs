@@ -459,6 +459,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         &a.out,
         &res.buckets,
         Some(&truth_period),
+        &res.clock_events,
     )?);
     files.extend(plots::qber_and_rate(
         &a.out,

@@ -4,7 +4,7 @@
 
 pub mod stats;
 
-use crate::replay::{Bucket, FOLD_BINS};
+use crate::replay::{Bucket, ClockEvent, ClockEventKind, FOLD_BINS};
 use plotters::coord::Shift;
 use plotters::prelude::*;
 use slotwise::{Basis, GateTable};
@@ -73,6 +73,56 @@ where
         .draw_series(LineSeries::new(points, c.stroke_width(2)))?
         .label(label)
         .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], c.stroke_width(2)));
+    Ok(())
+}
+
+/// Vertical lines at the clock events, one legend entry per kind that occurs: lock losses red,
+/// relocks green, alignments blue, alignment losses orange.
+fn clock_markers<DB>(
+    chart: &mut ChartContext<
+        '_,
+        DB,
+        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+    >,
+    events: &[ClockEvent],
+    y: (f64, f64),
+) -> Result<(), DynErr>
+where
+    DB: DrawingBackend,
+    DB::ErrorType: 'static,
+{
+    let kinds = [
+        (ClockEventKind::LockLost, RGBColor(200, 30, 30), "lock lost"),
+        (ClockEventKind::Locked, RGBColor(30, 150, 60), "locked"),
+        (
+            ClockEventKind::AlignmentLost,
+            RGBColor(230, 130, 20),
+            "numbering lost",
+        ),
+        (
+            ClockEventKind::Aligned,
+            RGBColor(40, 90, 200),
+            "numbering aligned",
+        ),
+    ];
+    for (kind, c, label) in kinds {
+        let at: Vec<f64> = events
+            .iter()
+            .filter(|e| e.kind == kind)
+            .map(|e| e.t_s)
+            .collect();
+        if at.is_empty() {
+            continue;
+        }
+        let style = c.stroke_width(1);
+        chart
+            .draw_series(
+                at.into_iter()
+                    .map(move |t| PathElement::new(vec![(t, y.0), (t, y.1)], style)),
+            )?
+            .label(label)
+            .legend(move |(x, yy)| PathElement::new([(x, yy), (x + 18, yy)], style));
+    }
     Ok(())
 }
 
@@ -340,10 +390,12 @@ pub fn clock_series(
     dir: &Path,
     buckets: &[Bucket],
     truth_period_ps: Option<&dyn Fn(f64) -> f64>,
+    events: &[ClockEvent],
 ) -> Result<Vec<PathBuf>, DynErr> {
     struct Clk<'a> {
         b: &'a [Bucket],
         truth: Option<&'a dyn Fn(f64) -> f64>,
+        events: &'a [ClockEvent],
     }
     impl Plot for Clk<'_> {
         fn draw<DB: DrawingBackend>(&self, root: &DrawingArea<DB, Shift>) -> Result<(), DynErr>
@@ -372,6 +424,7 @@ pub fn clock_series(
                 .y_desc("RMS distance to gate centre (ps)")
                 .draw()?;
             line(&mut chart, rms, colour(0), "residual rms".into())?;
+            clock_markers(&mut chart, self.events, (0.0, rmax))?;
             legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             // Without a true clock (a capture from real hardware) the estimate is drawn against
             // its own first value: the transmitter's drift as the receiver saw it.
@@ -412,6 +465,7 @@ pub fn clock_series(
                 .y_desc("period (ppb)")
                 .draw()?;
             line(&mut chart, err, colour(1), label.into())?;
+            clock_markers(&mut chart, self.events, (-emax, emax))?;
             legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             Ok(())
         }
@@ -419,6 +473,7 @@ pub fn clock_series(
     let c = Clk {
         b: buckets,
         truth: truth_period_ps,
+        events,
     };
     both(dir, "clock", (960, 700), &c)
 }

@@ -43,6 +43,32 @@ pub struct TraceRequest {
     pub to_ps: u64,
 }
 
+/// A change of the clock's or the numbering's state during a run.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ClockEventKind {
+    /// The clock gives slots (first lock or relock).
+    Locked,
+    /// The clock stopped giving slots.
+    LockLost,
+    /// The numbering reached the transmitter's absolute slot numbers.
+    Aligned,
+    /// The numbering lost them (new clock epoch, or misalignment).
+    AlignmentLost,
+}
+
+/// One [`ClockEventKind`] at a time, seconds since the first detection.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct ClockEvent {
+    /// Seconds since the first detection.
+    pub t_s: f64,
+    /// What changed.
+    pub kind: ClockEventKind,
+}
+
+/// Most clock events a session keeps (later ones are counted, not kept).
+pub const MAX_CLOCK_EVENTS: usize = 4096;
+
 /// QBER errors and totals of one time bucket.
 #[derive(Clone, Copy, Debug, Default, Serialize, PartialEq)]
 pub struct Bucket {
@@ -140,6 +166,9 @@ pub struct Session<T: Transmitter> {
     cfg: ReceiverConfig,
     first_t_ps: Option<u64>,
     first_lock: Option<(u64, f64)>,
+    /// Clock locked and numbering aligned at the latest detection.
+    state: (bool, bool),
+    clock_events: Vec<ClockEvent>,
     monitor: Box<HostMonitor>,
     live: LiveLog,
     frame_seq: u16,
@@ -186,6 +215,8 @@ impl<T: Transmitter> Session<T> {
             cfg,
             first_t_ps: None,
             first_lock: None,
+            state: (false, false),
+            clock_events: Vec::new(),
             monitor: Box::new(HostMonitor::new(
                 StatsConfig::new((bucket_s * 1e12).max(1.0) as u64, 0, cfg.gates())
                     .map_err(std::io::Error::other)?,
@@ -314,6 +345,7 @@ impl<T: Transmitter> Session<T> {
             if self.first_lock.is_none() && self.rx.clock().locked() {
                 self.first_lock = Some((self.rx.detections_in(), rel as f64 * 1e-12));
             }
+            self.clock_transitions(rel);
             // Only gated detections carry a residual; the clock's period is read for those alone.
             let gated = tr
                 .gate
@@ -344,6 +376,28 @@ impl<T: Transmitter> Session<T> {
             }
         }
         self.trace(tr);
+    }
+
+    /// Note when the clock's lock or the numbering's alignment changed.
+    fn clock_transitions(&mut self, rel_ps: u64) {
+        let now = (self.rx.clock().locked(), self.rx.numbering().aligned());
+        let (was, t_s) = (self.state, rel_ps as f64 * 1e-12);
+        self.state = now;
+        let mut note = |kind| {
+            if self.clock_events.len() < MAX_CLOCK_EVENTS {
+                self.clock_events.push(ClockEvent { t_s, kind });
+            }
+        };
+        match (was.0, now.0) {
+            (false, true) => note(ClockEventKind::Locked),
+            (true, false) => note(ClockEventKind::LockLost),
+            _ => {}
+        }
+        match (was.1, now.1) {
+            (false, true) => note(ClockEventKind::Aligned),
+            (true, false) => note(ClockEventKind::AlignmentLost),
+            _ => {}
+        }
     }
 
     fn trace(&mut self, tr: &Trace) {
@@ -411,6 +465,7 @@ impl<T: Transmitter> Session<T> {
             buckets: self.sink.buckets,
             fold: self.fold,
             first_lock: self.first_lock,
+            clock_events: self.clock_events,
             monitor: self.monitor,
             live: self.live,
             first_t_ps: self.first_t_ps.unwrap_or(0),
@@ -434,6 +489,8 @@ pub struct SessionResult<T: Transmitter> {
     pub rx: Box<HostReceiver>,
     /// Detections taken in, and seconds since the first one, when the clock first locked.
     pub first_lock: Option<(u64, f64)>,
+    /// Locks, losses, alignments and their losses, in time order (at most [`MAX_CLOCK_EVENTS`]).
+    pub clock_events: Vec<ClockEvent>,
     /// The transmitter, for its own counters.
     pub tx: T,
     /// QBER and rate series.

@@ -154,7 +154,7 @@ fn soak(hours: f64, name: &str) {
     println!("{name}: worst period error {:.2} ppb", worst * 1e9);
     assert!(worst < 10e-9, "period error {worst}");
     let mut files = plots::qber_and_rate(&dir, &r.buckets, 3).unwrap();
-    files.extend(plots::clock_series(&dir, &r.buckets, Some(&truth_period)).unwrap());
+    files.extend(plots::clock_series(&dir, &r.buckets, Some(&truth_period), &[]).unwrap());
     for f in &files {
         assert!(std::fs::metadata(f).unwrap().len() > 0);
         println!("{name}: wrote {}", f.display());

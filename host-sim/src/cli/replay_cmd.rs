@@ -223,7 +223,12 @@ pub fn replay_capture(
             .as_ref()
             .map(|c| move |t_s: f64| c.period_at_ps(c.start_ps() + t_s * 1e12));
         let truth: Option<&dyn Fn(f64) -> f64> = truth_period.as_ref().map(|f| f as _);
-        files.extend(plots::clock_series(dir, &res.buckets, truth)?);
+        files.extend(plots::clock_series(
+            dir,
+            &res.buckets,
+            truth,
+            &res.clock_events,
+        )?);
         files.extend(plots::qber_and_rate(
             dir,
             &res.buckets,
