@@ -16,6 +16,7 @@
 mod binary;
 mod decimal;
 mod text;
+mod text_fast;
 
 use std::fmt;
 use std::fs::File;

@@ -1,0 +1,228 @@
+//! The text importer's fast path: plain data lines decided without allocating or converting.
+//!
+//! Nearly every line of a real export is ASCII with an unquoted, unpadded `digits[.digits]` time
+//! and a `digits` channel. Such a line is split on the delimiter byte in place, its time is
+//! converted in 64-bit arithmetic (the exact rational of [`super::decimal`], reduced, so the
+//! rounding is the same) and its channel looked up in a 256-entry table. Anything else (a sign,
+//! an exponent, quotes, padding, a missing column, a value that would not fit) is not decided
+//! here: the line goes to the general path, which gives every result and error message.
+
+use slotwise::TdcEvent;
+
+use super::decimal::{Decimal, TimeUnit};
+use super::text::{ChannelMap, Delimiter, DROP_RANGE, DROP_UNMAPPED};
+
+/// Table entry of an input channel the map does not list.
+const UNMAPPED: u8 = u8::MAX;
+/// Most digits a fast-path time or channel may have; 10^18 fits an i64, 10^19 a u64.
+const MAX_TIME_DIGITS: usize = 19;
+const MAX_CHANNEL_DIGITS: usize = 18;
+
+/// Powers of ten that fit a u64, by exponent.
+const POW10: [u64; 20] = {
+    let mut p = [1u64; 20];
+    let mut i = 1;
+    while i < 20 {
+        p[i] = p[i - 1] * 10;
+        i += 1;
+    }
+    p
+};
+
+/// How fields are separated, as bytes.
+#[derive(Clone, Copy, Debug)]
+enum Split {
+    /// One ASCII byte.
+    Byte(u8),
+    /// Runs of the bytes Rust's `char::is_whitespace` accepts below 0x80.
+    Whitespace,
+}
+
+/// What the fast path needs, worked out once the columns are known.
+#[derive(Clone, Debug)]
+pub(super) struct FastLines {
+    split: Split,
+    time_col: usize,
+    channel_col: usize,
+    /// One unit of the time column in ps (1 for ticks).
+    unit_ps: u64,
+    /// One tick in ps (1 for a time column in ticks).
+    tick_ps: u64,
+    unit: TimeUnit,
+    capture_tick_ps: u32,
+    /// Capture channel of input channels 0..=255, [`UNMAPPED`] when the map has none.
+    map_table: Option<Box<[u8; 256]>>,
+    map: Option<ChannelMap>,
+    max_channel: u8,
+}
+
+fn is_space(b: u8) -> bool {
+    matches!(b, b'\t' | b'\n' | 0x0B | 0x0C | b'\r' | b' ')
+}
+
+impl FastLines {
+    /// The fast path for these options, or `None` when no line could take it.
+    pub(super) fn new(
+        delimiter: Delimiter,
+        comment: &str,
+        (time_col, channel_col): (usize, usize),
+        unit: TimeUnit,
+        map: Option<&ChannelMap>,
+        capture_tick_ps: u32,
+        max_channel: u8,
+    ) -> Option<Self> {
+        let split = match delimiter {
+            Delimiter::Char(c) if c.is_ascii() => Split::Byte(c as u8),
+            Delimiter::Char(_) => return None,
+            Delimiter::Whitespace => Split::Whitespace,
+        };
+        // A fast-path line starts with a digit, so it must not be able to be a comment.
+        if comment.starts_with(|c: char| c.is_ascii_digit()) || capture_tick_ps == 0 {
+            return None;
+        }
+        let (unit_ps, tick_ps) = match unit.ps() {
+            Some(ps) => (u64::try_from(ps).ok()?, u64::from(capture_tick_ps)),
+            None => (1, 1),
+        };
+        let map_table = map.map(|m| {
+            let mut t = Box::new([UNMAPPED; 256]);
+            for &(from, to) in &m.0 {
+                if let Some(slot) = usize::try_from(from).ok().and_then(|i| t.get_mut(i)) {
+                    *slot = to;
+                }
+            }
+            t
+        });
+        Some(Self {
+            split,
+            time_col,
+            channel_col,
+            unit_ps,
+            tick_ps,
+            unit,
+            capture_tick_ps,
+            map_table,
+            map: map.cloned(),
+            max_channel,
+        })
+    }
+
+    /// The event of a data line (its line end removed), a reason to drop it, or `None` when the
+    /// general path must decide.
+    #[inline]
+    pub(super) fn event(&self, line: &[u8]) -> Option<Result<TdcEvent, &'static str>> {
+        let mut line = line;
+        while let [rest @ .., b'\r'] = line {
+            line = rest;
+        }
+        if !line.first()?.is_ascii_digit() || !line.is_ascii() {
+            return None;
+        }
+        let (time, channel) = self.columns(line)?;
+        let count = self.ticks(time)?;
+        let input = channel_number(channel)?;
+        let channel = match (&self.map_table, &self.map) {
+            (Some(table), Some(map)) => {
+                let to = match usize::try_from(input).ok().and_then(|i| table.get(i)) {
+                    Some(&to) => (to != UNMAPPED).then_some(to),
+                    None => map.0.iter().find(|(f, _)| *f == input).map(|(_, t)| *t),
+                };
+                match to {
+                    Some(c) => c,
+                    None => return Some(Err(DROP_UNMAPPED)),
+                }
+            }
+            _ => match u8::try_from(input) {
+                Ok(c) if c <= self.max_channel => c,
+                _ => return Some(Err(DROP_RANGE)),
+            },
+        };
+        Some(Ok(TdcEvent { count, channel }))
+    }
+
+    /// The time and channel fields, split in place; `None` if either column is missing.
+    fn columns<'a>(&self, line: &'a [u8]) -> Option<(&'a [u8], &'a [u8])> {
+        let last = self.time_col.max(self.channel_col);
+        let (mut time, mut channel) = (None, None);
+        let mut rest = line;
+        for i in 0..=last {
+            let (field, after) = match self.split {
+                Split::Byte(d) => match rest.iter().position(|&b| b == d) {
+                    Some(p) => (&rest[..p], Some(&rest[p + 1..])),
+                    None => (rest, None),
+                },
+                Split::Whitespace => {
+                    let end = rest.iter().position(|&b| is_space(b)).unwrap_or(rest.len());
+                    let next = rest[end..].iter().position(|&b| !is_space(b));
+                    (&rest[..end], next.map(|n| &rest[end + n..]))
+                }
+            };
+            if i == self.time_col {
+                time = Some(field);
+            }
+            if i == self.channel_col {
+                channel = Some(field);
+            }
+            match after {
+                Some(a) => rest = a,
+                None if i < last => return None,
+                None => {}
+            }
+        }
+        Some((time?, channel?))
+    }
+
+    /// `digits[.digits]` in ticks, rounded as [`Decimal::to_ticks`] rounds; `None` for any other
+    /// form, or when the general path's checks might refuse it.
+    fn ticks(&self, field: &[u8]) -> Option<u64> {
+        let (int, frac) = match field.iter().position(|&b| b == b'.') {
+            Some(p) => (&field[..p], &field[p + 1..]),
+            None => (field, &[][..]),
+        };
+        if int.is_empty() || int.len() + frac.len() > MAX_TIME_DIGITS {
+            return None;
+        }
+        let mut mantissa = 0u64;
+        for &b in int.iter().chain(frac) {
+            let d = b.wrapping_sub(b'0');
+            if d > 9 {
+                return None;
+            }
+            // At most 19 digits: below 10^19, no overflow.
+            mantissa = mantissa * 10 + u64::from(d);
+        }
+        let scale = frac.len();
+        let pow = POW10[scale];
+        if self.unit_ps % pow != 0 {
+            let d = Decimal {
+                mantissa: u128::from(mantissa),
+                scale: scale as u32,
+            };
+            return d.to_ticks(self.unit, self.capture_tick_ps).ok();
+        }
+        // mantissa × unit / (10^scale × tick), with 10^scale divided out of the unit exactly.
+        let num = mantissa.checked_mul(self.unit_ps / pow)?;
+        let den = self.tick_ps;
+        if den == 1 {
+            return Some(num);
+        }
+        let (q, r) = (num / den, num % den);
+        Some(if r >= den - r { q + 1 } else { q })
+    }
+}
+
+/// A channel of 1..=18 plain digits.
+fn channel_number(field: &[u8]) -> Option<i64> {
+    if field.is_empty() || field.len() > MAX_CHANNEL_DIGITS {
+        return None;
+    }
+    let mut v = 0i64;
+    for &b in field {
+        let d = b.wrapping_sub(b'0');
+        if d > 9 {
+            return None;
+        }
+        v = v * 10 + i64::from(d);
+    }
+    Some(v)
+}
