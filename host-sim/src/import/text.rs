@@ -260,10 +260,10 @@ impl TextImport {
                 break;
             }
             let len = buf.len();
-            let mut rest = buf;
-            while let Some(p) = rest.iter().position(|&b| b == b'\n') {
-                let (head, tail) = rest.split_at(p + 1);
-                rest = tail;
+            let mut start = 0;
+            for end in memchr::memchr_iter(b'\n', buf) {
+                let head = buf.get(start..=end).unwrap_or_default();
+                start = end + 1;
                 let raw = if carry.is_empty() {
                     head
                 } else {
@@ -277,7 +277,7 @@ impl TextImport {
                     progress(read);
                 }
             }
-            carry.extend_from_slice(rest);
+            carry.extend_from_slice(buf.get(start..).unwrap_or_default());
             if carry.len() > MAX_LINE_BYTES {
                 lines.t.lines += 1;
                 return Err(lines.error(lines.t.lines, "line", "", too_long()));

@@ -44,8 +44,8 @@ pub(super) struct FastLines {
     split: Split,
     time_col: usize,
     channel_col: usize,
-    /// One unit of the time column in ps (1 for ticks).
-    unit_ps: u64,
+    /// One unit of the time column in ps (1 for ticks) over 10^scale, by scale, where exact.
+    unit_per_scale: [Option<u64>; 20],
     /// One tick in ps (1 for a time column in ticks).
     tick_ps: u64,
     unit: TimeUnit,
@@ -84,6 +84,10 @@ impl FastLines {
             Some(ps) => (u64::try_from(ps).ok()?, u64::from(capture_tick_ps)),
             None => (1, 1),
         };
+        let mut unit_per_scale = [None; 20];
+        for (f, p) in unit_per_scale.iter_mut().zip(POW10) {
+            *f = (unit_ps % p == 0).then_some(unit_ps / p);
+        }
         let map_table = map.map(|m| {
             let mut t = Box::new([UNMAPPED; 256]);
             for &(from, to) in &m.0 {
@@ -97,7 +101,7 @@ impl FastLines {
             split,
             time_col,
             channel_col,
-            unit_ps,
+            unit_per_scale,
             tick_ps,
             unit,
             capture_tick_ps,
@@ -175,33 +179,36 @@ impl FastLines {
     /// `digits[.digits]` in ticks, rounded as [`Decimal::to_ticks`] rounds; `None` for any other
     /// form, or when the general path's checks might refuse it.
     fn ticks(&self, field: &[u8]) -> Option<u64> {
-        let (int, frac) = match field.iter().position(|&b| b == b'.') {
-            Some(p) => (&field[..p], &field[p + 1..]),
-            None => (field, &[][..]),
-        };
-        if int.is_empty() || int.len() + frac.len() > MAX_TIME_DIGITS {
-            return None;
-        }
+        // One pass: digits, an optional '.', digits. More than 19 digits may wrap the mantissa;
+        // such a time is left to the general path.
         let mut mantissa = 0u64;
-        for &b in int.iter().chain(frac) {
+        let mut digits = 0;
+        let mut point = None;
+        for &b in field {
             let d = b.wrapping_sub(b'0');
-            if d > 9 {
+            if d <= 9 {
+                mantissa = mantissa.wrapping_mul(10).wrapping_add(u64::from(d));
+                digits += 1;
+            } else if b == b'.' && point.is_none() {
+                point = Some(digits);
+            } else {
                 return None;
             }
-            // At most 19 digits: below 10^19, no overflow.
-            mantissa = mantissa * 10 + u64::from(d);
         }
-        let scale = frac.len();
-        let pow = POW10[scale];
-        if self.unit_ps % pow != 0 {
+        let int_digits = point.unwrap_or(digits);
+        if int_digits == 0 || digits > MAX_TIME_DIGITS {
+            return None;
+        }
+        let scale = digits - int_digits;
+        let Some(unit) = self.unit_per_scale[scale] else {
             let d = Decimal {
                 mantissa: u128::from(mantissa),
                 scale: scale as u32,
             };
             return d.to_ticks(self.unit, self.capture_tick_ps).ok();
-        }
+        };
         // mantissa × unit / (10^scale × tick), with 10^scale divided out of the unit exactly.
-        let num = mantissa.checked_mul(self.unit_ps / pow)?;
+        let num = mantissa.checked_mul(unit)?;
         let den = self.tick_ps;
         if den == 1 {
             return Some(num);
