@@ -510,3 +510,108 @@ impl fmt::Display for Column {
         }
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    const UNITS: [TimeUnit; 5] = [
+        TimeUnit::Ps,
+        TimeUnit::Ns,
+        TimeUnit::Us,
+        TimeUnit::S,
+        TimeUnit::Ticks,
+    ];
+
+    fn import(delimiter: Delimiter, unit: TimeUnit, tick_ps: u32, map: bool) -> TextImport {
+        TextImport {
+            delimiter,
+            header: false,
+            time: Column::Number(1),
+            channel: Column::Number(2),
+            unit,
+            channel_map: map.then(|| ChannelMap(vec![(1, 0), (2, 1), (300, 2), (-1, 3)])),
+            comment: "#".into(),
+            tdc: CaptureTdc {
+                counter_bits: 64,
+                tick_ps,
+                max_channel: 3,
+            },
+        }
+    }
+
+    /// The fast path's answer, if it gives one, and the general path's, for one line.
+    type Answers = (
+        Option<Result<TdcEvent, &'static str>>,
+        Result<Result<TdcEvent, &'static str>, String>,
+    );
+
+    fn both(imp: &TextImport, cols: (usize, usize), line: &str) -> Answers {
+        let mut imp = imp.clone();
+        imp.time = Column::Number(cols.0 + 1);
+        imp.channel = Column::Number(cols.1 + 1);
+        let resolved = imp.resolve(None).unwrap();
+        let fast = imp.fast(&resolved).expect("these options have a fast path");
+        let err = |field: &str, text: &str, reason: String| {
+            line_error("mem.txt", 1, field, text, reason)
+        };
+        let general = imp
+            .event(line.trim_end_matches(['\n', '\r']), &resolved, &err)
+            .map_err(|e| e.to_string());
+        (fast.event(line.as_bytes()), general)
+    }
+
+    #[test]
+    fn plain_lines_take_the_fast_path() {
+        let imp = import(Delimiter::Char(';'), TimeUnit::Ns, 1, true);
+        let ev = |count, channel| Some(Ok(TdcEvent { count, channel }));
+        // 12.345 ns = 12 345 ps (SI prefix, common practice).
+        assert_eq!(both(&imp, (0, 1), "12.345;2\r").0, ev(12_345, 1));
+        assert_eq!(both(&imp, (1, 0), "300;7.5").0, ev(7_500, 2));
+        assert_eq!(both(&imp, (0, 1), "5;9").0, Some(Err(DROP_UNMAPPED)));
+        // Quotes, padding, signs and exponents are the general path's.
+        for line in ["\"5\";1", "5 ;1", "+5;1", "5e1;1", "5;-1", ".5;1"] {
+            assert_eq!(both(&imp, (0, 1), line).0, None, "{line}");
+        }
+    }
+
+    fn field() -> impl Strategy<Value = String> {
+        prop_oneof![
+            4 => "[0-9]{1,21}(\\.[0-9]{0,21})?",
+            4 => "[0-9]{1,4}",
+            1 => "[0-9 .+\"e-]{0,6}",
+            1 => "[0-9]{1,3}\\.[0-9]{1,3}e-?[0-9]",
+        ]
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(3000))]
+
+        /// Whenever the fast path decides a line, the general path decides it the same way.
+        #[test]
+        fn the_fast_path_agrees_with_the_general_path(
+            delim in 0usize..6,
+            unit in 0usize..5,
+            tick_ps in prop_oneof![Just(1u32), 1u32..=20, Just(1000), Just(u32::MAX)],
+            map in any::<bool>(),
+            cols in (0usize..3, 0usize..3),
+            fields in prop::collection::vec(field(), 1..5),
+            cr in any::<bool>(),
+        ) {
+            let (delimiter, sep) = [
+                (Delimiter::Char(','), ","),
+                (Delimiter::Char(';'), ";"),
+                (Delimiter::Char('\t'), "\t"),
+                (Delimiter::Char(' '), " "),
+                (Delimiter::Char('|'), "|"),
+                (Delimiter::Whitespace, " \t "),
+            ][delim];
+            let imp = import(delimiter, UNITS[unit], tick_ps, map);
+            let line = fields.join(sep) + if cr { "\r" } else { "" };
+            if let (Some(fast), general) = both(&imp, cols, &line) {
+                prop_assert_eq!(Ok(fast), general, "{:?}", line);
+            }
+        }
+    }
+}
