@@ -36,14 +36,23 @@ fn bench_import_quick_json_has_the_documented_fields() {
     }
     // The text export has one header line; every other line is an event.
     assert_eq!(rows[0]["unit"], "line");
-    assert_eq!(rows[0]["events"].as_u64(), Some(rows[0]["items"].as_u64().unwrap() - 1));
+    assert_eq!(
+        rows[0]["events"].as_u64(),
+        Some(rows[0]["items"].as_u64().unwrap() - 1)
+    );
     assert_eq!(rows[1]["unit"], "record");
 }
 
 #[test]
 fn bench_import_table_names_each_figure_and_its_target() {
     let out = ok(&["bench", "import", "--quick", "--reps", "1"]);
-    for want in ["import", "read floor", "capture writer alone", "M lines/s", "memory speed"] {
+    for want in [
+        "import",
+        "read floor",
+        "capture writer alone",
+        "M lines/s",
+        "memory speed",
+    ] {
         assert!(out.contains(want), "{want:?} missing from\n{out}");
     }
 }

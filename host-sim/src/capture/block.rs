@@ -133,7 +133,12 @@ impl BlockEncoder {
     pub(crate) fn new(mask: u64, capacity: u32) -> Self {
         Self {
             mask,
-            payload: vec![0; (capacity as usize).saturating_mul(4).max(MAX_EVENT_BYTES as usize)],
+            payload: vec![
+                0;
+                (capacity as usize)
+                    .saturating_mul(4)
+                    .max(MAX_EVENT_BYTES as usize)
+            ],
             len: 0,
             events: 0,
             first: 0,
@@ -403,7 +408,12 @@ mod tests {
             out
         };
         for bits in 0..64 {
-            for v in [(1u64 << bits) - 1, 1 << bits, (1 << bits) + 1, 0x5555_5555_5555_5555 >> (63 - bits)] {
+            for v in [
+                (1u64 << bits) - 1,
+                1 << bits,
+                (1 << bits) + 1,
+                0x5555_5555_5555_5555 >> (63 - bits),
+            ] {
                 let mut b = Vec::new();
                 put_varint(&mut b, v);
                 assert_eq!(b, plain(v), "{v:#x}");

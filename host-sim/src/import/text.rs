@@ -9,9 +9,9 @@ use slotwise::TdcEvent;
 
 use super::decimal::{parse_decimal, TimeUnit};
 use super::text_fast::FastLines;
-use crate::capture::CaptureWriter;
 use super::{close_capture, file_to_file, open_capture, CaptureTdc, ImportError, ImportSummary};
 use super::{MAX_CAPTURE_CHANNEL, MAX_LINE_BYTES, READ_BLOCK_BYTES};
+use crate::capture::CaptureWriter;
 
 /// A column of a text export: by its header name, or by its number counted from 1.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -553,9 +553,8 @@ mod tests {
         imp.channel = Column::Number(cols.1 + 1);
         let resolved = imp.resolve(None).unwrap();
         let fast = imp.fast(&resolved).expect("these options have a fast path");
-        let err = |field: &str, text: &str, reason: String| {
-            line_error("mem.txt", 1, field, text, reason)
-        };
+        let err =
+            |field: &str, text: &str, reason: String| line_error("mem.txt", 1, field, text, reason);
         let general = imp
             .event(line.trim_end_matches(['\n', '\r']), &resolved, &err)
             .map_err(|e| e.to_string());

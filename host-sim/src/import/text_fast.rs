@@ -119,12 +119,21 @@ impl FastLines {
         while let [rest @ .., b'\r'] = line {
             line = rest;
         }
-        if !line.first()?.is_ascii_digit() || !line.is_ascii() {
+        if !line.first()?.is_ascii_digit() {
             return None;
         }
-        let (time, channel) = self.columns(line)?;
-        let count = self.ticks(time)?;
-        let input = channel_number(channel)?;
+        let (count, input) = match self.split {
+            Split::Byte(d) if self.time_col != self.channel_col && !is_number_byte(d) => {
+                self.walk(line, d)?
+            }
+            _ => {
+                if !line.is_ascii() {
+                    return None;
+                }
+                let (time, channel) = self.columns(line)?;
+                (self.ticks(time)?, channel_number(channel)?)
+            }
+        };
         let channel = match (&self.map_table, &self.map) {
             (Some(table), Some(map)) => {
                 let to = match usize::try_from(input).ok().and_then(|i| table.get(i)) {
@@ -142,6 +151,45 @@ impl FastLines {
             },
         };
         Some(Ok(TdcEvent { count, channel }))
+    }
+
+    /// Time and channel of a line split on the byte `d`, parsed as the fields are walked, so
+    /// every byte is looked at once; `None` if a field is not plain or a column is missing.
+    fn walk(&self, line: &[u8], d: u8) -> Option<(u64, i64)> {
+        let last = self.time_col.max(self.channel_col);
+        let (mut count, mut input) = (None, None);
+        let mut at = 0;
+        for i in 0..=last {
+            let rest = line.get(at..)?;
+            let end = if i == self.time_col {
+                let (mantissa, scale, used) = decimal_prefix(rest)?;
+                count = Some(self.convert(mantissa, scale)?);
+                used
+            } else if i == self.channel_col {
+                let end = rest
+                    .iter()
+                    .position(|&b| !b.is_ascii_digit())
+                    .unwrap_or(rest.len());
+                input = Some(channel_number(rest.get(..end)?)?);
+                end
+            } else {
+                let end = memchr::memchr(d, rest).unwrap_or(rest.len());
+                if !rest.get(..end)?.is_ascii() {
+                    return None;
+                }
+                end
+            };
+            match rest.get(end) {
+                Some(&b) if b == d => at += end + 1,
+                None if i == last => at += end,
+                _ => return None,
+            }
+        }
+        // The general path checks the whole line is UTF-8: so must the fast path.
+        if !line.get(at..)?.is_ascii() {
+            return None;
+        }
+        Some((count?, input?))
     }
 
     /// The time and channel fields, split in place; `None` if either column is missing.
@@ -179,28 +227,16 @@ impl FastLines {
     /// `digits[.digits]` in ticks, rounded as [`Decimal::to_ticks`] rounds; `None` for any other
     /// form, or when the general path's checks might refuse it.
     fn ticks(&self, field: &[u8]) -> Option<u64> {
-        // One pass: digits, an optional '.', digits. More than 19 digits may wrap the mantissa;
-        // such a time is left to the general path.
-        let mut mantissa = 0u64;
-        let mut digits = 0;
-        let mut point = None;
-        for &b in field {
-            let d = b.wrapping_sub(b'0');
-            if d <= 9 {
-                mantissa = mantissa.wrapping_mul(10).wrapping_add(u64::from(d));
-                digits += 1;
-            } else if b == b'.' && point.is_none() {
-                point = Some(digits);
-            } else {
-                return None;
-            }
-        }
-        let int_digits = point.unwrap_or(digits);
-        if int_digits == 0 || digits > MAX_TIME_DIGITS {
+        let (mantissa, scale, used) = decimal_prefix(field)?;
+        if used != field.len() {
             return None;
         }
-        let scale = digits - int_digits;
-        let Some(unit) = self.unit_per_scale[scale] else {
+        self.convert(mantissa, scale)
+    }
+
+    /// `mantissa × 10^-scale` units in ticks, rounded to the nearest (halves up).
+    fn convert(&self, mantissa: u64, scale: usize) -> Option<u64> {
+        let Some(unit) = *self.unit_per_scale.get(scale)? else {
             let d = Decimal {
                 mantissa: u128::from(mantissa),
                 scale: scale as u32,
@@ -218,6 +254,76 @@ impl FastLines {
     }
 }
 
+/// Bytes that can be part of a fast-path number: a delimiter among them is left to the general
+/// path.
+fn is_number_byte(b: u8) -> bool {
+    b.is_ascii_digit() || b == b'.'
+}
+
+/// The number `digits[.digits]` at the start of `field`, up to the first other byte: mantissa,
+/// digits after the point, bytes used. `None` without a digit before the point or with more
+/// than 19 digits.
+fn decimal_prefix(field: &[u8]) -> Option<(u64, usize, usize)> {
+    let (int, int_digits) = digits_prefix(field, 0, 0);
+    if int_digits == 0 {
+        return None;
+    }
+    let (mantissa, digits, point) = match field.get(int_digits) {
+        Some(b'.') => {
+            let (m, n) = digits_prefix(field.get(int_digits + 1..)?, int, int_digits);
+            (m, n, 1)
+        }
+        _ => (int, int_digits, 0),
+    };
+    if digits > MAX_TIME_DIGITS {
+        return None;
+    }
+    Some((mantissa, digits - int_digits, digits + point))
+}
+
+/// Continue `acc` (of `count` digits so far) with the digits at the start of `b`, eight at a
+/// time while there are eight; the accumulator wraps past 19 digits, which callers refuse.
+fn digits_prefix(b: &[u8], mut acc: u64, mut count: usize) -> (u64, usize) {
+    let mut rest = b;
+    while let Some(v) = rest.first_chunk::<8>().and_then(|c| eight_digits(*c)) {
+        acc = acc.wrapping_mul(100_000_000).wrapping_add(v);
+        count += 8;
+        rest = rest.get(8..).unwrap_or_default();
+    }
+    for &c in rest {
+        let d = c.wrapping_sub(b'0');
+        if d > 9 {
+            break;
+        }
+        acc = acc.wrapping_mul(10).wrapping_add(u64::from(d));
+        count += 1;
+    }
+    (acc, count)
+}
+
+/// Eight ASCII digits (the first the most significant) as a number, or `None` if any byte is
+/// not a digit: the SWAR method of Lemire's fast number parsing (two multiplications).
+fn eight_digits(chunk: [u8; 8]) -> Option<u64> {
+    let v = u64::from_le_bytes(chunk);
+    let high = 0xF0F0_F0F0_F0F0_F0F0u64;
+    // Every byte 0x30..=0x39: high nibble 3, and adding 6 does not carry into it.
+    let ok = (v & high) | (((v.wrapping_add(0x0606_0606_0606_0606)) & high) >> 4);
+    if ok != 0x3333_3333_3333_3333 {
+        return None;
+    }
+    let v = v.wrapping_sub(0x3030_3030_3030_3030);
+    let v = v.wrapping_mul(10).wrapping_add(v >> 8);
+    let mask = 0x0000_00FF_0000_00FF;
+    let mul1 = 100 + (1_000_000 << 32);
+    let mul2 = 1 + (10_000 << 32);
+    Some(
+        ((v & mask)
+            .wrapping_mul(mul1)
+            .wrapping_add(((v >> 16) & mask).wrapping_mul(mul2)))
+            >> 32,
+    )
+}
+
 /// A channel of 1..=18 plain digits.
 fn channel_number(field: &[u8]) -> Option<i64> {
     if field.is_empty() || field.len() > MAX_CHANNEL_DIGITS {
@@ -232,4 +338,41 @@ fn channel_number(field: &[u8]) -> Option<i64> {
         v = v * 10 + i64::from(d);
     }
     Some(v)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn eight_digits_at_once_or_none() {
+        assert_eq!(eight_digits(*b"12345678"), Some(12_345_678));
+        assert_eq!(eight_digits(*b"00000009"), Some(9));
+        assert_eq!(eight_digits(*b"99999999"), Some(99_999_999));
+        // The bytes either side of '0'..='9' ('/' and ':'), a letter, a point, a high byte.
+        for bad in [
+            b"/0000000",
+            b"0000000:",
+            b"1234a678",
+            b"1234.678",
+            b"1234\xB5678",
+        ] {
+            assert_eq!(eight_digits(*bad), None, "{bad:?}");
+        }
+    }
+
+    #[test]
+    fn decimal_prefix_stops_at_the_first_other_byte() {
+        assert_eq!(
+            decimal_prefix(b"1234567890.125;3"),
+            Some((1_234_567_890_125, 3, 14))
+        );
+        assert_eq!(decimal_prefix(b"7.;"), Some((7, 0, 2)));
+        assert_eq!(decimal_prefix(b".5"), None);
+        assert_eq!(decimal_prefix(b"12345678901234567890"), None); // 20 digits
+        assert_eq!(
+            decimal_prefix(b"1234567890123456789"),
+            Some((1_234_567_890_123_456_789, 0, 19))
+        );
+    }
 }
