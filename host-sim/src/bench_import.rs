@@ -236,17 +236,20 @@ pub fn binary_import() -> Result<BinaryImport, AnyErr> {
     Ok(BinaryImport::new(layout, None, BINARY_TICK_PS)?)
 }
 
-/// The best (shortest) of `reps` runs of `f`, in seconds, and the last run's result.
+/// The best (shortest) of `reps` runs of `f` (at least one), in seconds, and the last result.
 fn best_of<T>(reps: usize, mut f: impl FnMut() -> T) -> (f64, T) {
-    let mut best = f64::INFINITY;
-    let mut last = None;
-    for _ in 0..reps.max(1) {
+    let mut timed = || {
         let t0 = Instant::now();
         let out = black_box(f());
-        best = best.min(t0.elapsed().as_secs_f64());
-        last = Some(out);
+        (t0.elapsed().as_secs_f64(), out)
+    };
+    let (mut best, mut last) = timed();
+    for _ in 1..reps {
+        let (s, out) = timed();
+        best = best.min(s);
+        last = out;
     }
-    (best, last.unwrap_or_else(|| f()))
+    (best, last)
 }
 
 /// Text read floor: block reads through [`BufRead::fill_buf`], counting `\n` bytes by plain

@@ -71,7 +71,7 @@ pub(crate) fn put_varint(out: &mut Vec<u8>, v: u64) {
 fn write_varint(dst: &mut [u8], v: u64) -> usize {
     if v < 1 << 56 {
         let bits = 64 - (v | 1).leading_zeros();
-        let n = (bits + 6) / 7;
+        let n = bits.div_ceil(7);
         let mut spread = 0u64;
         for g in 0..8 {
             spread |= (v << g) & (0x7F << (8 * g));

@@ -253,7 +253,7 @@ impl TextImport {
                 if !carry.is_empty() {
                     read += carry.len() as u64;
                     self.line(&carry, &mut lines, &mut resolved, &mut fast)?;
-                    if lines.t.lines % 4096 == 0 {
+                    if lines.t.lines.is_multiple_of(4096) {
                         progress(read);
                     }
                 }
@@ -273,7 +273,7 @@ impl TextImport {
                 read += raw.len() as u64;
                 self.line(raw, &mut lines, &mut resolved, &mut fast)?;
                 carry.clear();
-                if lines.t.lines % 4096 == 0 {
+                if lines.t.lines.is_multiple_of(4096) {
                     progress(read);
                 }
             }
