@@ -116,7 +116,7 @@ Benchmarks of the core on simulated links; figures come from here, not from test
 Without a subcommand, `slotwise bench` runs the pipeline benchmark (same as `slotwise bench
 pipeline`): throughput of the whole receiver on three simulated captures (default link, 1 GHz
 high rate, 1e-6 per slot), the read floor, stage shares and scaling tables. `slotwise bench sync`
-is the clock-recovery benchmark.")]
+is the clock-recovery benchmark; `slotwise bench import` measures `slotwise import`.")]
     Bench(BenchArgs),
     Import(import_args::ImportArgs),
     Profile(profile_args::ProfileArgs),
@@ -143,6 +143,9 @@ pub enum BenchCommand {
     /// Clock recovery: period error against the Cramér-Rao bound, detections to lock, false locks
     /// on noise, relock after a blackout and a phase jump, cost per detection.
     Sync(crate::bench_sync::BenchSyncArgs),
+    /// Import throughput: `import text` lines/s and `import binary` records/s against the read
+    /// floor and the capture writer alone, on generated in-memory exports.
+    Import(crate::bench_import::BenchImportArgs),
 }
 
 /// How the transmitter's answers reach the receiver.
@@ -276,6 +279,7 @@ pub fn run(cli: Cli) -> Result<(), AnyErr> {
         Command::Bench(b) => match b.command {
             Some(BenchCommand::Sync(a)) => bench_sync(&a),
             Some(BenchCommand::Pipeline(a)) => bench_pipeline(&a),
+            Some(BenchCommand::Import(a)) => emit(a.json, &crate::bench_import::run(&a)?),
             None => bench_pipeline(&b.pipeline),
         },
     }

@@ -2,6 +2,7 @@
 //! firmware core, and the reports behind the `slotwise` command.
 #![allow(missing_docs)]
 
+pub mod bench_import;
 pub mod bench_pipeline;
 pub mod bench_sync;
 pub mod capture;

@@ -32,6 +32,7 @@ pub(crate) const OFF_END_EVENTS: usize = 12;
 pub(crate) const MAX_EVENT_BYTES: u64 = 11;
 
 /// Signed step from `prev` to `cur` on a counter circle of `mask + 1` values, zigzag-mapped.
+#[inline]
 pub(crate) fn zigzag_step(prev: u64, cur: u64, mask: u64) -> u64 {
     let d = cur.wrapping_sub(prev) & mask;
     let half = (mask >> 1) + 1;
@@ -50,13 +51,50 @@ pub(crate) fn apply_step(prev: u64, zigzag: u64, mask: u64) -> u64 {
     prev.wrapping_add(signed as u64) & mask
 }
 
+/// Room [`write_varint`] needs after its start, in bytes (it may write past the varint's end).
+const VARINT_ROOM: usize = 16;
+
 /// Append `v` as an unsigned LEB128 varint.
-pub(crate) fn put_varint(out: &mut Vec<u8>, mut v: u64) {
-    while v >= 0x80 {
-        out.push((v as u8) | 0x80);
-        v >>= 7;
+#[cfg(test)]
+pub(crate) fn put_varint(out: &mut Vec<u8>, v: u64) {
+    let mut b = [0u8; VARINT_ROOM];
+    let n = write_varint(&mut b, v);
+    out.extend_from_slice(b.get(..n).unwrap_or_default());
+}
+
+/// Write `v` as an unsigned LEB128 varint at the start of `dst` (at least [`VARINT_ROOM`]
+/// bytes; the bytes after the varint are scratch) and return its length.
+///
+/// Below 2^56 (eight 7-bit groups, every counter step of a real capture) the groups are spread
+/// into one 64-bit word and stored at once, without a branch per byte.
+#[inline]
+fn write_varint(dst: &mut [u8], v: u64) -> usize {
+    if v < 1 << 56 {
+        let bits = 64 - (v | 1).leading_zeros();
+        let n = bits.div_ceil(7);
+        let mut spread = 0u64;
+        for g in 0..8 {
+            spread |= (v << g) & (0x7F << (8 * g));
+        }
+        let more = 0x8080_8080_8080_8080u64 & ((1u64 << (8 * (n - 1))) - 1);
+        if let Some(d) = dst.get_mut(..8) {
+            d.copy_from_slice(&(spread | more).to_le_bytes());
+        }
+        return n as usize;
     }
-    out.push(v as u8);
+    let mut v = v;
+    let mut n = 0;
+    while v >= 0x80 {
+        if let Some(d) = dst.get_mut(n) {
+            *d = (v as u8) | 0x80;
+        }
+        v >>= 7;
+        n += 1;
+    }
+    if let Some(d) = dst.get_mut(n) {
+        *d = v as u8;
+    }
+    n + 1
 }
 
 /// Read an unsigned LEB128 varint from the front of `b`: value and bytes used.
@@ -82,7 +120,9 @@ pub(crate) fn get_varint(b: &[u8]) -> Result<(u64, usize), ErrorKind> {
 #[derive(Debug)]
 pub(crate) struct BlockEncoder {
     mask: u64,
+    /// `payload[..len]` is the block's payload; the rest is room for the next event.
     payload: Vec<u8>,
+    len: usize,
     events: u32,
     first: u64,
     prev: u64,
@@ -93,7 +133,13 @@ impl BlockEncoder {
     pub(crate) fn new(mask: u64, capacity: u32) -> Self {
         Self {
             mask,
-            payload: Vec::with_capacity((capacity as usize).saturating_mul(4)),
+            payload: vec![
+                0;
+                (capacity as usize)
+                    .saturating_mul(4)
+                    .max(MAX_EVENT_BYTES as usize)
+            ],
+            len: 0,
             events: 0,
             first: 0,
             prev: 0,
@@ -106,16 +152,23 @@ impl BlockEncoder {
     }
 
     /// Add one event (count already checked against the mask).
+    #[inline]
     pub(crate) fn push(&mut self, ev: TdcEvent) {
+        let room = self.len + VARINT_ROOM + 1;
+        if self.payload.len() < room {
+            self.payload.resize(room.max(self.payload.len() * 2), 0);
+        }
         if self.events == 0 {
             self.first = ev.count;
         } else {
-            put_varint(
-                &mut self.payload,
-                zigzag_step(self.prev, ev.count, self.mask),
-            );
+            let step = zigzag_step(self.prev, ev.count, self.mask);
+            let dst = self.payload.get_mut(self.len..).unwrap_or_default();
+            self.len += write_varint(dst, step);
         }
-        self.payload.push(ev.channel);
+        if let Some(b) = self.payload.get_mut(self.len) {
+            *b = ev.channel;
+        }
+        self.len += 1;
         self.prev = ev.count;
         self.events += 1;
     }
@@ -126,12 +179,12 @@ impl BlockEncoder {
         out.extend_from_slice(&BLOCK_SYNC);
         out.extend_from_slice(&index.to_le_bytes());
         out.extend_from_slice(&self.events.to_le_bytes());
-        out.extend_from_slice(&(self.payload.len() as u32).to_le_bytes());
+        out.extend_from_slice(&(self.len as u32).to_le_bytes());
         out.extend_from_slice(&self.first.to_le_bytes());
-        out.extend_from_slice(&self.payload);
+        out.extend_from_slice(self.payload.get(..self.len).unwrap_or_default());
         let crc = crc32c(out.get(start..).unwrap_or_default());
         out.extend_from_slice(&crc.to_le_bytes());
-        self.payload.clear();
+        self.len = 0;
         self.events = 0;
     }
 }
@@ -344,6 +397,28 @@ mod tests {
         let mut b = Vec::new();
         put_varint(&mut b, 300);
         assert_eq!(b, [0xAC, 0x02]);
+        // The word-at-a-time encoder against the plain byte loop, at every length's edges.
+        let plain = |mut v: u64| {
+            let mut out = Vec::new();
+            while v >= 0x80 {
+                out.push((v as u8) | 0x80);
+                v >>= 7;
+            }
+            out.push(v as u8);
+            out
+        };
+        for bits in 0..64 {
+            for v in [
+                (1u64 << bits) - 1,
+                1 << bits,
+                (1 << bits) + 1,
+                0x5555_5555_5555_5555 >> (63 - bits),
+            ] {
+                let mut b = Vec::new();
+                put_varint(&mut b, v);
+                assert_eq!(b, plain(v), "{v:#x}");
+            }
+        }
         assert_eq!(get_varint(&[0x80, 0x80]), Err(ErrorKind::VarintOverrun));
         let mut too_big = [0xFFu8; 10];
         too_big[9] = 0x02;

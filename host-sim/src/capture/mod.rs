@@ -62,7 +62,10 @@ pub const FLAG_SIMULATED: u32 = 1 << 16;
 pub const FLAG_IMPORTED: u32 = 1 << 17;
 
 /// The CRC used by header, blocks and end record: CRC-32/ISCSI (CRC-32C) of the CRC catalogue.
-pub const CAPTURE_CRC: crc::Crc<u32> = crc::Crc::<u32>::new(&crc::CRC_32_ISCSI);
+/// Computed 16 bytes per step from sixteen tables (slicing-by-16): the same values as the
+/// byte-at-a-time form, several times faster on the block payloads every write and read covers.
+pub static CAPTURE_CRC: crc::Crc<u32, crc::Table<16>> =
+    crc::Crc::<u32, crc::Table<16>>::new(&crc::CRC_32_ISCSI);
 
 /// CRC-32C of `bytes`, as stored in the capture's CRC fields.
 pub fn crc32c(bytes: &[u8]) -> u32 {

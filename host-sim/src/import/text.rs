@@ -1,15 +1,17 @@
 //! Text exports: delimited lines with a time column and a channel column.
 
 use std::fmt;
-use std::io::{BufRead, BufReader, Read, Seek, Write};
+use std::io::{self, BufRead, BufReader, Seek, Write};
 use std::path::Path;
 use std::str::FromStr;
 
 use slotwise::TdcEvent;
 
 use super::decimal::{parse_decimal, TimeUnit};
+use super::text_fast::FastLines;
 use super::{close_capture, file_to_file, open_capture, CaptureTdc, ImportError, ImportSummary};
-use super::{MAX_CAPTURE_CHANNEL, MAX_LINE_BYTES};
+use super::{MAX_CAPTURE_CHANNEL, MAX_LINE_BYTES, READ_BLOCK_BYTES};
+use crate::capture::CaptureWriter;
 
 /// A column of a text export: by its header name, or by its number counted from 1.
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -128,7 +130,8 @@ pub struct TextImport {
 
 /// Summary row of events whose channel the map does not name.
 pub(super) const DROP_UNMAPPED: &str = "channel not in map";
-const DROP_RANGE: &str = "channel out of range";
+/// Summary row of events on a channel above the highest one.
+pub(super) const DROP_RANGE: &str = "channel out of range";
 
 /// Running counts of a text import.
 #[derive(Default)]
@@ -172,7 +175,8 @@ impl TextImport {
         progress: impl FnMut(u64),
     ) -> Result<ImportSummary, ImportError> {
         file_to_file(input, out, |file, name, w, out_name| {
-            self.run(BufReader::new(file), name, w, out_name, progress)
+            let r = BufReader::with_capacity(READ_BLOCK_BYTES, file);
+            self.run(r, name, w, out_name, progress)
         })
     }
 
@@ -230,68 +234,57 @@ impl TextImport {
                     .map_err(|(_, reason)| ImportError::Options(reason))?,
             ),
         };
-        let mut buf = Vec::new();
+        let mut fast = resolved.as_ref().and_then(|c| self.fast(c));
         let mut read = 0u64;
+        // A line cut by the end of the reader's buffer, completed from the next one.
+        let mut carry: Vec<u8> = Vec::new();
+        let mut lines = Lines {
+            source,
+            out_name,
+            mask,
+            writer: &mut writer,
+            t: &mut t,
+        };
         loop {
-            buf.clear();
-            let limit = MAX_LINE_BYTES as u64 + 1;
-            let n = (&mut r)
-                .take(limit)
-                .read_until(b'\n', &mut buf)
-                .map_err(|e| ImportError::io(source, e))?;
-            if n == 0 {
+            let buf = match r.fill_buf() {
+                Ok(b) => b,
+                Err(e) if e.kind() == io::ErrorKind::Interrupted => continue,
+                Err(e) => return Err(ImportError::io(source, e)),
+            };
+            if buf.is_empty() {
+                if !carry.is_empty() {
+                    read += carry.len() as u64;
+                    self.line(&carry, &mut lines, &mut resolved, &mut fast)?;
+                    if lines.t.lines.is_multiple_of(4096) {
+                        progress(read);
+                    }
+                }
                 break;
             }
-            read += n as u64;
-            t.lines += 1;
-            let line_no = t.lines;
-            let err = move |field: &str, text: &str, reason: String| ImportError::Line {
-                source: source.to_owned(),
-                line: line_no,
-                field: field.to_owned(),
-                text: text.chars().take(120).collect(),
-                reason,
-            };
-            if n as u64 == limit && buf.last() != Some(&b'\n') {
-                return Err(err(
-                    "line",
-                    "",
-                    format!("longer than {MAX_LINE_BYTES} bytes"),
-                ));
-            }
-            let line = std::str::from_utf8(&buf)
-                .map_err(|_| err("line", &String::from_utf8_lossy(&buf), "not UTF-8".into()))?;
-            let line = line.trim_end_matches(['\n', '\r']);
-            let trimmed = line.trim_start();
-            if trimmed.trim_end().is_empty() {
-                t.blank += 1;
-            } else if !self.comment.is_empty() && trimmed.starts_with(self.comment.as_str()) {
-                t.comment += 1;
-            } else if let Some(cols) = &resolved {
-                let ev = self.event(line, cols, &err)?;
-                match ev {
-                    Ok(ev) => {
-                        let ev = TdcEvent {
-                            count: ev.count & mask,
-                            channel: ev.channel,
-                        };
-                        writer.push(ev).map_err(|e| ImportError::io(out_name, e))?;
-                        t.imported += 1;
-                    }
-                    Err(DROP_UNMAPPED) => t.unmapped += 1,
-                    Err(_) => t.out_of_range += 1,
+            let len = buf.len();
+            let mut start = 0;
+            for end in memchr::memchr_iter(b'\n', buf) {
+                let head = buf.get(start..=end).unwrap_or_default();
+                start = end + 1;
+                let raw = if carry.is_empty() {
+                    head
+                } else {
+                    carry.extend_from_slice(head);
+                    &carry
+                };
+                read += raw.len() as u64;
+                self.line(raw, &mut lines, &mut resolved, &mut fast)?;
+                carry.clear();
+                if lines.t.lines.is_multiple_of(4096) {
+                    progress(read);
                 }
-            } else {
-                t.header += 1;
-                let names: Vec<&str> = self.fields(line).collect();
-                resolved = Some(
-                    self.resolve(Some(&names))
-                        .map_err(|(field, reason)| err(&field, line, reason))?,
-                );
             }
-            if t.lines % 4096 == 0 {
-                progress(read);
+            carry.extend_from_slice(buf.get(start..).unwrap_or_default());
+            if carry.len() > MAX_LINE_BYTES {
+                lines.t.lines += 1;
+                return Err(lines.error(lines.t.lines, "line", "", too_long()));
             }
+            r.consume(len);
         }
         progress(read);
         let (blocks, sink) = close_capture(writer, out_name)?;
@@ -312,6 +305,65 @@ impl TextImport {
             channel_count: self.tdc.max_channel + 1,
         };
         Ok((summary, sink))
+    }
+
+    /// The fast path for data lines under the columns `cols`, if these options allow one.
+    fn fast(&self, cols: &Resolved) -> Option<FastLines> {
+        FastLines::new(
+            self.delimiter,
+            &self.comment,
+            (cols.time.0, cols.channel.0),
+            self.unit,
+            self.channel_map.as_ref(),
+            self.tdc.tick_ps,
+            self.tdc.max_channel,
+        )
+    }
+
+    /// One line as read, its `\n` included (absent only at the end of the input).
+    fn line<W: Write>(
+        &self,
+        raw: &[u8],
+        l: &mut Lines<'_, W>,
+        resolved: &mut Option<Resolved>,
+        fast: &mut Option<FastLines>,
+    ) -> Result<(), ImportError> {
+        l.t.lines += 1;
+        let line_no = l.t.lines;
+        let content = raw.strip_suffix(b"\n").unwrap_or(raw);
+        if content.len() <= MAX_LINE_BYTES {
+            if let Some(ev) = fast.as_ref().and_then(|f| f.event(content)) {
+                return l.push(ev);
+            }
+        }
+        let source = l.source;
+        let err = move |field: &str, text: &str, reason: String| {
+            line_error(source, line_no, field, text, reason)
+        };
+        if content.len() > MAX_LINE_BYTES {
+            return Err(err("line", "", too_long()));
+        }
+        let line = std::str::from_utf8(raw)
+            .map_err(|_| err("line", &String::from_utf8_lossy(raw), "not UTF-8".into()))?;
+        let line = line.trim_end_matches(['\n', '\r']);
+        let trimmed = line.trim_start();
+        if trimmed.trim_end().is_empty() {
+            l.t.blank += 1;
+        } else if !self.comment.is_empty() && trimmed.starts_with(self.comment.as_str()) {
+            l.t.comment += 1;
+        } else if let Some(cols) = resolved {
+            let ev = self.event(line, cols, &err)?;
+            l.push(ev)?;
+        } else {
+            l.t.header += 1;
+            let names: Vec<&str> = self.fields(line).collect();
+            let cols = self
+                .resolve(Some(&names))
+                .map_err(|(field, reason)| err(&field, line, reason))?;
+            *fast = self.fast(&cols);
+            *resolved = Some(cols);
+        }
+        Ok(())
     }
 
     fn fields<'a>(&self, line: &'a str) -> impl Iterator<Item = &'a str> + 'a {
@@ -402,11 +454,165 @@ impl TextImport {
     }
 }
 
+/// The state a line updates: the capture being written and the running counts.
+struct Lines<'a, W: Write> {
+    source: &'a str,
+    out_name: &'a str,
+    mask: u64,
+    writer: &'a mut CaptureWriter<W>,
+    t: &'a mut Tally,
+}
+
+impl<W: Write> Lines<'_, W> {
+    /// Write a data line's event, or count why it was dropped.
+    #[inline]
+    fn push(&mut self, ev: Result<TdcEvent, &'static str>) -> Result<(), ImportError> {
+        match ev {
+            Ok(ev) => {
+                let ev = TdcEvent {
+                    count: ev.count & self.mask,
+                    channel: ev.channel,
+                };
+                self.writer
+                    .push(ev)
+                    .map_err(|e| ImportError::io(self.out_name, e))?;
+                self.t.imported += 1;
+            }
+            Err(DROP_UNMAPPED) => self.t.unmapped += 1,
+            Err(_) => self.t.out_of_range += 1,
+        }
+        Ok(())
+    }
+
+    fn error(&self, line: u64, field: &str, text: &str, reason: String) -> ImportError {
+        line_error(self.source, line, field, text, reason)
+    }
+}
+
+/// A line error; the text is cut to 120 characters.
+fn line_error(source: &str, line: u64, field: &str, text: &str, reason: String) -> ImportError {
+    ImportError::Line {
+        source: source.to_owned(),
+        line,
+        field: field.to_owned(),
+        text: text.chars().take(120).collect(),
+        reason,
+    }
+}
+
+fn too_long() -> String {
+    format!("longer than {MAX_LINE_BYTES} bytes")
+}
+
 impl fmt::Display for Column {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::Name(n) => f.write_str(n),
             Self::Number(n) => write!(f, "{n}"),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::*;
+
+    const UNITS: [TimeUnit; 5] = [
+        TimeUnit::Ps,
+        TimeUnit::Ns,
+        TimeUnit::Us,
+        TimeUnit::S,
+        TimeUnit::Ticks,
+    ];
+
+    fn import(delimiter: Delimiter, unit: TimeUnit, tick_ps: u32, map: bool) -> TextImport {
+        TextImport {
+            delimiter,
+            header: false,
+            time: Column::Number(1),
+            channel: Column::Number(2),
+            unit,
+            channel_map: map.then(|| ChannelMap(vec![(1, 0), (2, 1), (300, 2), (-1, 3)])),
+            comment: "#".into(),
+            tdc: CaptureTdc {
+                counter_bits: 64,
+                tick_ps,
+                max_channel: 3,
+            },
+        }
+    }
+
+    /// The fast path's answer, if it gives one, and the general path's, for one line.
+    type Answers = (
+        Option<Result<TdcEvent, &'static str>>,
+        Result<Result<TdcEvent, &'static str>, String>,
+    );
+
+    fn both(imp: &TextImport, cols: (usize, usize), line: &str) -> Answers {
+        let mut imp = imp.clone();
+        imp.time = Column::Number(cols.0 + 1);
+        imp.channel = Column::Number(cols.1 + 1);
+        let resolved = imp.resolve(None).unwrap();
+        let fast = imp.fast(&resolved).expect("these options have a fast path");
+        let err =
+            |field: &str, text: &str, reason: String| line_error("mem.txt", 1, field, text, reason);
+        let general = imp
+            .event(line.trim_end_matches(['\n', '\r']), &resolved, &err)
+            .map_err(|e| e.to_string());
+        (fast.event(line.as_bytes()), general)
+    }
+
+    #[test]
+    fn plain_lines_take_the_fast_path() {
+        let imp = import(Delimiter::Char(';'), TimeUnit::Ns, 1, true);
+        let ev = |count, channel| Some(Ok(TdcEvent { count, channel }));
+        // 12.345 ns = 12 345 ps (SI prefix, common practice).
+        assert_eq!(both(&imp, (0, 1), "12.345;2\r").0, ev(12_345, 1));
+        assert_eq!(both(&imp, (1, 0), "300;7.5").0, ev(7_500, 2));
+        assert_eq!(both(&imp, (0, 1), "5;9").0, Some(Err(DROP_UNMAPPED)));
+        // Quotes, padding, signs and exponents are the general path's.
+        for line in ["\"5\";1", "5 ;1", "+5;1", "5e1;1", "5;-1", ".5;1"] {
+            assert_eq!(both(&imp, (0, 1), line).0, None, "{line}");
+        }
+    }
+
+    fn field() -> impl Strategy<Value = String> {
+        prop_oneof![
+            4 => "[0-9]{1,21}(\\.[0-9]{0,21})?",
+            4 => "[0-9]{1,4}",
+            1 => "[0-9 .+\"e-]{0,6}",
+            1 => "[0-9]{1,3}\\.[0-9]{1,3}e-?[0-9]",
+        ]
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(3000))]
+
+        /// Whenever the fast path decides a line, the general path decides it the same way.
+        #[test]
+        fn the_fast_path_agrees_with_the_general_path(
+            delim in 0usize..6,
+            unit in 0usize..5,
+            tick_ps in prop_oneof![Just(1u32), 1u32..=20, Just(1000), Just(u32::MAX)],
+            map in any::<bool>(),
+            cols in (0usize..3, 0usize..3),
+            fields in prop::collection::vec(field(), 1..5),
+            cr in any::<bool>(),
+        ) {
+            let (delimiter, sep) = [
+                (Delimiter::Char(','), ","),
+                (Delimiter::Char(';'), ";"),
+                (Delimiter::Char('\t'), "\t"),
+                (Delimiter::Char(' '), " "),
+                (Delimiter::Char('|'), "|"),
+                (Delimiter::Whitespace, " \t "),
+            ][delim];
+            let imp = import(delimiter, UNITS[unit], tick_ps, map);
+            let line = fields.join(sep) + if cr { "\r" } else { "" };
+            if let (Some(fast), general) = both(&imp, cols, &line) {
+                prop_assert_eq!(Ok(fast), general, "{:?}", line);
+            }
         }
     }
 }
