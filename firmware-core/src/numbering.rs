@@ -55,7 +55,10 @@
 //! ```
 
 use crate::clock::{Numbered, SlotClock};
-use crate::frame::{AlignState, FrameConfig, FrameError, MarkerSpec, SlotHint, StandardAligner};
+use crate::frame::{
+    AlignState, FrameConfig, FrameError, MarkerSpec, SlotHint, StandardAligner, StandardWindow,
+    WindowState,
+};
 
 /// A numbering stage: the transmitter's absolute slot number for a clock's located, gated slot.
 pub trait Numbering {
@@ -116,12 +119,18 @@ impl Numbering for Absolute {
 #[derive(Clone, Debug)]
 pub struct MarkerNumbering {
     aligner: StandardAligner,
-    spec: MarkerSpec,
+    /// The hint-window test, run beside the full search while the hint's bound allows it.
+    window: StandardWindow,
+    cfg: FrameConfig,
     epoch: u32,
     /// The latest hint: (receiver time in ps, transmitter slot).
     hint: Option<(u64, u64)>,
     /// Realignments after the first (epoch changes or misalignments).
     realignments: u32,
+    /// Window decisions that disagreed with an offset the full search had confirmed (refused).
+    window_conflicts: u32,
+    /// Whether the offset in use came from the hint window.
+    by_window: bool,
 }
 
 impl MarkerNumbering {
@@ -129,11 +138,36 @@ impl MarkerNumbering {
     pub fn new(frame: FrameConfig) -> Result<Self, FrameError> {
         Ok(Self {
             aligner: StandardAligner::new(frame)?,
-            spec: *frame.spec(),
+            window: StandardWindow::new(),
+            cfg: frame,
             epoch: 0,
             hint: None,
             realignments: 0,
+            window_conflicts: 0,
+            by_window: false,
         })
+    }
+
+    /// The hint-window test (fast alignment from a bounded hint).
+    pub const fn window(&self) -> &StandardWindow {
+        &self.window
+    }
+
+    /// Gated detections taken in until the offset in use was established, and whether the hint
+    /// window (rather than the full search) established it; `None` while not aligned.
+    pub fn aligned_after(&self) -> Option<(u64, bool)> {
+        if !self.aligned() {
+            return None;
+        }
+        self.aligner
+            .stats()
+            .locked_after
+            .map(|n| (n, self.by_window))
+    }
+
+    /// Window decisions refused because the full search had confirmed another offset.
+    pub const fn window_conflicts(&self) -> u32 {
+        self.window_conflicts
     }
 
     /// The frame aligner.
@@ -149,6 +183,41 @@ impl MarkerNumbering {
     /// Whether detections get absolute slot numbers now.
     pub fn aligned(&self) -> bool {
         matches!(self.aligner.state(), AlignState::Aligned { .. })
+    }
+
+    /// Open the hint window once the clock can place the hint, unless the search already locked.
+    fn open_window<C: SlotClock + ?Sized>(&mut self, clock: &C) {
+        if self.window.state() != WindowState::Idle || self.aligned() {
+            return;
+        }
+        let Some((t_ps, tx_slot)) = self.hint else {
+            return;
+        };
+        let Some(local_slot) = clock.slot_at(t_ps) else {
+            return;
+        };
+        let centre = i128::from(tx_slot) - i128::from(local_slot);
+        match i64::try_from(centre) {
+            Ok(c) => self.window.open(&self.cfg, c),
+            Err(_) => self.window.close(),
+        }
+    }
+
+    /// Take the window's offset unless it contradicts an offset the full search confirmed.
+    fn accept_window(&mut self, offset: i64) {
+        let p = i128::from(self.cfg.spec().period_slots());
+        match self.aligner.state() {
+            AlignState::Aligned { .. } => {}
+            AlignState::AwaitingHint { offset_mod_period }
+                if i128::from(offset).rem_euclid(p) != i128::from(offset_mod_period) =>
+            {
+                self.window_conflicts += 1;
+            }
+            _ => {
+                self.aligner.assume_offset(offset);
+                self.by_window = true;
+            }
+        }
     }
 
     fn apply_hint<C: SlotClock + ?Sized>(&mut self, clock: &C) {
@@ -179,6 +248,8 @@ impl Numbering for MarkerNumbering {
             }
             self.epoch = epoch;
             self.aligner.restart();
+            self.window.reset();
+            self.by_window = false;
         }
         self.aligner.observe(slot, z_bit);
         match self.aligner.state() {
@@ -186,11 +257,18 @@ impl Numbering for MarkerNumbering {
             AlignState::Misaligned { .. } => {
                 self.realignments += 1;
                 self.aligner.restart();
+                self.by_window = false;
             }
             _ => {}
         }
+        self.open_window(clock);
+        if self.aligned() {
+            self.window.close();
+        } else if let Some(offset) = self.window.observe(&self.cfg, slot, z_bit) {
+            self.accept_window(offset);
+        }
         match self.aligner.to_absolute(slot) {
-            Some(abs) if self.spec.is_marker_slot(abs) => Numbered::Marker,
+            Some(abs) if self.cfg.is_marker_slot(abs) => Numbered::Marker,
             Some(abs) => Numbered::Slot(abs),
             None => Numbered::Unaligned,
         }
@@ -199,5 +277,6 @@ impl Numbering for MarkerNumbering {
     fn hint<C: SlotClock + ?Sized>(&mut self, clock: &C, t_ps: u64, tx_slot: u64) {
         self.hint = Some((t_ps, tx_slot));
         self.apply_hint(clock);
+        self.open_window(clock);
     }
 }

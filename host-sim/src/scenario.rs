@@ -116,6 +116,10 @@ pub struct Scenario {
     /// 64th slot is vacuum or a Z pulse at the signal intensity, and carries no key.
     #[serde(default = "default_true")]
     pub marker: bool,
+    /// Error of the simulated hello (slot hint), µs: the hint is off by this much worth of slots,
+    /// and the receiver's profile states it as its bound (default 300, `clocks::HINT_ERROR_S`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hint_error_us: Option<f64>,
     /// Alarm thresholds, the `[alarms]` table (default: the board's defaults).
     #[serde(default, skip_serializing_if = "AlarmsToml::is_default")]
     pub alarms: AlarmsToml,
@@ -181,6 +185,9 @@ impl Scenario {
         }
         c.range("duration_s", self.duration_s, Open(0.0), Closed(100_000.0))?;
         c.range("rep_rate_hz", self.rep_rate_hz, Closed(1e3), Closed(1e11))?;
+        if let Some(us) = self.hint_error_us {
+            c.range("hint_error_us", us, Closed(0.0), Closed(1e6))?;
+        }
         c.range("p_z", self.p_z, Open(0.0), Open(1.0))?;
         if self.protocol == Protocol::Bb84 && self.p_z != 0.5 {
             return Err(c.err("p_z", "protocol \"bb84\" chooses bases with p_z = 0.5"));
