@@ -34,6 +34,11 @@
 //!    in vacuum marker slots and wrong marker Z bits raises [`AlignState::Misaligned`]. A
 //!    [`SlotHint`] turns the offset modulo P into the absolute [`AlignState::Aligned`] offset.
 //!
+//! 5. **Hint window** ([`window`]): with a stated hint error bound ±H
+//!    ([`FrameConfig::with_hint_error_slots`]), the 2H + 1 offsets it leaves are tested directly by
+//!    their contradictions, in a few thousand detections instead of the search's ~24 000; the
+//!    numbering stage runs it beside the search.
+//!
 //! Receivers exclude marker slots from sifting with [`MarkerSpec::is_marker_slot`].
 
 mod aligner;

@@ -15,6 +15,25 @@
 //!   raised by the marker check restarts the alignment, so no detection is numbered with a stale
 //!   offset.
 //!
+//! # Fast alignment from a bounded hint
+//!
+//! The full search finds the offset modulo P from the stream alone (about 24 000 detections) and
+//! uses the hint only at the end. When the configuration states the hint's error bound ±H
+//! ([`FrameConfig::with_hint_error_slots`]), the hint leaves only 2H + 1 candidate offsets, and
+//! [`crate::frame::window`] tests them directly: each detection contradicts the candidates that
+//! put it on a vacuum marker slot or on a pulse with the other Z bit, and the candidate with the
+//! fewest contradictions is accepted once its likelihood ratio against the runner-up passes a
+//! Ville/union-bound threshold (wrong offset ≤ 2^−`window_bits` = 2^−20 when the truth lies in
+//! the window). That needs about 3 000 detections at ±1000 slots, whatever the rate, because the
+//! evidence is the wrong candidates' contradictions, which arrive per detection, not per period.
+//! This was chosen over speeding up the search (its residue and shift stages need the marker's
+//! statistics to build up over ~P/D marker slots) and over a store of raw detections searched
+//! over P (memory and work grow with P, not with H). Both run: the first to reach its bound
+//! sets the offset, a window decision that contradicts a confirmed search result is refused
+//! and counted, and the lock monitors check the offset after either. A bound wider than the
+//! window's capacity `W` (±(W − 1)/2 slots) leaves only the full search. `docs/marker.md` §7
+//! has the derivation, the assumption it rests on and the figures.
+//!
 //! # Examples
 //!
 //! A distributed reference clock whose slot 0 is the transmitter's, with the public marker
@@ -56,7 +75,7 @@
 
 use crate::clock::{Numbered, SlotClock};
 use crate::frame::{
-    AlignState, FrameConfig, FrameError, MarkerSpec, SlotHint, StandardAligner, StandardWindow,
+    AlignState, FrameConfig, FrameError, HintWindow, MarkerSpec, SlotHint, StandardAligner,
     WindowState,
 };
 
@@ -115,12 +134,13 @@ impl Numbering for Absolute {
     }
 }
 
-/// Absolute numbers from the public marker: frame alignment plus a coarse hint.
+/// Absolute numbers from the public marker: frame alignment plus a coarse hint; the hint window
+/// holds `W` candidate offsets (2 bytes each; hint bounds up to ±(W − 1)/2 slots).
 #[derive(Clone, Debug)]
-pub struct MarkerNumbering {
+pub struct MarkerNumbering<const W: usize = 2048> {
     aligner: StandardAligner,
     /// The hint-window test, run beside the full search while the hint's bound allows it.
-    window: StandardWindow,
+    window: HintWindow<W>,
     cfg: FrameConfig,
     epoch: u32,
     /// The latest hint: (receiver time in ps, transmitter slot).
@@ -133,12 +153,12 @@ pub struct MarkerNumbering {
     by_window: bool,
 }
 
-impl MarkerNumbering {
+impl<const W: usize> MarkerNumbering<W> {
     /// An aligner for the marker described by `frame`.
     pub fn new(frame: FrameConfig) -> Result<Self, FrameError> {
         Ok(Self {
             aligner: StandardAligner::new(frame)?,
-            window: StandardWindow::new(),
+            window: HintWindow::new(),
             cfg: frame,
             epoch: 0,
             hint: None,
@@ -149,7 +169,7 @@ impl MarkerNumbering {
     }
 
     /// The hint-window test (fast alignment from a bounded hint).
-    pub const fn window(&self) -> &StandardWindow {
+    pub const fn window(&self) -> &HintWindow<W> {
         &self.window
     }
 
@@ -234,7 +254,7 @@ impl MarkerNumbering {
     }
 }
 
-impl Numbering for MarkerNumbering {
+impl<const W: usize> Numbering for MarkerNumbering<W> {
     fn number<C: SlotClock + ?Sized>(
         &mut self,
         clock: &C,
@@ -278,5 +298,34 @@ impl Numbering for MarkerNumbering {
         self.hint = Some((t_ps, tx_slot));
         self.apply_hint(clock);
         self.open_window(clock);
+    }
+}
+
+// The numbering's state: the full search (≤ 2 KiB), the hint window (4 KiB of counters) and a
+// few words; bounded on every target this builds for.
+const _: () = assert!(core::mem::size_of::<MarkerNumbering>() <= 6_400);
+const _: () = assert!(core::mem::size_of::<MarkerNumbering<512>>() <= 3_328);
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::frame::window::StandardWindow;
+
+    /// Bytes of the numbering and its parts. Run with `-- --nocapture numbering_size_report`.
+    #[test]
+    fn numbering_size_report() {
+        use core::mem::size_of;
+        let total = size_of::<MarkerNumbering>();
+        let parts = [
+            ("aligner", size_of::<StandardAligner>()),
+            ("window", size_of::<StandardWindow>()),
+            ("cfg", size_of::<FrameConfig>()),
+        ];
+        eprintln!("MarkerNumbering: {total} B");
+        for (name, bytes) in parts {
+            eprintln!("  {name:<10} {bytes:>6} B");
+        }
+        let known: usize = parts.iter().map(|p| p.1).sum();
+        assert!(known <= total && total - known <= 64, "{total} vs {known}");
     }
 }

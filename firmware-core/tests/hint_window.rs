@@ -2,8 +2,10 @@
 //! detections to align against the hint's error bound and the link's rate, and wrong hints.
 
 use proptest::prelude::*;
+use slotwise::fixed::types::U32F32;
 use slotwise::frame::window::GIVE_UP_AFTER;
-use slotwise::frame::{FrameConfig, MarkerSpec, StandardWindow, WindowState};
+use slotwise::frame::{AlignState, FrameConfig, MarkerSpec, StandardWindow, WindowState};
+use slotwise::{FixedClock, MarkerNumbering, Numbering};
 
 mod common;
 use common::{Link, Rng, Stream};
@@ -89,6 +91,27 @@ fn detections_to_align_table() {
             ns.len()
         );
     }
+    // Hints outside their bound of ±1000: off by 1001..=5000 slots, or by whole inner periods,
+    // outer periods or spacings beyond the bound.
+    let (mut wrong, mut right, mut closed) = (0, 0, 0);
+    for seed in 1..=400u64 {
+        let mut r = Rng(seed);
+        let k = (r.next() % 5 + 1) as i64;
+        let err = match seed % 4 {
+            0 => 1_001 + (r.next() % 4_000) as i64,
+            1 => 8_128 * k,
+            2 => 32_704 * k,
+            _ => (16 + k) * 64,
+        } * if r.next() & 1 == 0 { 1 } else { -1 };
+        match window_run(Link::at(1e-3), 1_000, err, seed) {
+            (WindowState::Accepted { offset: o }, _, offset) if o == offset as i64 => right += 1,
+            (WindowState::Accepted { .. }, _, _) => wrong += 1,
+            _ => closed += 1,
+        }
+    }
+    println!(
+        "hints outside a bound of ±1000, 400 runs: wrong {wrong}, right {right}, given up {closed}"
+    );
 }
 
 /// The price of the bound: detections to align at p = 1e-3 for two error exponents and two
@@ -207,6 +230,59 @@ proptest! {
         prop_assert!(
             !matches!(st, WindowState::Accepted { offset: o } if o != offset as i64),
             "err {err}: {st:?}"
+        );
+    }
+}
+
+/// A marker numbering on a 1 ns fixed clock with a hint `err` slots off the truth, its bound
+/// stated as ±1000 slots; detections until aligned. Returns the numbering and the true offset.
+fn numbering_run(err: i64, seed: u64) -> (MarkerNumbering, u64) {
+    let fixed = FixedClock::new(U32F32::from_num(1_000), 0).unwrap();
+    let cfg = FrameConfig::standard().with_hint_error_slots(Some(1_000));
+    let mut num = MarkerNumbering::new(cfg).unwrap();
+    let offset = Rng(seed).next() >> 24;
+    // At 1 µs the receiver's local slot is 1000; the transmitter's counter then, off by `err`.
+    num.hint(&fixed, 1_000_000, (offset + 1_000).wrapping_add_signed(err));
+    let mut s = Stream::new(Link::at(1e-3), MarkerSpec::standard(), offset, seed);
+    for _ in 0..400_000 {
+        let (slot, bit) = s.next();
+        num.number(&fixed, slot, bit);
+        if num.aligned() {
+            break;
+        }
+    }
+    (num, offset)
+}
+
+#[test]
+fn numbering_takes_the_window_within_the_bound() {
+    let (num, offset) = numbering_run(-1_000, 11);
+    let (n, by_window) = num.aligned_after().unwrap();
+    assert!(by_window && n <= 6_000, "{n} {by_window}");
+    assert_eq!(
+        num.aligner().state(),
+        AlignState::Aligned {
+            offset: offset as i64
+        }
+    );
+}
+
+#[test]
+fn hint_outside_its_bound_falls_back_to_the_search() {
+    // Off by 3000 slots against a stated ±1000: the window gives up (counted) and the full
+    // search aligns on the true offset, resolving the period with the same hint (§3: any error
+    // below P/2 does). Four seeds; never a wrong offset.
+    for seed in 1..=4u64 {
+        let (num, offset) = numbering_run(3_000 * if seed % 2 == 0 { 1 } else { -1 }, seed);
+        let (_, by_window) = num.aligned_after().unwrap();
+        assert!(!by_window, "seed {seed}");
+        assert_eq!(num.window().stats().gave_up, 1, "seed {seed}");
+        assert_eq!(
+            num.aligner().state(),
+            AlignState::Aligned {
+                offset: offset as i64
+            },
+            "seed {seed}"
         );
     }
 }
