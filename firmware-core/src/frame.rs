@@ -276,6 +276,8 @@ pub struct FrameConfig {
     /// Stated error bound of the slot hint (± slots); `None`: unknown, no window test.
     hint_error_slots: Option<u64>,
     window_bits: u8,
+    /// Window-test evidence per contradiction, Q16 bits (from the noise share).
+    window_weight_q16: i64,
 }
 
 impl FrameConfig {
@@ -310,6 +312,7 @@ impl FrameConfig {
             weights: Weights::for_share(share as u32),
             hint_error_slots: None,
             window_bits: DEFAULT_WINDOW_BITS,
+            window_weight_q16: window::window_weight_q16(share as u32),
         })
     }
 
@@ -324,6 +327,7 @@ impl FrameConfig {
             weights: Weights::for_share(DEFAULT_NOISE_SHARE.to_bits() as u32),
             hint_error_slots: None,
             window_bits: DEFAULT_WINDOW_BITS,
+            window_weight_q16: window::window_weight_q16(DEFAULT_NOISE_SHARE.to_bits() as u32),
         }
     }
 
@@ -355,7 +359,7 @@ impl FrameConfig {
 
     /// Evidence per contradiction in the window test, Q16 bits: log2(1/(2·noise_share)).
     pub const fn window_weight_q16(&self) -> i64 {
-        window::window_weight_q16(self.noise_share_q16 as u32)
+        self.window_weight_q16
     }
 
     /// Window-test acceptance threshold for `width` candidate offsets, Q16 bits.

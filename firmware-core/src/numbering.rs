@@ -206,6 +206,7 @@ impl<const W: usize> MarkerNumbering<W> {
     }
 
     /// Open the hint window once the clock can place the hint, unless the search already locked.
+    #[inline(never)]
     fn open_window<C: SlotClock + ?Sized>(&mut self, clock: &C) {
         if self.window.state() != WindowState::Idle || self.aligned() {
             return;
@@ -224,12 +225,13 @@ impl<const W: usize> MarkerNumbering<W> {
     }
 
     /// Take the window's offset unless it contradicts an offset the full search confirmed.
+    #[inline(never)]
     fn accept_window(&mut self, offset: i64) {
-        let p = i128::from(self.cfg.spec().period_slots());
+        let p = self.cfg.spec().period_slots() as i64;
         match self.aligner.state() {
             AlignState::Aligned { .. } => {}
             AlignState::AwaitingHint { offset_mod_period }
-                if i128::from(offset).rem_euclid(p) != i128::from(offset_mod_period) =>
+                if offset.rem_euclid(p) as u64 != offset_mod_period =>
             {
                 self.window_conflicts += 1;
             }

@@ -157,6 +157,8 @@ impl<const W: usize> HintWindow<W> {
 
     /// Count one gated detection (local slot, Z bit when measured in Z; bits other than 0 and
     /// 1 count as none). Returns the offset when the test accepts it.
+    // Kept out of line: the receiver's hot loop calls it from several places.
+    #[inline(never)]
     pub fn observe(
         &mut self,
         cfg: &FrameConfig,
@@ -196,13 +198,14 @@ impl<const W: usize> HintWindow<W> {
     fn count(&mut self, spec: &MarkerSpec, local_slot: u64, bit: Option<u8>, low: i64, width: u32) {
         let d = spec.spacing();
         let base = i128::from(local_slot) + i128::from(low);
-        let first = (-base).rem_euclid(i128::from(d));
-        let start = base + first;
-        if start < 0 {
-            // Candidates that would make this slot negative are impossible; rare, not counted.
+        // D is a power of two: −base mod D from the low bits of the two's complement.
+        let first = (base as u64).wrapping_neg() & (d - 1);
+        let start = base + i128::from(first);
+        let Ok(start) = u64::try_from(start) else {
+            // Candidates that would make this slot negative (or past 2^64) are impossible.
             return;
-        }
-        let j0 = (start as u128 >> spec.spacing_log2) as u64;
+        };
+        let j0 = start >> spec.spacing_log2;
         let (n1, n2) = (spec.inner_period(), spec.outer_period());
         let (mut j1, mut j2) = ((j0 % n1) as usize, (j0 % n2) as usize);
         let step = d as usize;
