@@ -141,7 +141,6 @@ pub struct MarkerNumbering<const W: usize = 2048> {
     aligner: StandardAligner,
     /// The hint-window test, run beside the full search while the hint's bound allows it.
     window: HintWindow<W>,
-    cfg: FrameConfig,
     epoch: u32,
     /// The latest hint: (receiver time in ps, transmitter slot).
     hint: Option<(u64, u64)>,
@@ -159,7 +158,6 @@ impl<const W: usize> MarkerNumbering<W> {
         Ok(Self {
             aligner: StandardAligner::new(frame)?,
             window: HintWindow::new(),
-            cfg: frame,
             epoch: 0,
             hint: None,
             realignments: 0,
@@ -219,7 +217,7 @@ impl<const W: usize> MarkerNumbering<W> {
         };
         let centre = i128::from(tx_slot) - i128::from(local_slot);
         match i64::try_from(centre) {
-            Ok(c) => self.window.open(&self.cfg, c),
+            Ok(c) => self.window.open(self.aligner.config(), c),
             Err(_) => self.window.close(),
         }
     }
@@ -227,7 +225,7 @@ impl<const W: usize> MarkerNumbering<W> {
     /// Take the window's offset unless it contradicts an offset the full search confirmed.
     #[inline(never)]
     fn accept_window(&mut self, offset: i64) {
-        let p = self.cfg.spec().period_slots() as i64;
+        let p = self.aligner.config().spec().period_slots() as i64;
         match self.aligner.state() {
             AlignState::Aligned { .. } => {}
             AlignState::AwaitingHint { offset_mod_period }
@@ -286,11 +284,11 @@ impl<const W: usize> Numbering for MarkerNumbering<W> {
         self.open_window(clock);
         if self.aligned() {
             self.window.close();
-        } else if let Some(offset) = self.window.observe(&self.cfg, slot, z_bit) {
+        } else if let Some(offset) = self.window.observe(self.aligner.config(), slot, z_bit) {
             self.accept_window(offset);
         }
         match self.aligner.to_absolute(slot) {
-            Some(abs) if self.cfg.is_marker_slot(abs) => Numbered::Marker,
+            Some(abs) if self.aligner.config().is_marker_slot(abs) => Numbered::Marker,
             Some(abs) => Numbered::Slot(abs),
             None => Numbered::Unaligned,
         }
@@ -305,8 +303,8 @@ impl<const W: usize> Numbering for MarkerNumbering<W> {
 
 // The numbering's state: the full search (≤ 2 KiB), the hint window (4 KiB of counters) and a
 // few words; bounded on every target this builds for.
-const _: () = assert!(core::mem::size_of::<MarkerNumbering>() <= 6_400);
-const _: () = assert!(core::mem::size_of::<MarkerNumbering<512>>() <= 3_328);
+const _: () = assert!(core::mem::size_of::<MarkerNumbering>() <= 6_208);
+const _: () = assert!(core::mem::size_of::<MarkerNumbering<512>>() <= 3_136);
 
 #[cfg(test)]
 mod tests {
@@ -321,7 +319,6 @@ mod tests {
         let parts = [
             ("aligner", size_of::<StandardAligner>()),
             ("window", size_of::<StandardWindow>()),
-            ("cfg", size_of::<FrameConfig>()),
         ];
         eprintln!("MarkerNumbering: {total} B");
         for (name, bytes) in parts {
