@@ -335,7 +335,11 @@ impl std::fmt::Display for Summary {
             l.numbering, l.realignments
         )?;
         match (&l.aligned_by, l.aligned_after_detections) {
-            (Some(by), Some(n)) => writeln!(f, ", after {n} gated detections by the {by}")?,
+            (Some(by), Some(n)) => writeln!(
+                f,
+                ", after {n} gated detections by the {}",
+                by.replace('-', " ")
+            )?,
             _ => writeln!(f)?,
         }
         if let Some(t) = truth {
