@@ -294,7 +294,7 @@ pub fn build_for(
 /// Error of the scenario's simulated hello, s: its `hint_error_us`, or [`HINT_ERROR_S`]. The
 /// profile of the scenario states it as the hint's bound (`[marker] hint_error_us`).
 pub fn hint_error_s(s: &Scenario) -> f64 {
-    s.hint_error_us.map_or(HINT_ERROR_S, |us| us * 1e-6)
+    s.hint_error_us.map_or(HINT_ERROR_S, |us| us / 1e6)
 }
 
 /// The simulated hello message of the classical channel: a receiver time (on the core's time

@@ -468,6 +468,21 @@ mod tests {
     }
 
     #[test]
+    fn hint_error_defaults_to_300_us_and_is_range_checked() {
+        let s = Scenario::default_bench();
+        assert_eq!(s.hint_error_us, None);
+        assert_eq!(crate::clocks::hint_error_s(&s), 3e-4);
+        let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 0.9\nhint_error_us = 10.0");
+        let s = Scenario::from_toml_str(&text, "x.toml").unwrap();
+        assert_eq!(crate::clocks::hint_error_s(&s), 1e-5);
+        let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 0.9\nhint_error_us = -1.0");
+        let msg = Scenario::from_toml_str(&text, "x.toml")
+            .unwrap_err()
+            .to_string();
+        assert!(msg.contains("key 'hint_error_us'"), "{msg}");
+    }
+
+    #[test]
     fn out_of_range_value_names_file_line_and_key() {
         let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 1.5");
         let e = Scenario::from_toml_str(&text, "scenarios/x.toml").unwrap_err();
