@@ -34,17 +34,24 @@
 //!    in vacuum marker slots and wrong marker Z bits raises [`AlignState::Misaligned`]. A
 //!    [`SlotHint`] turns the offset modulo P into the absolute [`AlignState::Aligned`] offset.
 //!
+//! 5. **Hint window** ([`window`]): with a stated hint error bound ±H
+//!    ([`FrameConfig::with_hint_error_slots`]), the 2H + 1 offsets it leaves are tested directly by
+//!    their contradictions, in a few thousand detections instead of the search's ~24 000; the
+//!    numbering stage runs it beside the search.
+//!
 //! Receivers exclude marker slots from sifting with [`MarkerSpec::is_marker_slot`].
 
 mod aligner;
 pub mod evidence;
 pub mod mseq;
+pub mod window;
 
 pub use aligner::{FrameAligner, StandardAligner};
 use core::fmt;
 use evidence::{ceil_log2, gcd, mod_inverse, Weights, GRID_BITS, ONE_BIT_Q16};
 use fixed::types::U0F16;
 pub use mseq::{Lfsr, Prbs, SeqBits, PRBS11, PRBS15, PRBS20, PRBS23, PRBS31, PRBS7, PRBS9};
+pub use window::{HintWindow, StandardWindow, WindowState, WindowStats};
 
 /// Marker spacing D in slots: slots with `abs_slot % MARKER_SPACING == 0` are marker slots.
 pub const MARKER_SPACING: u64 = 64;
@@ -63,6 +70,9 @@ pub const DEFAULT_MONITOR_BITS: u8 = 20;
 /// Default share of marker-slot detections expected after lock to contradict the marker (dark
 /// counts in vacuum slots, wrong Z bits), as a Q0.16 fraction: 1/8. Only the lock monitor uses it.
 pub const DEFAULT_NOISE_SHARE: U0F16 = U0F16::from_bits(8_192);
+/// Default `window_bits`: the hint-window test accepts a wrong offset with probability
+/// ≤ 2^−20 when the true offset lies within the hint's stated bound.
+pub const DEFAULT_WINDOW_BITS: u8 = 20;
 
 /// Why a marker description or aligner configuration was refused.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -74,7 +84,8 @@ pub enum FrameError {
     Degree(&'static str, u8),
     /// Inner and outer periods share a factor (the register lengths must be coprime).
     NotCoprime(u8, u8),
-    /// A threshold field (`search_bits`, `confirm_bits`, `monitor_bits`) outside 1..=40.
+    /// A threshold field (`search_bits`, `confirm_bits`, `monitor_bits`, `window_bits`)
+    /// outside 1..=40.
     Bits(&'static str, u8),
     /// `noise_share` outside 1/256 ..= 3/8 (Q0.16 bits given).
     NoiseShare(u16),
@@ -262,6 +273,11 @@ pub struct FrameConfig {
     monitor_bits: u8,
     noise_share_q16: u16,
     weights: Weights,
+    /// Stated error bound of the slot hint (± slots); `None`: unknown, no window test.
+    hint_error_slots: Option<u64>,
+    window_bits: u8,
+    /// Window-test evidence per contradiction, Q16 bits (from the noise share).
+    window_weight_q16: i64,
 }
 
 impl FrameConfig {
@@ -294,6 +310,9 @@ impl FrameConfig {
             monitor_bits,
             noise_share_q16: share,
             weights: Weights::for_share(share as u32),
+            hint_error_slots: None,
+            window_bits: DEFAULT_WINDOW_BITS,
+            window_weight_q16: window::window_weight_q16(share as u32),
         })
     }
 
@@ -306,7 +325,46 @@ impl FrameConfig {
             monitor_bits: DEFAULT_MONITOR_BITS,
             noise_share_q16: DEFAULT_NOISE_SHARE.to_bits(),
             weights: Weights::for_share(DEFAULT_NOISE_SHARE.to_bits() as u32),
+            hint_error_slots: None,
+            window_bits: DEFAULT_WINDOW_BITS,
+            window_weight_q16: window::window_weight_q16(DEFAULT_NOISE_SHARE.to_bits() as u32),
         }
+    }
+
+    /// The same settings with the slot hint's stated error bound (± slots; `None`: unknown).
+    /// A bound lets the hint-window test ([`window`]) align from few detections.
+    pub const fn with_hint_error_slots(mut self, error_slots: Option<u64>) -> Self {
+        self.hint_error_slots = error_slots;
+        self
+    }
+
+    /// The same settings with the hint-window test's error exponent (bits, 1..=40).
+    pub const fn with_window_bits(mut self, bits: u8) -> Result<Self, FrameError> {
+        if bits == 0 || bits > 40 {
+            return Err(FrameError::Bits("window_bits", bits));
+        }
+        self.window_bits = bits;
+        Ok(self)
+    }
+
+    /// The slot hint's stated error bound, ± slots.
+    pub const fn hint_error_slots(&self) -> Option<u64> {
+        self.hint_error_slots
+    }
+
+    /// The hint-window test's error exponent: wrong offset accepted with probability ≤ 2^−bits.
+    pub const fn window_bits(&self) -> u8 {
+        self.window_bits
+    }
+
+    /// Evidence per contradiction in the window test, Q16 bits: log2(1/(2·noise_share)).
+    pub const fn window_weight_q16(&self) -> i64 {
+        self.window_weight_q16
+    }
+
+    /// Window-test acceptance threshold for `width` candidate offsets, Q16 bits.
+    pub const fn window_threshold_q16(&self, width: u64) -> i64 {
+        window::window_threshold_q16(self.window_bits, width)
     }
 
     /// The marker.

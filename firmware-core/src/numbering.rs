@@ -15,6 +15,25 @@
 //!   raised by the marker check restarts the alignment, so no detection is numbered with a stale
 //!   offset.
 //!
+//! # Fast alignment from a bounded hint
+//!
+//! The full search finds the offset modulo P from the stream alone (about 24 000 detections) and
+//! uses the hint only at the end. When the configuration states the hint's error bound ±H
+//! ([`FrameConfig::with_hint_error_slots`]), the hint leaves only 2H + 1 candidate offsets, and
+//! [`crate::frame::window`] tests them directly: each detection contradicts the candidates that
+//! put it on a vacuum marker slot or on a pulse with the other Z bit, and the candidate with the
+//! fewest contradictions is accepted once its likelihood ratio against the runner-up passes a
+//! Ville/union-bound threshold (wrong offset ≤ 2^−`window_bits` = 2^−20 when the truth lies in
+//! the window). That needs about 3 000 detections at ±1000 slots, whatever the rate, because the
+//! evidence is the wrong candidates' contradictions, which arrive per detection, not per period.
+//! This was chosen over speeding up the search (its residue and shift stages need the marker's
+//! statistics to build up over ~P/D marker slots) and over a store of raw detections searched
+//! over P (memory and work grow with P, not with H). Both run: the first to reach its bound
+//! sets the offset, a window decision that contradicts a confirmed search result is refused
+//! and counted, and the lock monitors check the offset after either. A bound wider than the
+//! window's capacity `W` (±(W − 1)/2 slots) leaves only the full search. `docs/marker.md` §7
+//! has the derivation, the assumption it rests on and the figures.
+//!
 //! # Examples
 //!
 //! A distributed reference clock whose slot 0 is the transmitter's, with the public marker
@@ -55,7 +74,10 @@
 //! ```
 
 use crate::clock::{Numbered, SlotClock};
-use crate::frame::{AlignState, FrameConfig, FrameError, MarkerSpec, SlotHint, StandardAligner};
+use crate::frame::{
+    AlignState, FrameConfig, FrameError, HintWindow, MarkerSpec, SlotHint, StandardAligner,
+    WindowState,
+};
 
 /// A numbering stage: the transmitter's absolute slot number for a clock's located, gated slot.
 pub trait Numbering {
@@ -112,28 +134,58 @@ impl Numbering for Absolute {
     }
 }
 
-/// Absolute numbers from the public marker: frame alignment plus a coarse hint.
+/// Absolute numbers from the public marker: frame alignment plus a coarse hint; the hint window
+/// holds `W` candidate offsets (2 bytes each; hint bounds up to ±(W − 1)/2 slots).
 #[derive(Clone, Debug)]
-pub struct MarkerNumbering {
+pub struct MarkerNumbering<const W: usize = 2048> {
     aligner: StandardAligner,
-    spec: MarkerSpec,
+    /// The hint-window test, run beside the full search while the hint's bound allows it.
+    window: HintWindow<W>,
     epoch: u32,
     /// The latest hint: (receiver time in ps, transmitter slot).
     hint: Option<(u64, u64)>,
     /// Realignments after the first (epoch changes or misalignments).
     realignments: u32,
+    /// Window decisions that disagreed with an offset the full search had confirmed (refused).
+    window_conflicts: u32,
+    /// Whether the offset in use came from the hint window.
+    by_window: bool,
 }
 
-impl MarkerNumbering {
+impl<const W: usize> MarkerNumbering<W> {
     /// An aligner for the marker described by `frame`.
     pub fn new(frame: FrameConfig) -> Result<Self, FrameError> {
         Ok(Self {
             aligner: StandardAligner::new(frame)?,
-            spec: *frame.spec(),
+            window: HintWindow::new(),
             epoch: 0,
             hint: None,
             realignments: 0,
+            window_conflicts: 0,
+            by_window: false,
         })
+    }
+
+    /// The hint-window test (fast alignment from a bounded hint).
+    pub const fn window(&self) -> &HintWindow<W> {
+        &self.window
+    }
+
+    /// Gated detections taken in until the offset in use was established, and whether the hint
+    /// window (rather than the full search) established it; `None` while not aligned.
+    pub fn aligned_after(&self) -> Option<(u64, bool)> {
+        if !self.aligned() {
+            return None;
+        }
+        self.aligner
+            .stats()
+            .locked_after
+            .map(|n| (n, self.by_window))
+    }
+
+    /// Window decisions refused because the full search had confirmed another offset.
+    pub const fn window_conflicts(&self) -> u32 {
+        self.window_conflicts
     }
 
     /// The frame aligner.
@@ -151,6 +203,43 @@ impl MarkerNumbering {
         matches!(self.aligner.state(), AlignState::Aligned { .. })
     }
 
+    /// Open the hint window once the clock can place the hint, unless the search already locked.
+    #[inline(never)]
+    fn open_window<C: SlotClock + ?Sized>(&mut self, clock: &C) {
+        if self.window.state() != WindowState::Idle || self.aligned() {
+            return;
+        }
+        let Some((t_ps, tx_slot)) = self.hint else {
+            return;
+        };
+        let Some(local_slot) = clock.slot_at(t_ps) else {
+            return;
+        };
+        let centre = i128::from(tx_slot) - i128::from(local_slot);
+        match i64::try_from(centre) {
+            Ok(c) => self.window.open(self.aligner.config(), c),
+            Err(_) => self.window.close(),
+        }
+    }
+
+    /// Take the window's offset unless it contradicts an offset the full search confirmed.
+    #[inline(never)]
+    fn accept_window(&mut self, offset: i64) {
+        let p = self.aligner.config().spec().period_slots() as i64;
+        match self.aligner.state() {
+            AlignState::Aligned { .. } => {}
+            AlignState::AwaitingHint { offset_mod_period }
+                if offset.rem_euclid(p) as u64 != offset_mod_period =>
+            {
+                self.window_conflicts += 1;
+            }
+            _ => {
+                self.aligner.assume_offset(offset);
+                self.by_window = true;
+            }
+        }
+    }
+
     fn apply_hint<C: SlotClock + ?Sized>(&mut self, clock: &C) {
         if let (Some((t_ps, tx_slot)), AlignState::AwaitingHint { .. }) =
             (self.hint, self.aligner.state())
@@ -165,7 +254,7 @@ impl MarkerNumbering {
     }
 }
 
-impl Numbering for MarkerNumbering {
+impl<const W: usize> Numbering for MarkerNumbering<W> {
     fn number<C: SlotClock + ?Sized>(
         &mut self,
         clock: &C,
@@ -179,6 +268,8 @@ impl Numbering for MarkerNumbering {
             }
             self.epoch = epoch;
             self.aligner.restart();
+            self.window.reset();
+            self.by_window = false;
         }
         self.aligner.observe(slot, z_bit);
         match self.aligner.state() {
@@ -186,11 +277,18 @@ impl Numbering for MarkerNumbering {
             AlignState::Misaligned { .. } => {
                 self.realignments += 1;
                 self.aligner.restart();
+                self.by_window = false;
             }
             _ => {}
         }
+        self.open_window(clock);
+        if self.aligned() {
+            self.window.close();
+        } else if let Some(offset) = self.window.observe(self.aligner.config(), slot, z_bit) {
+            self.accept_window(offset);
+        }
         match self.aligner.to_absolute(slot) {
-            Some(abs) if self.spec.is_marker_slot(abs) => Numbered::Marker,
+            Some(abs) if self.aligner.config().is_marker_slot(abs) => Numbered::Marker,
             Some(abs) => Numbered::Slot(abs),
             None => Numbered::Unaligned,
         }
@@ -199,5 +297,34 @@ impl Numbering for MarkerNumbering {
     fn hint<C: SlotClock + ?Sized>(&mut self, clock: &C, t_ps: u64, tx_slot: u64) {
         self.hint = Some((t_ps, tx_slot));
         self.apply_hint(clock);
+        self.open_window(clock);
+    }
+}
+
+// The numbering's state: the full search (≤ 2 KiB), the hint window (4 KiB of counters) and a
+// few words; bounded on every target this builds for.
+const _: () = assert!(core::mem::size_of::<MarkerNumbering>() <= 6_208);
+const _: () = assert!(core::mem::size_of::<MarkerNumbering<512>>() <= 3_136);
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::frame::window::StandardWindow;
+
+    /// Bytes of the numbering and its parts. Run with `-- --nocapture numbering_size_report`.
+    #[test]
+    fn numbering_size_report() {
+        use core::mem::size_of;
+        let total = size_of::<MarkerNumbering>();
+        let parts = [
+            ("aligner", size_of::<StandardAligner>()),
+            ("window", size_of::<StandardWindow>()),
+        ];
+        eprintln!("MarkerNumbering: {total} B");
+        for (name, bytes) in parts {
+            eprintln!("  {name:<10} {bytes:>6} B");
+        }
+        let known: usize = parts.iter().map(|p| p.1).sum();
+        assert!(known <= total && total - known <= 64, "{total} vs {known}");
     }
 }

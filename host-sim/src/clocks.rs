@@ -155,6 +155,13 @@ pub struct LockReport {
     pub numbering: String,
     /// Alignment restarts after the first (new clock epochs, misalignments).
     pub realignments: u32,
+    /// Gated detections numbered until the offset in use was established (`None`: not aligned
+    /// on the marker).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aligned_after_detections: Option<u64>,
+    /// What established it: `hint-window` (a bounded hint and few detections) or `search`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub aligned_by: Option<String>,
     /// Per channel: delay correction measured from the data since the latest lock, ps (relative
     /// to the loop; `null` where the channel had too few detections).
     pub delay_corrections_ps: Vec<Option<i64>>,
@@ -284,13 +291,20 @@ pub fn build_for(
     }
 }
 
+/// Error of the scenario's simulated hello, s: its `hint_error_us`, or [`HINT_ERROR_S`]. The
+/// profile of the scenario states it as the hint's bound (`[marker] hint_error_us`).
+pub fn hint_error_s(s: &Scenario) -> f64 {
+    s.hint_error_us.map_or(HINT_ERROR_S, |us| us / 1e6)
+}
+
 /// The simulated hello message of the classical channel: a receiver time (on the core's time
-/// base) and the transmitter's slot counter then, off by [`HINT_ERROR_S`] worth of slots.
+/// base) and the transmitter's slot counter then, off by [`hint_error_s`] worth of slots (the
+/// edge of its stated bound).
 pub fn simulated_hint(s: &Scenario) -> Result<(u64, u64), Box<dyn std::error::Error>> {
     let truth = sim::clock_truth(s)?;
     let t_ps = truth.origin_ps_unwrapped.saturating_add(1_000_000_000);
     let slots = (t_ps - truth.origin_ps_unwrapped) as f64 / truth.period_ps;
-    let error = HINT_ERROR_S * s.rep_rate_hz;
+    let error = hint_error_s(s) * s.rep_rate_hz;
     Ok((t_ps, (slots + error).max(0.0) as u64))
 }
 
@@ -315,6 +329,16 @@ impl HostNumbering {
         match self {
             Self::Absolute(_) => true,
             Self::Marker(n) => n.aligned(),
+        }
+    }
+
+    /// Gated detections until the offset in use was established, and by which test.
+    pub fn aligned_after(&self) -> Option<(u64, &'static str)> {
+        match self {
+            Self::Absolute(_) => None,
+            Self::Marker(n) => n
+                .aligned_after()
+                .map(|(d, w)| (d, if w { "hint-window" } else { "search" })),
         }
     }
 

@@ -209,6 +209,9 @@ pub struct MarkerToml {
     pub inner_degree: u8,
     /// Register length of the outer sequence (0: none).
     pub outer_degree: u8,
+    /// Stated error bound of the hello (the slot hint), ± µs; absent: unknown (full search).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hint_error_us: Option<f64>,
 }
 
 impl Default for MarkerToml {
@@ -219,6 +222,7 @@ impl Default for MarkerToml {
             spacing_slots: s.spacing(),
             inner_degree: slotwise::frame::INNER_DEGREE,
             outer_degree: slotwise::frame::OUTER_DEGREE,
+            hint_error_us: None,
         }
     }
 }
@@ -677,6 +681,19 @@ impl Profile {
             DEFAULT_NOISE_SHARE,
         )
         .map_err(|e| c.err("marker", e.to_string()))?;
+        let hint_error_slots = match m.hint_error_us {
+            None => None,
+            Some(us) if us.is_finite() && (0.0..=1e9).contains(&us) => {
+                Some((us * 1e-6 * self.clock.rep_rate_hz).ceil() as u64)
+            }
+            Some(us) => {
+                return Err(c.err(
+                    "marker.hint_error_us",
+                    format!("{us}: must be a number of µs in 0 ..= 1e9"),
+                ))
+            }
+        };
+        let frame = frame.with_hint_error_slots(hint_error_slots);
         Ok((Some(spec), Some(frame)))
     }
 }

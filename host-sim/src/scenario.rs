@@ -116,6 +116,10 @@ pub struct Scenario {
     /// 64th slot is vacuum or a Z pulse at the signal intensity, and carries no key.
     #[serde(default = "default_true")]
     pub marker: bool,
+    /// Error of the simulated hello (slot hint), µs: the hint is off by this much worth of slots,
+    /// and the receiver's profile states it as its bound (default 300, `clocks::HINT_ERROR_S`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub hint_error_us: Option<f64>,
     /// Alarm thresholds, the `[alarms]` table (default: the board's defaults).
     #[serde(default, skip_serializing_if = "AlarmsToml::is_default")]
     pub alarms: AlarmsToml,
@@ -181,6 +185,9 @@ impl Scenario {
         }
         c.range("duration_s", self.duration_s, Open(0.0), Closed(100_000.0))?;
         c.range("rep_rate_hz", self.rep_rate_hz, Closed(1e3), Closed(1e11))?;
+        if let Some(us) = self.hint_error_us {
+            c.range("hint_error_us", us, Closed(0.0), Closed(1e6))?;
+        }
         c.range("p_z", self.p_z, Open(0.0), Open(1.0))?;
         if self.protocol == Protocol::Bb84 && self.p_z != 0.5 {
             return Err(c.err("p_z", "protocol \"bb84\" chooses bases with p_z = 0.5"));
@@ -458,6 +465,21 @@ mod tests {
             }
         }
         assert!(n >= 3, "{n} scenario files");
+    }
+
+    #[test]
+    fn hint_error_defaults_to_300_us_and_is_range_checked() {
+        let s = Scenario::default_bench();
+        assert_eq!(s.hint_error_us, None);
+        assert_eq!(crate::clocks::hint_error_s(&s), 3e-4);
+        let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 0.9\nhint_error_us = 10.0");
+        let s = Scenario::from_toml_str(&text, "x.toml").unwrap();
+        assert_eq!(crate::clocks::hint_error_s(&s), 1e-5);
+        let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 0.9\nhint_error_us = -1.0");
+        let msg = Scenario::from_toml_str(&text, "x.toml")
+            .unwrap_err()
+            .to_string();
+        assert!(msg.contains("key 'hint_error_us'"), "{msg}");
     }
 
     #[test]

@@ -203,9 +203,12 @@ pub fn summarize<T: Transmitter>(
         lock: {
             let (losses, relocks, bridged, state) = rx.clock().counters();
             let (numbering, realignments) = rx.numbering().state();
+            let aligned = rx.numbering().aligned_after();
             LockReport {
                 numbering,
                 realignments,
+                aligned_after_detections: aligned.map(|a| a.0),
+                aligned_by: aligned.map(|a| a.1.to_string()),
                 delay_corrections_ps: rx
                     .clock()
                     .delay_corrections_ps(rx.config().gates().channels()),
@@ -326,11 +329,19 @@ impl std::fmt::Display for Summary {
             )?,
             None => writeln!(f, "clock          never locked ({})", l.state)?,
         }
-        writeln!(
+        write!(
             f,
             "numbering      {} ({} realignments)",
             l.numbering, l.realignments
         )?;
+        match (&l.aligned_by, l.aligned_after_detections) {
+            (Some(by), Some(n)) => writeln!(
+                f,
+                ", after {n} gated detections by the {}",
+                by.replace('-', " ")
+            )?,
+            _ => writeln!(f)?,
+        }
         if let Some(t) = truth {
             writeln!(
                 f,

@@ -29,7 +29,27 @@ fn the_default_marker_is_the_standard_one() {
     let p = Profile::from_scenario(&scenario("bench-100mhz-30km"));
     let c = p.check("p").unwrap();
     assert_eq!(c.marker, Some(MarkerSpec::standard()));
-    assert_eq!(c.frame, Some(FrameConfig::standard()));
+    // The scenario's simulated hello is off by 300 µs, stated as its bound: 30 000 slots.
+    assert_eq!(
+        c.frame,
+        Some(FrameConfig::standard().with_hint_error_slots(Some(30_000)))
+    );
+}
+
+#[test]
+fn hint_error_bound_converts_to_slots_and_is_checked() {
+    let mut p = Profile::from_scenario(&scenario("bench-100mhz-30km"));
+    p.marker.hint_error_us = Some(10.0);
+    let c = p.check("p").unwrap();
+    assert_eq!(c.frame.unwrap().hint_error_slots(), Some(1_000));
+    p.marker.hint_error_us = None;
+    assert_eq!(
+        p.check("p").unwrap().frame.unwrap().hint_error_slots(),
+        None
+    );
+    p.marker.hint_error_us = Some(-1.0);
+    let e = p.check("p").unwrap_err().to_string();
+    assert!(e.contains("marker.hint_error_us"), "{e}");
 }
 
 #[test]
