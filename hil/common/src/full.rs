@@ -27,8 +27,10 @@ use slotwise::{
 pub type FullRecovered = RecoveredClock<2048, 8, 2>;
 /// The board's slot clock: the recovered clock.
 pub type FullClock = FullRecovered;
-/// The board's numbering: the public marker and the classical channel's hint.
-pub type FullNumbering = MarkerNumbering;
+/// The board's numbering: the public marker and the classical channel's hint. A hint window of 512
+/// candidate offsets (hellos timestamped within ±255 slots) keeps the RAM down; this board's
+/// hello is not that precise, so the full marker search decides, as before.
+pub type FullNumbering = MarkerNumbering<512>;
 /// The whole receiver's pipeline.
 pub type FullReceiver = Receiver<FullClock, FULL_PENDING, FullNumbering>;
 /// Detected slots waiting for answers on the board: one batch being filled
