@@ -65,14 +65,18 @@
 //! [`AcquireStats::dropped_busy`]).
 
 mod buffer;
+pub mod chirp;
 mod config;
+mod fit;
 pub mod fold;
 #[cfg(test)]
 pub(crate) mod synth;
 pub mod thresholds;
 
 use buffer::{Cursor, DetectionBuffer};
+use chirp::ChirpLattice;
 pub use config::{AcquireConfig, AcquireConfigError, AcquireParams};
+use fit::LsSums;
 use fixed::types::{U0F32, U32F32};
 use fold::{ArrivalPattern, Fold};
 
@@ -82,8 +86,10 @@ use fold::{ArrivalPattern, Fold};
 pub struct AcquiredLock {
     /// Period estimate in ps (Q32.32).
     pub period_ps: U32F32,
-    /// Frequency in cycles per ps (Q0.64): the exact value behind `period_ps`.
+    /// Frequency in cycles per ps (Q0.64) at `anchor_t_ps`: the exact value behind `period_ps`.
     pub nu_q64: u64,
+    /// Chirp found, a = ν̇/2 in Q0.128 cycles per ps² (0 when the drift search is off).
+    pub chirp_q128: i64,
     /// Time (ps) at which a slot starts, at or just below `anchor_t_ps`.
     pub origin_ps: u64,
     /// Latest detection time used (ps).
@@ -96,7 +102,7 @@ pub struct AcquiredLock {
     pub z2_threshold: U32F32,
     /// Z²_n of the confirmation batch at the found frequency.
     pub z2_confirm: U32F32,
-    /// Final lattice points in the prior (the Bonferroni trial count).
+    /// Final lattice points (frequency × chirp) in the prior: the Bonferroni trial count.
     pub trials: u64,
     /// Detections in the final fit.
     pub detections: u32,
@@ -129,6 +135,7 @@ pub struct AcquireStats {
 #[derive(Clone, Copy, Debug)]
 struct Cand<const H: usize> {
     j: u64,
+    c: i64,
     z: U32F32,
     fold: Fold<H>,
 }
@@ -136,7 +143,9 @@ struct Cand<const H: usize> {
 #[derive(Clone, Copy, Debug)]
 struct Eval<const H: usize> {
     j: u64,
+    c: i64,
     nu: u64,
+    a: i64,
     cur: Cursor,
     end: usize,
     fold: Fold<H>,
@@ -146,56 +155,11 @@ struct Eval<const H: usize> {
 /// detection).
 pub const EXTRA_FINAL_PASSES: u8 = 3;
 
-/// Sums of a straight-line fit y = c0 + c1·x (x slots, y Q0.32 slot fractions).
-#[derive(Clone, Copy, Debug, Default)]
-struct LsSums {
-    n: i128,
-    sx: i128,
-    sxx: i128,
-    sy: i128,
-    sxy: i128,
-    syy: u128,
-    n_all: u64,
-    null_q32: u64,
-}
-
-impl LsSums {
-    fn add(&mut self, x: i128, y: i64) {
-        let y = i128::from(y);
-        self.n += 1;
-        self.sx = self.sx.saturating_add(x);
-        self.sxx = self.sxx.saturating_add(x.saturating_mul(x));
-        self.sy += y;
-        self.sxy = self.sxy.saturating_add(x.saturating_mul(y));
-        self.syy += y.unsigned_abs() * y.unsigned_abs();
-    }
-
-    /// Intercept at x = 0 (Q0.64 slots) and slope (Q0.64 per slot).
-    fn solve(&self) -> Option<(i128, i128)> {
-        if self.n < 3 {
-            return None;
-        }
-        let sxx = self
-            .n
-            .checked_mul(self.sxx)?
-            .checked_sub(self.sx.checked_mul(self.sx)?)?;
-        let sxy = self
-            .n
-            .checked_mul(self.sxy)?
-            .checked_sub(self.sx.checked_mul(self.sy)?)?;
-        if sxx <= 0 {
-            return None;
-        }
-        let c1 = sxy.checked_mul(1 << 32)? / sxx;
-        let c0 = (self.sy.checked_mul(1 << 32)?).checked_sub(c1.checked_mul(self.sx)?)? / self.n;
-        Some((c0, c1))
-    }
-}
-
 #[derive(Clone, Copy, Debug)]
 enum Step<const H: usize> {
     Collect,
     Scan {
+        row: i64,
         eval: Eval<H>,
         prev: Option<Cand<H>>,
         prev_z: Option<U32F32>,
@@ -230,6 +194,8 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     lo: u64,
     step_nu: u64,
     points: u64,
+    chirp: ChirpLattice,
+    a: i64,
     cands: [Cand<H>; K],
     ncand: usize,
     step: Step<H>,
@@ -245,7 +211,7 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
 }
 
 // The host's and the HIL's capacities: 11,232 bytes on x86_64, 11,200 on thumbv7em.
-const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_264);
+const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_392);
 
 impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// An acquirer with the cold prior, collecting.
@@ -257,6 +223,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         }
         let empty = Cand {
             j: 0,
+            c: 0,
             z: U32F32::ZERO,
             fold: Fold::new(),
         };
@@ -270,6 +237,8 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             lo: 0,
             step_nu: 1,
             points: 1,
+            chirp: ChirpLattice::default(),
+            a: 0,
             cands: [empty; K],
             ncand: 0,
             step: Step::Collect,
@@ -364,7 +333,10 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
                     self.decide_confirmation();
                     return;
                 }
-                let ph = t_ps.wrapping_sub(self.t0).wrapping_mul(self.nu);
+                let dt = t_ps.wrapping_sub(self.t0);
+                let ph = dt
+                    .wrapping_mul(self.nu)
+                    .wrapping_add(chirp::phase_q64(dt, self.a));
                 self.confirm.add(ph, pat.channel(channel));
                 self.n_confirm += 1;
                 if self.n_confirm >= self.cfg.p.confirm {
@@ -384,10 +356,12 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         (u64::from(self.cfg.p.first_stage) << stage).min(self.buf.len() as u64) as usize
     }
 
-    fn eval_at(&self, j: u64, stage: u8) -> Eval<H> {
+    fn eval_at(&self, j: u64, c: i64, stage: u8) -> Eval<H> {
         Eval {
             j,
+            c,
             nu: self.nu_at(j),
+            a: self.chirp.value(c),
             cur: DetectionBuffer::<N>::cursor(self.t0),
             end: self.stage_end(stage),
             fold: Fold::new(),
@@ -405,15 +379,24 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             .div_ceil(stride)
             .saturating_mul(stride)
             .saturating_add(1);
-        let Some(thr) = thresholds::search_threshold(H, self.points) else {
+        self.chirp = ChirpLattice::new(
+            self.cfg.chirp_max_q128,
+            self.step_nu,
+            span,
+            self.cfg.p.stages,
+        );
+        let trials = thresholds::search_trials(self.points, self.chirp.points());
+        let Some(thr) = thresholds::search_threshold(H, trials) else {
             self.stats.search_failed += 1;
             self.reset_collect();
             return;
         };
         self.z2_threshold = thr;
         self.ncand = 0;
+        let row = -(self.chirp.rows0() as i64);
         self.step = Step::Scan {
-            eval: self.eval_at(0, 0),
+            row,
+            eval: self.eval_at(0, self.row_chirp(row), 0),
             prev: None,
             prev_z: None,
         };
@@ -432,8 +415,17 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         }
     }
 
-    /// Sort candidates by Z² (best first) and drop those within `2·stride` of a better one.
-    fn sort_and_suppress(&mut self, stride: u64) {
+    /// Final chirp index of stage-0 row `row`.
+    fn row_chirp(&self, row: i64) -> i64 {
+        row.saturating_mul(self.chirp.stride(0) as i64)
+    }
+
+    /// Sort candidates by Z² (best first) and drop those near a better one: within two
+    /// frequency steps of `stage`, or on a neighbouring chirp within the ridge's reach (a
+    /// chirp step moves the compensating frequency by up to four steps, see [`chirp`]).
+    fn sort_and_suppress(&mut self, stage: u8) {
+        let stride = 1u64 << (self.cfg.p.stages - stage);
+        let cs = self.chirp.stride(stage);
         let n = self.ncand;
         if let Some(c) = self.cands.get_mut(..n) {
             c.sort_unstable_by_key(|c| core::cmp::Reverse(c.z));
@@ -441,12 +433,10 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         let mut kept = 0;
         for i in 0..n {
             let Some(&c) = self.cands.get(i) else { break };
-            let near = self
-                .cands
-                .get(..kept)
-                .unwrap_or(&[])
-                .iter()
-                .any(|k| k.j.abs_diff(c.j) <= 2 * stride);
+            let near = self.cands.get(..kept).unwrap_or(&[]).iter().any(|k| {
+                let dc = k.c.abs_diff(c.c);
+                dc <= cs && k.j.abs_diff(c.j) <= 2 * stride + 4 * stride * (dc / cs)
+            });
             if !near {
                 if let Some(slot) = self.cands.get_mut(kept) {
                     *slot = c;
@@ -457,19 +447,26 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.ncand = kept;
     }
 
-    /// Next offset ≥ `from` in −2..=2 whose lattice point lies inside the prior.
-    fn next_offset(&self, cand: usize, stage: u8, from: i64) -> Option<(i64, u64)> {
+    /// Next neighbour index ≥ `from` (0..25: chirp offset k = idx/5 − 2, frequency offset
+    /// idx%5 − 2 around the ridge centre −2k) whose lattice point `stage` may visit.
+    fn next_offset(&self, cand: usize, stage: u8, from: i64) -> Option<(i64, u64, i64)> {
         let c = self.cands.get(cand)?;
         let stride = 1i64 << (self.cfg.p.stages - stage);
-        (from..=2).find_map(|off| {
-            let j = c.j.checked_add_signed(off * stride)?;
-            (j < self.points).then_some((off, j))
+        let cs = self.chirp.stride(stage) as i64;
+        (from.max(0)..25).find_map(|idx| {
+            let (k, dj) = (idx / 5 - 2, idx % 5 - 2);
+            let chirp = c.c.checked_add(k.checked_mul(cs)?)?;
+            if !self.chirp.allowed(chirp, stage) {
+                return None;
+            }
+            let j = c.j.checked_add_signed((dj - 2 * k) * stride)?;
+            (j < self.points).then_some((idx, j, chirp))
         })
     }
 
     fn begin_candidate(&mut self, stage: u8, cand: usize) {
         if cand >= self.ncand {
-            self.sort_and_suppress(1 << (self.cfg.p.stages - stage));
+            self.sort_and_suppress(stage);
             if stage < self.cfg.p.stages {
                 self.begin_candidate(stage + 1, 0);
             } else {
@@ -477,13 +474,13 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             }
             return;
         }
-        match self.next_offset(cand, stage, -2) {
-            Some((off, j)) => {
+        match self.next_offset(cand, stage, 0) {
+            Some((off, j, c)) => {
                 self.step = Step::Refine {
                     stage,
                     cand,
                     off,
-                    eval: self.eval_at(j, stage),
+                    eval: self.eval_at(j, c, stage),
                     best: None,
                 }
             }
@@ -500,6 +497,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         };
         self.z2_search = best.z;
         self.nu = self.nu_at(best.j);
+        self.a = self.chirp.value(best.c);
         self.phi0 = i128::from(best.fold.best_offset().0);
         self.begin_fit(0);
     }
@@ -517,7 +515,9 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// Model position of time `t` in slots (Q64.64), slot starts at integers.
     fn position(&self, t: u64) -> Option<i128> {
         let d = i128::from(t) - i128::from(self.t0);
-        d.checked_mul(i128::from(self.nu))?.checked_sub(self.phi0)
+        d.checked_mul(i128::from(self.nu))?
+            .checked_add(chirp::slots_q64(d, self.a)?)?
+            .checked_sub(self.phi0)
     }
 
     fn eval_step(&self, e: &mut Eval<H>, budget: &mut u32, pat: &ArrivalPattern) -> bool {
@@ -526,7 +526,11 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
                 e.cur.read = e.end;
                 break;
             };
-            let ph = t.wrapping_sub(self.t0).wrapping_mul(e.nu);
+            let dt = t.wrapping_sub(self.t0);
+            let mut ph = dt.wrapping_mul(e.nu);
+            if e.a != 0 {
+                ph = ph.wrapping_add(chirp::phase_q64(dt, e.a));
+            }
             e.fold.add(ph, pat.channel(channel));
             *budget -= 1;
         }
@@ -539,15 +543,21 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             let step = core::mem::replace(&mut self.step, Step::Idle);
             match step {
                 Step::Scan {
+                    row,
                     mut eval,
                     prev,
                     prev_z,
                 } => {
                     if !self.eval_step(&mut eval, &mut budget, pat) {
-                        self.step = Step::Scan { eval, prev, prev_z };
+                        self.step = Step::Scan {
+                            row,
+                            eval,
+                            prev,
+                            prev_z,
+                        };
                         return;
                     }
-                    self.scan_point(eval, prev, prev_z);
+                    self.scan_point(row, eval, prev, prev_z);
                 }
                 Step::Refine {
                     stage,
@@ -613,9 +623,16 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         }
     }
 
-    fn scan_point(&mut self, eval: Eval<H>, prev: Option<Cand<H>>, prev_z: Option<U32F32>) {
+    fn scan_point(
+        &mut self,
+        row: i64,
+        eval: Eval<H>,
+        prev: Option<Cand<H>>,
+        prev_z: Option<U32F32>,
+    ) {
         let cur = Cand {
             j: eval.j,
+            c: eval.c,
             z: eval.fold.z2(),
             fold: eval.fold,
         };
@@ -629,11 +646,21 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             if prev.is_none_or(|p| cur.z >= p.z) {
                 self.insert(cur);
             }
-            self.begin_candidate(0, self.ncand);
+            if row < self.chirp.rows0() as i64 {
+                self.step = Step::Scan {
+                    row: row + 1,
+                    eval: self.eval_at(0, self.row_chirp(row + 1), 0),
+                    prev: None,
+                    prev_z: None,
+                };
+            } else {
+                self.begin_candidate(0, self.ncand);
+            }
             return;
         }
         self.step = Step::Scan {
-            eval: self.eval_at(next, 0),
+            row,
+            eval: self.eval_at(next, eval.c, 0),
             prev: Some(cur),
             prev_z: prev.map(|p| p.z),
         };
@@ -649,6 +676,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     ) {
         let cur = Cand {
             j: eval.j,
+            c: eval.c,
             z: eval.fold.z2(),
             fold: eval.fold,
         };
@@ -656,12 +684,12 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             Some(b) if b.z >= cur.z => b,
             _ => cur,
         };
-        if let Some((off, j)) = self.next_offset(cand, stage, off + 1) {
+        if let Some((off, j, c)) = self.next_offset(cand, stage, off + 1) {
             self.step = Step::Refine {
                 stage,
                 cand,
                 off,
-                eval: self.eval_at(j, stage),
+                eval: self.eval_at(j, c, stage),
                 best: Some(best),
             };
             return;
@@ -751,20 +779,26 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             return;
         };
         let frac = v as u64;
-        let period_bits = (1u128 << 96) / u128::from(self.nu.max(1));
+        // The frequency at the anchor: ν + 2a·(t − t0).
+        let dt = i128::from(self.t_max) - i128::from(self.t0);
+        let nu = chirp::nu_change_q64(dt, self.a)
+            .and_then(|d| u64::try_from(i128::from(self.nu) + d).ok())
+            .unwrap_or(self.nu);
+        let period_bits = (1u128 << 96) / u128::from(nu.max(1));
         let into_slot_ps = ((u128::from(frac) * period_bits) >> 96) as u64;
         let n_all = sums.n_all.max(1);
         let n_in = u64::try_from(sums.n).unwrap_or(0);
         self.lock = Some(AcquiredLock {
             period_ps: U32F32::from_bits(u64::try_from(period_bits).unwrap_or(u64::MAX)),
-            nu_q64: self.nu,
+            nu_q64: nu,
+            chirp_q128: self.a,
             origin_ps: self.t_max.saturating_sub(into_slot_ps),
             anchor_t_ps: self.t_max,
             anchor_phase_q64: frac,
             z2_search: self.z2_search,
             z2_threshold: self.z2_threshold,
             z2_confirm: self.z2_confirm,
-            trials: self.points,
+            trials: thresholds::search_trials(self.points, self.chirp.points()),
             detections: self.buf.len() as u32,
             in_window: U0F32::from_bits(((n_in << 32) / n_all).min(u64::from(u32::MAX)) as u32),
             null_window: U0F32::from_bits((sums.null_q32 / n_all).min(u64::from(u32::MAX)) as u32),

@@ -84,6 +84,12 @@ pub fn search_threshold(harmonics: usize, trials: u64) -> Option<U32F32> {
         .map(|&v| milli_to_q32(v))
 }
 
+/// Trial count of a search over `freq_points` frequencies and `chirp_points` chirps: every
+/// final lattice point any stage could have led to (saturating).
+pub fn search_trials(freq_points: u64, chirp_points: u64) -> u64 {
+    freq_points.saturating_mul(chirp_points.max(1))
+}
+
 /// Confirmation threshold for `harmonics` (1..=4), in Q32.32.
 pub fn confirm_threshold(harmonics: usize) -> Option<U32F32> {
     CONFIRM_MILLI
