@@ -174,7 +174,7 @@ enum Step<const H: usize> {
     Fit {
         pass: u8,
         cur: Cursor,
-        sums: LsSums,
+        sums: [LsSums; 2],
         xc: i128,
     },
     Confirm,
@@ -210,8 +210,10 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     stats: AcquireStats,
 }
 
-// The host's and the HIL's capacities: 11,232 bytes on x86_64, 11,200 on thumbv7em.
-const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_392);
+// The host's and the HIL's capacities: 11,440 bytes on x86_64, 11,416 on thumbv7em. The drift
+// search added 208 bytes: the chirp index of each candidate and trial, the chirp lattice and the
+// fit's second half-span sums (which read the curvature).
+const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_456);
 
 impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// An acquirer with the cold prior, collecting.
@@ -264,6 +266,11 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// Counters since construction.
     pub const fn stats(&self) -> &AcquireStats {
         &self.stats
+    }
+
+    /// Trial count of the latest search: frequency × chirp lattice points (the Bonferroni M).
+    pub fn search_trials(&self) -> u64 {
+        thresholds::search_trials(self.points, self.chirp.points())
     }
 
     /// Whether the acquirer is filling its buffer for a new search (nothing in progress).
@@ -507,7 +514,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.step = Step::Fit {
             pass,
             cur: DetectionBuffer::<N>::cursor(self.t0),
-            sums: LsSums::default(),
+            sums: [LsSums::default(); 2],
             xc,
         };
     }
@@ -705,7 +712,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         &self,
         t_ps: u64,
         channel: Option<u8>,
-        sums: &mut LsSums,
+        sums: &mut [LsSums; 2],
         xc: i128,
         w_q64: u64,
         win: U0F32,
@@ -716,20 +723,51 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         };
         let p = pat.channel(channel);
         let (r, carry) = p.residual(v as u64);
-        sums.n_all += 1;
-        sums.null_q32 += p.null_fraction(win);
+        let [lo, hi] = sums;
+        lo.n_all += 1;
+        lo.null_q32 += p.null_fraction(win);
         if r.unsigned_abs() <= w_q64 {
-            let slot = (v >> 64) + i128::from(carry);
-            sums.add(slot - xc, r >> 32);
+            let x = (v >> 64) + i128::from(carry) - xc;
+            if x < 0 { lo } else { hi }.add(x, r >> 32);
         }
     }
 
-    fn finish_fit(&mut self, pass: u8, sums: &LsSums, xc: i128) {
-        let Some((c0, c1)) = sums.solve() else {
+    /// Remove the residuals' curvature c2·(x + xc)² (x from the span's middle slot `xc`) from
+    /// the line (c0, c1) and return the corrected line and chirp.
+    fn uncurve(
+        &self,
+        halves: &[LsSums; 2],
+        c0: i128,
+        c1: i128,
+        xc: i128,
+    ) -> Option<(i128, i128, i64)> {
+        let (dc1, dx) = fit::curvature(halves)?;
+        let all = halves[0].merged(&halves[1]);
+        // c2 = dc1/(2·dx): slope 2·c2·xc and offset c2·(xc² + mean x²) went into the line.
+        let c1 = c1.checked_sub(dc1.checked_mul(xc)? / dx)?;
+        let xx = xc.checked_mul(xc)?.checked_add(all.mean_xx()?)?;
+        let c0 = c0.checked_sub(dc1.checked_mul(xx)? / (2 * dx))?;
+        // a·d² with d = (x + xc)/ν: the chirp error is c2·ν² (Q0.128 cycles per ps²).
+        let nu = i128::from(self.nu);
+        let da = (dc1.checked_mul(nu)? / (2 * dx)).checked_mul(nu)? >> 64;
+        let a = i64::try_from(i128::from(self.a).checked_sub(da)?).ok()?;
+        Some((c0, c1, a))
+    }
+
+    fn finish_fit(&mut self, pass: u8, halves: &[LsSums; 2], xc: i128) {
+        let sums = &halves[0].merged(&halves[1]);
+        let Some((mut c0, mut c1)) = sums.solve() else {
             self.stats.fit_failed += 1;
             self.reset_collect();
             return;
         };
+        // The chirp is refined only where the span resolved more than one chirp point.
+        let mut new_a = self.a;
+        if self.chirp.half > 0 {
+            if let Some((u0, u1, a)) = self.uncurve(halves, c0, c1, xc) {
+                (c0, c1, new_a) = (u0, u1, a);
+            }
+        }
         let nu = i128::from(self.nu);
         let new_nu = nu.checked_mul(c1).map_or(-1, |v| nu - (v >> 64));
         let phi = self.phi0;
@@ -744,6 +782,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         };
         self.nu = new_nu;
         self.phi0 = new_phi;
+        self.a = new_a;
         match pass {
             0 => self.begin_fit(1),
             1 => {
