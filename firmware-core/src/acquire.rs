@@ -155,6 +155,10 @@ struct Eval<const H: usize> {
 /// detection).
 pub const EXTRA_FINAL_PASSES: u8 = 3;
 
+/// Repeats of each search-batch fit pass when the chirp lattice has more than one point (each
+/// costs one unit per detection of the search batch).
+pub const CHIRP_FIT_ROUNDS: u8 = 3;
+
 #[derive(Clone, Copy, Debug)]
 enum Step<const H: usize> {
     Collect,
@@ -196,6 +200,7 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     points: u64,
     chirp: ChirpLattice,
     a: i64,
+    fit_rounds: u8,
     cands: [Cand<H>; K],
     ncand: usize,
     step: Step<H>,
@@ -241,6 +246,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             points: 1,
             chirp: ChirpLattice::default(),
             a: 0,
+            fit_rounds: 0,
             cands: [empty; K],
             ncand: 0,
             step: Step::Collect,
@@ -505,6 +511,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.z2_search = best.z;
         self.nu = self.nu_at(best.j);
         self.a = self.chirp.value(best.c);
+        self.fit_rounds = 0;
         self.phi0 = i128::from(best.fold.best_offset().0);
         self.begin_fit(0);
     }
@@ -784,7 +791,16 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.phi0 = new_phi;
         self.a = new_a;
         match pass {
-            0 => self.begin_fit(1),
+            // A chirp error bends the residuals out of the window at the span's ends, so the
+            // curvature seen by one pass is clipped: repeat both search-batch passes.
+            0 | 1 if self.chirp.half > 0 && self.fit_rounds < CHIRP_FIT_ROUNDS => {
+                self.fit_rounds += 1;
+                self.begin_fit(pass);
+            }
+            0 => {
+                self.fit_rounds = 0;
+                self.begin_fit(1);
+            }
             1 => {
                 self.confirm = Fold::new();
                 self.n_confirm = 0;

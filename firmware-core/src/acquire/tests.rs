@@ -256,6 +256,40 @@ fn noise_only_never_locks() {
 }
 
 #[test]
+fn noise_only_never_locks_at_the_enlarged_search() {
+    // 100 seeds of pure noise (1,000 detections/s at 100 MHz) with a 10 ppm/s allowance: the
+    // 0.13 s span resolves 17 chirps, so the threshold counts frequency × chirp points. With
+    // the 1e-9 promise per attempt, any lock fails. (The 10,000-attempt run at this kind of
+    // search is `slotwise bench sync --only false-lock`.)
+    let (mut attempts, mut chirps_seen) = (0, false);
+    for seed in 0..100 {
+        let mut sc = Scenario::simple(10_000.0, 0.0, 1e-12, 0.5, 3000 + seed);
+        sc.noise_fraction = 1.0 - 1e-7; // noise 1e-5 per slot, signal essentially absent
+        let mut params = AcquireParams::new(q32(10_000.0), 100);
+        params.work_per_call = 1 << 16;
+        params.first_stage = 32;
+        params.stages = 2;
+        params.confirm = 64;
+        params.drift_ppb_per_s = 10_000;
+        let pat = ArrivalPattern::single(U0F32::from_num(0.5));
+        let mut a = Acquirer::<256, 4, 2>::new(AcquireConfig::new(params).unwrap()).unwrap();
+        for d in Stream::new(sc).take(4 * 128) {
+            a.push(d.t_ps, Some(d.channel), &pat);
+            a.work(params.work_per_call, &pat);
+            assert!(!a.has_lock(), "false lock at seed {seed}: {:?}", a.stats());
+        }
+        let span_ps = 128.0 / 1e-5 * 10_000.0;
+        let freq_points = 2.0 * 100e-6 / 10_000.0 * 4.0 * span_ps;
+        chirps_seen |= a.search_trials() as f64 > 8.0 * freq_points;
+        assert_eq!(a.stats().confirm_failed, 0);
+        attempts += a.stats().attempts;
+    }
+    eprintln!("noise only, drift search on: {attempts} attempts, 0 locks");
+    assert!(chirps_seen, "the span never resolved the chirp lattice");
+    assert!(attempts >= 300, "{attempts}");
+}
+
+#[test]
 fn capacity_and_params_are_checked() {
     let p = AcquireParams::new(q32(10_000.0), 500);
     assert!(matches!(

@@ -2,7 +2,7 @@
 //!
 //! A 1 GHz variant of the bench link (three-state time-bin, 30 ps jitter, half the detections
 //! dark counts, prior ±500 ppm, offset drawn per seed) at per-slot detection probabilities
-//! 1e-2 … 1e-7 and drifts 0, 0.02 and 0.1 ppm/s; the profile's drift is the acquisition's drift
+//! 1e-2 … 1e-7 (with 3e-7) and drifts 0, 0.02 and 0.1 ppm/s; the profile's drift is the acquisition's drift
 //! allowance ([`crate::clocks::recovered_params_for`]). Each run feeds a cold clock at the
 //! host's `work_per_call` (4096 units per detection, no idle work) until it locks or
 //! [`CURVE_CAP`] detections have passed, and checks the lock's period against the simulator's
@@ -16,9 +16,9 @@ use slotwise::SlotClock;
 use std::error::Error;
 
 /// Detections per slot of the full curve.
-pub const RATES: [f64; 6] = [1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 1e-7];
+pub const RATES: [f64; 7] = [1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 3e-7, 1e-7];
 /// Detections per slot with `--quick`.
-pub const RATES_QUICK: [f64; 4] = [1e-2, 1e-4, 1e-6, 1e-7];
+pub const RATES_QUICK: [f64; 5] = [1e-2, 1e-4, 1e-6, 3e-7, 1e-7];
 /// Transmitter drifts, ppm/s.
 pub const DRIFTS: [f64; 3] = [0.0, 0.02, 0.1];
 /// Repetition rate of the curve's link, Hz.
