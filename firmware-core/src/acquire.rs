@@ -24,12 +24,42 @@
 //! resolves it, otherwise the later stages see the swap (bits inverted).
 //!
 //! The best final candidate must pass the threshold of [`thresholds`] for M = the number of final
-//! lattice points in the prior (Bonferroni over every point any stage could have visited): a false
-//! lock per attempt below 1e-9. Its offset comes from the matched fold ([`fold::Fold::best_offset`]);
+//! lattice points (frequency × chirp) in the prior (Bonferroni over every point any stage could
+//! have visited): a false lock per attempt below 1e-9. Its offset comes from the matched fold ([`fold::Fold::best_offset`]);
 //! then a line fit of residual against slot index (the least-squares period estimator, whose
 //! variance reaches the Cramér–Rao bound σ²/Σ(k_i − k̄)², Kay, Fundamentals of Statistical Signal
 //! Processing I, 1993) refines period and phase twice over the detections within ±2w, then ±w of
 //! their nearest expected position (w = `fit_half_window`).
+//!
+//! ## Drifting transmitter: the chirp dimension
+//! A fold with one constant frequency over a span T misses a linear frequency drift ν̇ by
+//! ½·ν̇·T² turns at harmonic 1 (n times that at harmonic n): at 1 GHz, 0.1 ppm/s is
+//! ν̇ = 100 Hz/s, and 1024 detections at 200 per second span 5 s — 1,300 turns. With
+//! `drift_ppb_per_s` > 0 the search folds with φ(t) = ν·t + a·t² (a = ν̇/2) on a chirp lattice
+//! ([`chirp`]) whose final step 4·Δν/T keeps a half-step error under 1/16 turn at harmonic n.
+//! Three ways to search it (n = 2, span T, G frequency points, P = n·ν̇_max·T²/2 chirp points):
+//! - full period × period-rate grid: G·P trials over all F detections, G·P·F units;
+//! - chirp refined stage by stage (chosen): stage s (window T/2^(S−s)) thins the chirp lattice
+//!   by 4^(S−s), so stage 0 scans chirp rows only when its own window resolves the drift
+//!   (rows ≈ P/4^S), and each later stage refines a candidate by ±2 chirp steps (its four-fold
+//!   finer lattice covers the previous half step) along the frequency ridge, 25 trials instead
+//!   of 5; cost (G/2^S)·rows·first_stage + 25·K·F;
+//! - semi-coherent: segments short enough for the drift, T_c = 1/√(2n·ν̇) (50 ms at 100 Hz/s,
+//!   ten detections at 200/s), their Z² summed along a linear frequency track. Summing M
+//!   segments' powers needs about N_coh²/N_c detections instead of N_coh (the null's spread grows
+//!   as √M), 100,000 instead of 1,000 here, and the per-segment spectra do not fit the board's
+//!   RAM.
+//!
+//! The staged chirp keeps full coherence and adds work only where the window resolves the
+//! drift; its cost grows as P/4^S at stage 0, which is what bounds its reach (at 1 GHz,
+//! ±500 ppm, 50 % noise, 4096 units per detection: locks within seconds at 1e-6 per slot and
+//! 0.1 ppm/s, minutes at 3e-7 and 0.02 ppm/s; 1e-7 with 0.02 ppm/s needs 2.9e9 units per attempt,
+//! about an hour of detections — out of reach). The fit then refines the chirp from the
+//! residuals' curvature (`acquire/fit.rs`) so that confirmation can extrapolate. The Bonferroni
+//! count M is frequency × chirp points ([`thresholds::search_trials`]). The analysis, cost
+//! table and measured curve are in `docs/acquisition.md`. With `drift_ppb_per_s` = 0 (or a span
+//! too short to resolve one chirp step) the lattice has one point and the search is exactly the
+//! constant-frequency one.
 //!
 //! ## Confirmation
 //! The next `confirm` detections are an independent batch: Z²_n at the found frequency must pass
@@ -45,8 +75,9 @@
 //! with the defaults (1024 + 512 detections) `N` = 2048 leaves 512 entries for gaps, about four
 //! times what a 100-detections-per-second link needs. A buffer filled early by gaps searches
 //! what it holds (and a confirmation decides on what it got), counted in
-//! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds (56 bytes each
-//! for n = 2), the search step (160 bytes) and a few words. The buffer stays owned rather than
+//! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds and chirp index
+//! (64 bytes each for n = 2), the search step (272 bytes: the fit keeps two half-span sums), the
+//! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes in all. The buffer stays owned rather than
 //! borrowed from the caller: a `&'a mut` buffer would put a lifetime into the clock, the marked
 //! clock and every receiver type built on them, and it saves RAM only where the board has
 //! memory to lend that nothing else holds while the clock acquires. The size
@@ -56,12 +87,15 @@
 //! ## Work bound
 //! [`Acquirer::push`] stores one detection (during confirmation it also folds it: n harmonics).
 //! [`Acquirer::work`] spends at most `budget` units; one unit is one detection at one trial
-//! frequency (one multiply for the phase, n rotations and table lookups) or one detection of a fit
-//! pass (one residual per expected position); reading a stored detection back is one add and
-//! a zigzag decode (an escape entry one more). Between stages it sorts K candidates (K²
-//! comparisons); twice per attempt it searches the best offset (1024·n lookups). An attempt
-//! costs about (G/2^stages + 1)·first_stage + 10·K·F + 3·F + confirm units, G the final lattice
-//! size. Detections that arrive while the search runs are not stored (counted in
+//! frequency (one multiply for the phase — with a chirp also one 64×64→128 square and two
+//! multiplies — n rotations and table lookups) or one detection of a fit pass (one residual per
+//! expected position); reading a stored detection back is one add and a zigzag decode (an escape
+//! entry one more). Between stages it sorts K candidates (K² comparisons); twice per attempt it
+//! searches the best offset (1024·n lookups). An attempt costs about
+//! (G/2^stages + 1)·R0·first_stage + 10·K·F + 3·F + confirm units, G the final frequency lattice
+//! and R0 = 1 the stage-0 chirp rows; with a chirp lattice of more than one point, R0 = 2·r + 1
+//! rows (r = ⌈(P − 1 − 4^stages)/(2·4^stages)⌉ when P − 1 > 4^stages, else 0; P the final chirp
+//! points), refinement up to 50·K·F, and the search-batch fits 2·[`CHIRP_FIT_ROUNDS`]·F more. Detections that arrive while the search runs are not stored (counted in
 //! [`AcquireStats::dropped_busy`]).
 
 mod buffer;
@@ -516,24 +550,6 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.begin_fit(0);
     }
 
-    fn begin_fit(&mut self, pass: u8) {
-        let xc = self.position(self.t_max).map_or(0, |v| (v >> 64) / 2);
-        self.step = Step::Fit {
-            pass,
-            cur: DetectionBuffer::<N>::cursor(self.t0),
-            sums: [LsSums::default(); 2],
-            xc,
-        };
-    }
-
-    /// Model position of time `t` in slots (Q64.64), slot starts at integers.
-    fn position(&self, t: u64) -> Option<i128> {
-        let d = i128::from(t) - i128::from(self.t0);
-        d.checked_mul(i128::from(self.nu))?
-            .checked_add(chirp::slots_q64(d, self.a)?)?
-            .checked_sub(self.phi0)
-    }
-
     fn eval_step(&self, e: &mut Eval<H>, budget: &mut u32, pat: &ArrivalPattern) -> bool {
         while e.cur.read < e.end && *budget > 0 {
             let Some((t, channel)) = self.buf.next(&mut e.cur) else {
@@ -712,154 +728,6 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             *slot = best;
         }
         self.begin_candidate(stage, cand + 1);
-    }
-
-    #[allow(clippy::too_many_arguments)]
-    fn fit_one(
-        &self,
-        t_ps: u64,
-        channel: Option<u8>,
-        sums: &mut [LsSums; 2],
-        xc: i128,
-        w_q64: u64,
-        win: U0F32,
-        pat: &ArrivalPattern,
-    ) {
-        let Some(v) = self.position(t_ps) else {
-            return;
-        };
-        let p = pat.channel(channel);
-        let (r, carry) = p.residual(v as u64);
-        let [lo, hi] = sums;
-        lo.n_all += 1;
-        lo.null_q32 += p.null_fraction(win);
-        if r.unsigned_abs() <= w_q64 {
-            let x = (v >> 64) + i128::from(carry) - xc;
-            if x < 0 { lo } else { hi }.add(x, r >> 32);
-        }
-    }
-
-    /// Remove the residuals' curvature c2·(x + xc)² (x from the span's middle slot `xc`) from
-    /// the line (c0, c1) and return the corrected line and chirp.
-    fn uncurve(
-        &self,
-        halves: &[LsSums; 2],
-        c0: i128,
-        c1: i128,
-        xc: i128,
-    ) -> Option<(i128, i128, i64)> {
-        let (dc1, dx) = fit::curvature(halves)?;
-        let all = halves[0].merged(&halves[1]);
-        // c2 = dc1/(2·dx): slope 2·c2·xc and offset c2·(xc² + mean x²) went into the line.
-        let c1 = c1.checked_sub(dc1.checked_mul(xc)? / dx)?;
-        let xx = xc.checked_mul(xc)?.checked_add(all.mean_xx()?)?;
-        let c0 = c0.checked_sub(dc1.checked_mul(xx)? / (2 * dx))?;
-        // a·d² with d = (x + xc)/ν: the chirp error is c2·ν² (Q0.128 cycles per ps²).
-        let nu = i128::from(self.nu);
-        let da = (dc1.checked_mul(nu)? / (2 * dx)).checked_mul(nu)? >> 64;
-        let a = i64::try_from(i128::from(self.a).checked_sub(da)?).ok()?;
-        Some((c0, c1, a))
-    }
-
-    fn finish_fit(&mut self, pass: u8, halves: &[LsSums; 2], xc: i128) {
-        let sums = &halves[0].merged(&halves[1]);
-        let Some((mut c0, mut c1)) = sums.solve() else {
-            self.stats.fit_failed += 1;
-            self.reset_collect();
-            return;
-        };
-        // The chirp is refined only where the span resolved more than one chirp point.
-        let mut new_a = self.a;
-        if self.chirp.half > 0 {
-            if let Some((u0, u1, a)) = self.uncurve(halves, c0, c1, xc) {
-                (c0, c1, new_a) = (u0, u1, a);
-            }
-        }
-        let nu = i128::from(self.nu);
-        let new_nu = nu.checked_mul(c1).map_or(-1, |v| nu - (v >> 64));
-        let phi = self.phi0;
-        let new_phi = phi
-            .checked_sub(phi.checked_mul(c1).map_or(0, |v| v >> 64))
-            .and_then(|v| v.checked_add(c0))
-            .and_then(|v| v.checked_sub(c1.checked_mul(xc)?));
-        let (Ok(new_nu), Some(new_phi)) = (u64::try_from(new_nu), new_phi) else {
-            self.stats.fit_failed += 1;
-            self.reset_collect();
-            return;
-        };
-        self.nu = new_nu;
-        self.phi0 = new_phi;
-        self.a = new_a;
-        match pass {
-            // A chirp error bends the residuals out of the window at the span's ends, so the
-            // curvature seen by one pass is clipped: repeat both search-batch passes.
-            0 | 1 if self.chirp.half > 0 && self.fit_rounds < CHIRP_FIT_ROUNDS => {
-                self.fit_rounds += 1;
-                self.begin_fit(pass);
-            }
-            0 => {
-                self.fit_rounds = 0;
-                self.begin_fit(1);
-            }
-            1 => {
-                self.confirm = Fold::new();
-                self.n_confirm = 0;
-                self.step = Step::Confirm;
-            }
-            // In-window noise is uniform around the current model, so one pass corrects only
-            // part of the previous error: repeat the final fit until it has converged.
-            p if p < 2 + EXTRA_FINAL_PASSES => self.begin_fit(p + 1),
-            _ => self.build_lock(sums),
-        }
-    }
-
-    fn decide_confirmation(&mut self) {
-        let z = self.confirm.z2();
-        let thr = thresholds::confirm_threshold(H).unwrap_or(U32F32::MAX);
-        let predicted = self.confirm.matched(self.phi0 as u64);
-        let (_, best) = self.confirm.best_offset();
-        self.z2_confirm = z;
-        if z >= thr && predicted.saturating_mul(2) >= best {
-            self.begin_fit(2);
-        } else {
-            self.stats.confirm_failed += 1;
-            self.reset_collect();
-        }
-    }
-
-    fn build_lock(&mut self, sums: &LsSums) {
-        let Some(v) = self.position(self.t_max) else {
-            self.stats.fit_failed += 1;
-            self.reset_collect();
-            return;
-        };
-        let frac = v as u64;
-        // The frequency at the anchor: ν + 2a·(t − t0).
-        let dt = i128::from(self.t_max) - i128::from(self.t0);
-        let nu = chirp::nu_change_q64(dt, self.a)
-            .and_then(|d| u64::try_from(i128::from(self.nu) + d).ok())
-            .unwrap_or(self.nu);
-        let period_bits = (1u128 << 96) / u128::from(nu.max(1));
-        let into_slot_ps = ((u128::from(frac) * period_bits) >> 96) as u64;
-        let n_all = sums.n_all.max(1);
-        let n_in = u64::try_from(sums.n).unwrap_or(0);
-        self.lock = Some(AcquiredLock {
-            period_ps: U32F32::from_bits(u64::try_from(period_bits).unwrap_or(u64::MAX)),
-            nu_q64: nu,
-            chirp_q128: self.a,
-            origin_ps: self.t_max.saturating_sub(into_slot_ps),
-            anchor_t_ps: self.t_max,
-            anchor_phase_q64: frac,
-            z2_search: self.z2_search,
-            z2_threshold: self.z2_threshold,
-            z2_confirm: self.z2_confirm,
-            trials: thresholds::search_trials(self.points, self.chirp.points()),
-            detections: self.buf.len() as u32,
-            in_window: U0F32::from_bits(((n_in << 32) / n_all).min(u64::from(u32::MAX)) as u32),
-            null_window: U0F32::from_bits((sums.null_q32 / n_all).min(u64::from(u32::MAX)) as u32),
-            mean_r2_q64: u64::try_from(sums.syy / u128::from(n_in.max(1))).unwrap_or(u64::MAX),
-        });
-        self.step = Step::Done;
     }
 }
 

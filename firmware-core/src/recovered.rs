@@ -19,12 +19,13 @@
 //! [`RecoveredClock::align_numbering`].
 //!
 //! ## Memory
-//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 16,408 bytes on
-//! thumbv7em (16,480 on x86_64, where `i128` aligns to 16): the acquisition buffer 10.2 KB
+//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 16,720 bytes on
+//! thumbv7em (16,784 on x86_64, where `i128` aligns to 16): the acquisition buffer 10.2 KB
 //! (2048 entries of 5 bytes, see [`crate::acquire`]), the arrival patterns 2.4 KB (17 channel
 //! patterns with 16 positions each), the tracker 2.5 KB (mostly its calibration histograms,
-//! 16 channels × 32 bins), the rest of the acquirer 1 KB (candidates and the search step) and
-//! the settings and lock evidence 0.2 KB. Storing each detection as a 64-bit time and a channel
+//! 16 channels × 32 bins), the rest of the acquirer 1.1 KB (candidates, the search step and the
+//! chirp lattice; the drift search added 312 bytes on thumbv7em) and the settings and lock
+//! evidence 0.3 KB. Storing each detection as a 64-bit time and a channel
 //! byte took 24,976 bytes; the `size_report` test prints every part.
 //!
 //! ## Work per detection
