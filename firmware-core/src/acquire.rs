@@ -25,11 +25,12 @@
 //!
 //! The best final candidate must pass the threshold of [`thresholds`] for M = the number of final
 //! lattice points (frequency × chirp) in the prior (Bonferroni over every point any stage could
-//! have visited): a false lock per attempt below 1e-9. Its offset comes from the matched fold ([`fold::Fold::best_offset`]);
-//! then a line fit of residual against slot index (the least-squares period estimator, whose
-//! variance reaches the Cramér–Rao bound σ²/Σ(k_i − k̄)², Kay, Fundamentals of Statistical Signal
-//! Processing I, 1993) refines period and phase twice over the detections within ±2w, then ±w of
-//! their nearest expected position (w = `fit_half_window`).
+//! have visited): a false lock per attempt below 1e-9. Its offset comes from the matched fold
+//! ([`fold::Fold::best_offset`]); then a line fit of residual against slot index (the
+//! least-squares period estimator, whose variance reaches the Cramér–Rao bound σ²/Σ(k_i − k̄)²,
+//! Kay, Fundamentals of Statistical Signal Processing I, 1993) refines period and phase twice
+//! over the detections within ±2w, then ±w of their nearest expected position
+//! (w = `fit_half_window`).
 //!
 //! ## Drifting transmitter: the chirp dimension
 //! A fold with one constant frequency over a span T misses a linear frequency drift ν̇ by
@@ -77,12 +78,12 @@
 //! what it holds (and a confirmation decides on what it got), counted in
 //! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds and chirp index
 //! (64 bytes each for n = 2), the search step (272 bytes: the fit keeps two half-span sums), the
-//! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes in all. The buffer stays owned rather than
-//! borrowed from the caller: a `&'a mut` buffer would put a lifetime into the clock, the marked
-//! clock and every receiver type built on them, and it saves RAM only where the board has
-//! memory to lend that nothing else holds while the clock acquires. The size
-//! report (`size_report` test) prints every part; `const` assertions next to the types bound
-//! them for the host's and the HIL's capacities.
+//! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes in all. The
+//! buffer stays owned rather than borrowed from the caller: a `&'a mut` buffer would put a
+//! lifetime into the clock, the marked clock and every receiver type built on them, and it
+//! saves RAM only where the board has memory to lend that nothing else holds while the clock
+//! acquires. The size report (`size_report` test) prints every part; `const` assertions next
+//! to the types bound them for the host's and the HIL's capacities.
 //!
 //! ## Work bound
 //! [`Acquirer::push`] stores one detection (during confirmation it also folds it: n harmonics).
@@ -95,7 +96,8 @@
 //! (G/2^stages + 1)·R0·first_stage + 10·K·F + 3·F + confirm units, G the final frequency lattice
 //! and R0 = 1 the stage-0 chirp rows; with a chirp lattice of more than one point, R0 = 2·r + 1
 //! rows (r = ⌈(P − 1 − 4^stages)/(2·4^stages)⌉ when P − 1 > 4^stages, else 0; P the final chirp
-//! points), refinement up to 50·K·F, and the search-batch fits 2·[`CHIRP_FIT_ROUNDS`]·F more. Detections that arrive while the search runs are not stored (counted in
+//! points), refinement up to 50·K·F, and the search-batch fits 2·[`CHIRP_FIT_ROUNDS`]·F more.
+//! Detections that arrive while the search runs are not stored (counted in
 //! [`AcquireStats::dropped_busy`]).
 
 mod buffer;

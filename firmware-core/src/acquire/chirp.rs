@@ -118,7 +118,7 @@ impl ChirpLattice {
         }
     }
 
-    /// Chirp coefficient of final index `c`, Q0.128 cycles per ps.
+    /// Chirp coefficient of final index `c`, Q0.128 cycles per ps².
     pub fn value(&self, c: i64) -> i64 {
         c.saturating_mul(self.step_q128)
     }

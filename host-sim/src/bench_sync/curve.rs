@@ -2,11 +2,11 @@
 //!
 //! A 1 GHz variant of the bench link (three-state time-bin, 30 ps jitter, half the detections
 //! dark counts, prior ±500 ppm, offset drawn per seed) at per-slot detection probabilities
-//! 1e-2 … 1e-7 (with 3e-7) and drifts 0, 0.02 and 0.1 ppm/s; the profile's drift is the acquisition's drift
-//! allowance ([`crate::clocks::recovered_params_for`]). Each run feeds a cold clock at the
-//! host's `work_per_call` (4096 units per detection, no idle work) until it locks or
-//! [`CURVE_CAP`] detections have passed, and checks the lock's period against the simulator's
-//! period at that time.
+//! 1e-2 … 1e-7 (with 3e-7) and drifts 0, 0.02 and 0.1 ppm/s; the profile's drift is the
+//! acquisition's drift allowance ([`crate::clocks::recovered_params_for`]). Each run feeds a
+//! cold clock at the host's `work_per_call` (4096 units per detection, no idle work) until it
+//! locks or [`CURVE_CAP`] detections have passed, and checks the lock's period against the
+//! simulator's period at that time.
 
 use super::link::{self, Feed, LinkPoint};
 use crate::scenario::Scenario;
