@@ -553,19 +553,36 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     }
 
     fn eval_step(&self, e: &mut Eval<H>, budget: &mut u32, pat: &ArrivalPattern) -> bool {
-        while e.cur.read < e.end && *budget > 0 {
-            let Some((t, channel)) = self.buf.next(&mut e.cur) else {
-                e.cur.read = e.end;
+        // One loop per case, so the constant-frequency fold pays nothing for the chirp.
+        if e.a == 0 {
+            self.eval_loop::<false>(e, budget, pat)
+        } else {
+            self.eval_loop::<true>(e, budget, pat)
+        }
+    }
+
+    fn eval_loop<const CHIRP: bool>(
+        &self,
+        e: &mut Eval<H>,
+        budget: &mut u32,
+        pat: &ArrivalPattern,
+    ) -> bool {
+        let (nu, a, mut fold, mut cur) = (e.nu, e.a, e.fold, e.cur);
+        let mut left = *budget;
+        while cur.read < e.end && left > 0 {
+            let Some((t, channel)) = self.buf.next(&mut cur) else {
+                cur.read = e.end;
                 break;
             };
             let dt = t.wrapping_sub(self.t0);
-            let mut ph = dt.wrapping_mul(e.nu);
-            if e.a != 0 {
-                ph = ph.wrapping_add(chirp::phase_q64(dt, e.a));
+            let mut ph = dt.wrapping_mul(nu);
+            if CHIRP {
+                ph = ph.wrapping_add(chirp::phase_q64(dt, a));
             }
-            e.fold.add(ph, pat.channel(channel));
-            *budget -= 1;
+            fold.add(ph, pat.channel(channel));
+            left -= 1;
         }
+        (e.fold, e.cur, *budget) = (fold, cur, left);
         e.cur.read >= e.end
     }
 

@@ -72,11 +72,11 @@ pub struct BenchSyncArgs {
     /// --quick].
     #[arg(long)]
     pub false_lock_attempts: Option<u64>,
-    /// Noise-only attempts at the enlarged (frequency × chirp) search [default: 10000; 500
+    /// Noise-only attempts at the enlarged (frequency × chirp) search [default: 10000; 200
     /// with --quick].
     #[arg(long)]
     pub chirp_false_lock_attempts: Option<u64>,
-    /// Seeds per cell of the detections-to-lock curve [default: 10; 3 with --quick].
+    /// Seeds per cell of the detections-to-lock curve [default: 10; 2 with --quick].
     #[arg(long)]
     pub curve_seeds: Option<u64>,
     /// Timed repetitions of each cost buffer (the median is reported) [default: 7; 5 with
@@ -96,7 +96,7 @@ pub struct BenchSyncArgs {
     /// Run only these parts (comma-separated); all when omitted.
     #[arg(long, value_enum, value_delimiter = ',')]
     pub only: Vec<Figure>,
-    /// Fewer seeds and attempts: a smoke run of well under a minute (release build).
+    /// Fewer seeds, attempts and curve points: a smoke run of about a minute (release build).
     #[arg(long)]
     pub quick: bool,
     /// Print the report as JSON instead of tables.
@@ -196,13 +196,13 @@ pub fn run(args: &BenchSyncArgs) -> Result<BenchSyncReport, Box<dyn Error>> {
             10_000
         }),
         chirp_false_lock_attempts: args.chirp_false_lock_attempts.unwrap_or(if args.quick {
-            500
+            200
         } else {
             10_000
         }),
         curve_seeds: args
             .curve_seeds
-            .unwrap_or(if args.quick { 3 } else { 10 })
+            .unwrap_or(if args.quick { 2 } else { 10 })
             .max(1),
         reps: args.reps.unwrap_or(if args.quick { 5 } else { 7 }).max(1),
         prior_ppm: args.prior_ppm,

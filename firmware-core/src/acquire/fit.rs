@@ -102,9 +102,11 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// Model position of time `t` in slots (Q64.64), slot starts at integers.
     pub(super) fn position(&self, t: u64) -> Option<i128> {
         let d = i128::from(t) - i128::from(self.t0);
-        d.checked_mul(i128::from(self.nu))?
-            .checked_add(chirp::slots_q64(d, self.a)?)?
-            .checked_sub(self.phi0)
+        let v = d.checked_mul(i128::from(self.nu))?.checked_sub(self.phi0)?;
+        if self.a == 0 {
+            return Some(v);
+        }
+        v.checked_add(chirp::slots_q64(d, self.a)?)
     }
 
     #[allow(clippy::too_many_arguments)]

@@ -18,7 +18,7 @@ use std::error::Error;
 /// Detections per slot of the full curve.
 pub const RATES: [f64; 7] = [1e-2, 1e-3, 1e-4, 1e-5, 1e-6, 3e-7, 1e-7];
 /// Detections per slot with `--quick`.
-pub const RATES_QUICK: [f64; 5] = [1e-2, 1e-4, 1e-6, 3e-7, 1e-7];
+pub const RATES_QUICK: [f64; 4] = [1e-2, 1e-4, 1e-6, 1e-7];
 /// Transmitter drifts, ppm/s.
 pub const DRIFTS: [f64; 3] = [0.0, 0.02, 0.1];
 /// Repetition rate of the curve's link, Hz.
