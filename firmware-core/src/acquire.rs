@@ -96,7 +96,8 @@
 //! (G/2^stages + 1)·R0·first_stage + 10·K·F + 3·F + confirm units, G the final frequency lattice
 //! and R0 = 1 the stage-0 chirp rows; with a chirp lattice of more than one point, R0 = 2·r + 1
 //! rows (r = ⌈(P − 1 − 4^stages)/(2·4^stages)⌉ when P − 1 > 4^stages, else 0; P the final chirp
-//! points), refinement up to 50·K·F, and the search-batch fits 2·[`CHIRP_FIT_ROUNDS`]·F more.
+//! points), refinement up to 50·K·F, and (wherever the allowance reaches 1/32 chirp step) the
+//! search-batch fits 2·[`CHIRP_FIT_ROUNDS`]·F more.
 //! Detections that arrive while the search runs are not stored (counted in
 //! [`AcquireStats::dropped_busy`]).
 

@@ -68,6 +68,10 @@ pub(crate) struct ChirpLattice {
     pub half: u64,
     /// Number of stages after the first (S).
     pub stages: u8,
+    /// Whether the fit should read the curvature: the allowance reaches 1/32 step, so the chirp
+    /// can bend the residuals by about 1/18 turn at harmonic n at the 1.5 spans the
+    /// confirmation extrapolates to (1.75·a/step turns; false without an allowance).
+    pub fit_curvature: bool,
 }
 
 impl ChirpLattice {
@@ -79,6 +83,7 @@ impl ChirpLattice {
                 step_q128: 0,
                 half: 0,
                 stages,
+                fit_curvature: false,
             };
         }
         // 4·Δν/T in Q0.128: (Δν << 62)/T · 16 (Δν < 2^64, so the shift fits).
@@ -89,6 +94,8 @@ impl ChirpLattice {
             step_q128: step,
             half: cover(max_q128.unsigned_abs(), step.unsigned_abs()),
             stages,
+            fit_curvature: u128::from(max_q128.unsigned_abs()) * 32
+                >= u128::from(step.unsigned_abs()),
         }
     }
 
@@ -172,6 +179,7 @@ mod tests {
             step_q128: 10,
             half: cover(1000, 10),
             stages: 3,
+            fit_curvature: true,
         };
         assert_eq!(
             l.half, 100,
@@ -185,5 +193,10 @@ mod tests {
         assert_eq!(cover(5, 10), 0);
         let off = ChirpLattice::new(0, 1 << 40, 1 << 40, 3);
         assert_eq!((off.points(), off.rows0(), off.value(0)), (1, 0, 0));
+        assert!(!off.fit_curvature);
+        // Step (Δν·2^62/T)·16 = (16·2^62/2^62)·16 = 256: 1/32 step is 8.
+        let small = ChirpLattice::new(8, 16, 1 << 62, 3);
+        assert_eq!((small.step_q128, small.points()), (256, 1));
+        assert!(small.fit_curvature && !ChirpLattice::new(7, 16, 1 << 62, 3).fit_curvature);
     }
 }

@@ -163,9 +163,10 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             self.reset_collect();
             return;
         };
-        // The chirp is refined only where the span resolved more than one chirp point.
+        // The chirp is refined wherever the allowance could bend the residuals by about 1/18
+        // turn once confirmation extrapolates to 1.5 spans.
         let mut new_a = self.a;
-        if self.chirp.half > 0 {
+        if self.chirp.fit_curvature {
             if let Some((u0, u1, a)) = self.uncurve(halves, c0, c1, xc) {
                 (c0, c1, new_a) = (u0, u1, a);
             }
@@ -188,7 +189,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         match pass {
             // A chirp error bends the residuals out of the window at the span's ends, so the
             // curvature seen by one pass is clipped: repeat both search-batch passes.
-            0 | 1 if self.chirp.half > 0 && self.fit_rounds < CHIRP_FIT_ROUNDS => {
+            0 | 1 if self.chirp.fit_curvature && self.fit_rounds < CHIRP_FIT_ROUNDS => {
                 self.fit_rounds += 1;
                 self.begin_fit(pass);
             }
