@@ -78,8 +78,8 @@
 //! what it holds (and a confirmation decides on what it got), counted in
 //! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds and chirp index
 //! (64 bytes each for n = 2), the search step (272 bytes: the fit keeps two half-span sums), the
-//! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes in all. The
-//! buffer stays owned rather than borrowed from the caller: a `&'a mut` buffer would put a
+//! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes (224 on
+//! thumbv7em). The buffer stays owned rather than borrowed from the caller: a `&'a mut` buffer would put a
 //! lifetime into the clock, the marked clock and every receiver type built on them, and it
 //! saves RAM only where the board has memory to lend that nothing else holds while the clock
 //! acquires. The size report (`size_report` test) prints every part; `const` assertions next
@@ -252,9 +252,9 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     stats: AcquireStats,
 }
 
-// The host's and the HIL's capacities: 11,440 bytes on x86_64, 11,416 on thumbv7em. The drift
-// search added 208 bytes: the chirp index of each candidate and trial, the chirp lattice and the
-// fit's second half-span sums (which read the curvature).
+// The host's and the HIL's capacities: 11,440 bytes on x86_64, 11,424 on thumbv7em. The drift
+// search added 208 (224) bytes: the chirp index of each candidate and trial, the chirp lattice
+// and the fit's second half-span sums (which read the curvature).
 const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_456);
 
 impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
