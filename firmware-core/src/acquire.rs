@@ -79,10 +79,10 @@
 //! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds and chirp index
 //! (64 bytes each for n = 2), the search step (272 bytes: the fit keeps two half-span sums), the
 //! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes (224 on
-//! thumbv7em). The buffer stays owned rather than borrowed from the caller: a `&'a mut` buffer would put a
-//! lifetime into the clock, the marked clock and every receiver type built on them, and it
-//! saves RAM only where the board has memory to lend that nothing else holds while the clock
-//! acquires. The size report (`size_report` test) prints every part; `const` assertions next
+//! thumbv7em). The buffer stays owned rather than borrowed from the caller: a `&'a mut` buffer
+//! would put a lifetime into the clock, the marked clock and every receiver type built on them,
+//! and it saves RAM only where the board has memory to lend that nothing else holds while the
+//! clock acquires. The size report (`size_report` test) prints every part; `const` assertions next
 //! to the types bound them for the host's and the HIL's capacities.
 //!
 //! ## Work bound
