@@ -24,12 +24,43 @@
 //! resolves it, otherwise the later stages see the swap (bits inverted).
 //!
 //! The best final candidate must pass the threshold of [`thresholds`] for M = the number of final
-//! lattice points in the prior (Bonferroni over every point any stage could have visited): a false
-//! lock per attempt below 1e-9. Its offset comes from the matched fold ([`fold::Fold::best_offset`]);
-//! then a line fit of residual against slot index (the least-squares period estimator, whose
-//! variance reaches the Cramér–Rao bound σ²/Σ(k_i − k̄)², Kay, Fundamentals of Statistical Signal
-//! Processing I, 1993) refines period and phase twice over the detections within ±2w, then ±w of
-//! their nearest expected position (w = `fit_half_window`).
+//! lattice points (frequency × chirp) in the prior (Bonferroni over every point any stage could
+//! have visited): a false lock per attempt below 1e-9. Its offset comes from the matched fold
+//! ([`fold::Fold::best_offset`]); then a line fit of residual against slot index (the
+//! least-squares period estimator, whose variance reaches the Cramér–Rao bound σ²/Σ(k_i − k̄)²,
+//! Kay, Fundamentals of Statistical Signal Processing I, 1993) refines period and phase twice
+//! over the detections within ±2w, then ±w of their nearest expected position
+//! (w = `fit_half_window`).
+//!
+//! ## Drifting transmitter: the chirp dimension
+//! A fold with one constant frequency over a span T misses a linear frequency drift ν̇ by
+//! ½·ν̇·T² turns at harmonic 1 (n times that at harmonic n): at 1 GHz, 0.1 ppm/s is
+//! ν̇ = 100 Hz/s, and 1024 detections at 200 per second span 5 s — 1,300 turns. With
+//! `drift_ppb_per_s` > 0 the search folds with φ(t) = ν·t + a·t² (a = ν̇/2) on a chirp lattice
+//! ([`chirp`]) whose final step 4·Δν/T keeps a half-step error under 1/16 turn at harmonic n.
+//! Three ways to search it (n = 2, span T, G frequency points, P = n·ν̇_max·T²/2 chirp points):
+//! - full period × period-rate grid: G·P trials over all F detections, G·P·F units;
+//! - chirp refined stage by stage (chosen): stage s (window T/2^(S−s)) thins the chirp lattice
+//!   by 4^(S−s), so stage 0 scans chirp rows only when its own window resolves the drift
+//!   (rows ≈ P/4^S), and each later stage refines a candidate by ±2 chirp steps (its four-fold
+//!   finer lattice covers the previous half step) along the frequency ridge, 25 trials instead
+//!   of 5; cost (G/2^S)·rows·first_stage + 25·K·F;
+//! - semi-coherent: segments short enough for the drift, T_c = 1/√(2n·ν̇) (50 ms at 100 Hz/s,
+//!   ten detections at 200/s), their Z² summed along a linear frequency track. Summing M
+//!   segments' powers needs about N_coh²/N_c detections instead of N_coh (the null's spread grows
+//!   as √M), 100,000 instead of 1,000 here, and the per-segment spectra do not fit the board's
+//!   RAM.
+//!
+//! The staged chirp keeps full coherence and adds work only where the window resolves the
+//! drift; its cost grows as P/4^S at stage 0, which is what bounds its reach (at 1 GHz,
+//! ±500 ppm, 50 % noise, 4096 units per detection: locks within seconds at 1e-6 per slot and
+//! 0.1 ppm/s, minutes at 3e-7 and 0.02 ppm/s; 1e-7 with 0.02 ppm/s needs 2.9e9 units per attempt,
+//! about an hour of detections — out of reach). The fit then refines the chirp from the
+//! residuals' curvature (`acquire/fit.rs`) so that confirmation can extrapolate. The Bonferroni
+//! count M is frequency × chirp points ([`thresholds::search_trials`]). The analysis, cost
+//! table and measured curve are in `docs/acquisition.md`. With `drift_ppb_per_s` = 0 (or a span
+//! too short to resolve one chirp step) the lattice has one point and the search is exactly the
+//! constant-frequency one.
 //!
 //! ## Confirmation
 //! The next `confirm` detections are an independent batch: Z²_n at the found frequency must pass
@@ -45,34 +76,44 @@
 //! with the defaults (1024 + 512 detections) `N` = 2048 leaves 512 entries for gaps, about four
 //! times what a 100-detections-per-second link needs. A buffer filled early by gaps searches
 //! what it holds (and a confirmation decides on what it got), counted in
-//! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds (56 bytes each
-//! for n = 2), the search step (160 bytes) and a few words. The buffer stays owned rather than
-//! borrowed from the caller: a `&'a mut` buffer would put a lifetime into the clock, the marked
-//! clock and every receiver type built on them, and it saves RAM only where the board has
-//! memory to lend that nothing else holds while the clock acquires. The size
-//! report (`size_report` test) prints every part; `const` assertions next to the types bound
-//! them for the host's and the HIL's capacities.
+//! [`AcquireStats::dropped_full`]. The rest is `K` candidates with their folds and chirp index
+//! (64 bytes each for n = 2), the search step (272 bytes: the fit keeps two half-span sums), the
+//! chirp lattice (32 bytes) and a few words; the drift search added 208 bytes (224 on
+//! thumbv7em). The buffer stays owned rather than borrowed from the caller: a `&'a mut` buffer
+//! would put a lifetime into the clock, the marked clock and every receiver type built on them,
+//! and it saves RAM only where the board has memory to lend that nothing else holds while the
+//! clock acquires. The size report (`size_report` test) prints every part; `const` assertions next
+//! to the types bound them for the host's and the HIL's capacities.
 //!
 //! ## Work bound
 //! [`Acquirer::push`] stores one detection (during confirmation it also folds it: n harmonics).
 //! [`Acquirer::work`] spends at most `budget` units; one unit is one detection at one trial
-//! frequency (one multiply for the phase, n rotations and table lookups) or one detection of a fit
-//! pass (one residual per expected position); reading a stored detection back is one add and
-//! a zigzag decode (an escape entry one more). Between stages it sorts K candidates (K²
-//! comparisons); twice per attempt it searches the best offset (1024·n lookups). An attempt
-//! costs about (G/2^stages + 1)·first_stage + 10·K·F + 3·F + confirm units, G the final lattice
-//! size. Detections that arrive while the search runs are not stored (counted in
+//! frequency (one multiply for the phase — with a chirp also one 64×64→128 square and two
+//! multiplies — n rotations and table lookups) or one detection of a fit pass (one residual per
+//! expected position); reading a stored detection back is one add and a zigzag decode (an escape
+//! entry one more). Between stages it sorts K candidates (K² comparisons); twice per attempt it
+//! searches the best offset (1024·n lookups). An attempt costs about
+//! (G/2^stages + 1)·R0·first_stage + 10·K·F + 3·F + confirm units, G the final frequency lattice
+//! and R0 = 1 the stage-0 chirp rows; with a chirp lattice of more than one point, R0 = 2·r + 1
+//! rows (r = ⌈(P − 1 − 4^stages)/(2·4^stages)⌉ when P − 1 > 4^stages, else 0; P the final chirp
+//! points), refinement up to 50·K·F, and (wherever the allowance reaches 1/32 chirp step) the
+//! search-batch fits 2·[`CHIRP_FIT_ROUNDS`]·F more.
+//! Detections that arrive while the search runs are not stored (counted in
 //! [`AcquireStats::dropped_busy`]).
 
 mod buffer;
+pub mod chirp;
 mod config;
+mod fit;
 pub mod fold;
 #[cfg(test)]
 pub(crate) mod synth;
 pub mod thresholds;
 
 use buffer::{Cursor, DetectionBuffer};
+use chirp::ChirpLattice;
 pub use config::{AcquireConfig, AcquireConfigError, AcquireParams};
+use fit::LsSums;
 use fixed::types::{U0F32, U32F32};
 use fold::{ArrivalPattern, Fold};
 
@@ -82,8 +123,10 @@ use fold::{ArrivalPattern, Fold};
 pub struct AcquiredLock {
     /// Period estimate in ps (Q32.32).
     pub period_ps: U32F32,
-    /// Frequency in cycles per ps (Q0.64): the exact value behind `period_ps`.
+    /// Frequency in cycles per ps (Q0.64) at `anchor_t_ps`: the exact value behind `period_ps`.
     pub nu_q64: u64,
+    /// Chirp found, a = ν̇/2 in Q0.128 cycles per ps² (0 when the drift search is off).
+    pub chirp_q128: i64,
     /// Time (ps) at which a slot starts, at or just below `anchor_t_ps`.
     pub origin_ps: u64,
     /// Latest detection time used (ps).
@@ -96,7 +139,7 @@ pub struct AcquiredLock {
     pub z2_threshold: U32F32,
     /// Z²_n of the confirmation batch at the found frequency.
     pub z2_confirm: U32F32,
-    /// Final lattice points in the prior (the Bonferroni trial count).
+    /// Final lattice points (frequency × chirp) in the prior: the Bonferroni trial count.
     pub trials: u64,
     /// Detections in the final fit.
     pub detections: u32,
@@ -129,6 +172,7 @@ pub struct AcquireStats {
 #[derive(Clone, Copy, Debug)]
 struct Cand<const H: usize> {
     j: u64,
+    c: i64,
     z: U32F32,
     fold: Fold<H>,
 }
@@ -136,7 +180,9 @@ struct Cand<const H: usize> {
 #[derive(Clone, Copy, Debug)]
 struct Eval<const H: usize> {
     j: u64,
+    c: i64,
     nu: u64,
+    a: i64,
     cur: Cursor,
     end: usize,
     fold: Fold<H>,
@@ -146,56 +192,15 @@ struct Eval<const H: usize> {
 /// detection).
 pub const EXTRA_FINAL_PASSES: u8 = 3;
 
-/// Sums of a straight-line fit y = c0 + c1·x (x slots, y Q0.32 slot fractions).
-#[derive(Clone, Copy, Debug, Default)]
-struct LsSums {
-    n: i128,
-    sx: i128,
-    sxx: i128,
-    sy: i128,
-    sxy: i128,
-    syy: u128,
-    n_all: u64,
-    null_q32: u64,
-}
-
-impl LsSums {
-    fn add(&mut self, x: i128, y: i64) {
-        let y = i128::from(y);
-        self.n += 1;
-        self.sx = self.sx.saturating_add(x);
-        self.sxx = self.sxx.saturating_add(x.saturating_mul(x));
-        self.sy += y;
-        self.sxy = self.sxy.saturating_add(x.saturating_mul(y));
-        self.syy += y.unsigned_abs() * y.unsigned_abs();
-    }
-
-    /// Intercept at x = 0 (Q0.64 slots) and slope (Q0.64 per slot).
-    fn solve(&self) -> Option<(i128, i128)> {
-        if self.n < 3 {
-            return None;
-        }
-        let sxx = self
-            .n
-            .checked_mul(self.sxx)?
-            .checked_sub(self.sx.checked_mul(self.sx)?)?;
-        let sxy = self
-            .n
-            .checked_mul(self.sxy)?
-            .checked_sub(self.sx.checked_mul(self.sy)?)?;
-        if sxx <= 0 {
-            return None;
-        }
-        let c1 = sxy.checked_mul(1 << 32)? / sxx;
-        let c0 = (self.sy.checked_mul(1 << 32)?).checked_sub(c1.checked_mul(self.sx)?)? / self.n;
-        Some((c0, c1))
-    }
-}
+/// Repeats of each search-batch fit pass when the chirp lattice has more than one point (each
+/// costs one unit per detection of the search batch).
+pub const CHIRP_FIT_ROUNDS: u8 = 3;
 
 #[derive(Clone, Copy, Debug)]
 enum Step<const H: usize> {
     Collect,
     Scan {
+        row: i64,
         eval: Eval<H>,
         prev: Option<Cand<H>>,
         prev_z: Option<U32F32>,
@@ -210,7 +215,7 @@ enum Step<const H: usize> {
     Fit {
         pass: u8,
         cur: Cursor,
-        sums: LsSums,
+        sums: [LsSums; 2],
         xc: i128,
     },
     Confirm,
@@ -230,6 +235,9 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     lo: u64,
     step_nu: u64,
     points: u64,
+    chirp: ChirpLattice,
+    a: i64,
+    fit_rounds: u8,
     cands: [Cand<H>; K],
     ncand: usize,
     step: Step<H>,
@@ -244,8 +252,10 @@ pub struct Acquirer<const N: usize, const K: usize, const H: usize> {
     stats: AcquireStats,
 }
 
-// The host's and the HIL's capacities: 11,232 bytes on x86_64, 11,200 on thumbv7em.
-const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_264);
+// The host's and the HIL's capacities: 11,440 bytes on x86_64, 11,424 on thumbv7em. The drift
+// search added 208 (224) bytes: the chirp index of each candidate and trial, the chirp lattice
+// and the fit's second half-span sums (which read the curvature).
+const _: () = assert!(core::mem::size_of::<Acquirer<2048, 8, 2>>() <= 11_456);
 
 impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// An acquirer with the cold prior, collecting.
@@ -257,6 +267,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         }
         let empty = Cand {
             j: 0,
+            c: 0,
             z: U32F32::ZERO,
             fold: Fold::new(),
         };
@@ -270,6 +281,9 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             lo: 0,
             step_nu: 1,
             points: 1,
+            chirp: ChirpLattice::default(),
+            a: 0,
+            fit_rounds: 0,
             cands: [empty; K],
             ncand: 0,
             step: Step::Collect,
@@ -295,6 +309,11 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     /// Counters since construction.
     pub const fn stats(&self) -> &AcquireStats {
         &self.stats
+    }
+
+    /// Trial count of the latest search: frequency × chirp lattice points (the Bonferroni M).
+    pub fn search_trials(&self) -> u64 {
+        thresholds::search_trials(self.points, self.chirp.points())
     }
 
     /// Whether the acquirer is filling its buffer for a new search (nothing in progress).
@@ -364,7 +383,10 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
                     self.decide_confirmation();
                     return;
                 }
-                let ph = t_ps.wrapping_sub(self.t0).wrapping_mul(self.nu);
+                let dt = t_ps.wrapping_sub(self.t0);
+                let ph = dt
+                    .wrapping_mul(self.nu)
+                    .wrapping_add(chirp::phase_q64(dt, self.a));
                 self.confirm.add(ph, pat.channel(channel));
                 self.n_confirm += 1;
                 if self.n_confirm >= self.cfg.p.confirm {
@@ -384,10 +406,12 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         (u64::from(self.cfg.p.first_stage) << stage).min(self.buf.len() as u64) as usize
     }
 
-    fn eval_at(&self, j: u64, stage: u8) -> Eval<H> {
+    fn eval_at(&self, j: u64, c: i64, stage: u8) -> Eval<H> {
         Eval {
             j,
+            c,
             nu: self.nu_at(j),
+            a: self.chirp.value(c),
             cur: DetectionBuffer::<N>::cursor(self.t0),
             end: self.stage_end(stage),
             fold: Fold::new(),
@@ -405,15 +429,24 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             .div_ceil(stride)
             .saturating_mul(stride)
             .saturating_add(1);
-        let Some(thr) = thresholds::search_threshold(H, self.points) else {
+        self.chirp = ChirpLattice::new(
+            self.cfg.chirp_max_q128,
+            self.step_nu,
+            span,
+            self.cfg.p.stages,
+        );
+        let trials = thresholds::search_trials(self.points, self.chirp.points());
+        let Some(thr) = thresholds::search_threshold(H, trials) else {
             self.stats.search_failed += 1;
             self.reset_collect();
             return;
         };
         self.z2_threshold = thr;
         self.ncand = 0;
+        let row = -(self.chirp.rows0() as i64);
         self.step = Step::Scan {
-            eval: self.eval_at(0, 0),
+            row,
+            eval: self.eval_at(0, self.row_chirp(row), 0),
             prev: None,
             prev_z: None,
         };
@@ -432,8 +465,17 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         }
     }
 
-    /// Sort candidates by Z² (best first) and drop those within `2·stride` of a better one.
-    fn sort_and_suppress(&mut self, stride: u64) {
+    /// Final chirp index of stage-0 row `row`.
+    fn row_chirp(&self, row: i64) -> i64 {
+        row.saturating_mul(self.chirp.stride(0) as i64)
+    }
+
+    /// Sort candidates by Z² (best first) and drop those near a better one: within two
+    /// frequency steps of `stage`, or on a neighbouring chirp within the ridge's reach (a
+    /// chirp step moves the compensating frequency by up to four steps, see [`chirp`]).
+    fn sort_and_suppress(&mut self, stage: u8) {
+        let stride = 1u64 << (self.cfg.p.stages - stage);
+        let cs = self.chirp.stride(stage);
         let n = self.ncand;
         if let Some(c) = self.cands.get_mut(..n) {
             c.sort_unstable_by_key(|c| core::cmp::Reverse(c.z));
@@ -441,12 +483,10 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         let mut kept = 0;
         for i in 0..n {
             let Some(&c) = self.cands.get(i) else { break };
-            let near = self
-                .cands
-                .get(..kept)
-                .unwrap_or(&[])
-                .iter()
-                .any(|k| k.j.abs_diff(c.j) <= 2 * stride);
+            let near = self.cands.get(..kept).unwrap_or(&[]).iter().any(|k| {
+                let dc = k.c.abs_diff(c.c);
+                dc <= cs && k.j.abs_diff(c.j) <= 2 * stride + 4 * stride * (dc / cs)
+            });
             if !near {
                 if let Some(slot) = self.cands.get_mut(kept) {
                     *slot = c;
@@ -457,19 +497,26 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         self.ncand = kept;
     }
 
-    /// Next offset ≥ `from` in −2..=2 whose lattice point lies inside the prior.
-    fn next_offset(&self, cand: usize, stage: u8, from: i64) -> Option<(i64, u64)> {
+    /// Next neighbour index ≥ `from` (0..25: chirp offset k = idx/5 − 2, frequency offset
+    /// idx%5 − 2 around the ridge centre −2k) whose lattice point `stage` may visit.
+    fn next_offset(&self, cand: usize, stage: u8, from: i64) -> Option<(i64, u64, i64)> {
         let c = self.cands.get(cand)?;
         let stride = 1i64 << (self.cfg.p.stages - stage);
-        (from..=2).find_map(|off| {
-            let j = c.j.checked_add_signed(off * stride)?;
-            (j < self.points).then_some((off, j))
+        let cs = self.chirp.stride(stage) as i64;
+        (from.max(0)..25).find_map(|idx| {
+            let (k, dj) = (idx / 5 - 2, idx % 5 - 2);
+            let chirp = c.c.checked_add(k.checked_mul(cs)?)?;
+            if !self.chirp.allowed(chirp, stage) {
+                return None;
+            }
+            let j = c.j.checked_add_signed((dj - 2 * k) * stride)?;
+            (j < self.points).then_some((idx, j, chirp))
         })
     }
 
     fn begin_candidate(&mut self, stage: u8, cand: usize) {
         if cand >= self.ncand {
-            self.sort_and_suppress(1 << (self.cfg.p.stages - stage));
+            self.sort_and_suppress(stage);
             if stage < self.cfg.p.stages {
                 self.begin_candidate(stage + 1, 0);
             } else {
@@ -477,13 +524,13 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             }
             return;
         }
-        match self.next_offset(cand, stage, -2) {
-            Some((off, j)) => {
+        match self.next_offset(cand, stage, 0) {
+            Some((off, j, c)) => {
                 self.step = Step::Refine {
                     stage,
                     cand,
                     off,
-                    eval: self.eval_at(j, stage),
+                    eval: self.eval_at(j, c, stage),
                     best: None,
                 }
             }
@@ -500,36 +547,43 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         };
         self.z2_search = best.z;
         self.nu = self.nu_at(best.j);
+        self.a = self.chirp.value(best.c);
+        self.fit_rounds = 0;
         self.phi0 = i128::from(best.fold.best_offset().0);
         self.begin_fit(0);
     }
 
-    fn begin_fit(&mut self, pass: u8) {
-        let xc = self.position(self.t_max).map_or(0, |v| (v >> 64) / 2);
-        self.step = Step::Fit {
-            pass,
-            cur: DetectionBuffer::<N>::cursor(self.t0),
-            sums: LsSums::default(),
-            xc,
-        };
-    }
-
-    /// Model position of time `t` in slots (Q64.64), slot starts at integers.
-    fn position(&self, t: u64) -> Option<i128> {
-        let d = i128::from(t) - i128::from(self.t0);
-        d.checked_mul(i128::from(self.nu))?.checked_sub(self.phi0)
-    }
-
     fn eval_step(&self, e: &mut Eval<H>, budget: &mut u32, pat: &ArrivalPattern) -> bool {
-        while e.cur.read < e.end && *budget > 0 {
-            let Some((t, channel)) = self.buf.next(&mut e.cur) else {
-                e.cur.read = e.end;
+        // One loop per case, so the constant-frequency fold pays nothing for the chirp.
+        if e.a == 0 {
+            self.eval_loop::<false>(e, budget, pat)
+        } else {
+            self.eval_loop::<true>(e, budget, pat)
+        }
+    }
+
+    fn eval_loop<const CHIRP: bool>(
+        &self,
+        e: &mut Eval<H>,
+        budget: &mut u32,
+        pat: &ArrivalPattern,
+    ) -> bool {
+        let (nu, a, mut fold, mut cur) = (e.nu, e.a, e.fold, e.cur);
+        let mut left = *budget;
+        while cur.read < e.end && left > 0 {
+            let Some((t, channel)) = self.buf.next(&mut cur) else {
+                cur.read = e.end;
                 break;
             };
-            let ph = t.wrapping_sub(self.t0).wrapping_mul(e.nu);
-            e.fold.add(ph, pat.channel(channel));
-            *budget -= 1;
+            let dt = t.wrapping_sub(self.t0);
+            let mut ph = dt.wrapping_mul(nu);
+            if CHIRP {
+                ph = ph.wrapping_add(chirp::phase_q64(dt, a));
+            }
+            fold.add(ph, pat.channel(channel));
+            left -= 1;
         }
+        (e.fold, e.cur, *budget) = (fold, cur, left);
         e.cur.read >= e.end
     }
 
@@ -539,15 +593,21 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             let step = core::mem::replace(&mut self.step, Step::Idle);
             match step {
                 Step::Scan {
+                    row,
                     mut eval,
                     prev,
                     prev_z,
                 } => {
                     if !self.eval_step(&mut eval, &mut budget, pat) {
-                        self.step = Step::Scan { eval, prev, prev_z };
+                        self.step = Step::Scan {
+                            row,
+                            eval,
+                            prev,
+                            prev_z,
+                        };
                         return;
                     }
-                    self.scan_point(eval, prev, prev_z);
+                    self.scan_point(row, eval, prev, prev_z);
                 }
                 Step::Refine {
                     stage,
@@ -613,9 +673,16 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
         }
     }
 
-    fn scan_point(&mut self, eval: Eval<H>, prev: Option<Cand<H>>, prev_z: Option<U32F32>) {
+    fn scan_point(
+        &mut self,
+        row: i64,
+        eval: Eval<H>,
+        prev: Option<Cand<H>>,
+        prev_z: Option<U32F32>,
+    ) {
         let cur = Cand {
             j: eval.j,
+            c: eval.c,
             z: eval.fold.z2(),
             fold: eval.fold,
         };
@@ -629,11 +696,21 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             if prev.is_none_or(|p| cur.z >= p.z) {
                 self.insert(cur);
             }
-            self.begin_candidate(0, self.ncand);
+            if row < self.chirp.rows0() as i64 {
+                self.step = Step::Scan {
+                    row: row + 1,
+                    eval: self.eval_at(0, self.row_chirp(row + 1), 0),
+                    prev: None,
+                    prev_z: None,
+                };
+            } else {
+                self.begin_candidate(0, self.ncand);
+            }
             return;
         }
         self.step = Step::Scan {
-            eval: self.eval_at(next, 0),
+            row,
+            eval: self.eval_at(next, eval.c, 0),
             prev: Some(cur),
             prev_z: prev.map(|p| p.z),
         };
@@ -649,6 +726,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
     ) {
         let cur = Cand {
             j: eval.j,
+            c: eval.c,
             z: eval.fold.z2(),
             fold: eval.fold,
         };
@@ -656,12 +734,12 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             Some(b) if b.z >= cur.z => b,
             _ => cur,
         };
-        if let Some((off, j)) = self.next_offset(cand, stage, off + 1) {
+        if let Some((off, j, c)) = self.next_offset(cand, stage, off + 1) {
             self.step = Step::Refine {
                 stage,
                 cand,
                 off,
-                eval: self.eval_at(j, stage),
+                eval: self.eval_at(j, c, stage),
                 best: Some(best),
             };
             return;
@@ -670,107 +748,6 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             *slot = best;
         }
         self.begin_candidate(stage, cand + 1);
-    }
-
-    #[allow(clippy::too_many_arguments)]
-    fn fit_one(
-        &self,
-        t_ps: u64,
-        channel: Option<u8>,
-        sums: &mut LsSums,
-        xc: i128,
-        w_q64: u64,
-        win: U0F32,
-        pat: &ArrivalPattern,
-    ) {
-        let Some(v) = self.position(t_ps) else {
-            return;
-        };
-        let p = pat.channel(channel);
-        let (r, carry) = p.residual(v as u64);
-        sums.n_all += 1;
-        sums.null_q32 += p.null_fraction(win);
-        if r.unsigned_abs() <= w_q64 {
-            let slot = (v >> 64) + i128::from(carry);
-            sums.add(slot - xc, r >> 32);
-        }
-    }
-
-    fn finish_fit(&mut self, pass: u8, sums: &LsSums, xc: i128) {
-        let Some((c0, c1)) = sums.solve() else {
-            self.stats.fit_failed += 1;
-            self.reset_collect();
-            return;
-        };
-        let nu = i128::from(self.nu);
-        let new_nu = nu.checked_mul(c1).map_or(-1, |v| nu - (v >> 64));
-        let phi = self.phi0;
-        let new_phi = phi
-            .checked_sub(phi.checked_mul(c1).map_or(0, |v| v >> 64))
-            .and_then(|v| v.checked_add(c0))
-            .and_then(|v| v.checked_sub(c1.checked_mul(xc)?));
-        let (Ok(new_nu), Some(new_phi)) = (u64::try_from(new_nu), new_phi) else {
-            self.stats.fit_failed += 1;
-            self.reset_collect();
-            return;
-        };
-        self.nu = new_nu;
-        self.phi0 = new_phi;
-        match pass {
-            0 => self.begin_fit(1),
-            1 => {
-                self.confirm = Fold::new();
-                self.n_confirm = 0;
-                self.step = Step::Confirm;
-            }
-            // In-window noise is uniform around the current model, so one pass corrects only
-            // part of the previous error: repeat the final fit until it has converged.
-            p if p < 2 + EXTRA_FINAL_PASSES => self.begin_fit(p + 1),
-            _ => self.build_lock(sums),
-        }
-    }
-
-    fn decide_confirmation(&mut self) {
-        let z = self.confirm.z2();
-        let thr = thresholds::confirm_threshold(H).unwrap_or(U32F32::MAX);
-        let predicted = self.confirm.matched(self.phi0 as u64);
-        let (_, best) = self.confirm.best_offset();
-        self.z2_confirm = z;
-        if z >= thr && predicted.saturating_mul(2) >= best {
-            self.begin_fit(2);
-        } else {
-            self.stats.confirm_failed += 1;
-            self.reset_collect();
-        }
-    }
-
-    fn build_lock(&mut self, sums: &LsSums) {
-        let Some(v) = self.position(self.t_max) else {
-            self.stats.fit_failed += 1;
-            self.reset_collect();
-            return;
-        };
-        let frac = v as u64;
-        let period_bits = (1u128 << 96) / u128::from(self.nu.max(1));
-        let into_slot_ps = ((u128::from(frac) * period_bits) >> 96) as u64;
-        let n_all = sums.n_all.max(1);
-        let n_in = u64::try_from(sums.n).unwrap_or(0);
-        self.lock = Some(AcquiredLock {
-            period_ps: U32F32::from_bits(u64::try_from(period_bits).unwrap_or(u64::MAX)),
-            nu_q64: self.nu,
-            origin_ps: self.t_max.saturating_sub(into_slot_ps),
-            anchor_t_ps: self.t_max,
-            anchor_phase_q64: frac,
-            z2_search: self.z2_search,
-            z2_threshold: self.z2_threshold,
-            z2_confirm: self.z2_confirm,
-            trials: self.points,
-            detections: self.buf.len() as u32,
-            in_window: U0F32::from_bits(((n_in << 32) / n_all).min(u64::from(u32::MAX)) as u32),
-            null_window: U0F32::from_bits((sums.null_q32 / n_all).min(u64::from(u32::MAX)) as u32),
-            mean_r2_q64: u64::try_from(sums.syy / u128::from(n_in.max(1))).unwrap_or(u64::MAX),
-        });
-        self.step = Step::Done;
     }
 }
 

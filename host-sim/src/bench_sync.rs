@@ -12,20 +12,24 @@
 //! 3. false locks on noise-only streams ([`false_lock`]);
 //! 4. relocking after a 1 s blackout, a 0.37-slot phase jump and a 5 ms blackout, with the slot
 //!    numbering checked against the truth ([`relock`]);
-//! 5. host time per detection while acquiring and while locked ([`cost`]).
+//! 5. host time per detection while acquiring and while locked ([`cost`]);
+//! 6. detections to a cold lock on a 1 GHz link against detections per slot (1e-2 … 1e-7) and
+//!    transmitter drift (0, 0.02, 0.1 ppm/s), prior ±500 ppm ([`curve`]).
 //!
 //! Every figure is over `seeds` seeds (the transmitter offset is drawn per seed, uniform within
 //! the prior less 10 ppm); the runs are spread over std threads. Speed figures come from this
 //! benchmark only, never from tests.
 
 pub mod cost;
+pub mod curve;
 pub mod false_lock;
 pub mod link;
 pub mod lock;
 pub mod relock;
 
 use cost::CostRow;
-use false_lock::FalseLockReport;
+use curve::CurveRow;
+use false_lock::{FalseLockReport, NoiseLink};
 use link::LinkPoint;
 use lock::{AcquisitionRow, PeriodRow};
 use relock::{RelockEvent, RelockRow};
@@ -54,6 +58,8 @@ pub enum Figure {
     Relock,
     /// Figure 5: time per detection.
     Cost,
+    /// Figure 6: detections to lock against detections per slot and drift at 1 GHz.
+    Curve,
 }
 
 /// Options of `slotwise bench sync`.
@@ -66,6 +72,13 @@ pub struct BenchSyncArgs {
     /// --quick].
     #[arg(long)]
     pub false_lock_attempts: Option<u64>,
+    /// Noise-only attempts at the enlarged (frequency × chirp) search [default: 10000; 200
+    /// with --quick].
+    #[arg(long)]
+    pub chirp_false_lock_attempts: Option<u64>,
+    /// Seeds per cell of the detections-to-lock curve [default: 10; 2 with --quick].
+    #[arg(long)]
+    pub curve_seeds: Option<u64>,
     /// Timed repetitions of each cost buffer (the median is reported) [default: 7; 5 with
     /// --quick].
     #[arg(long)]
@@ -83,7 +96,7 @@ pub struct BenchSyncArgs {
     /// Run only these parts (comma-separated); all when omitted.
     #[arg(long, value_enum, value_delimiter = ',')]
     pub only: Vec<Figure>,
-    /// Fewer seeds and attempts: a smoke run of well under a minute (release build).
+    /// Fewer seeds, attempts and curve points: a smoke run of about a minute (release build).
     #[arg(long)]
     pub quick: bool,
     /// Print the report as JSON instead of tables.
@@ -97,6 +110,8 @@ impl Default for BenchSyncArgs {
         Self {
             seeds: None,
             false_lock_attempts: None,
+            chirp_false_lock_attempts: None,
+            curve_seeds: None,
             reps: None,
             prior_ppm: 200,
             threads: None,
@@ -117,6 +132,10 @@ pub struct Settings {
     pub seeds: u64,
     /// Noise-only attempts.
     pub false_lock_attempts: u64,
+    /// Noise-only attempts at the enlarged search.
+    pub chirp_false_lock_attempts: u64,
+    /// Seeds per curve cell.
+    pub curve_seeds: u64,
     /// Timed repetitions.
     pub reps: usize,
     /// Prior half-width, ppm.
@@ -140,10 +159,14 @@ pub struct BenchSyncReport {
     pub acquisition_with_drift: Vec<AcquisitionRow>,
     /// Figure 3: false locks on noise-only streams.
     pub false_lock: Option<FalseLockReport>,
+    /// Figure 3, continued: false locks at the enlarged (frequency × chirp) search.
+    pub false_lock_chirp: Option<FalseLockReport>,
     /// Figure 4: relocks.
     pub relock: Vec<RelockRow>,
     /// Figure 5: cost per detection.
     pub cost: Vec<CostRow>,
+    /// Figure 6: detections to lock against detections per slot and drift (1 GHz).
+    pub curve: Vec<CurveRow>,
     /// Wall time of the whole benchmark, s.
     pub wall_s: f64,
 }
@@ -172,6 +195,15 @@ pub fn run(args: &BenchSyncArgs) -> Result<BenchSyncReport, Box<dyn Error>> {
         } else {
             10_000
         }),
+        chirp_false_lock_attempts: args.chirp_false_lock_attempts.unwrap_or(if args.quick {
+            200
+        } else {
+            10_000
+        }),
+        curve_seeds: args
+            .curve_seeds
+            .unwrap_or(if args.quick { 2 } else { 10 })
+            .max(1),
         reps: args.reps.unwrap_or(if args.quick { 5 } else { 7 }).max(1),
         prior_ppm: args.prior_ppm,
         threads: args
@@ -186,8 +218,10 @@ pub fn run(args: &BenchSyncArgs) -> Result<BenchSyncReport, Box<dyn Error>> {
         acquisition: vec![],
         acquisition_with_drift: vec![],
         false_lock: None,
+        false_lock_chirp: None,
         relock: vec![],
         cost: vec![],
+        curve: vec![],
         wall_s: 0.0,
     };
     let st = report.settings.clone();
@@ -200,7 +234,16 @@ pub fn run(args: &BenchSyncArgs) -> Result<BenchSyncReport, Box<dyn Error>> {
             st.false_lock_attempts,
             st.prior_ppm,
             st.threads,
+            NoiseLink::FAST,
         )?);
+        if st.chirp_false_lock_attempts > 0 {
+            report.false_lock_chirp = Some(false_lock::run(
+                st.chirp_false_lock_attempts,
+                st.prior_ppm,
+                st.threads,
+                NoiseLink::chirp(),
+            )?);
+        }
         progress("figure 3 (false locks)", start);
     }
     if wants(Figure::Relock) {
@@ -245,6 +288,15 @@ pub fn run(args: &BenchSyncArgs) -> Result<BenchSyncReport, Box<dyn Error>> {
                 .push(cost::run(&pt, 11, st.prior_ppm, locked_len, st.reps)?);
         }
         progress("figure 5 (cost)", start);
+    }
+    if wants(Figure::Curve) {
+        let rates: &[f64] = if st.quick {
+            &curve::RATES_QUICK
+        } else {
+            &curve::RATES
+        };
+        report.curve = curve::run(rates, st.curve_seeds, st.threads)?;
+        progress("figure 6 (detections-to-lock curve)", start);
     }
     report.wall_s = start.elapsed().as_secs_f64();
     Ok(report)
@@ -417,16 +469,22 @@ impl fmt::Display for BenchSyncReport {
             acq_table(w, &self.acquisition)?;
             acq_table(w, &self.acquisition_with_drift)?;
         }
-        if let Some(r) = &self.false_lock {
+        let false_locks = [&self.false_lock, &self.false_lock_chirp];
+        if false_locks.iter().any(|r| r.is_some()) {
             writeln!(w, "\n3. False locks on noise-only streams")?;
+        }
+        for r in false_locks.into_iter().flatten() {
             writeln!(
                 w,
-                "   {} attempts at {:.0} noise detections/s ({:.0} detections, {:.0} trial frequencies each): \
+                "   {} attempts at {:.0} noise detections/s, drift allowance {} ppm/s ({:.0} detections, \
+                 {:.0} trials = {:.1} chirps × frequencies each): \
                  {} false locks, {} searches passed, {} capped; 95 % upper limit {}; promised < {} ({:.1} s)",
                 r.attempts,
                 r.noise_rate_hz,
+                r.link.drift_ppm_per_s,
                 r.detections_per_attempt,
                 r.trials_mean,
+                r.chirp_points_mean,
                 r.false_locks,
                 r.search_passed,
                 r.capped,
@@ -502,6 +560,47 @@ impl fmt::Display for BenchSyncReport {
                     r.locked_ns_per_detection,
                     r.locked_p999_call_us,
                     r.locked_slowest_call_us,
+                )?;
+            }
+        }
+        if !self.curve.is_empty() {
+            writeln!(
+                w,
+                "\n6. Detections to a cold lock at 1 GHz, {:.0} % noise, prior ±{} ppm, drift allowance = drift \
+                 (cap {} detections; s = receiver seconds; trials of the last search; err = max |T̂/T − 1| at lock)",
+                curve::NOISE_FRACTION * 100.0,
+                curve::PRIOR_PPM,
+                curve::CURVE_CAP
+            )?;
+            writeln!(
+                w,
+                "   {:<6} {:>6} {:>7} | {:>7} {:>7} | {:>8} {:>8} | {:>8} {:>8} {:>8}",
+                "p",
+                "drift",
+                "locked",
+                "all med",
+                "all max",
+                "s med",
+                "s max",
+                "attempts",
+                "trials",
+                "err"
+            )?;
+            for r in &self.curve {
+                writeln!(
+                    w,
+                    "   {:<6} {:>6} {:>3}/{:<3} | {:>7} {:>7} | {:>8} {:>8} | {:>8.2} {:>8} {:>8}",
+                    format!("{:.0e}", r.point.p_slot),
+                    format!("{}", r.point.drift_ppm_per_s),
+                    r.locked,
+                    r.seeds,
+                    f(r.total_median, 0),
+                    f(r.total_max, 0),
+                    e(r.secs_median, 2),
+                    e(r.secs_max, 2),
+                    r.attempts_mean,
+                    e(r.trials_median, 1),
+                    e(r.period_err_max, 1),
                 )?;
             }
         }

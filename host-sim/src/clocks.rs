@@ -211,11 +211,15 @@ pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackPa
 /// Prior ±`prior_ppm` around the nominal period; loop bandwidth from the core's rule
 /// ([`bandwidth_for_mhz`]) with the expected signal rate, a drift allowance of
 /// max(|drift|, 0.1 ppm/s), and σ² = jitter² + the window's uniform-noise share; blackout after
-/// the longer of 1 ms and 50 expected detections.
+/// the longer of 1 ms and 50 expected detections. The acquisition's drift range is the
+/// profile's |drift| (no chirp search when it is 0).
 pub fn recovered_params_for(k: &ClockToml, prior_ppm: u32) -> (AcquireParams, TrackParams) {
     let period = 1e12 / k.rep_rate_hz;
     let mut a = AcquireParams::new(U32F32::from_num(period), prior_ppm);
     a.work_per_call = 4096;
+    // The acquisition folds along a chirp up to the profile's drift (rounded up to whole ppb/s;
+    // the core's limit is 10 ppm/s); a clock without drift keeps the constant-frequency fold.
+    a.drift_ppb_per_s = (k.drift_ppm_per_s.abs() * 1e3).ceil().min(10_000.0) as u32;
     let rate = k.signal_rate_hz;
     let drift_ppb = (k.drift_ppm_per_s.abs() * 1e3).max(100.0) as u64;
     let w = 1.0 / 16.0;

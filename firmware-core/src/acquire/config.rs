@@ -22,6 +22,9 @@ pub struct AcquireParams {
     pub fit_half_window: U0F32,
     /// Work units [`super::Acquirer::work`] may spend per detection when driven by a clock.
     pub work_per_call: u32,
+    /// Largest transmitter drift the search allows for, ppb of the frequency per second
+    /// (0..=10,000); 0 folds with a constant frequency (no chirp dimension).
+    pub drift_ppb_per_s: u32,
 }
 
 impl AcquireParams {
@@ -35,6 +38,7 @@ impl AcquireParams {
             confirm: 512,
             fit_half_window: U0F32::from_bits(1 << 28),
             work_per_call: 256,
+            drift_ppb_per_s: 0,
         }
     }
 }
@@ -57,6 +61,8 @@ pub enum AcquireConfigError {
     FitWindow,
     /// Zero work per call.
     Work,
+    /// Drift allowance above 10,000 ppb/s (or beyond the chirp arithmetic's range).
+    Drift,
     /// Search plus confirmation batch exceed the buffer capacity (detections needed).
     Capacity(u64),
 }
@@ -71,6 +77,7 @@ impl fmt::Display for AcquireConfigError {
             Self::Confirm => write!(f, "confirm must be at least 32 detections"),
             Self::FitWindow => write!(f, "fit_half_window must lie in (0, 1/4] slot"),
             Self::Work => write!(f, "work_per_call must be at least 1"),
+            Self::Drift => write!(f, "drift_ppb_per_s must lie in 0..=10000"),
             Self::Capacity(n) => write!(f, "search and confirmation need {n} detections of buffer"),
         }
     }
@@ -84,6 +91,8 @@ impl core::error::Error for AcquireConfigError {}
 pub struct AcquireConfig {
     pub(crate) p: AcquireParams,
     pub(crate) nu0: u64,
+    /// Largest chirp a = ν̇/2 searched, Q0.128 cycles per ps² (0: no chirp dimension).
+    pub(crate) chirp_max_q128: i64,
 }
 
 impl AcquireConfig {
@@ -111,7 +120,18 @@ impl AcquireConfig {
             return Err(AcquireConfigError::Work);
         }
         let nu0 = ((1u128 << 96) / u128::from(p.nominal_period_ps.to_bits())) as u64;
-        Ok(Self { p, nu0 })
+        if p.drift_ppb_per_s > 10_000 {
+            return Err(AcquireConfigError::Drift);
+        }
+        // The prior's upper edge drifts fastest.
+        let nu_hi = nu0.saturating_add(nu0 / 1000);
+        let chirp_max_q128 = super::chirp::chirp_max_q128(nu_hi, p.drift_ppb_per_s)
+            .ok_or(AcquireConfigError::Drift)?;
+        Ok(Self {
+            p,
+            nu0,
+            chirp_max_q128,
+        })
     }
 
     /// The settings.

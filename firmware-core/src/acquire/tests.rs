@@ -176,6 +176,62 @@ fn time_bin_three_peaks_lock_with_four_harmonics() {
     assert!(frac.abs() < 0.01, "origin off by {frac} slot");
 }
 
+fn drifting(drift_ppm_per_s: f64, allowance_ppb: u32, seed: u64) -> Run {
+    let mut params = AcquireParams::new(q32(10_000.0), 200);
+    params.work_per_call = 1 << 16;
+    params.drift_ppb_per_s = allowance_ppb;
+    let mut sc = Scenario::simple(10_000.0, 120.0, 1e-5, 0.5, seed);
+    sc.drift_ppm_per_s = drift_ppm_per_s;
+    let pat = ArrivalPattern::single(U0F32::from_num(0.5));
+    acquire::<2048, 8, 2>(params, sc, &pat, 12_000)
+}
+
+#[test]
+fn drifting_transmitter_needs_the_chirp_search() {
+    // 2 ppm/s at 100 MHz is 200 Hz/s: over the 0.5 s span ½·ν̇·T² = 25 turns, so a
+    // constant-frequency fold smears completely; the chirp lattice (±2.5 ppm/s) finds it.
+    for (drift, seed) in [(2.0, 21u64), (-2.0, 22)] {
+        let off = drifting(drift, 0, seed);
+        assert!(off.lock.is_none(), "locked without drift search: {off:?}");
+        let r = drifting(drift, 2_500, seed);
+        let lock = r
+            .lock
+            .unwrap_or_else(|| panic!("no lock at {drift} ppm/s: {r:?}"));
+        assert!(lock.trials > 8 * u64::from(off.stats.attempts.max(1)));
+        // The fit refines the chirp from the curvature, so confirmation (which extrapolates
+        // to 1.5 spans) passes on the first attempt.
+        assert_eq!(r.stats.attempts, 1, "{r:?}");
+        // The period at the anchor against the simulator's instantaneous period.
+        let err = lock.period_ps.to_num::<f64>() / r.true_period_ps - 1.0;
+        assert!(err.abs() < 2e-8, "fractional period error {err:e}");
+        // a = ν̇/2 with ν̇ = drift·ν/1e12 per ps (definition of the drift rate).
+        let a_true = 0.5 * drift * 1e-6 * 1e-4 / 1e12;
+        let a = lock.chirp_q128 as f64 / 2f64.powi(128);
+        assert!((a / a_true - 1.0).abs() < 0.1, "chirp {a:e} vs {a_true:e}");
+        eprintln!(
+            "{drift} ppm/s: lock after {} detections, {} trials, chirp {:.3} of truth",
+            r.pushed,
+            lock.trials,
+            a / a_true
+        );
+    }
+}
+
+#[test]
+fn drift_search_off_keeps_the_trial_count() {
+    // The same link without drift: an allowance the span cannot resolve adds no chirp point.
+    let a = drifting(0.0, 0, 31).lock.expect("lock");
+    let b = drifting(0.0, 1, 31).lock.expect("lock");
+    assert_eq!(a, AcquiredLock { chirp_q128: 0, ..b });
+    assert_eq!(
+        AcquireConfig::new(AcquireParams {
+            drift_ppb_per_s: 10_001,
+            ..AcquireParams::new(q32(10_000.0), 500)
+        }),
+        Err(AcquireConfigError::Drift)
+    );
+}
+
 #[test]
 fn noise_only_never_locks() {
     // 300 attempts on pure noise: with a 1e-9 false-lock probability per attempt, any lock fails.
@@ -196,6 +252,40 @@ fn noise_only_never_locks() {
         attempts += r.stats.attempts;
     }
     eprintln!("noise only: {attempts} attempts, 0 locks");
+    assert!(attempts >= 300, "{attempts}");
+}
+
+#[test]
+fn noise_only_never_locks_at_the_enlarged_search() {
+    // 100 seeds of pure noise (1,000 detections/s at 100 MHz) with a 10 ppm/s allowance: the
+    // 0.13 s span resolves 17 chirps, so the threshold counts frequency × chirp points. With
+    // the 1e-9 promise per attempt, any lock fails. (The 10,000-attempt run at this kind of
+    // search is `slotwise bench sync --only false-lock`.)
+    let (mut attempts, mut chirps_seen) = (0, false);
+    for seed in 0..100 {
+        let mut sc = Scenario::simple(10_000.0, 0.0, 1e-12, 0.5, 3000 + seed);
+        sc.noise_fraction = 1.0 - 1e-7; // noise 1e-5 per slot, signal essentially absent
+        let mut params = AcquireParams::new(q32(10_000.0), 100);
+        params.work_per_call = 1 << 16;
+        params.first_stage = 32;
+        params.stages = 2;
+        params.confirm = 64;
+        params.drift_ppb_per_s = 10_000;
+        let pat = ArrivalPattern::single(U0F32::from_num(0.5));
+        let mut a = Acquirer::<256, 4, 2>::new(AcquireConfig::new(params).unwrap()).unwrap();
+        for d in Stream::new(sc).take(4 * 128) {
+            a.push(d.t_ps, Some(d.channel), &pat);
+            a.work(params.work_per_call, &pat);
+            assert!(!a.has_lock(), "false lock at seed {seed}: {:?}", a.stats());
+        }
+        let span_ps = 128.0 / 1e-5 * 10_000.0;
+        let freq_points = 2.0 * 100e-6 / 10_000.0 * 4.0 * span_ps;
+        chirps_seen |= a.search_trials() as f64 > 8.0 * freq_points;
+        assert_eq!(a.stats().confirm_failed, 0);
+        attempts += a.stats().attempts;
+    }
+    eprintln!("noise only, drift search on: {attempts} attempts, 0 locks");
+    assert!(chirps_seen, "the span never resolved the chirp lattice");
     assert!(attempts >= 300, "{attempts}");
 }
 
@@ -232,6 +322,7 @@ impl<const N: usize, const K: usize, const H: usize> Acquirer<N, K, H> {
             ("lock", size_of_val(&self.lock)),
             ("stats", size_of_val(&self.stats)),
             ("phi0", size_of_val(&self.phi0)),
+            ("chirp", size_of_val(&self.chirp) + size_of_val(&self.a)),
             (
                 "10 scalars",
                 size_of_val(&self.t0)

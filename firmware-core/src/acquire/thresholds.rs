@@ -15,6 +15,12 @@
 //! conservative. Harmonics that a channel does not use lower the degrees of freedom, which is
 //! conservative too.
 //!
+//! With a drift allowance the search also runs over chirps ([`super::chirp`]): M is then the
+//! number of final frequency points times the number of final chirp points
+//! ([`search_trials`]), every point any stage could have led to, so the bound per attempt
+//! stays 1e-9 over the enlarged search (2^35.6 trials at 1e-7 per slot, 1 GHz, ±500 ppm and
+//! 0.1 ppm/s still lies inside the table).
+//!
 //! Confirmation tests one trial (the found frequency) on an independent batch at P = 1e-6:
 //! `CONFIRM_MILLI[n−1]` = chi2.isf(1e-6, 2n) in thousandths, rounded up. Search and
 //! confirmation must both pass; the batches are independent, so a false lock needs both.
@@ -82,6 +88,12 @@ pub fn search_threshold(harmonics: usize, trials: u64) -> Option<U32F32> {
         .get(harmonics.checked_sub(1)?)?
         .get(m as usize)
         .map(|&v| milli_to_q32(v))
+}
+
+/// Trial count of a search over `freq_points` frequencies and `chirp_points` chirps: every
+/// final lattice point any stage could have led to (saturating).
+pub fn search_trials(freq_points: u64, chirp_points: u64) -> u64 {
+    freq_points.saturating_mul(chirp_points.max(1))
 }
 
 /// Confirmation threshold for `harmonics` (1..=4), in Q32.32.
@@ -182,5 +194,10 @@ mod tests {
         assert_eq!(search_threshold(5, 1), None);
         assert_eq!(search_threshold(1, 1 << 41), None);
         assert!(confirm_threshold(2).unwrap() > U32F32::from_num(33.376));
+        // The chirp dimension multiplies the trial count; one chirp point leaves it unchanged.
+        assert_eq!(search_trials(12_345, 1), 12_345);
+        assert_eq!(search_trials(1 << 20, 61), 61 << 20);
+        assert_eq!(search_trials(u64::MAX, 3), u64::MAX);
+        assert!(search_threshold(2, search_trials(1 << 20, 61)) > search_threshold(2, 1 << 20));
     }
 }

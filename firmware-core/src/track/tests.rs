@@ -65,6 +65,7 @@ fn started(cfg: TrackConfig, stream: &Stream, k0: f64, in_window: f64, null: f64
     let lock = AcquiredLock {
         period_ps: U32F32::from_num(stream.period_at(t)),
         nu_q64: nu as u64,
+        chirp_q128: 0,
         origin_ps: t as u64,
         anchor_t_ps: t.round() as u64,
         anchor_phase_q64: 0,

@@ -59,9 +59,9 @@ use slotwise::{
 /// File magic.
 pub const BOARD_MAGIC: [u8; 4] = *b"SWHB";
 /// Board file format version.
-pub const BOARD_VERSION: u8 = 1;
+pub const BOARD_VERSION: u8 = 2;
 /// Bytes of a board file.
-pub const BOARD_LEN: usize = 157;
+pub const BOARD_LEN: usize = 161;
 
 /// Why a board file could not be read, or its settings were refused by the core.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -161,6 +161,7 @@ impl BoardSettings {
         w.put(&a.confirm.to_le_bytes());
         w.put(&a.fit_half_window.to_bits().to_le_bytes());
         w.put(&a.work_per_call.to_le_bytes());
+        w.put(&a.drift_ppb_per_s.to_le_bytes());
         w.put(&t.bandwidth_mhz.to_le_bytes());
         w.put(&t.damping_milli.to_le_bytes());
         w.put(&t.rate_per_s.to_le_bytes());
@@ -212,6 +213,7 @@ impl BoardSettings {
         acquire.confirm = r.u32("acquire.confirm")?;
         acquire.fit_half_window = U0F32::from_bits(r.u32("acquire.fit_half_window")?);
         acquire.work_per_call = r.u32("acquire.work_per_call")?;
+        acquire.drift_ppb_per_s = r.u32("acquire.drift_ppb_per_s")?;
         let mut track = TrackParams::new(r.u32("track.bandwidth_mhz")?, 0, 0);
         track.damping_milli = r.u32("track.damping_milli")?;
         track.rate_per_s = r.u64("track.rate_per_s")?;

@@ -121,19 +121,20 @@ pub fn capture(path: &Path, name: &str) -> Result<Capture, String> {
 }
 
 /// Bytes of `acquire.bin`.
-pub const ACQUIRE_LEN: usize = 40;
+pub const ACQUIRE_LEN: usize = 44;
 
 /// `acquire.bin` for the acquisition run: the recovered clock's settings as the simulator's host
 /// replay derives them from the scenario (`slotwise_sim::clocks::recovered_params`, prior
 /// ±500 ppm).
 ///
 /// Layout (little-endian): nominal period ps Q32.32 u64, prior ppm u32, work per call u32, loop
-/// bandwidth mHz u32, signal rate per s u64, blackout ps u64, reacquisition prior ppm u32.
+/// bandwidth mHz u32, signal rate per s u64, blackout ps u64, reacquisition prior ppm u32, drift
+/// range of the chirp search ppb/s u32.
 pub fn acquire_params(s: &Scenario) -> [u8; ACQUIRE_LEN] {
     use slotwise_sim::clocks::{recovered_params, REACQUIRE_PPM};
     let (a, t) = recovered_params(s, PRIOR_PPM);
     let mut out = [0u8; ACQUIRE_LEN];
-    let fields: [&[u8]; 7] = [
+    let fields: [&[u8]; 8] = [
         &a.nominal_period_ps.to_bits().to_le_bytes(),
         &a.prior_ppm.to_le_bytes(),
         &a.work_per_call.to_le_bytes(),
@@ -141,6 +142,7 @@ pub fn acquire_params(s: &Scenario) -> [u8; ACQUIRE_LEN] {
         &t.rate_per_s.to_le_bytes(),
         &t.blackout_ps.to_le_bytes(),
         &REACQUIRE_PPM.to_le_bytes(),
+        &a.drift_ppb_per_s.to_le_bytes(),
     ];
     let mut at = 0;
     for f in fields {

@@ -77,7 +77,19 @@ pub fn scenario(
     offset_ppm: f64,
     detections: f64,
 ) -> Result<Scenario, Box<dyn Error>> {
-    let mut s = Scenario::default_bench();
+    scenario_from(Scenario::default_bench(), pt, seed, offset_ppm, detections)
+}
+
+/// [`scenario`] starting from `base` instead of the default bench link (its repetition rate,
+/// jitter and protocol kept).
+pub fn scenario_from(
+    base: Scenario,
+    pt: &LinkPoint,
+    seed: u64,
+    offset_ppm: f64,
+    detections: f64,
+) -> Result<Scenario, Box<dyn Error>> {
+    let mut s = base;
     s.name = format!(
         "bench-sync-p{:.0e}-noise{:.0}",
         pt.p_slot,
@@ -110,12 +122,26 @@ pub fn scenario(
 
 /// A link with dark counts only (signal attenuated by 100 dB and dropped from the feed).
 pub fn noise_only_scenario(seed: u64, duration_s: f64) -> Result<Scenario, Box<dyn Error>> {
+    noise_only_with(seed, duration_s, NOISE_ONLY_DARK_HZ, None)
+}
+
+/// [`noise_only_scenario`] with `dark_hz` per detector and, when given, the transmitter clock's
+/// drift in ppm/s (which sets the acquisition's drift allowance, [`clocks::recovered_params`]).
+pub fn noise_only_with(
+    seed: u64,
+    duration_s: f64,
+    dark_hz: f64,
+    drift_ppm_per_s: Option<f64>,
+) -> Result<Scenario, Box<dyn Error>> {
     let mut s = Scenario::default_bench();
     s.name = "bench-sync-noise-only".into();
     s.seed = seed;
     s.afterpulse_prob = 0.0;
     s.extra_loss_db = 100.0;
-    s.dark_count_hz = NOISE_ONLY_DARK_HZ;
+    s.dark_count_hz = dark_hz;
+    if let Some(d) = drift_ppm_per_s {
+        s.clock_drift_ppm_per_s = d;
+    }
     s.channel_delays_ps = Some(SKEWS_PS.to_vec());
     s.duration_s = duration_s;
     s.validate(&s.name)?;

@@ -37,7 +37,7 @@ use slotwise_hil::{EventSource, IoEvents, Setup, BLOCK, PENDING};
 type AcqClock = RecoveredClock<2048, 8, 2>;
 
 /// Bytes of `acquire.bin` (layout in `host-runner/src/simulated.rs`).
-const ACQUIRE_LEN: usize = 40;
+const ACQUIRE_LEN: usize = 44;
 
 /// Answers at once, in RAM (the answers do not reach the clock).
 struct EchoTx(heapless::Deque<Answer, { slotwise::sift::ANNOUNCE_BATCH }>);
@@ -81,6 +81,7 @@ fn clock_config(b: &[u8]) -> Result<RecoveredConfig, i32> {
     let period = U32F32::from_bits(u64::from_le_bytes(le(b, 0)?));
     let mut a = AcquireParams::new(period, u32::from_le_bytes(le(b, 8)?));
     a.work_per_call = u32::from_le_bytes(le(b, 12)?);
+    a.drift_ppb_per_s = u32::from_le_bytes(le(b, 40)?);
     let t = TrackParams::new(
         u32::from_le_bytes(le(b, 16)?),
         u64::from_le_bytes(le(b, 20)?),
