@@ -7,7 +7,7 @@
 //! | offset | size | field |
 //! |---|---|---|
 //! | 0 | 4 | magic `SWHB` |
-//! | 4 | 1 | version, 1 |
+//! | 4 | 1 | version, 2 |
 //! | 5 | 8 | acquire: nominal period ps, Q32.32 |
 //! | 13 | 4 | acquire: prior ppm |
 //! | 17 | 4 | acquire: first stage, detections |
@@ -15,29 +15,30 @@
 //! | 22 | 4 | acquire: confirmation batch, detections |
 //! | 26 | 4 | acquire: fit half-window, Q0.32 slot fraction |
 //! | 30 | 4 | acquire: work units per detection |
-//! | 34 | 4 | track: loop bandwidth mHz |
-//! | 38 | 4 | track: damping, thousandths |
-//! | 42 | 8 | track: signal rate per s |
-//! | 50 | 4 | track: window half-width, Q0.32 slot fraction |
-//! | 54 | 1 | track: average shift |
-//! | 55 | 8 | track: blackout ps |
-//! | 63 | 4 | track: max rms, Q0.32 slot fraction |
-//! | 67 | 4 | track: bridge ppb |
-//! | 71 | 4 | reacquisition prior ppm |
-//! | 75 | 8 | hint: receiver time ps |
-//! | 83 | 8 | hint: transmitter slot |
-//! | 91 | 8 | link: answer timeout, slots |
-//! | 99 | 8 | link: batch flush age, slots |
-//! | 107 | 8 | monitor: block length ps |
-//! | 115 | 8 | monitor: detector dead time ps |
-//! | 123 | 4 | alarms: QBER ceiling ppm |
-//! | 127 | 1 | alarms: bound, 0 = Wilson, 1 = Hoeffding |
-//! | 128 | 8 | alarms: Wilson z (Q16.16) or Hoeffding 1/ε |
-//! | 136 | 8 | alarms: tested bits before the QBER alarm speaks |
-//! | 144 | 1 | alarms: intensity class watched |
-//! | 145 | 4 | alarms: rate floor ppm |
-//! | 149 | 4 | alarms: saturation ppm |
-//! | 153 | 4 | CRC-32/ISCSI over every byte before it |
+//! | 34 | 4 | acquire: drift range of the chirp search, ppb/s (0: constant-frequency fold) |
+//! | 38 | 4 | track: loop bandwidth mHz |
+//! | 42 | 4 | track: damping, thousandths |
+//! | 46 | 8 | track: signal rate per s |
+//! | 54 | 4 | track: window half-width, Q0.32 slot fraction |
+//! | 58 | 1 | track: average shift |
+//! | 59 | 8 | track: blackout ps |
+//! | 67 | 4 | track: max rms, Q0.32 slot fraction |
+//! | 71 | 4 | track: bridge ppb |
+//! | 75 | 4 | reacquisition prior ppm |
+//! | 79 | 8 | hint: receiver time ps |
+//! | 87 | 8 | hint: transmitter slot |
+//! | 95 | 8 | link: answer timeout, slots |
+//! | 103 | 8 | link: batch flush age, slots |
+//! | 111 | 8 | monitor: block length ps |
+//! | 119 | 8 | monitor: detector dead time ps |
+//! | 127 | 4 | alarms: QBER ceiling ppm |
+//! | 131 | 1 | alarms: bound, 0 = Wilson, 1 = Hoeffding |
+//! | 132 | 8 | alarms: Wilson z (Q16.16) or Hoeffding 1/ε |
+//! | 140 | 8 | alarms: tested bits before the QBER alarm speaks |
+//! | 148 | 1 | alarms: intensity class watched |
+//! | 149 | 4 | alarms: rate floor ppm |
+//! | 153 | 4 | alarms: saturation ppm |
+//! | 157 | 4 | CRC-32/ISCSI over every byte before it |
 
 use crate::setup::{Reader, SetupError, Writer};
 use core::fmt;
