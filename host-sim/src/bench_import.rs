@@ -20,6 +20,7 @@ use crate::capture::{CaptureHeader, CaptureWriter};
 use crate::import::{
     BinaryImport, CaptureTdc, ChannelMap, Column, Delimiter, TextImport, TimeUnit, READ_BLOCK_BYTES,
 };
+use crate::sim::rng::Stream;
 use serde::Serialize;
 use slotwise::words::{BitField, Endian, KindField, WordLayout};
 use slotwise::TdcEvent;
@@ -129,34 +130,21 @@ pub struct ImportBenchReport {
     pub wall_s: f64,
 }
 
-/// A deterministic pseudo-random sequence (SplitMix64, Steele, Lea and Flood 2014).
-struct SplitMix(u64);
-
-impl SplitMix {
-    fn next(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-
-    /// Gap to the next detection: uniform 1..=2_000_000 ps, a mean of 1 µs (1e6 per second).
-    fn gap_ps(&mut self) -> u64 {
-        1 + self.next() % 2_000_000
-    }
+/// Gap to the next detection: uniform 1..=2_000_000 ps, a mean of 1 µs (1e6 per second).
+fn gap_ps(rng: &mut Stream) -> u64 {
+    1 + rng.next_u64() % 2_000_000
 }
 
 /// A text export of `lines` lines (one header, then `t_ns;detector`) and the events it holds.
 pub fn text_input(lines: usize) -> (Vec<u8>, Vec<TdcEvent>) {
-    let mut rng = SplitMix(0x5107_0001);
+    let mut rng = Stream::from_state(0x5107_0001);
     let mut text = Vec::with_capacity(lines * 20);
     let mut events = Vec::with_capacity(lines);
     text.extend_from_slice(b"t_ns;detector\n");
     let mut t_ps = 0u64;
     for _ in 1..lines {
-        t_ps += rng.gap_ps();
-        let detector = 1 + (rng.next() % 4) as u8;
+        t_ps += gap_ps(&mut rng);
+        let detector = 1 + (rng.next_u64() % 4) as u8;
         let _ = writeln!(text, "{}.{:03};{detector}", t_ps / 1000, t_ps % 1000);
         events.push(TdcEvent {
             count: t_ps,
@@ -187,7 +175,7 @@ pub fn text_import() -> TextImport {
 
 /// `records` 32-bit little-endian records (events and rollovers) and the events they hold.
 pub fn binary_input(records: usize) -> (Vec<u8>, Vec<TdcEvent>) {
-    let mut rng = SplitMix(0x5107_0002);
+    let mut rng = Stream::from_state(0x5107_0002);
     let mut bytes = Vec::with_capacity(records * 4);
     let mut events = Vec::with_capacity(records);
     let mut t_ps = 0u64;
@@ -195,9 +183,9 @@ pub fn binary_input(records: usize) -> (Vec<u8>, Vec<TdcEvent>) {
     let mut n = 0;
     let time_mask = (1u64 << BINARY_TIME_BITS) - 1;
     while n < records {
-        t_ps += rng.gap_ps();
+        t_ps += gap_ps(&mut rng);
         let ticks = t_ps / u64::from(BINARY_TICK_PS);
-        let channel = (rng.next() % 4) as u8;
+        let channel = (rng.next_u64() % 4) as u8;
         while wraps < ticks >> BINARY_TIME_BITS && n < records {
             bytes.extend_from_slice(&(KIND_ROLLOVER << 30).to_le_bytes());
             wraps += 1;

@@ -17,9 +17,7 @@ use slotwise::{
 /// The recovered clock's shape on the host: 2048 stored detections, 8 candidates, Z²_2.
 pub type HostRecovered = RecoveredClock<2048, 8, 2>;
 
-/// Uncertainty of the simulated classical-channel hint (the transmitter's slot counter announced
-/// at link start), in seconds: the hint is off by this much worth of slots.
-pub const HINT_ERROR_S: f64 = 3e-4;
+pub use crate::scenario::HINT_ERROR_S;
 
 /// Which clock the receiver uses.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum, Default)]
@@ -295,20 +293,14 @@ pub fn build_for(
     }
 }
 
-/// Error of the scenario's simulated hello, s: its `hint_error_us`, or [`HINT_ERROR_S`]. The
-/// profile of the scenario states it as the hint's bound (`[marker] hint_error_us`).
-pub fn hint_error_s(s: &Scenario) -> f64 {
-    s.hint_error_us.map_or(HINT_ERROR_S, |us| us / 1e6)
-}
-
 /// The simulated hello message of the classical channel: a receiver time (on the core's time
-/// base) and the transmitter's slot counter then, off by [`hint_error_s`] worth of slots (the
+/// base) and the transmitter's slot counter then, off by [`Scenario::hint_error_s`] worth of slots (the
 /// edge of its stated bound).
 pub fn simulated_hint(s: &Scenario) -> Result<(u64, u64), Box<dyn std::error::Error>> {
     let truth = sim::clock_truth(s)?;
     let t_ps = truth.origin_ps_unwrapped.saturating_add(1_000_000_000);
     let slots = (t_ps - truth.origin_ps_unwrapped) as f64 / truth.period_ps;
-    let error = hint_error_s(s) * s.rep_rate_hz;
+    let error = s.hint_error_s() * s.rep_rate_hz;
     Ok((t_ps, (slots + error).max(0.0) as u64))
 }
 

@@ -22,6 +22,11 @@ pub const DEFAULT_BENCH_PATH: &str = "scenarios/bench-100mhz-30km.toml";
 /// practice).
 pub const FIBER_DELAY_PS_PER_KM: f64 = 4.9e6;
 
+/// Uncertainty of the simulated classical-channel hello (the transmitter's slot counter announced
+/// at link start) when a scenario does not state one, in seconds: the hello is off by this much
+/// worth of slots.
+pub const HINT_ERROR_S: f64 = 3e-4;
+
 /// Fixed delay before slot 0 reaches the receiver when `start_offset_ps` is not given, in ps.
 pub const BASE_START_OFFSET_PS: f64 = 1.0e6;
 
@@ -117,7 +122,7 @@ pub struct Scenario {
     #[serde(default = "default_true")]
     pub marker: bool,
     /// Error of the simulated hello (slot hint), µs: the hint is off by this much worth of slots,
-    /// and the receiver's profile states it as its bound (default 300, `clocks::HINT_ERROR_S`).
+    /// and the receiver's profile states it as its bound (default 300, [`HINT_ERROR_S`]).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub hint_error_us: Option<f64>,
     /// Alarm thresholds, the `[alarms]` table (default: the board's defaults).
@@ -379,6 +384,12 @@ impl Scenario {
         Ok(())
     }
 
+    /// Error of the simulated hello, s: `hint_error_us`, or [`HINT_ERROR_S`]. The scenario's
+    /// profile states it as the hint's bound (`[marker] hint_error_us`).
+    pub fn hint_error_s(&self) -> f64 {
+        self.hint_error_us.map_or(HINT_ERROR_S, |us| us / 1e6)
+    }
+
     /// Length of one live-statistics block (and of the time series' buckets): a fiftieth of the
     /// run, at least 1 µs, in s.
     pub fn monitor_block_s(&self) -> f64 {
@@ -471,10 +482,10 @@ mod tests {
     fn hint_error_defaults_to_300_us_and_is_range_checked() {
         let s = Scenario::default_bench();
         assert_eq!(s.hint_error_us, None);
-        assert_eq!(crate::clocks::hint_error_s(&s), 3e-4);
+        assert_eq!(s.hint_error_s(), 3e-4);
         let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 0.9\nhint_error_us = 10.0");
         let s = Scenario::from_toml_str(&text, "x.toml").unwrap();
-        assert_eq!(crate::clocks::hint_error_s(&s), 1e-5);
+        assert_eq!(s.hint_error_s(), 1e-5);
         let text = DEFAULT_BENCH_TOML.replace("p_z = 0.9", "p_z = 0.9\nhint_error_us = -1.0");
         let msg = Scenario::from_toml_str(&text, "x.toml")
             .unwrap_err()

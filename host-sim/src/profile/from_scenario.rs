@@ -86,7 +86,7 @@ impl Profile {
             gates,
             marker: MarkerToml {
                 enabled: s.marker,
-                hint_error_us: Some(crate::clocks::hint_error_s(s) * 1e6),
+                hint_error_us: Some(s.hint_error_s() * 1e6),
                 ..MarkerToml::default()
             },
             sifting: SiftingToml {
