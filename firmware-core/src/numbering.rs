@@ -281,11 +281,14 @@ impl<const W: usize> Numbering for MarkerNumbering<W> {
             }
             _ => {}
         }
-        self.open_window(clock);
+        // Once aligned, the window has nothing to do: one cheap close per detection, no call.
         if self.aligned() {
             self.window.close();
-        } else if let Some(offset) = self.window.observe(self.aligner.config(), slot, z_bit) {
-            self.accept_window(offset);
+        } else {
+            self.open_window(clock);
+            if let Some(offset) = self.window.observe(self.aligner.config(), slot, z_bit) {
+                self.accept_window(offset);
+            }
         }
         match self.aligner.to_absolute(slot) {
             Some(abs) if self.aligner.config().is_marker_slot(abs) => Numbered::Marker,

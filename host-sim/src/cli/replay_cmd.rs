@@ -71,10 +71,8 @@ pub struct ReplayArgs {
 pub struct ReplayPlan {
     /// The receiver.
     pub setup: ReceiverSetup,
-    /// What the transmitter sent.
+    /// What the transmitter sent: a scenario's generator or a transmitter record.
     pub source: TxSource,
-    /// The transmitter record, when the answers come from one.
-    pub record: Option<Rc<TxRecord>>,
     /// Seed of the framed transmitter's choice of revealed bits.
     pub reveal_seed: u64,
     /// The classical channel's hello: a receiver time (ps) and the transmitter's slot then.
@@ -89,11 +87,23 @@ impl ReplayPlan {
         Ok(Self {
             setup: ReceiverSetup::from_scenario(s)?,
             source: TxSource::seeded(s),
-            record: None,
             reveal_seed: s.seed,
             hint: Some(clocks::simulated_hint(s)?),
             scenario: Some(s.clone()),
         })
+    }
+
+    /// A receiver described by a profile, answered from a transmitter record (whose hello, if
+    /// any, anchors the numbering); no truth.
+    pub fn of_profile(setup: ReceiverSetup, record: TxRecord) -> Self {
+        let record = Rc::new(record);
+        Self {
+            reveal_seed: setup.profile.sifting.squash_seed,
+            setup,
+            hint: record.hello(),
+            source: TxSource::Record(record),
+            scenario: None,
+        }
     }
 
     /// Answer from a transmitter record instead (its hello anchors the numbering when it has
@@ -103,9 +113,16 @@ impl ReplayPlan {
         if let Some(h) = r.hello() {
             self.hint = Some(h);
         }
-        self.source = TxSource::Record(r.clone());
-        self.record = Some(r);
+        self.source = TxSource::Record(r);
         self
+    }
+
+    /// The transmitter record the answers come from, if they do.
+    pub fn record(&self) -> Option<&Rc<TxRecord>> {
+        match &self.source {
+            TxSource::Record(r) => Some(r),
+            TxSource::Seeded(_) => None,
+        }
     }
 
     /// The link model for `--link` options on this plan.
@@ -149,7 +166,7 @@ pub fn replay_capture(
     let name = path.display().to_string();
     let file = File::open(path).map_err(|e| format!("{name}: {e}"))?;
     let size = file.metadata().map(|m| m.len()).unwrap_or(0);
-    let record = plan.record.clone();
+    let record = plan.record().cloned();
     let tx = host_tx(plan.source, plan.reveal_seed, link)?;
     let (mut session, tap) = open_session(cfg, clock, &plan.setup, tx, plan.hint, false, trace)?;
     let mut skipped = None;
@@ -282,12 +299,13 @@ fn plan(a: &ReplayArgs) -> Result<ReplayPlan, AnyErr> {
         Some(p) => Some(TxRecord::load(p)?),
         None => None,
     };
-    let mut plan = if let Some(p) = &a.profile {
+    let header = header_scenario(&a.capture, &name);
+    let plan = if let Some(p) = &a.profile {
         let setup = ReceiverSetup::load(p)?;
         let mut alarms = setup.profile.alarms.clone();
         a.alarms.apply_to(&mut alarms);
         let setup = setup.with_alarms(alarms, "command line")?;
-        let Some(r) = &record else {
+        let Some(record) = record else {
             return Err(format!(
                 "{}: a profile describes the receiver only; give what the transmitter sent with \
                  --tx-record R.swtx (docs/transmitter-record.md){}",
@@ -298,28 +316,24 @@ fn plan(a: &ReplayArgs) -> Result<ReplayPlan, AnyErr> {
             )
             .into());
         };
-        ReplayPlan {
-            reveal_seed: setup.profile.sifting.squash_seed,
-            setup,
-            source: TxSource::Record(Rc::new(r.clone())),
-            record: None,
-            hint: None,
-            scenario: None,
-        }
+        ReplayPlan::of_profile(setup, record)
     } else {
         let mut s = match &a.scenario {
             Some(p) => Scenario::load(p)?,
-            None => {
-                header_scenario(&a.capture, &name)?.ok_or_else(|| no_receiver(&a.capture, &name))?
-            }
+            None => header
+                .as_ref()
+                .map_err(|e| e.to_string())?
+                .clone()
+                .ok_or_else(|| no_receiver(&a.capture, &name))?,
         };
         a.alarms.apply(&mut s)?;
-        ReplayPlan::of_scenario(&s)?
+        let plan = ReplayPlan::of_scenario(&s)?;
+        match record {
+            Some(r) => plan.with_record(r),
+            None => plan,
+        }
     };
-    if let Some(r) = record {
-        plan = plan.with_record(r);
-    }
-    if let Some(h) = header_scenario(&a.capture, &name).ok().flatten() {
+    if let Ok(Some(h)) = &header {
         let rate = plan.setup.profile.clock.rep_rate_hz;
         if h.rep_rate_hz != rate {
             eprintln!(
@@ -337,7 +351,7 @@ fn plan(a: &ReplayArgs) -> Result<ReplayPlan, AnyErr> {
              `unaligned` (docs/transmitter-record.md, hello)"
         );
     }
-    if let (Some(r), Some((_, slot))) = (&plan.record, plan.hint) {
+    if let (Some(r), Some((_, slot))) = (plan.record(), plan.hint) {
         r.check_range(slot..slot + 1)?;
     }
     Ok(plan)
