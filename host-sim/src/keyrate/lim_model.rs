@@ -15,8 +15,10 @@
 //! ℓ appear on both sides of their eq. (1): it is solved by iteration from ε_sec = κ·n_X, which
 //! approaches the fixed point from above because ℓ grows with ε_sec.
 
+use super::entropy::{golden_max, h2, h2_capped};
 use super::finite_lim::{lim_key, Epsilons};
 use super::optimise::{from_interval, maximise, to_interval, Simplex};
+use super::report::CurvePoint;
 use super::{ClassCounts, Observed, X, Z};
 
 /// Hardware and protocol constants of a Lim et al. simulation.
@@ -270,9 +272,76 @@ pub fn reach_km(link: &LimLink, n_key: f64, step_km: f64, s: Simplex) -> (f64, L
     (lo, c)
 }
 
+/// Infinite-decoy rate of the model (Y0, Y1 and e1 known exactly, key basis chosen with
+/// probability → 1, the asymptote of Lim et al.'s bound): max over μ of
+/// e^(−μ)·Y0 + μ·e^(−μ)·Y1·[1 − h(e1)] − f·R_μ·h(e_μ/R_μ), with Y0 = R_0, Y1 and e1 from the
+/// detector model at one photon (η_sys → 1 − (1 − η_sys)·1 for a single photon); bits per pulse.
+pub fn infinite_decoy_rate(link: &LimLink, l_km: f64) -> f64 {
+    let eta_sys = link.eta_bob * link.eta_ch(l_km);
+    let (y0, _) = link.detection(0.0, l_km);
+    // One photon: D_1 = 1 − (1 − 2p_dc)(1 − η_sys); the misalignment term scales alike.
+    let d1 = 1.0 - (1.0 - 2.0 * link.p_dc) * (1.0 - eta_sys);
+    let eta_mis = if link.mis_on_system {
+        eta_sys
+    } else {
+        link.eta_ch(l_km).min(1.0)
+    };
+    let y1 = d1 * (1.0 + link.p_ap);
+    let e1 = (link.p_dc + link.e_mis * eta_mis + link.p_ap * d1 / 2.0) / y1;
+    let rate = |mu: f64| {
+        let (r, e) = link.detection(mu, l_km);
+        (-mu).exp() * y0 + mu * (-mu).exp() * y1 * (1.0 - h2_capped(e1)) - link.f_ec * r * h2(e / r)
+    };
+    golden_max(1e-4, 1.5, 1e-7, rate).1
+}
+
+/// The rate-versus-distance curve of the model: the optimised bound for `n_key` key-basis
+/// detections and the infinite-decoy rate, from 0 km in `step_km` steps until the infinite-decoy
+/// rate is gone (at most 500 km). Each length's optimum starts the next search.
+pub fn curve(link: &LimLink, n_key: f64, step_km: f64, s: Simplex) -> Vec<CurvePoint> {
+    let positive = |x: f64| (x > 0.0).then_some(x);
+    let mut out = Vec::new();
+    let mut start = LimChoice::START;
+    let mut bound_alive = true;
+    let mut l = 0.0;
+    while l <= 500.0 {
+        let inf = infinite_decoy_rate(link, l);
+        let bound = if bound_alive {
+            let (c, r) = optimise(link, l, n_key, &start, s);
+            start = c;
+            bound_alive = r > 0.0;
+            positive(r)
+        } else {
+            None
+        };
+        out.push(CurvePoint {
+            fiber_km: l,
+            bits_per_pulse: bound,
+            infinite_decoy_bits_per_pulse: positive(inf),
+        });
+        if inf <= 0.0 {
+            break;
+        }
+        l += step_km;
+    }
+    out
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn curve_bound_stays_below_its_asymptote() {
+        let c = curve(&LimLink::PAPER, 1e9, 50.0, Simplex::default());
+        assert!(c.len() > 3, "{c:?}");
+        for p in &c {
+            if let (Some(b), Some(a)) = (p.bits_per_pulse, p.infinite_decoy_bits_per_pulse) {
+                assert!(b < a, "{p:?}");
+            }
+        }
+        assert!(c[0].bits_per_pulse.is_some());
+    }
 
     #[test]
     fn counts_hold_the_fixed_key_detections() {
