@@ -274,8 +274,8 @@ pub fn reach_km(link: &LimLink, n_key: f64, step_km: f64, s: Simplex) -> (f64, L
 
 /// Infinite-decoy rate of the model (Y0, Y1 and e1 known exactly, key basis chosen with
 /// probability → 1, the asymptote of Lim et al.'s bound): max over μ of
-/// e^(−μ)·Y0 + μ·e^(−μ)·Y1·[1 − h(e1)] − f·R_μ·h(e_μ/R_μ), with Y0 = R_0, Y1 and e1 from the
-/// detector model at one photon (η_sys → 1 − (1 − η_sys)·1 for a single photon); bits per pulse.
+/// e^(−μ)·Y0 + μ·e^(−μ)·Y1·[1 − h(e1)] − f·R_μ·h(e_μ/R_μ), with Y0 = R_0 and Y1, e1 from the
+/// detector model for one photon (e^(−η·k) replaced by 1 − η); bits per pulse.
 pub fn infinite_decoy_rate(link: &LimLink, l_km: f64) -> f64 {
     let eta_sys = link.eta_bob * link.eta_ch(l_km);
     let (y0, _) = link.detection(0.0, l_km);
