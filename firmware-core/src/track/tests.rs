@@ -1,6 +1,7 @@
 //! Tracking-loop tests against the loop formulas (debug builds; each runs in about a second).
 
 use super::*;
+use fixed::types::U32F32;
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::synth::{Scenario, Stream};
 
