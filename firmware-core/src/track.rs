@@ -69,9 +69,13 @@
 
 mod cal;
 mod config;
+mod drift;
+mod health;
+pub mod hold;
 mod snapshot;
 
 pub use config::{bandwidth_for_mhz, TrackConfig, TrackConfigError, TrackParams};
+pub use hold::{Prediction, Resumed, TrackEvent};
 pub use snapshot::Snapshot;
 
 use crate::acquire::fold::ChannelPattern;
@@ -79,7 +83,10 @@ use crate::acquire::AcquiredLock;
 use crate::clock::{Located, SlotPos};
 use crate::gates::MAX_CHANNELS;
 use cal::ChannelCal;
+use drift::DriftEstimate;
 use fixed::types::U0F32;
+use health::Health;
+use hold::Hold;
 use snapshot::{mul_hi_signed, nu_step_q96};
 
 /// Where the receiver stands with the transmitter's clock.
@@ -90,6 +97,9 @@ pub enum LockState {
     Acquiring,
     /// Tracking: slots are given.
     Locked,
+    /// The lock's averages failed: the model is extrapolated and no slot is given, until the
+    /// arrivals are found again (see [`hold`]).
+    Holdover,
     /// Lock just lost; reacquisition starts with the next detection.
     Lost,
     /// Searching again around the last known period.
@@ -108,6 +118,18 @@ pub enum LossCause {
     ResidualRms,
 }
 
+/// Counters of the tracker's robustness machinery since construction.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct TrackCounters {
+    /// Times the wide gear was engaged.
+    pub wide_gear: u32,
+    /// Times a channel was set aside.
+    pub set_asides: u32,
+    /// Detections given no slot because their channel was set aside.
+    pub aside_detections: u64,
+}
+
 /// The type-II tracking loop with lock detection and per-channel delay calibration.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct Tracker {
@@ -117,6 +139,10 @@ pub struct Tracker {
     last_good: Snapshot,
     in_frac_q32: i64,
     lost_below_q32: i64,
+    /// In-window fraction at lock, Q0.32.
+    lock_in_q32: i64,
+    /// Mean squared residual at lock, Q0.64.
+    lock_r2_q64: i64,
     r2_q64: i64,
     t_last_in: u64,
     loss: Option<LossCause>,
@@ -127,6 +153,17 @@ pub struct Tracker {
     acc_q64: i64,
     /// In-window detections since the last loop update.
     acc_n: u32,
+    /// Fast average of the in-window residuals (over about 16), Q0.64.
+    e_fast_q64: i64,
+    /// Wide gear engaged.
+    wide: bool,
+    /// In-window detections in a row with a small mean error, while wide.
+    calm: u32,
+    wide_gear: u32,
+    drift: DriftEstimate,
+    health: Health,
+    hold: Hold,
+    event: Option<TrackEvent>,
 }
 
 impl Tracker {
@@ -144,6 +181,8 @@ impl Tracker {
             last_good: s,
             in_frac_q32: 0,
             lost_below_q32: 0,
+            lock_in_q32: 0,
+            lock_r2_q64: 0,
             r2_q64: 0,
             t_last_in: 0,
             loss: None,
@@ -151,6 +190,14 @@ impl Tracker {
             updates: 0,
             acc_q64: 0,
             acc_n: 0,
+            e_fast_q64: 0,
+            wide: false,
+            calm: 0,
+            wide_gear: 0,
+            drift: DriftEstimate::new(),
+            health: Health::new(),
+            hold: Hold::new(),
+            event: None,
         }
     }
 
@@ -160,7 +207,8 @@ impl Tracker {
     }
 
     /// Start tracking from an acquisition; the slot at the lock's anchor gets number `slot`.
-    pub fn start(&mut self, lock: &AcquiredLock, slot: u64) {
+    /// A cold lock (`cold`) forgets the drift estimate; a relock keeps it.
+    pub fn start(&mut self, lock: &AcquiredLock, slot: u64, cold: bool) {
         self.model = Snapshot {
             t_ps: lock.anchor_t_ps,
             pos_q64: (i128::from(slot) << 64) + i128::from(lock.anchor_phase_q64),
@@ -168,20 +216,51 @@ impl Tracker {
         };
         self.last_good = self.model;
         let in_frac = i64::from(lock.in_window.to_bits());
-        self.in_frac_q32 = in_frac;
+        self.lock_in_q32 = in_frac;
         self.lost_below_q32 = (in_frac + i64::from(lock.null_window.to_bits())) / 2;
-        self.r2_q64 = i64::try_from(lock.mean_r2_q64).unwrap_or(i64::MAX);
-        self.t_last_in = lock.anchor_t_ps;
+        self.lock_r2_q64 = i64::try_from(lock.mean_r2_q64).unwrap_or(i64::MAX);
         self.loss = None;
         self.cal = [ChannelCal::EMPTY; MAX_CHANNELS];
-        self.acc_q64 = 0;
-        self.acc_n = 0;
+        if cold {
+            self.drift.reset(lock.anchor_t_ps, self.model.nu_q96);
+        } else {
+            self.drift.remark(lock.anchor_t_ps, self.model.nu_q96);
+        }
+        self.resume_averages(lock.anchor_t_ps);
+        // Pull in the acquisition's residual error fast (and keep the pull-in out of the drift
+        // estimate).
+        self.wide = true;
         self.locked = true;
     }
 
-    /// Whether slots are being given.
+    /// Restart the lock's averages at their values at lock (after a lock or a holdover).
+    fn resume_averages(&mut self, t_ps: u64) {
+        self.in_frac_q32 = self.lock_in_q32;
+        // A lock whose fit spanned a cut can report a large residual; the average starts no
+        // higher than half its limit and has to earn a loss on fresh detections.
+        self.r2_q64 = self.lock_r2_q64.min((self.cfg.max_r2_q64 / 2) as i64);
+        self.t_last_in = t_ps;
+        self.acc_q64 = 0;
+        self.acc_n = 0;
+        self.e_fast_q64 = 0;
+        self.calm = 0;
+        self.health.reset((self.lock_in_q32 >> 16) as u16);
+        self.hold.active = false;
+    }
+
+    /// Whether the lock is held (tracking or in holdover).
     pub const fn is_locked(&self) -> bool {
         self.locked
+    }
+
+    /// Whether the tracker is in holdover (locked, no slots given).
+    pub const fn in_holdover(&self) -> bool {
+        self.locked && self.hold.active
+    }
+
+    /// The lock event of the latest detection, if any (taken once).
+    pub fn take_event(&mut self) -> Option<TrackEvent> {
+        self.event.take()
     }
 
     /// Why the last lock ended.
@@ -204,6 +283,25 @@ impl Tracker {
         self.updates
     }
 
+    /// Wide-gear engagements and channel set-asides since construction.
+    pub const fn counters(&self) -> TrackCounters {
+        TrackCounters {
+            wide_gear: self.wide_gear,
+            set_asides: self.health.set_asides,
+            aside_detections: self.health.aside_detections,
+        }
+    }
+
+    /// Channels set aside now (bit c: channel c).
+    pub const fn channels_set_aside(&self) -> u16 {
+        self.health.aside()
+    }
+
+    /// Whether the wide gear is engaged.
+    pub const fn wide(&self) -> bool {
+        self.wide
+    }
+
     /// Running fraction of detections inside the window (Q0.32).
     pub fn in_window_fraction(&self) -> U0F32 {
         U0F32::from_bits(self.in_frac_q32.clamp(0, i64::from(u32::MAX)) as u32)
@@ -219,7 +317,43 @@ impl Tracker {
     /// Stop giving slots.
     pub fn lose(&mut self, cause: LossCause) {
         self.locked = false;
+        self.hold.active = false;
         self.loss = Some(cause);
+    }
+
+    /// The last good model extrapolated to `t_ps` with the drift estimate, and the bound on its
+    /// error ([`hold`]); `None` beyond 4.4 s from it.
+    pub fn predict(&self, t_ps: u64) -> Option<Prediction> {
+        let p = &self.cfg.p;
+        let mut from = self.last_good;
+        let nu_q64 = (from.nu_q96 >> 32) as u64;
+        // The drift allowance as a slope: ν·D per 2^32 ps.
+        let allow_q64 = u128::from(nu_q64) * u128::from(p.drift_ppb_per_s) << 32;
+        let allow_q64 =
+            u64::try_from(allow_q64 / 1_000_000_000_000_000_000_000).unwrap_or(u64::MAX);
+        let floor = u128::from(nu_q64) * u128::from(p.hold_ppt) / 1_000_000_000_000;
+        let floor = u64::try_from(floor).unwrap_or(u64::MAX);
+        let sigmas = hold::SIGMAS;
+        // With the drift known, extrapolate from the smoothed frequency (its noise a quarter of
+        // the loop's); before, from the loop's own, bounded by the whole allowance.
+        let (nu_bound, slope_bound) =
+            match (self.drift.nu_at(from.t_ps), self.drift.slope_error_q64()) {
+                (Some(nu), Some(slope_err)) => {
+                    from.nu_q96 = u128::from(nu) << 32;
+                    (
+                        self.drift.nu_error_q64().saturating_mul(sigmas).max(floor),
+                        slope_err.saturating_mul(sigmas),
+                    )
+                }
+                _ => (floor.max(allow_q64), allow_q64),
+            };
+        hold::predict(
+            &from,
+            t_ps,
+            self.drift.rate_q16((allow_q64.min(1 << 46) as i64) << 16),
+            nu_bound,
+            slope_bound,
+        )
     }
 
     /// Locate one delay-corrected detection and update the loop with it.
@@ -227,13 +361,14 @@ impl Tracker {
         if !self.locked {
             return Located::NotLocked;
         }
+        if self.hold.active {
+            return self.hold_update(t_ps, channel, pat);
+        }
         if t_ps.saturating_sub(self.t_last_in) > self.cfg.p.blackout_ps {
-            self.lose(LossCause::Blackout);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::Blackout, t_ps, channel, pat);
         }
         let Some(pos) = self.model.position(t_ps) else {
-            self.lose(LossCause::Blackout);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::Blackout, t_ps, channel, pat);
         };
         if pos < 0 {
             return Located::BeforeOrigin;
@@ -241,11 +376,18 @@ impl Tracker {
         let frac = pos as u64;
         let w = self.cfg.window_q64;
         let (r, _) = pat.residual(frac);
-        if let Some(c) = channel.and_then(|c| self.cal.get_mut(usize::from(c))) {
-            c.record(r, w);
+        let inside = r.unsigned_abs() <= w;
+        if let Some(c) = channel {
+            let low = (self.lost_below_q32 >> 16) as u16;
+            let high = ((self.lost_below_q32 + self.lock_in_q32) >> 17) as u16;
+            if !self.health.observe(usize::from(c), inside, low, high) {
+                return Located::NotLocked;
+            }
+            if let Some(cal) = self.cal.get_mut(usize::from(c)) {
+                cal.record(r, w);
+            }
         }
         let shift = self.cfg.p.average_shift;
-        let inside = r.unsigned_abs() <= w;
         let ind = if inside { 1i64 << 32 } else { 0 };
         self.in_frac_q32 += (ind - self.in_frac_q32) >> shift;
         if inside {
@@ -254,6 +396,7 @@ impl Tracker {
             let r_q32 = i64::from((r >> 32) as i32);
             self.r2_q64 += (r_q32 * r_q32 - self.r2_q64) >> shift;
             self.t_last_in = self.t_last_in.max(t_ps);
+            self.gear(r);
             // N residuals within ±1/4 slot, each divided by N: the sum stays within ±1/4.
             self.acc_q64 += r >> self.cfg.mean_shift;
             self.acc_n += 1;
@@ -262,17 +405,39 @@ impl Tracker {
             }
         }
         if self.in_frac_q32 < self.lost_below_q32 {
-            self.lose(LossCause::InWindowFraction);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::InWindowFraction, t_ps, channel, pat);
         }
         if self.r2_q64.unsigned_abs() > self.cfg.max_r2_q64 {
-            self.lose(LossCause::ResidualRms);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::ResidualRms, t_ps, channel, pat);
         }
         Located::At(SlotPos {
             slot: (pos >> 64) as u64,
             phase: U0F32::from_bits((frac >> 32) as u32),
         })
+    }
+
+    /// Shift gears on the fast mean error: wide when its square exceeds the mean squared
+    /// residual (a bias of one single-detection rms, six times the fast mean's own noise),
+    /// narrow again after 2^`average_shift` in-window detections in a row below a quarter of it.
+    #[inline]
+    fn gear(&mut self, r: i64) {
+        self.e_fast_q64 += (r - self.e_fast_q64) >> 4;
+        let e = i64::from((self.e_fast_q64 >> 32) as i32);
+        let e2 = e * e;
+        if !self.wide {
+            if e2 > self.r2_q64 {
+                self.wide = true;
+                self.calm = 0;
+                self.wide_gear = self.wide_gear.saturating_add(1);
+            }
+        } else if e2.saturating_mul(16) < self.r2_q64 {
+            self.calm += 1;
+            if self.calm >> self.cfg.p.average_shift != 0 {
+                self.wide = false;
+            }
+        } else {
+            self.calm = 0;
+        }
     }
 
     /// Run the loop filter on the mean residual since the last update; the detection at `t_ps`
@@ -281,17 +446,96 @@ impl Tracker {
         let e = self.acc_q64;
         self.acc_q64 = 0;
         self.acc_n = 0;
-        let dnu = nu_step_q96((e >> 32) as i32, self.cfg.g2_q96);
+        let (k1, g2) = if self.wide {
+            (self.cfg.k1w, self.cfg.g2w_q96)
+        } else {
+            (self.cfg.k1, self.cfg.g2_q96)
+        };
+        let dnu = nu_step_q96((e >> 32) as i32, g2);
         self.model = Snapshot {
             t_ps,
-            pos_q64: pos - i128::from(mul_hi_signed(e, self.cfg.k1)),
+            pos_q64: pos - i128::from(mul_hi_signed(e, k1)),
             nu_q96: (self.model.nu_q96 as i128 - dnu).max(1) as u128,
         };
         if self.in_frac_q32 >= self.lost_below_q32 {
             self.last_good = self.model;
+            if self.wide {
+                self.drift.remark(t_ps, self.model.nu_q96);
+            } else {
+                self.drift.observe(t_ps, self.model.nu_q96);
+            }
         }
     }
 
+    /// Go into holdover for `cause`, with this detection as its first.
+    #[inline(never)]
+    fn enter_hold(
+        &mut self,
+        cause: LossCause,
+        t_ps: u64,
+        channel: Option<u8>,
+        pat: &ChannelPattern,
+    ) -> Located {
+        self.hold.start(cause, self.last_good.t_ps);
+        self.wide = false;
+        // A failure of every channel at once is the clock's, not a detector's: all fold.
+        self.health.reset((self.lock_in_q32 >> 16) as u16);
+        self.event = Some(TrackEvent::HoldoverStarted(cause));
+        self.hold_update(t_ps, channel, pat)
+    }
+
+    /// One detection in holdover: fold it at its predicted phase, resume once the arrivals
+    /// are found, give up once the prediction's bound reaches 3/8 slot.
+    #[inline(never)]
+    fn hold_update(&mut self, t_ps: u64, channel: Option<u8>, pat: &ChannelPattern) -> Located {
+        let pred = match self.predict(t_ps) {
+            Some(p) if p.bound_q32 < hold::GIVE_UP_Q32 => p,
+            _ => {
+                let cause = self.hold.cause;
+                self.lose(cause);
+                self.event = Some(TrackEvent::Lost(cause));
+                return Located::NotLocked;
+            }
+        };
+        let aside = channel.is_some_and(|c| self.health.aside() & (1 << (c & 15)) != 0);
+        if !aside {
+            if let Some(phi) = self.hold.observe(pred.pos_q64 as u64, pat) {
+                self.resume(t_ps, &pred, phi);
+            }
+        }
+        Located::NotLocked
+    }
+
+    /// Leave holdover: the arrivals are `phi` (Q0.64) from the prediction `pred` at `t_ps`.
+    fn resume(&mut self, t_ps: u64, pred: &Prediction, phi: i64) {
+        let a = phi.unsigned_abs() >> 32;
+        let u = pred.bound_q32;
+        let w = u64::from(self.cfg.p.window.to_bits());
+        let how = if a <= u.saturating_add(2 * w) {
+            Resumed::Bridged
+        } else {
+            Resumed::Jump {
+                renumber: a.saturating_add(u) > hold::JUMP_KEEP_Q32,
+            }
+        };
+        self.event = Some(TrackEvent::Resumed {
+            how,
+            phase_q32: (phi >> 32) as i32,
+            bound_q32: u,
+            held_ps: t_ps.saturating_sub(self.hold.since_ps),
+        });
+        self.model = Snapshot {
+            t_ps,
+            pos_q64: pred.pos_q64 - i128::from(phi),
+            nu_q96: pred.nu_q96,
+        };
+        self.last_good = self.model;
+        self.drift.remark(t_ps, self.model.nu_q96);
+        self.resume_averages(t_ps);
+        // The prediction leaves a residual error within a fold's resolution: pull it in fast.
+        self.wide = true;
+        self.wide_gear = self.wide_gear.saturating_add(1);
+    }
     /// Per-channel delay corrections in ps to add to each channel's configured delay (positive:
     /// the channel's detections come late); `None` with fewer than 64 detections since lock.
     pub fn delay_corrections_ps(&self) -> [Option<i64>; MAX_CHANNELS] {

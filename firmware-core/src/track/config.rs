@@ -22,17 +22,24 @@ pub struct TrackParams {
     pub blackout_ps: u64,
     /// Lock is lost when the rms residual of in-window detections exceeds this, slot fraction.
     pub max_rms: U0F32,
-    /// Frequency uncertainty assumed when bridging a gap, parts per 10⁹.
-    pub bridge_ppb: u32,
     /// The loop filter runs once per this many in-window detections, on their mean residual
     /// (a power of two, 1..=65536; 1: at every one).
     pub update_every: u32,
+    /// Bandwidth multiplier of the wide gear, engaged on a large mean error (1..=64; 1: one
+    /// gear). Capped so that the wide loop keeps B_n·T_u' ≤ 0.1.
+    pub wide_factor: u32,
+    /// Largest drift the transmitter's clock may show, ppb per second: bounds the drift
+    /// estimate, and is the holdover's drift uncertainty until that estimate has matured.
+    pub drift_ppb_per_s: u32,
+    /// Least frequency uncertainty assumed in holdover, parts per 10¹² (the measured spread
+    /// of the loop's frequency is used above it).
+    pub hold_ppt: u32,
 }
 
 impl TrackParams {
-    /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, bridge 50 ppb (about
-    /// five times the loop's frequency rms at the rates of the examples above), an update at
-    /// every in-window detection.
+    /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, an update at every
+    /// in-window detection, a wide gear 16 times the bandwidth, a drift of at most
+    /// 0.1 ppm/s, and a holdover frequency uncertainty of at least 20 ppt.
     pub const fn new(bandwidth_mhz: u32, rate_per_s: u64, blackout_ps: u64) -> Self {
         Self {
             bandwidth_mhz,
@@ -42,8 +49,10 @@ impl TrackParams {
             average_shift: 8,
             blackout_ps,
             max_rms: U0F32::from_bits(1 << 27),
-            bridge_ppb: 50,
             update_every: 1,
+            wide_factor: 16,
+            drift_ppb_per_s: 100,
+            hold_ppt: 20,
         }
     }
 }
@@ -68,6 +77,8 @@ pub enum TrackConfigError {
     Limits,
     /// `update_every` not a power of two in 1..=65536.
     UpdateEvery,
+    /// `wide_factor` outside 1..=64.
+    WideFactor,
 }
 
 impl fmt::Display for TrackConfigError {
@@ -84,6 +95,7 @@ impl fmt::Display for TrackConfigError {
             Self::AverageShift => write!(f, "average_shift must lie in 1..=16"),
             Self::Limits => write!(f, "blackout_ps and max_rms must be nonzero"),
             Self::UpdateEvery => write!(f, "update_every must be a power of two in 1..=65536"),
+            Self::WideFactor => write!(f, "wide_factor must lie in 1..=64"),
         }
     }
 }
@@ -99,6 +111,10 @@ pub struct TrackConfig {
     pub(super) k2: u64,
     /// K2/T_u': ν change (cycles/ps, Q0.96) per Q0.32 unit of mean phase error.
     pub(super) g2_q96: u128,
+    /// K1 of the wide gear (Q0.64).
+    pub(super) k1w: u64,
+    /// K2/T_u' of the wide gear, as `g2_q96`.
+    pub(super) g2w_q96: u128,
     /// Window half-width w, Q0.64 slot fraction.
     pub(super) window_q64: u64,
     /// max_rms², Q0.64 slot fraction squared.
@@ -132,28 +148,22 @@ impl TrackConfig {
         if !p.update_every.is_power_of_two() || p.update_every > 1 << 16 {
             return Err(TrackConfigError::UpdateEvery);
         }
-        let rate = u128::from(p.rate_per_s);
-        let n = u128::from(p.update_every);
-        // B_n·T_u' = B_mHz·N / (1000·R), Q0.64.
-        let bt = ((u128::from(p.bandwidth_mhz) * n) << 64) / (1000 * rate);
-        if bt > (1u128 << 64) / 10 {
-            return Err(TrackConfigError::TooWide);
+        if !(1..=64).contains(&p.wide_factor) {
+            return Err(TrackConfigError::WideFactor);
         }
-        let z = u128::from(p.damping_milli);
-        // θ = B_nT_u / (ζ + 1/(4ζ)) = B_nT_u · 4ζ / (4ζ² + 1), ζ = z/1000.
-        let theta = bt * 4000 * z / (4 * z * z + 1_000_000);
-        let d = (1u128 << 64) + 2 * z * theta / 1000 + ((theta * theta) >> 64);
-        let k1 = ((4 * z * theta / 1000) << 64) / d;
-        let k2 = 4 * theta * theta / d;
-        // K2/T_u' in Q0.96 per Q0.32 error: K2·2^32·R/(N·10^12) = K2·R·2^20/(244140625·N),
-        // below 2^92 (K2 < 0.04 at B_n·T_u' ≤ 0.1, R ≤ 10^12), as the hot path needs.
-        let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625 / n;
+        let (k1, k2, g2_q96) = gains(&p, u128::from(p.bandwidth_mhz))?;
+        // The wide gear: B_n·factor, capped at B_n·T_u' = 0.1 (B ≤ 100·R/N mHz).
+        let cap = 100 * u128::from(p.rate_per_s) / u128::from(p.update_every);
+        let wide = (u128::from(p.bandwidth_mhz) * u128::from(p.wide_factor)).min(cap);
+        let (k1w, _, g2w_q96) = gains(&p, wide.max(u128::from(p.bandwidth_mhz)))?;
         let max = u64::from(p.max_rms.to_bits());
         Ok(Self {
             p,
-            k1: u64::try_from(k1).unwrap_or(u64::MAX),
-            k2: u64::try_from(k2).unwrap_or(u64::MAX),
+            k1,
+            k2,
             g2_q96,
+            k1w,
+            g2w_q96,
             window_q64: u64::from(p.window.to_bits()) << 32,
             max_r2_q64: max * max,
             mean_shift: p.update_every.trailing_zeros(),
@@ -174,6 +184,32 @@ impl TrackConfig {
     pub fn k2(&self) -> U0F64 {
         U0F64::from_bits(self.k2)
     }
+}
+
+/// K1, K2 (Q0.64) and K2/T_u' (Q0.96 per Q0.32 error) of a loop of bandwidth `b_mhz` with the
+/// damping, rate and update interval of `p` (Rice, App. C).
+fn gains(p: &TrackParams, b_mhz: u128) -> Result<(u64, u64, u128), TrackConfigError> {
+    let rate = u128::from(p.rate_per_s);
+    let n = u128::from(p.update_every);
+    // B_n·T_u' = B_mHz·N / (1000·R), Q0.64.
+    let bt = ((b_mhz * n) << 64) / (1000 * rate);
+    if bt > (1u128 << 64) / 10 {
+        return Err(TrackConfigError::TooWide);
+    }
+    let z = u128::from(p.damping_milli);
+    // θ = B_nT_u / (ζ + 1/(4ζ)) = B_nT_u · 4ζ / (4ζ² + 1), ζ = z/1000.
+    let theta = bt * 4000 * z / (4 * z * z + 1_000_000);
+    let d = (1u128 << 64) + 2 * z * theta / 1000 + ((theta * theta) >> 64);
+    let k1 = ((4 * z * theta / 1000) << 64) / d;
+    let k2 = 4 * theta * theta / d;
+    // K2/T_u' in Q0.96 per Q0.32 error: K2·2^32·R/(N·10^12) = K2·R·2^20/(244140625·N),
+    // below 2^92 (K2 < 0.04 at B_n·T_u' ≤ 0.1, R ≤ 10^12), as the hot path needs.
+    let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625 / n;
+    Ok((
+        u64::try_from(k1).unwrap_or(u64::MAX),
+        u64::try_from(k2).unwrap_or(u64::MAX),
+        g2_q96,
+    ))
 }
 
 /// x·n/d for d > 0, saturating instead of overflowing.
