@@ -40,7 +40,7 @@ use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::{AcquireConfig, AcquireConfigError, AcquireStats, AcquiredLock, Acquirer};
 use crate::clock::{Located, SlotClock, SlotPos};
 use crate::gates::MAX_CHANNELS;
-use crate::track::{LockState, LossCause, TrackConfig, Tracker};
+use crate::track::{LockState, LossCause, Resumed, TrackConfig, TrackEvent, Tracker};
 use core::fmt;
 use fixed::types::{U0F32, U32F32};
 
@@ -112,6 +112,12 @@ pub struct LockCounters {
     pub bridged: u32,
     /// Numbering epoch: increments whenever slot numbers restart without continuity.
     pub epoch: u32,
+    /// Holdovers entered (the lock's averages failed; see [`crate::track::hold`]).
+    pub holdovers: u32,
+    /// Holdovers that ended with the arrivals where the prediction put them.
+    pub holdovers_bridged: u32,
+    /// Holdovers that ended on a phase jump of the arrivals, the lock kept.
+    pub jumps: u32,
 }
 
 /// A clock recovered from the detections: buffer `N`, `K` candidates, Z²_`H`.
@@ -127,11 +133,16 @@ pub struct RecoveredClock<const N: usize, const K: usize, const H: usize> {
     last_lock: Option<AcquiredLock>,
     /// Acquisition attempts when the narrow reacquisition started (`None` once widened).
     reacquire_from: Option<u32>,
+    /// After the latest epoch change: the new numbers differ from the old by at most ± this
+    /// many slots (`None`: unknown).
+    renumbered_within: Option<u64>,
+    /// The lock event of the latest detection.
+    last_event: Option<TrackEvent>,
 }
 
 // The host's and the HIL's capacities: 16,784 bytes on x86_64, 16,728 on thumbv7em (see the
 // size report, `size_report` in the tests); the acquisition's drift search added 304 / 320 bytes.
-const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 16_800);
+const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 17_400);
 
 /// Failed narrow reacquisition attempts before the search widens to the cold prior.
 pub const NARROW_ATTEMPTS: u32 = 4;
@@ -149,6 +160,8 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
             numbering_valid: false,
             last_lock: None,
             reacquire_from: None,
+            renumbered_within: None,
+            last_event: None,
         })
     }
 
@@ -172,6 +185,11 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
     pub fn align_numbering(&mut self, offset_slots: i64) {
         self.trk.shift_slots(offset_slots);
         self.numbering_valid = true;
+    }
+
+    /// The lock event of the latest detection that had one (holdover started or ended).
+    pub const fn last_event(&self) -> Option<&TrackEvent> {
+        self.last_event.as_ref()
     }
 
     /// Why the last lock was lost.
@@ -221,41 +239,76 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
         let Some(lock) = self.acq.take_lock() else {
             return;
         };
-        let slot = if self.state == LockState::Acquiring {
+        let cold = self.state == LockState::Acquiring;
+        let slot = if cold {
             self.counters.locks += 1;
-            self.counters.epoch += 1;
-            self.numbering_valid = false;
+            self.renumber(None);
             ((u128::from(lock.anchor_t_ps) * u128::from(lock.nu_q64)) >> 64) as u64
         } else {
             self.counters.relocks += 1;
             self.continue_numbering(&lock)
         };
-        self.trk.start(&lock, slot);
+        self.trk.start(&lock, slot, cold);
         self.last_lock = Some(lock);
         self.state = LockState::Locked;
     }
 
-    /// Slot number for the relock's anchor slot, from the last good model.
+    /// Start a new numbering epoch whose numbers differ from the old by at most ±`within`.
+    fn renumber(&mut self, within: Option<u64>) {
+        self.counters.epoch += 1;
+        self.numbering_valid = false;
+        self.renumbered_within = within;
+    }
+
+    /// Slot number for the relock's anchor slot, from the last good model extrapolated with
+    /// the drift estimate ([`Tracker::predict`]): the gap is bridged when the prediction's bound
+    /// stays below 3/8 slot and the new lock's phase agrees with it within that bound plus 1/8
+    /// slot. Otherwise the slot after the predicted one is used (numbers never go back) and a
+    /// new epoch starts, its numbers within the bound (plus one slot) of the old ones.
     fn continue_numbering(&mut self, lock: &AcquiredLock) -> u64 {
-        let s = *self.trk.last_good();
         let frac = i128::from(lock.anchor_phase_q64);
-        let Some(pred) = s.position(lock.anchor_t_ps) else {
-            self.counters.epoch += 1;
-            self.numbering_valid = false;
+        let Some(pred) = self.trk.predict(lock.anchor_t_ps) else {
+            self.renumber(None);
             return ((u128::from(lock.anchor_t_ps) * u128::from(lock.nu_q64)) >> 64) as u64;
         };
-        let mismatch = (pred as u64).wrapping_sub(lock.anchor_phase_q64) as i64;
-        let slot = ((pred - frac + (1 << 63)) >> 64).max(0) as u64;
-        let gap_slots = ((pred - s.pos_q64) >> 64).unsigned_abs();
-        let drift = gap_slots.saturating_mul(u128::from(self.cfg.track.params().bridge_ppb));
-        if mismatch.unsigned_abs() <= 1 << 61 && drift <= 125_000_000 {
+        let mismatch = (pred.pos_q64 as u64).wrapping_sub(lock.anchor_phase_q64) as i64;
+        let slot = ((pred.pos_q64 - frac + (1 << 63)) >> 64).max(0) as u64;
+        let u = pred.bound_q32;
+        if u < crate::track::hold::GIVE_UP_Q32
+            && mismatch.unsigned_abs() >> 32 <= u.saturating_add(1 << 29)
+        {
             self.counters.bridged += 1;
             slot
         } else {
-            self.counters.epoch += 1;
-            self.numbering_valid = false;
+            // Within ⌈U⌉ + 1 slots; beyond a window's reach the numbering searches anyway.
+            let k = (u >> 32).saturating_add(2);
+            self.renumber((k <= 1 << 20).then_some(k));
             slot + 1
         }
+    }
+
+    /// Follow the tracker's lock events.
+    fn follow(&mut self, event: TrackEvent) {
+        match event {
+            TrackEvent::HoldoverStarted(_) => {
+                self.state = LockState::Holdover;
+                self.counters.holdovers += 1;
+            }
+            TrackEvent::Resumed { how, .. } => {
+                self.state = LockState::Locked;
+                match how {
+                    Resumed::Bridged => self.counters.holdovers_bridged += 1,
+                    Resumed::Jump { renumber } => {
+                        self.counters.jumps += 1;
+                        if renumber {
+                            self.renumber(Some(1));
+                        }
+                    }
+                }
+            }
+            TrackEvent::Lost(_) => {}
+        }
+        self.last_event = Some(event);
     }
 
     fn handle(&mut self, channel: Option<u8>, t_ps: u64) -> Located {
@@ -276,7 +329,7 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
                 .restart(cold.nominal_nu_q64(), cold.params().prior_ppm);
             self.reacquire_from = None;
         }
-        if self.state != LockState::Locked {
+        if !matches!(self.state, LockState::Locked | LockState::Holdover) {
             self.acq.push(t_ps, channel, &self.pattern);
             self.work(self.cfg.acquire.params().work_per_call);
             return Located::NotLocked;
@@ -284,6 +337,9 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
         let r = self
             .trk
             .update(t_ps, channel, self.pattern.channel(channel));
+        if let Some(e) = self.trk.take_event() {
+            self.follow(e);
+        }
         if !self.trk.is_locked() {
             self.state = LockState::Lost;
             self.counters.losses += 1;
@@ -318,6 +374,10 @@ impl<const N: usize, const K: usize, const H: usize> SlotClock for RecoveredCloc
 
     fn epoch(&self) -> u32 {
         self.counters.epoch
+    }
+
+    fn renumbered_within(&self) -> Option<u64> {
+        self.renumbered_within
     }
 
     /// The recovered clock numbers slots from the time origin (slot ≈ t / T).

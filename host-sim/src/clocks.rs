@@ -8,8 +8,8 @@ use crate::sim;
 use serde::Serialize;
 use slotwise::acquire::{AcquireConfig, AcquireParams};
 use slotwise::fixed::types::U32F32;
-use slotwise::recovered::{RecoveredClock, RecoveredConfig};
-use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackParams};
+use slotwise::recovered::{LockCounters, RecoveredClock, RecoveredConfig};
+use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackCounters, TrackParams};
 use slotwise::{
     Absolute, FixedClock, GateTable, Located, MarkerNumbering, Numbered, Numbering, SlotClock,
 };
@@ -65,6 +65,13 @@ impl SlotClock for HostClock {
         match self {
             Self::Reference(c) => c.epoch(),
             Self::Recovered(c) => c.epoch(),
+        }
+    }
+
+    fn renumbered_within(&self) -> Option<u64> {
+        match self {
+            Self::Reference(c) => c.renumbered_within(),
+            Self::Recovered(c) => c.renumbered_within(),
         }
     }
 
@@ -146,6 +153,19 @@ pub struct LockReport {
     pub relocks: u32,
     /// Relocks whose gap was bridged without losing the slot numbering.
     pub bridged: u32,
+    /// Holdovers: the lock's averages failed, the model was extrapolated and no slot given.
+    pub holdovers: u32,
+    /// Holdovers that ended with the arrivals where the prediction put them (numbers kept).
+    pub holdovers_bridged: u32,
+    /// Holdovers that ended on a phase jump of the arrivals, taken without losing the lock.
+    pub jumps: u32,
+    /// Times the tracking loop shifted to its wide gear (on a large mean error, or to pull in
+    /// after a lock or a holdover).
+    pub wide_gear: u32,
+    /// Times a channel was set aside by its health check (blinded, saturated).
+    pub channels_set_aside: u32,
+    /// Detections given no slot because their channel was set aside (counted `no_clock`).
+    pub set_aside_detections: u64,
     /// Final lock state.
     pub state: String,
     /// Marker alignment of the slot numbering: `aligned`, `searching`, `confirming`,
@@ -183,14 +203,18 @@ impl HostClock {
     }
 
     /// Lock counters (a reference clock is always locked).
-    pub fn counters(&self) -> (u32, u32, u32, String) {
+    pub fn counters(&self) -> (LockCounters, TrackCounters, String) {
         match self {
-            Self::Reference(..) => (0, 0, 0, "reference".into()),
-            Self::Recovered(c) => {
-                let k = c.counters();
-                let state = format!("{:?}", c.state()).to_lowercase();
-                (k.losses, k.relocks, k.bridged, state)
-            }
+            Self::Reference(..) => (
+                LockCounters::default(),
+                TrackCounters::default(),
+                "reference".into(),
+            ),
+            Self::Recovered(c) => (
+                *c.counters(),
+                c.tracker().counters(),
+                format!("{:?}", c.state()).to_lowercase(),
+            ),
         }
     }
 }
@@ -209,7 +233,8 @@ pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackPa
 /// Prior ±`prior_ppm` around the nominal period; loop bandwidth from the core's rule
 /// ([`bandwidth_for_mhz`]) with the expected signal rate, a drift allowance of
 /// max(|drift|, 0.1 ppm/s), and σ² = jitter² + the window's uniform-noise share; blackout after
-/// the longer of 1 ms and 50 expected detections. The acquisition's drift range is the
+/// the longer of 1 ms and 50 expected detections; a drift allowance for holdover of twice the
+/// profile's drift (at least 0.1 ppm/s). The acquisition's drift range is the
 /// profile's |drift| (no chirp search when it is 0).
 pub fn recovered_params_for(k: &ClockToml, prior_ppm: u32) -> (AcquireParams, TrackParams) {
     let period = 1e12 / k.rep_rate_hz;
@@ -226,7 +251,11 @@ pub fn recovered_params_for(k: &ClockToml, prior_ppm: u32) -> (AcquireParams, Tr
     let rate_u = rate.max(1.0) as u64;
     let b = bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
     let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
-    (a, TrackParams::new(b.max(1), rate_u, blackout_ps))
+    let mut t = TrackParams::new(b.max(1), rate_u, blackout_ps);
+    // Holdover extrapolates with the measured drift, bounded by twice the profile's (at least
+    // 0.1 ppm/s).
+    t.drift_ppb_per_s = (2.0 * k.drift_ppm_per_s.abs() * 1e3).clamp(100.0, 1e6) as u32;
+    (a, t)
 }
 
 /// Build the scenario's clock and numbering in the chosen mode, as for its profile

@@ -201,7 +201,7 @@ pub fn summarize<T: Transmitter>(
             truth: truth_period_ps,
         },
         lock: {
-            let (losses, relocks, bridged, state) = rx.clock().counters();
+            let (k, t, state) = rx.clock().counters();
             let (numbering, realignments) = rx.numbering().state();
             let aligned = rx.numbering().aligned_after();
             LockReport {
@@ -215,9 +215,15 @@ pub fn summarize<T: Transmitter>(
                 acquired: res.first_lock.is_some(),
                 after_detections: res.first_lock.map(|l| l.0),
                 after_s: res.first_lock.map(|l| l.1),
-                losses,
-                relocks,
-                bridged,
+                losses: k.losses,
+                relocks: k.relocks,
+                bridged: k.bridged,
+                holdovers: k.holdovers,
+                holdovers_bridged: k.holdovers_bridged,
+                jumps: k.jumps,
+                wide_gear: t.wide_gear,
+                channels_set_aside: t.set_asides,
+                set_aside_detections: t.aside_detections,
                 state,
             }
         },
@@ -320,12 +326,19 @@ impl std::fmt::Display for Summary {
         match l.after_detections {
             Some(n) => writeln!(
                 f,
-                "clock          {} after {n} detections ({:.4} s); {} losses, {} relocks ({} bridged); gate residual rms {residual}",
+                "clock          {} after {n} detections ({:.4} s); {} losses, {} relocks ({} bridged); gate residual rms {residual}\n\
+                 holdover       {} ({} bridged, {} phase jumps taken); wide gear {}×; channels set aside {}× ({} detections)",
                 l.state,
                 l.after_s.unwrap_or(0.0),
                 l.losses,
                 l.relocks,
                 l.bridged,
+                l.holdovers,
+                l.holdovers_bridged,
+                l.jumps,
+                l.wide_gear,
+                l.channels_set_aside,
+                l.set_aside_detections,
             )?,
             None => writeln!(f, "clock          never locked ({})", l.state)?,
         }

@@ -3,6 +3,7 @@
 use super::*;
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::synth::{Scenario, Stream};
+use fixed::types::U32F32;
 
 fn rice(bt: f64, zeta: f64) -> (f64, f64) {
     // Rice, App. C: θ = B_nT/(ζ + 1/(4ζ)); K1 = 4ζθ/(1 + 2ζθ + θ²); K2 = 4θ²/(1 + 2ζθ + θ²).

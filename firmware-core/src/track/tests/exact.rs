@@ -1,5 +1,6 @@
 //! The fixed-point loop against the 128-bit formulas it replaced, bit for bit (update_every = 1).
 
+use super::super::snapshot::{advance, advance_limbs, nu_step_limbs};
 use super::super::*;
 use crate::acquire::fold::ArrivalPattern;
 use proptest::prelude::*;
