@@ -142,7 +142,7 @@ pub struct RecoveredClock<const N: usize, const K: usize, const H: usize> {
 
 // The host's and the HIL's capacities: 16,784 bytes on x86_64, 16,728 on thumbv7em (see the
 // size report, `size_report` in the tests); the acquisition's drift search added 304 / 320 bytes.
-const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 17_400);
+const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 17_200);
 
 /// Failed narrow reacquisition attempts before the search widens to the cold prior.
 pub const NARROW_ATTEMPTS: u32 = 4;
@@ -306,6 +306,9 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
                     }
                 }
             }
+            // Entered and given up on one detection (the first after a long dark gap): still a
+            // holdover.
+            TrackEvent::Lost(_) if self.state == LockState::Locked => self.counters.holdovers += 1,
             TrackEvent::Lost(_) => {}
         }
         self.last_event = Some(event);

@@ -347,13 +347,11 @@ impl Tracker {
                 }
                 _ => (floor.max(allow_q64), allow_q64),
             };
-        hold::predict(
-            &from,
-            t_ps,
-            self.drift.rate_q16((allow_q64.min(1 << 46) as i64) << 16),
-            nu_bound,
-            slope_bound,
-        )
+        let rate = match self.drift.slope_error_q64() {
+            Some(_) => self.drift.rate_q16((allow_q64.min(1 << 46) as i64) << 16),
+            None => 0,
+        };
+        hold::predict(&from, t_ps, rate, nu_bound, slope_bound)
     }
 
     /// Locate one delay-corrected detection and update the loop with it.
@@ -378,13 +376,15 @@ impl Tracker {
         let (r, _) = pat.residual(frac);
         let inside = r.unsigned_abs() <= w;
         if let Some(c) = channel {
+            // Recorded even when the channel is set aside: a channel whose delay is off shows
+            // no in-window fraction, and its histogram is what finds the correction.
+            if let Some(cal) = self.cal.get_mut(usize::from(c)) {
+                cal.record(r, w);
+            }
             let low = (self.lost_below_q32 >> 16) as u16;
             let high = ((self.lost_below_q32 + self.lock_in_q32) >> 17) as u16;
             if !self.health.observe(usize::from(c), inside, low, high) {
                 return Located::NotLocked;
-            }
-            if let Some(cal) = self.cal.get_mut(usize::from(c)) {
-                cal.record(r, w);
             }
         }
         let shift = self.cfg.p.average_shift;
@@ -417,8 +417,9 @@ impl Tracker {
     }
 
     /// Shift gears on the fast mean error: wide when its square exceeds the mean squared
-    /// residual (a bias of one single-detection rms, six times the fast mean's own noise),
-    /// narrow again after 2^`average_shift` in-window detections in a row below a quarter of it.
+    /// residual (a bias of one single-detection rms σ, about six times the fast mean's own
+    /// noise σ/√31), narrow again after 2^`average_shift` in-window detections in a row below
+    /// σ/2 (2.8 times its noise, so a calm loop passes 99.5 % of them).
     #[inline]
     fn gear(&mut self, r: i64) {
         self.e_fast_q64 += (r - self.e_fast_q64) >> 4;
@@ -430,7 +431,7 @@ impl Tracker {
                 self.calm = 0;
                 self.wide_gear = self.wide_gear.saturating_add(1);
             }
-        } else if e2.saturating_mul(16) < self.r2_q64 {
+        } else if e2.saturating_mul(4) < self.r2_q64 {
             self.calm += 1;
             if self.calm >> self.cfg.p.average_shift != 0 {
                 self.wide = false;
@@ -489,7 +490,7 @@ impl Tracker {
     #[inline(never)]
     fn hold_update(&mut self, t_ps: u64, channel: Option<u8>, pat: &ChannelPattern) -> Located {
         let pred = match self.predict(t_ps) {
-            Some(p) if p.bound_q32 < hold::GIVE_UP_Q32 => p,
+            Some(p) if p.bound_q32 < hold::GIVE_UP_Q32 && !self.hold.exhausted => p,
             _ => {
                 let cause = self.hold.cause;
                 self.lose(cause);

@@ -100,16 +100,18 @@ impl DriftEstimate {
             self.nu_smooth_q64 = pred.wrapping_add((innov >> 1) as u64);
             return;
         }
-        let sq = innov.unsigned_abs().min(u64::from(u32::MAX)).pow(2);
+        // Both averages stay within their inputs' ranges (|d| < 2^62, sq < 2^62): no overflow.
+        let sq = innov.unsigned_abs().min(1 << 31).pow(2);
         self.samples = self.samples.saturating_add(1);
-        if self.samples < MATURE_SAMPLES {
-            let n = i64::from(self.samples);
-            self.rate_q16 += (d - self.rate_q16) / n;
-            self.var = (self.var as i64 + (sq as i64 - self.var as i64) / n) as u64;
-        } else {
-            self.rate_q16 += (d - self.rate_q16) >> EMA_SHIFT;
-            self.var = (self.var as i64 + ((sq as i64 - self.var as i64) >> EMA_SHIFT)) as u64;
-        }
+        let step = |x: i64| {
+            if self.samples < MATURE_SAMPLES {
+                x / i64::from(self.samples)
+            } else {
+                x >> EMA_SHIFT
+            }
+        };
+        self.rate_q16 += step(d - self.rate_q16);
+        self.var = (self.var as i64 + step(sq as i64 - self.var as i64)) as u64;
         self.nu_smooth_q64 = pred.wrapping_add((innov >> SMOOTH_SHIFT) as u64);
     }
 

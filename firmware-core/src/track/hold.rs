@@ -20,8 +20,10 @@
 //!   so the numbering is redone around the predicted numbers (±1 slot).
 //!
 //! If U reaches [`GIVE_UP_Q32`] (3/8 slot) first, the slot numbers can no longer be trusted
-//! from the prediction and the lock is lost; the recovered clock then reacquires near the
-//! predicted frequency.
+//! from the prediction, and if [`MAX_FOLD`] detections pass without the arrivals being found
+//! (a frequency step beyond the wide gear's reach), the model itself is wrong: either way the
+//! lock is lost, and the recovered clock reacquires near the predicted frequency, renumbering
+//! within the bound.
 
 use super::snapshot::Snapshot;
 use super::LossCause;
@@ -34,7 +36,8 @@ pub const SIGMAS: u64 = 6;
 pub const Z2_RESUME: U32F32 = U32F32::const_from_int(50);
 /// First test of the holdover fold, detections; later tests at each doubling.
 pub const FIRST_TEST: u32 = 64;
-/// The fold restarts after this many detections without a decision.
+/// Holdover gives up after this many detections without finding the arrivals: the model is
+/// wrong (a frequency step beyond the wide gear's reach), whatever the bound says.
 pub const MAX_FOLD: u32 = 4096;
 /// Prediction bound (Q32.32 slots) at which holdover gives up: 3/8 slot.
 pub const GIVE_UP_Q32: u64 = 3 << 29;
@@ -96,6 +99,8 @@ pub(super) struct Hold {
     pub(super) since_ps: u64,
     fold: Fold<2>,
     n: u32,
+    /// The fold saw [`MAX_FOLD`] detections without finding the arrivals.
+    pub(super) exhausted: bool,
 }
 
 impl Hold {
@@ -106,6 +111,7 @@ impl Hold {
             since_ps: 0,
             fold: Fold::new(),
             n: 0,
+            exhausted: false,
         }
     }
 
@@ -130,8 +136,7 @@ impl Hold {
             return Some(self.fold.best_offset().0 as i64);
         }
         if self.n >= MAX_FOLD {
-            self.fold = Fold::new();
-            self.n = 0;
+            self.exhausted = true;
         }
         None
     }
@@ -159,7 +164,7 @@ pub(super) fn predict(
     let dnu_q96 = (i128::from(rate_q16) * dt_i) >> 16;
     let quad = (((i128::from(rate_q16) * dt_i) >> 16) * dt_i) >> 33;
     let gap_q32 = ((lin - s.pos_q64) >> 32).unsigned_abs();
-    let nu_q64 = u128::from((s.nu_q96 >> 32).max(1) as u64);
+    let nu_q64 = u128::from(u64::try_from(s.nu_q96 >> 32).unwrap_or(u64::MAX).max(1));
     let lin_q32 = gap_q32.saturating_mul(u128::from(nu_bound_q64)) / nu_q64;
     let quad_q32 = ((gap_q32.saturating_mul(u128::from(dt))) >> 33)
         .saturating_mul(u128::from(slope_bound_q64))
