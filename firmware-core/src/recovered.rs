@@ -5,27 +5,35 @@
 //! bounded amount of search work ([`crate::acquire`]) and answers [`Located::NotLocked`]; once
 //! locked it answers slots from the tracking loop ([`crate::track`]) and updates it.
 //!
-//! Lock states: Acquiring (cold prior) → Locked → Lost (blackout, in-window fraction, residual) →
-//! Reacquiring (prior ±`reacquire_ppm` around the last good frequency; the cold prior after
-//! [`NARROW_ATTEMPTS`] failed attempts) → Locked.
+//! Lock states: Acquiring (cold prior) → Locked ⇄ Holdover (the lock's averages failed: the
+//! model is extrapolated, no slot given, see [`crate::track::hold`]) → Lost (the prediction's
+//! bound reached 3/8 slot, or the arrivals were not found) → Reacquiring (prior
+//! ±`reacquire_ppm` around the last good frequency; the cold prior after [`NARROW_ATTEMPTS`]
+//! failed attempts) → Locked.
 //!
-//! ## Slot numbering across a loss
-//! A cold lock numbers slots from the time origin (slot ≈ t·f) and opens numbering epoch 1.
-//! After a relock, the last good model is extrapolated to the new lock's anchor: if the new slot
-//! phase agrees with the prediction within 1/8 slot and the gap times `bridge_ppb` stays below
-//! 1/8 slot, the gap is bridged and numbering continues. Otherwise the slot after the predicted
-//! one is used (numbers never go back), the epoch counter increments, and
-//! [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
-//! [`RecoveredClock::align_numbering`].
-//!
+//! ## Slot numbering across a holdover and a loss
+//! A cold lock numbers slots from the time origin (slot ≈ t·f) and opens numbering epoch 1. A
+//! holdover that ends with the arrivals where predicted, or on a phase jump taken the short way
+//! round, keeps the numbers. A jump within 1/16 slot of half a slot is ambiguous: the epoch
+//! increments with the new numbers within ±1 slot of the old
+//! ([`SlotClock::renumbered_within`]). After a relock, the last good model is extrapolated with
+//! the drift estimate to the new lock's anchor ([`Tracker::predict`]): if the prediction's bound
+//! U stays below 3/8 slot and the new phase agrees with it within U + 1/8 slot, the gap is
+//! bridged and numbering continues. Otherwise the slot after the predicted one is used (numbers
+//! never go back), the epoch increments with the new numbers within ±(⌈U⌉ + 2) slots of the old,
+//! and [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
+//! [`RecoveredClock::align_numbering`]. A numbering stage that knows the old offset then tests
+//! only those few offsets ([`crate::MarkerNumbering`]).
+
 //! ## Memory
-//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 16,728 bytes on
-//! thumbv7em (16,784 on x86_64, where `i128` aligns to 16): the acquisition buffer 10.2 KB
+//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 17,136 bytes on
+//! x86_64 (where `i128` aligns to 16; the HIL's size report gives thumbv7em's): the acquisition buffer 10.2 KB
 //! (2048 entries of 5 bytes, see [`crate::acquire`]), the arrival patterns 2.4 KB (17 channel
 //! patterns with 16 positions each), the tracker 2.5 KB (mostly its calibration histograms,
 //! 16 channels × 32 bins), the rest of the acquirer 1.1 KB (candidates, the search step and the
 //! chirp lattice; the drift search added 320 bytes on thumbv7em) and the settings and lock
-//! evidence 0.3 KB. Storing each detection as a 64-bit time and a channel
+//! evidence 0.3 KB, and the holdover's state, drift estimate and channel health (added with
+//! them) 0.35 KB. Storing each detection as a 64-bit time and a channel
 //! byte took 24,976 bytes; the `size_report` test prints every part.
 //!
 //! ## Work per detection
@@ -33,8 +41,11 @@
 //! 17 ms; during confirmation also one fold: n harmonics) plus at most
 //! `work_per_call` search units (see [`crate::acquire`]); [`RecoveredClock::work`] spends more in
 //! idle time. Locked: one loop update — one residual per expected position of the channel
-//! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment. A lock
-//! clears the calibration histograms once (MAX_CHANNELS × 32 counters).
+//! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment, the
+//! channel's health average and the gear's fast average; every 4.3 ms one drift sample (a
+//! division). A lock clears the calibration histograms once (MAX_CHANNELS × 32 counters). In
+//! holdover: the prediction (a few 128-bit products) and one fold of n harmonics per detection,
+//! and a matched-filter search over 1024 offsets once when the fold passes its test.
 
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::{AcquireConfig, AcquireConfigError, AcquireStats, AcquiredLock, Acquirer};

@@ -202,6 +202,41 @@ impl HostClock {
         }
     }
 
+    /// Whether the clock is in holdover now.
+    pub fn holding(&self) -> bool {
+        matches!(self, Self::Recovered(c) if c.state() == LockState::Holdover)
+    }
+
+    /// Holdovers, bridged holdovers and phase jumps so far (zero for a reference clock).
+    pub fn holdover_counts(&self) -> (u32, u32, u32) {
+        match self {
+            Self::Reference(_) => (0, 0, 0),
+            Self::Recovered(c) => {
+                let k = c.counters();
+                (k.holdovers, k.holdovers_bridged, k.jumps)
+            }
+        }
+    }
+
+    /// The latest holdover's end: the arrivals' offset from the prediction and the bound then,
+    /// slots.
+    pub fn last_resume(&self) -> Option<(f64, f64)> {
+        match self {
+            Self::Reference(_) => None,
+            Self::Recovered(c) => match c.last_event() {
+                Some(slotwise::track::TrackEvent::Resumed {
+                    phase_q32,
+                    bound_q32,
+                    ..
+                }) => Some((
+                    f64::from(*phase_q32) / 4_294_967_296.0,
+                    *bound_q32 as f64 / 4_294_967_296.0,
+                )),
+                _ => None,
+            },
+        }
+    }
+
     /// Lock counters (a reference clock is always locked).
     pub fn counters(&self) -> (LockCounters, TrackCounters, String) {
         match self {

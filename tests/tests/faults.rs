@@ -113,6 +113,15 @@ fn fibre_cut_1_s() {
     check_common("blackout 1 s", &r);
     held_lock("blackout 1 s", &r);
     assert_eq!(r.summary.lock.holdovers_bridged, 1, "{}", r.summary);
+    let end = r
+        .clock_events
+        .iter()
+        .find(|e| e.kind == slotwise_sim::replay::ClockEventKind::HoldoverBridged)
+        .expect("a bridged holdover event");
+    let (offset, bound) = (end.offset_slots.unwrap(), end.bound_slots.unwrap());
+    eprintln!("blackout 1 s: arrivals {offset:+.4} slot from the prediction, bound {bound:.4}");
+    // The bound held the error, and stayed below 3/8 slot.
+    assert!(offset.abs() <= bound + 0.125 && bound < 0.375);
 }
 
 /// Fibre cut of 1 s 0.2 s after the start: the drift estimate has not matured, so the bound

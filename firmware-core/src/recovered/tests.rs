@@ -172,7 +172,16 @@ fn blackouts_are_held_over_within_their_bound() {
     use LockState::*;
     assert_eq!(
         kinds,
-        vec![Locked, Holdover, Locked, Holdover, Locked, Lost, Reacquiring, Locked]
+        vec![
+            Locked,
+            Holdover,
+            Locked,
+            Holdover,
+            Locked,
+            Lost,
+            Reacquiring,
+            Locked
+        ]
     );
     assert_eq!((c.holdovers, c.holdovers_bridged, c.jumps), (3, 2, 0));
     assert_eq!((c.losses, c.relocks, c.bridged, c.epoch), (1, 1, 0, 2));
