@@ -74,7 +74,10 @@
 //! ω_n. A lock and a holdover's end also start wide, to pull in their residual error.
 //!
 //! Each channel's own in-window fraction is watched (`health`): a blinded or saturated detector
-//! is set aside, its detections given no slot, without taking the lock down.
+//! is set aside, its detections given no slot, without taking the lock down. Once the drift
+//! estimate is in use, the model's frequency is steered by it between loop updates
+//! (`Tracker::steer`), so the loop carries no ramp lag and a model without in-window
+//! detections for a while follows the drift instead of walking off it.
 
 //! ## Delay calibration
 //! While locked, each channel keeps a 32-bin histogram of its residuals over ±1/2 slot and the
@@ -178,6 +181,8 @@ pub struct Tracker {
     health: Health,
     hold: Hold,
     event: Option<TrackEvent>,
+    /// Time of the latest drift steering (see `Tracker::steer`).
+    steered_ps: u64,
 }
 
 impl Tracker {
@@ -212,6 +217,7 @@ impl Tracker {
             health: Health::new(),
             hold: Hold::new(),
             event: None,
+            steered_ps: 0,
         }
     }
 
@@ -258,8 +264,9 @@ impl Tracker {
         self.acc_n = 0;
         self.e_fast_q64 = 0;
         self.calm = 0;
-        self.health.reset((self.lock_in_q32 >> 16) as u16);
+        self.health.reset();
         self.hold.active = false;
+        self.steered_ps = t_ps;
     }
 
     /// Whether the lock is held (tracking or in holdover).
@@ -379,6 +386,9 @@ impl Tracker {
         if t_ps.saturating_sub(self.t_last_in) > self.cfg.p.blackout_ps {
             return self.enter_hold(LossCause::Blackout, t_ps, channel, pat);
         }
+        if t_ps.wrapping_sub(self.steered_ps) >> drift::SAMPLE_SHIFT != 0 {
+            self.steer(t_ps);
+        }
         let Some(pos) = self.model.position(t_ps) else {
             return self.enter_hold(LossCause::Blackout, t_ps, channel, pat);
         };
@@ -395,9 +405,8 @@ impl Tracker {
             if let Some(cal) = self.cal.get_mut(usize::from(c)) {
                 cal.record(r, w);
             }
-            let low = (self.lost_below_q32 >> 16) as u16;
-            let high = ((self.lost_below_q32 + self.lock_in_q32) >> 17) as u16;
-            if !self.health.observe(usize::from(c), inside, low, high) {
+            let null = (pat.null_fraction(self.cfg.p.window) >> 16) as u16;
+            if !self.health.observe(usize::from(c), inside, null) {
                 return Located::NotLocked;
             }
         }
@@ -482,6 +491,34 @@ impl Tracker {
         }
     }
 
+    /// Steer the model with the drift estimate, once per sampling interval (4.3 ms) and on any
+    /// detection: ν moves by ν̇·Δt, the position stays. The loop then follows a ramp without
+    /// the type-II lag, and a model that gets no in-window detection for a while (noise, a
+    /// fade) keeps following the drift instead of walking off it by ½·ν̇·Δt², which at 1 GHz
+    /// and 0.1 ppm/s is half a slot in 0.1 s. Off when `drift_steering` is false or before the
+    /// slope is in use.
+    #[inline(never)]
+    fn steer(&mut self, t_ps: u64) {
+        let dt = t_ps.wrapping_sub(self.steered_ps);
+        self.steered_ps = t_ps;
+        if !self.cfg.p.drift_steering || dt >> 40 != 0 || self.drift.slope_error_q64().is_none() {
+            return;
+        }
+        let Some(pos) = self.model.position(t_ps) else {
+            return;
+        };
+        let nu_q64 = (self.model.nu_q96 >> 32) as u64;
+        let allow = (u128::from(nu_q64) * u128::from(self.cfg.p.drift_ppb_per_s) << 32)
+            / 1_000_000_000_000_000_000_000;
+        let rate = self.drift.rate_q16((allow.min(1 << 46) as i64) << 16);
+        let dnu_q96 = (i128::from(rate) * i128::from(dt)) >> 16;
+        self.model = Snapshot {
+            t_ps,
+            pos_q64: pos,
+            nu_q96: (self.model.nu_q96 as i128).saturating_add(dnu_q96).max(1) as u128,
+        };
+    }
+
     /// Go into holdover for `cause`, with this detection as its first.
     #[inline(never)]
     fn enter_hold(
@@ -494,7 +531,7 @@ impl Tracker {
         self.hold.start(cause, self.last_good.t_ps);
         self.wide = false;
         // A failure of every channel at once is the clock's, not a detector's: all fold.
-        self.health.reset((self.lock_in_q32 >> 16) as u16);
+        self.health.reset();
         self.event = Some(TrackEvent::HoldoverStarted(cause));
         self.hold_update(t_ps, channel, pat)
     }

@@ -180,6 +180,10 @@ pub struct LockReport {
     /// What established it: `hint-window` (a bounded hint and few detections) or `search`.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub aligned_by: Option<String>,
+    /// The numbering's confidence: the test that established the offset accepts a wrong one
+    /// with probability at most 2^−this (given its assumptions, `docs/marker.md`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub wrong_offset_log2_bound: Option<u8>,
     /// Per channel: delay correction measured from the data since the latest lock, ps (relative
     /// to the loop; `null` where the channel had too few detections).
     pub delay_corrections_ps: Vec<Option<i64>>,
@@ -394,11 +398,24 @@ impl HostNumbering {
 
     /// Gated detections until the offset in use was established, and by which test.
     pub fn aligned_after(&self) -> Option<(u64, &'static str)> {
+        self.alignment().map(|(d, by, _)| (d, by))
+    }
+
+    /// Gated detections until the offset in use was established, by which test, and that
+    /// test's bound on a wrong offset (bits: probability ≤ 2^−bits).
+    pub fn alignment(&self) -> Option<(u64, &'static str, u8)> {
         match self {
             Self::Absolute(_) => None,
-            Self::Marker(n) => n
-                .aligned_after()
-                .map(|(d, w)| (d, if w { "hint-window" } else { "search" })),
+            Self::Marker(n) => {
+                let cfg = n.aligner().config();
+                n.aligned_after().map(|(d, w)| {
+                    if w {
+                        (d, "hint-window", cfg.window_bits())
+                    } else {
+                        (d, "search", cfg.confirm_bits())
+                    }
+                })
+            }
         }
     }
 

@@ -203,12 +203,13 @@ pub fn summarize<T: Transmitter>(
         lock: {
             let (k, t, state) = rx.clock().counters();
             let (numbering, realignments) = rx.numbering().state();
-            let aligned = rx.numbering().aligned_after();
+            let aligned = rx.numbering().alignment();
             LockReport {
                 numbering,
                 realignments,
                 aligned_after_detections: aligned.map(|a| a.0),
                 aligned_by: aligned.map(|a| a.1.to_string()),
+                wrong_offset_log2_bound: aligned.map(|a| a.2),
                 delay_corrections_ps: rx
                     .clock()
                     .delay_corrections_ps(rx.config().gates().channels()),
@@ -350,8 +351,9 @@ impl std::fmt::Display for Summary {
         match (&l.aligned_by, l.aligned_after_detections) {
             (Some(by), Some(n)) => writeln!(
                 f,
-                ", after {n} gated detections by the {}",
-                by.replace('-', " ")
+                ", after {n} gated detections by the {} (wrong offset ≤ 2^-{})",
+                by.replace('-', " "),
+                l.wrong_offset_log2_bound.unwrap_or(0)
             )?,
             _ => writeln!(f)?,
         }

@@ -34,12 +34,15 @@ pub struct TrackParams {
     /// Least frequency uncertainty assumed in holdover, parts per 10¹² (the measured spread
     /// of the loop's frequency is used above it).
     pub hold_ppt: u32,
+    /// Steer the model's frequency with the measured drift between loop updates (see
+    /// [`super::Tracker`]); false leaves the plain type-II loop.
+    pub drift_steering: bool,
 }
 
 impl TrackParams {
     /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, an update at every
     /// in-window detection, a wide gear 16 times the bandwidth, a drift of at most
-    /// 0.1 ppm/s, and a holdover frequency uncertainty of at least 20 ppt.
+    /// 0.1 ppm/s, a holdover frequency uncertainty of at least 20 ppt, and drift steering.
     pub const fn new(bandwidth_mhz: u32, rate_per_s: u64, blackout_ps: u64) -> Self {
         Self {
             bandwidth_mhz,
@@ -53,6 +56,7 @@ impl TrackParams {
             wide_factor: 16,
             drift_ppb_per_s: 100,
             hold_ppt: 20,
+            drift_steering: true,
         }
     }
 }

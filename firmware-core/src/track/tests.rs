@@ -23,6 +23,7 @@ fn gains_match_rice_appendix_c() {
         let cfg = TrackConfig::new(TrackParams {
             damping_milli: z,
             wide_factor: 1,
+            drift_steering: false,
             ..TrackParams::new(b_mhz, rate, 1 << 40)
         })
         .unwrap();
@@ -177,6 +178,7 @@ fn drift_ramp_lag_matches_type_two_theory() {
     // carries no phase information.
     let cfg = TrackConfig::new(TrackParams {
         wide_factor: 1,
+        drift_steering: false,
         ..TrackParams::new(20_000, 100_000, 1 << 40)
     })
     .unwrap();
@@ -207,6 +209,7 @@ fn frequency_and_phase_noise_match_loop_theory_and_crb() {
     let p = TrackParams {
         window: U0F32::from_num(w),
         wide_factor: 1,
+        drift_steering: false,
         ..TrackParams::new((b * 1000.0) as u32, r_in as u64, 1 << 40)
     };
     let m = run(sc, TrackConfig::new(p).unwrap(), 1.0, 0.05, 1e10);
