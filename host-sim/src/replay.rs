@@ -182,6 +182,8 @@ pub struct Session<T: Transmitter> {
     state: (bool, bool),
     /// Holdovers, bridged holdovers and jumps so far (to note each as it happens).
     holds: (u32, u32, u32),
+    /// Whether the clock was in holdover at the previous detection.
+    was_holding: bool,
     clock_events: Vec<ClockEvent>,
     monitor: Box<HostMonitor>,
     live: LiveLog,
@@ -231,6 +233,7 @@ impl<T: Transmitter> Session<T> {
             first_lock: None,
             state: (false, false),
             holds: (0, 0, 0),
+            was_holding: false,
             clock_events: Vec::new(),
             monitor: Box::new(HostMonitor::new(
                 StatsConfig::new((bucket_s * 1e12).max(1.0) as u64, 0, cfg.gates())
@@ -424,11 +427,12 @@ impl<T: Transmitter> Session<T> {
             note(ClockEventKind::PhaseJump, true);
         }
         let resumed = holds.1 > was_holds.1 || holds.2 > was_holds.2;
-        match (was.0, now.0) {
+        match (was.0 || self.was_holding, now.0 || holding) {
             (false, true) if !resumed => note(ClockEventKind::Locked, false),
-            (true, false) if !holding => note(ClockEventKind::LockLost, false),
+            (true, false) => note(ClockEventKind::LockLost, false),
             _ => {}
         }
+        self.was_holding = holding;
         match (was.1, now.1) {
             (false, true) => note(ClockEventKind::Aligned, false),
             (true, false) => note(ClockEventKind::AlignmentLost, false),
