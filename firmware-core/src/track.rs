@@ -348,10 +348,7 @@ impl Tracker {
         let p = &self.cfg.p;
         let mut from = self.last_good;
         let nu_q64 = (from.nu_q96 >> 32) as u64;
-        // The drift allowance as a slope: ν·D per 2^32 ps.
-        let allow_q64 = u128::from(nu_q64) * u128::from(p.drift_ppb_per_s) << 32;
-        let allow_q64 =
-            u64::try_from(allow_q64 / 1_000_000_000_000_000_000_000).unwrap_or(u64::MAX);
+        let allow_q64 = self.allowance_q64(nu_q64);
         let floor = u128::from(nu_q64) * u128::from(p.hold_ppt) / 1_000_000_000_000;
         let floor = u64::try_from(floor).unwrap_or(u64::MAX);
         let sigmas = hold::SIGMAS;
@@ -368,11 +365,24 @@ impl Tracker {
                 }
                 _ => (floor.max(allow_q64), allow_q64),
             };
-        let rate = match self.drift.slope_error_q64() {
-            Some(_) => self.drift.rate_q16((allow_q64.min(1 << 46) as i64) << 16),
+        hold::predict(&from, t_ps, self.slope_q16(nu_q64), nu_bound, slope_bound)
+    }
+
+    /// The profile's drift allowance as a slope: ν·D per 2^32 ps (Q0.64 cycles/ps).
+    fn allowance_q64(&self, nu_q64: u64) -> u64 {
+        let a = (u128::from(nu_q64) * u128::from(self.cfg.p.drift_ppb_per_s)) << 32;
+        u64::try_from(a / 1_000_000_000_000_000_000_000).unwrap_or(u64::MAX)
+    }
+
+    /// The drift estimate's slope (see `drift`), bounded by the allowance; 0 before it is in
+    /// use.
+    fn slope_q16(&self, nu_q64: u64) -> i64 {
+        match self.drift.slope_error_q64() {
+            Some(_) => self
+                .drift
+                .rate_q16((self.allowance_q64(nu_q64).min(1 << 46) as i64) << 16),
             None => 0,
-        };
-        hold::predict(&from, t_ps, rate, nu_bound, slope_bound)
+        }
     }
 
     /// Locate one delay-corrected detection and update the loop with it.
@@ -507,10 +517,7 @@ impl Tracker {
         let Some(pos) = self.model.position(t_ps) else {
             return;
         };
-        let nu_q64 = (self.model.nu_q96 >> 32) as u64;
-        let allow = (u128::from(nu_q64) * u128::from(self.cfg.p.drift_ppb_per_s) << 32)
-            / 1_000_000_000_000_000_000_000;
-        let rate = self.drift.rate_q16((allow.min(1 << 46) as i64) << 16);
+        let rate = self.slope_q16((self.model.nu_q96 >> 32) as u64);
         let dnu_q96 = (i128::from(rate) * i128::from(dt)) >> 16;
         self.model = Snapshot {
             t_ps,
