@@ -415,7 +415,8 @@ impl Tracker {
             if let Some(cal) = self.cal.get_mut(usize::from(c)) {
                 cal.record(r, w);
             }
-            let null = (pat.null_fraction(self.cfg.p.window) >> 16) as u16;
+            let window = self.cfg.p.window;
+            let null = || (pat.null_fraction(window) >> 16) as u16;
             if !self.health.observe(usize::from(c), inside, null) {
                 return Located::NotLocked;
             }
@@ -453,7 +454,7 @@ impl Tracker {
     /// residual (a bias of one single-detection rms σ, about six times the fast mean's own
     /// noise σ/√31), narrow again after 2^`average_shift` in-window detections in a row below
     /// σ/2 (2.8 times its noise, so a calm loop passes 99.5 % of them).
-    #[inline]
+    #[inline(always)]
     fn gear(&mut self, r: i64) {
         self.e_fast_q64 += (r - self.e_fast_q64) >> 4;
         let e = i64::from((self.e_fast_q64 >> 32) as i32);
@@ -476,6 +477,7 @@ impl Tracker {
 
     /// Run the loop filter on the mean residual since the last update; the detection at `t_ps`
     /// (model position `pos`) becomes the anchor.
+    #[inline(always)]
     fn filter(&mut self, t_ps: u64, pos: i128) {
         let e = self.acc_q64;
         self.acc_q64 = 0;

@@ -19,6 +19,7 @@ impl ChannelCal {
         n_guard: 0,
     };
 
+    #[inline(always)]
     pub(super) fn record(&mut self, r: i64, w: u64) {
         let bin = (((r as u64) ^ (1 << 63)) >> 59) as usize;
         if let Some(h) = self.hist.get_mut(bin) {

@@ -26,18 +26,29 @@ const WARM: u16 = 1 << SHIFT;
 /// timing to judge.
 const INFORMATIVE_Q16: u16 = 1 << 13;
 
+/// One channel's averages.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+struct Channel {
+    /// Fast in-window fraction, Q0.16.
+    frac_q16: u16,
+    /// Slow reference fraction, Q0.16.
+    ref_q16: u16,
+    /// Set-aside threshold (midpoint of noise and reference; 0: not informative), Q0.16.
+    low_q16: u16,
+    /// Detections since lock, counting on past [`WARM`] (wrapping): the reference and the
+    /// threshold move once every [`REF_EVERY`] of them.
+    seen: u16,
+}
+
+/// The reference and threshold are updated once per this many detections of the channel.
+const REF_EVERY: u16 = 16;
+
 /// Per-channel in-window fractions and the set-aside mask.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub(super) struct Health {
-    /// Fast in-window fraction per channel, Q0.16.
-    frac_q16: [u16; MAX_CHANNELS],
-    /// Slow reference fraction per channel, Q0.16.
-    ref_q16: [u16; MAX_CHANNELS],
-    /// Set-aside threshold per channel (midpoint of noise and reference), Q0.16.
-    low_q16: [u16; MAX_CHANNELS],
-    /// Detections per channel since lock (saturating at [`WARM`]).
-    seen: [u16; MAX_CHANNELS],
+    channels: [Channel; MAX_CHANNELS],
     /// Bit c set: channel c is set aside.
     aside: u16,
     /// Times a channel was set aside.
@@ -49,10 +60,12 @@ pub(super) struct Health {
 impl Health {
     pub(super) const fn new() -> Self {
         Self {
-            frac_q16: [0; MAX_CHANNELS],
-            ref_q16: [0; MAX_CHANNELS],
-            low_q16: [0; MAX_CHANNELS],
-            seen: [0; MAX_CHANNELS],
+            channels: [Channel {
+                frac_q16: 0,
+                ref_q16: 0,
+                low_q16: 0,
+                seen: 0,
+            }; MAX_CHANNELS],
             aside: 0,
             set_asides: 0,
             aside_detections: 0,
@@ -61,8 +74,10 @@ impl Health {
 
     /// Every channel healthy and learning its level again.
     pub(super) fn reset(&mut self) {
-        self.seen = [0; MAX_CHANNELS];
-        self.low_q16 = [0; MAX_CHANNELS];
+        for ch in &mut self.channels {
+            ch.seen = 0;
+            ch.low_q16 = 0;
+        }
         self.aside = 0;
     }
 
@@ -71,48 +86,54 @@ impl Health {
         self.aside
     }
 
-    /// Count one located detection of channel `c`, inside the window or not, with the
-    /// channel's uniform-noise fraction `null_q16`; false when the channel is set aside.
-    #[inline]
-    pub(super) fn observe(&mut self, c: usize, inside: bool, null_q16: u16) -> bool {
-        let (Some(f), Some(r), Some(low), Some(seen)) = (
-            self.frac_q16.get_mut(c),
-            self.ref_q16.get_mut(c),
-            self.low_q16.get_mut(c),
-            self.seen.get_mut(c),
-        ) else {
+    /// Count one located detection of channel `c`, inside the window or not; `null_q16` gives
+    /// the channel's uniform-noise fraction when the threshold is due. False when the channel is
+    /// set aside.
+    #[inline(always)]
+    pub(super) fn observe(
+        &mut self,
+        c: usize,
+        inside: bool,
+        null_q16: impl FnOnce() -> u16,
+    ) -> bool {
+        let Some(ch) = self.channels.get_mut(c) else {
             return true;
         };
         let ind = if inside { 0xFFFF } else { 0 };
-        let bit = 1u16 << c;
-        if *seen < WARM {
+        let f = i32::from(ch.frac_q16);
+        if ch.seen < WARM {
             // Equal weights while learning: the first detections set both averages.
-            *seen += 1;
-            *f = (i32::from(*f) + (ind - i32::from(*f)) / i32::from(*seen)) as u16;
-            *r = *f;
+            ch.seen += 1;
+            ch.frac_q16 = (f + (ind - f) / i32::from(ch.seen)) as u16;
+            ch.ref_q16 = ch.frac_q16;
             return true;
         }
-        *f = (i32::from(*f) + ((ind - i32::from(*f)) >> SHIFT)) as u16;
+        ch.frac_q16 = (f + ((ind - f) >> SHIFT)) as u16;
+        ch.seen = ch.seen.wrapping_add(1) | WARM;
+        let bit = 1u16 << c;
         let aside = self.aside & bit != 0;
-        if !aside {
-            // An average of the fast average, over about 2^REF_SHIFT detections (to within its
-            // 2^(REF_SHIFT − 16) resolution).
-            *r = (i32::from(*r) + ((i32::from(*f) - i32::from(*r)) >> REF_SHIFT)) as u16;
+        if ch.seen % REF_EVERY == 0 {
+            if !aside {
+                // An average of the fast average over about 2^REF_SHIFT detections, stepped
+                // once per REF_EVERY of them.
+                let (f, r) = (i32::from(ch.frac_q16), i32::from(ch.ref_q16));
+                ch.ref_q16 = (r + ((f - r) * i32::from(REF_EVERY) >> REF_SHIFT)) as u16;
+            }
+            let null = null_q16();
+            ch.low_q16 = if ch.ref_q16.saturating_sub(null) >= INFORMATIVE_Q16 {
+                ((u32::from(ch.ref_q16) + u32::from(null)) / 2) as u16
+            } else {
+                0
+            };
         }
-        let informative = r.saturating_sub(null_q16) >= INFORMATIVE_Q16;
-        *low = if informative {
-            ((u32::from(*r) + u32::from(null_q16)) / 2) as u16
-        } else {
-            0
-        };
         if aside {
-            let back = ((u32::from(*low) + u32::from(*r)) / 2) as u16;
-            if *f < back {
+            let back = ((u32::from(ch.low_q16) + u32::from(ch.ref_q16)) / 2) as u16;
+            if ch.frac_q16 < back {
                 self.aside_detections += 1;
                 return false;
             }
             self.aside &= !bit;
-        } else if *f < *low && self.others_healthy(c) {
+        } else if ch.frac_q16 < ch.low_q16 && self.others_healthy(c) {
             self.aside |= bit;
             self.set_asides += 1;
             self.aside_detections += 1;
@@ -125,12 +146,8 @@ impl Health {
     /// its threshold.
     #[inline(never)]
     fn others_healthy(&self, c: usize) -> bool {
-        (0..MAX_CHANNELS).any(|i| {
-            let get = |a: &[u16; MAX_CHANNELS]| a.get(i).copied().unwrap_or(0);
-            i != c
-                && self.aside & (1 << i) == 0
-                && get(&self.seen) >= WARM
-                && get(&self.frac_q16) >= get(&self.low_q16)
+        self.channels.iter().enumerate().any(|(i, ch)| {
+            i != c && self.aside & (1 << i) == 0 && ch.seen >= WARM && ch.frac_q16 >= ch.low_q16
         })
     }
 }
