@@ -159,10 +159,10 @@ pub(super) fn predict(
     }
     let lin = s.position(t_ps)?;
     let dt_i = i128::from(dt);
-    // Δν (Q0.96) = rate·Δt/2^16; ½·ν̇·Δt² (Q64.64 slots) = rate·Δt²/2^49, with Δt < 2^42 and
-    // |rate| < 2^62 kept in range by shifting between the products.
+    // Δν (Q0.96) = rate·Δt/2^16 (|rate| < 2^63, Δt < 2^42: within i128); ½·ν̇·Δt² (Q64.64
+    // slots) = Δν·Δt/2^33, saturating for slopes far beyond any clock's.
     let dnu_q96 = (i128::from(rate_q16) * dt_i) >> 16;
-    let quad = (((i128::from(rate_q16) * dt_i) >> 16) * dt_i) >> 33;
+    let quad = dnu_q96.saturating_mul(dt_i) >> 33;
     let gap_q32 = ((lin - s.pos_q64) >> 32).unsigned_abs();
     let nu_q64 = u128::from(u64::try_from(s.nu_q96 >> 32).unwrap_or(u64::MAX).max(1));
     let lin_q32 = gap_q32.saturating_mul(u128::from(nu_bound_q64)) / nu_q64;

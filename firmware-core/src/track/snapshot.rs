@@ -105,7 +105,10 @@ impl Snapshot {
         let d = i128::from(t_ps) - i128::from(self.t_ps);
         let hi = (self.nu_q96 >> 32) as i128;
         let lo = (self.nu_q96 & 0xFFFF_FFFF) as i128;
-        self.pos_q64.checked_add(d * hi + ((d * lo) >> 32))
+        // Checked: beyond one cycle per ps the products can leave the i128 range.
+        let whole = d.checked_mul(hi)?;
+        self.pos_q64
+            .checked_add(whole.checked_add(d.checked_mul(lo)? >> 32)?)
     }
 
     /// Period in ps (Q32.32).

@@ -203,9 +203,13 @@ proptest! {
         lock in (0i64..=1 << 32, 0i64..=10, 0i64..1 << 60),
         position in any::<u32>(),
         wide in any::<bool>(),
+        limits in (any::<u32>(), any::<u32>(), 1u32..=64),
         steps in proptest::collection::vec((0u64..1 << 40, any::<u8>(), 0u8..8), 1..200),
     ) {
         let Some(cfg) = cfg else { return Ok(()) };
+        let (drift_ppb_per_s, hold_ppt, wide_factor) = limits;
+        let p = TrackParams { drift_ppb_per_s, hold_ppt, wide_factor, ..*cfg.params() };
+        let Ok(cfg) = TrackConfig::new(p) else { return Ok(()) };
         let (t0, pos, nu) = state;
         let pat = ArrivalPattern::single(U0F32::from_bits(position));
         let mut tr = Tracker::new(cfg);
@@ -229,5 +233,20 @@ proptest! {
             }
             let _ = tr.predict(t);
         }
+    }
+}
+
+proptest! {
+    /// The holdover's prediction over its whole input range: no overflow or other panic.
+    #[test]
+    fn prediction_never_panics(
+        state in (any::<u64>(), any::<i128>(), any::<u128>()),
+        t in any::<u64>(),
+        rate in any::<i64>(),
+        bounds in (any::<u64>(), any::<u64>()),
+    ) {
+        let (t_ps, pos_q64, nu_q96) = state;
+        let s = Snapshot { t_ps, pos_q64, nu_q96 };
+        let _ = super::super::hold::predict(&s, t, rate, bounds.0, bounds.1);
     }
 }
