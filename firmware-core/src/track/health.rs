@@ -117,7 +117,7 @@ impl Health {
                 // An average of the fast average over about 2^REF_SHIFT detections, stepped
                 // once per REF_EVERY of them.
                 let (f, r) = (i32::from(ch.frac_q16), i32::from(ch.ref_q16));
-                ch.ref_q16 = (r + ((f - r) * i32::from(REF_EVERY) >> REF_SHIFT)) as u16;
+                ch.ref_q16 = (r + (((f - r) * i32::from(REF_EVERY)) >> REF_SHIFT)) as u16;
             }
             let null = null_q16();
             ch.low_q16 = if ch.ref_q16.saturating_sub(null) >= INFORMATIVE_Q16 {
