@@ -76,6 +76,38 @@ where
     Ok(())
 }
 
+/// [`line`], broken wherever consecutive points lie more than 1.5 `step`s apart (time without
+/// data, as in a holdover: no segment is drawn across it).
+fn line_with_gaps<DB>(
+    chart: &mut ChartContext<
+        '_,
+        DB,
+        Cartesian2d<plotters::coord::types::RangedCoordf64, plotters::coord::types::RangedCoordf64>,
+    >,
+    points: Vec<(f64, f64)>,
+    c: RGBColor,
+    label: String,
+    step: f64,
+) -> Result<(), DynErr>
+where
+    DB: DrawingBackend,
+    DB::ErrorType: 'static,
+{
+    let mut segments: Vec<Vec<(f64, f64)>> = Vec::new();
+    for p in points {
+        match segments.last_mut() {
+            Some(seg) if seg.last().is_some_and(|q| p.0 - q.0 <= 1.5 * step) => seg.push(p),
+            _ => segments.push(vec![p]),
+        }
+    }
+    let mut segments = segments.into_iter();
+    line(chart, segments.next().unwrap_or_default(), c, label)?;
+    for seg in segments {
+        chart.draw_series(LineSeries::new(seg, c.stroke_width(2)))?;
+    }
+    Ok(())
+}
+
 /// Vertical lines at the clock events, one legend entry per kind that occurs: lock losses red,
 /// relocks green, alignments blue, alignment losses orange.
 fn clock_markers<DB>(
@@ -420,6 +452,11 @@ pub fn clock_series(
             root.fill(&WHITE)?;
             let (top, bottom) = root.split_vertically(root.dim_in_pixel().1 / 2);
             let t_end = self.b.last().map(|b| b.t_s).unwrap_or(0.0).max(1e-9) * 1.05;
+            // The bucket width: consecutive buckets' start times.
+            let step = match self.b {
+                [a, b, ..] => b.t_s - a.t_s,
+                _ => t_end,
+            };
             let rms: Vec<(f64, f64)> = self
                 .b
                 .iter()
@@ -438,7 +475,7 @@ pub fn clock_series(
                 .x_desc("time (s)")
                 .y_desc("RMS distance to gate centre (ps)")
                 .draw()?;
-            line(&mut chart, rms, colour(0), "residual rms".into())?;
+            line_with_gaps(&mut chart, rms, colour(0), "residual rms".into(), step)?;
             clock_markers(&mut chart, self.events, (0.0, rmax))?;
             legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             // Without a true clock (a capture from real hardware) the estimate is drawn against
@@ -479,7 +516,7 @@ pub fn clock_series(
                 .x_desc("time (s)")
                 .y_desc("period (ppb)")
                 .draw()?;
-            line(&mut chart, err, colour(1), label.into())?;
+            line_with_gaps(&mut chart, err, colour(1), label.into(), step)?;
             clock_markers(&mut chart, self.events, (-emax, emax))?;
             legend(&mut chart, SeriesLabelPosition::UpperRight)?;
             Ok(())
