@@ -71,7 +71,7 @@
 //! answers a frequency step Δf (slots/s) with a peak phase error of e^(−π/4)·Δf/ω_n ≈
 //! 0.46·Δf/ω_n at ζ = 0.707 [derived from the loop's step response]: 0.35 slot for +2 ppm at
 //! 100 MHz and ω_n = 264 rad/s, far outside a ±1/16-slot window, and 0.02 slot with 16 times
-//! ω_n. A lock and a holdover's end also start wide, to pull in their residual error.
+//! ω_n. A holdover's end also starts wide, to pull in the fold's residual error.
 //!
 //! Each channel's own in-window fraction is watched (`health`): a blinded or saturated detector
 //! is set aside, its detections given no slot, without taking the lock down. Once the drift
@@ -176,6 +176,8 @@ pub struct Tracker {
     wide: bool,
     /// In-window detections in a row with a small mean error, while wide.
     calm: u32,
+    /// In-window detections since the wide gear was engaged.
+    wide_for: u32,
     wide_gear: u32,
     drift: DriftEstimate,
     health: Health,
@@ -212,6 +214,7 @@ impl Tracker {
             e_fast_q64: 0,
             wide: false,
             calm: 0,
+            wide_for: 0,
             wide_gear: 0,
             drift: DriftEstimate::new(),
             health: Health::new(),
@@ -247,9 +250,7 @@ impl Tracker {
             self.drift.remark(lock.anchor_t_ps, self.model.nu_q96);
         }
         self.resume_averages(lock.anchor_t_ps);
-        // Pull in the acquisition's residual error fast (and keep the pull-in out of the drift
-        // estimate).
-        self.wide = true;
+        self.wide = false;
         self.locked = true;
     }
 
@@ -453,7 +454,9 @@ impl Tracker {
     /// Shift gears on the fast mean error: wide when its square exceeds the mean squared
     /// residual (a bias of one single-detection rms σ, about six times the fast mean's own
     /// noise σ/√31), narrow again after 2^`average_shift` in-window detections in a row below
-    /// σ/2 (2.8 times its noise, so a calm loop passes 99.5 % of them).
+    /// σ/2 (2.8 times its noise, so a calm loop passes 99.5 % of them), and in any case after
+    /// 2^(`average_shift` + 2): at low rates the wide loop's own phase wander is comparable to
+    /// σ and would keep it from ever looking calm.
     #[inline(always)]
     fn gear(&mut self, r: i64) {
         self.e_fast_q64 += (r - self.e_fast_q64) >> 4;
@@ -461,18 +464,28 @@ impl Tracker {
         let e2 = e * e;
         if !self.wide {
             if e2 > self.r2_q64 {
-                self.wide = true;
-                self.calm = 0;
-                self.wide_gear = self.wide_gear.saturating_add(1);
+                self.engage_wide();
             }
-        } else if e2.saturating_mul(4) < self.r2_q64 {
+            return;
+        }
+        self.wide_for += 1;
+        if e2.saturating_mul(4) < self.r2_q64 {
             self.calm += 1;
-            if self.calm >> self.cfg.p.average_shift != 0 {
-                self.wide = false;
-            }
         } else {
             self.calm = 0;
         }
+        let shift = self.cfg.p.average_shift;
+        if self.calm >> shift != 0 || self.wide_for >> (shift + 2) != 0 {
+            self.wide = false;
+        }
+    }
+
+    /// Engage the wide gear.
+    fn engage_wide(&mut self) {
+        self.wide = true;
+        self.calm = 0;
+        self.wide_for = 0;
+        self.wide_gear = self.wide_gear.saturating_add(1);
     }
 
     /// Run the loop filter on the mean residual since the last update; the detection at `t_ps`
@@ -594,8 +607,7 @@ impl Tracker {
         self.drift.remark(t_ps, self.model.nu_q96);
         self.resume_averages(t_ps);
         // The prediction leaves a residual error within a fold's resolution: pull it in fast.
-        self.wide = true;
-        self.wide_gear = self.wide_gear.saturating_add(1);
+        self.engage_wide();
     }
     /// Per-channel delay corrections in ps to add to each channel's configured delay (positive:
     /// the channel's detections come late); `None` with fewer than 64 detections since lock.

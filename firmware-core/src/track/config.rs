@@ -26,7 +26,7 @@ pub struct TrackParams {
     /// (a power of two, 1..=65536; 1: at every one).
     pub update_every: u32,
     /// Bandwidth multiplier of the wide gear, engaged on a large mean error (1..=64; 1: one
-    /// gear). Capped so that the wide loop keeps B_n·T_u' ≤ 0.1.
+    /// gear). Capped so that the wide loop keeps B_n·T_u' ≤ 0.02.
     pub wide_factor: u32,
     /// Largest drift the transmitter's clock may show, ppb per second: bounds the drift
     /// estimate, and is the holdover's drift uncertainty until that estimate has matured.
@@ -156,8 +156,9 @@ impl TrackConfig {
             return Err(TrackConfigError::WideFactor);
         }
         let (k1, k2, g2_q96) = gains(&p, u128::from(p.bandwidth_mhz))?;
-        // The wide gear: B_n·factor, capped at B_n·T_u' = 0.1 (B ≤ 100·R/N mHz).
-        let cap = 100 * u128::from(p.rate_per_s) / u128::from(p.update_every);
+        // The wide gear: B_n·factor, capped at B_n·T_u' = 0.02 (B ≤ 20·R/N mHz): wider, a loop
+        // updated at random times wanders too much in frequency to hand back to the narrow one.
+        let cap = 20 * u128::from(p.rate_per_s) / u128::from(p.update_every);
         let wide = (u128::from(p.bandwidth_mhz) * u128::from(p.wide_factor)).min(cap);
         let (k1w, _, g2w_q96) = gains(&p, wide.max(u128::from(p.bandwidth_mhz)))?;
         let max = u64::from(p.max_rms.to_bits());

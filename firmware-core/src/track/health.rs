@@ -6,11 +6,11 @@
 //! differ (a detector behind an interferometer sees more noise per signal click, a channel's
 //! pattern has its own number of positions), so each is judged against its own reference and its
 //! own uniform-noise level (2w per expected position). A blinded or saturated detector clicks at
-//! random times, so its fast fraction falls to its noise level: below the midpoint between
-//! noise and reference, it is set aside, provided its reference stands clear of the noise
+//! random times, so its fast fraction falls to its noise level: three quarters of the way down
+//! from reference to noise, it is set aside, provided its reference stands clear of the noise
 //! (the channel carries timing at all) and another channel is still healthy. Its detections no
 //! longer move the loop or the lock's averages, and are given no slot (the receiver counts them
-//! `no_clock`). It comes back once its fraction passes three quarters of the way from noise to
+//! `no_clock`). It comes back once its fraction passes five eighths of the way from noise to
 //! reference. When every channel fails together (a fibre cut), none is set aside: the lock's own
 //! averages fall and the clock goes into holdover.
 
@@ -34,7 +34,8 @@ struct Channel {
     frac_q16: u16,
     /// Slow reference fraction, Q0.16.
     ref_q16: u16,
-    /// Set-aside threshold (midpoint of noise and reference; 0: not informative), Q0.16.
+    /// Set-aside threshold (three quarters of the way from reference to noise; 0: not
+    /// informative), Q0.16.
     low_q16: u16,
     /// Detections since lock, counting on past [`WARM`] (wrapping): the reference and the
     /// threshold move once every [`REF_EVERY`] of them.
@@ -121,7 +122,7 @@ impl Health {
             }
             let null = null_q16();
             ch.low_q16 = if ch.ref_q16.saturating_sub(null) >= INFORMATIVE_Q16 {
-                ((u32::from(ch.ref_q16) + u32::from(null)) / 2) as u16
+                ((u32::from(ch.ref_q16) + 3 * u32::from(null)) / 4) as u16
             } else {
                 0
             };
