@@ -32,9 +32,9 @@ pub mod seqwin;
 
 pub use crate::formats::announce::{AnnounceView, Report};
 pub use crate::formats::answers::{AnswerEntry, AnswersView};
-pub use decoder::FrameDecoder;
-pub use auth::{AuthConfig, AuthConfigError, AuthCounters, LinkAuth};
+pub use auth::{widen_seq, AuthConfig, AuthConfigError, AuthCounters, LinkAuth};
 pub use config::{LinkConfig, LinkConfigError, LinkCounters};
+pub use decoder::FrameDecoder;
 pub use endpoint::{ReceiverLink, RefillFrameError};
 pub use keypool::{KeyPool, PadState, PoolCounters, RefillError};
 pub use seqwin::{SeqClass, SeqWindow};

@@ -57,7 +57,7 @@ impl<'a> RefillView<'a> {
 /// whole pad words.
 pub fn emit(first_word: u64, key: &[u8], out: &mut [u8]) -> Result<usize, FrameError> {
     let words = key.len() / PAD_LEN;
-    if key.len() % PAD_LEN != 0 || words == 0 || words > MAX_WORDS {
+    if !key.len().is_multiple_of(PAD_LEN) || words == 0 || words > MAX_WORDS {
         return Err(FrameError::BadField {
             offset: 8,
             field: "words",

@@ -87,7 +87,16 @@ impl TagInput<'_> {
         let s = self.seq.to_le_bytes();
         let l = (self.payload.len() as u16).to_le_bytes();
         let n = self.num.to_le_bytes();
-        let head = [self.record.code(), self.dir.code(), s[0], s[1], l[0], l[1], 0, 0];
+        let head = [
+            self.record.code(),
+            self.dir.code(),
+            s[0],
+            s[1],
+            l[0],
+            l[1],
+            0,
+            0,
+        ];
         for (d, v) in b.iter_mut().zip(head.iter().chain(n.iter())) {
             *d = *v;
         }
@@ -96,7 +105,11 @@ impl TagInput<'_> {
 }
 
 /// `POLYVAL(H, first, data zero-padded to whole blocks)` (RFC 8452, §3), all 16 bytes.
-pub fn polyval_hash(h: &[u8; HASH_KEY_LEN], first: Option<&[u8; BLOCK_LEN]>, data: &[u8]) -> [u8; 16] {
+pub fn polyval_hash(
+    h: &[u8; HASH_KEY_LEN],
+    first: Option<&[u8; BLOCK_LEN]>,
+    data: &[u8],
+) -> [u8; 16] {
     let mut p = Polyval::new(&(*h).into());
     if let Some(b) = first {
         p.update(&[(*b).into()]);
@@ -117,7 +130,10 @@ pub fn tag(h: &[u8; HASH_KEY_LEN], pad: &[u8; PAD_LEN], m: &TagInput<'_>) -> [u8
 
 /// Compare two tags in time independent of where they differ.
 pub fn tags_equal(a: &[u8; TAG_LEN], b: &[u8; TAG_LEN]) -> bool {
-    a.iter().zip(b.iter()).fold(0u8, |acc, (x, y)| acc | (x ^ y)) == 0
+    a.iter()
+        .zip(b.iter())
+        .fold(0u8, |acc, (x, y)| acc | (x ^ y))
+        == 0
 }
 
 #[cfg(test)]
@@ -168,12 +184,24 @@ mod tests {
         };
         let t = tag(&h, &pad, &m);
         let changed = [
-            TagInput { dir: Direction::ToTransmitter, ..m },
-            TagInput { record: RecordType::Announce, ..m },
+            TagInput {
+                dir: Direction::ToTransmitter,
+                ..m
+            },
+            TagInput {
+                record: RecordType::Announce,
+                ..m
+            },
             TagInput { seq: 10, ..m },
             TagInput { num: 6, ..m },
-            TagInput { payload: &[1, 2, 3, 0], ..m },
-            TagInput { payload: &[1, 2, 2], ..m },
+            TagInput {
+                payload: &[1, 2, 3, 0],
+                ..m
+            },
+            TagInput {
+                payload: &[1, 2, 2],
+                ..m
+            },
         ];
         for c in changed {
             assert_ne!(tag(&h, &pad, &c), t, "{c:?}");

@@ -169,8 +169,7 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
             stopped: false,
             counters: AuthCounters::default(),
         };
-        a.refill(0, preshared)
-            .map_err(AuthConfigError::Preshared)?;
+        a.refill(0, preshared).map_err(AuthConfigError::Preshared)?;
         Ok(a)
     }
 
@@ -223,6 +222,12 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         !self.stopped && self.pool.state(word) == PadState::Fresh
     }
 
+    /// A frame could not be sent for want of its pad word: count it and stop the link for good.
+    pub fn starve(&mut self) {
+        self.counters.starved_frames += 1;
+        self.stopped = true;
+    }
+
     /// Tag an outgoing frame with its pad word (spent and wiped); without one the link stops.
     pub fn seal(&mut self, m: &TagInput<'_>) -> Result<[u8; TAG_LEN], Reject> {
         let word = m.dir.pad_word(m.num);
@@ -232,8 +237,7 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
             self.pool.spend(word)
         };
         let Some(mut pad) = pad else {
-            self.counters.starved_frames += 1;
-            self.stopped = true;
+            self.starve();
             return Err(Reject::NoKey);
         };
         let t = tag(&self.hash_key, &pad, m);
@@ -302,5 +306,31 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
             self.counters.low_key_alarms += 1;
         }
         self.low = low;
+    }
+}
+
+/// The full frame number whose low 16 bits are `seq`, nearest to `near` (serial-number
+/// arithmetic, RFC 1982): how a transmitter widens an announce frame's `seq` against the highest
+/// number it has authenticated (numbers below 0 become 0, and then fail the tag check).
+pub const fn widen_seq(seq: u16, near: u64) -> u64 {
+    let d = seq.wrapping_sub(near as u16) as i16;
+    if d >= 0 {
+        near.wrapping_add(d as u64)
+    } else {
+        near.saturating_sub(d.unsigned_abs() as u64)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn widening_follows_serial_arithmetic() {
+        assert_eq!(widen_seq(5, 0), 5);
+        assert_eq!(widen_seq(3, 70_000), 65_539);
+        assert_eq!(widen_seq(65_535, 65_536), 65_535);
+        assert_eq!(widen_seq(1, 65_535), 65_537);
+        assert_eq!(widen_seq(65_000, 10), 0);
     }
 }

@@ -213,7 +213,9 @@ where
     pub fn take_refill_frame(&mut self, stuffed: &[u8]) -> Result<usize, RefillFrameError> {
         let f = decode_frame(stuffed, &mut self.raw).map_err(RefillFrameError::Frame)?;
         if f.record != RecordType::KeyRefill || f.tag.is_some() {
-            return Err(RefillFrameError::Frame(FrameError::UnknownType(f.record.code())));
+            return Err(RefillFrameError::Frame(FrameError::UnknownType(
+                f.record.code(),
+            )));
         }
         let v = RefillView::parse(f.payload).map_err(RefillFrameError::Frame)?;
         let r = match self.auth.as_mut() {
@@ -330,7 +332,10 @@ where
                     record: RecordType::Announce,
                     seq,
                     num,
-                    payload: self.raw.get(HEADER_LEN..HEADER_LEN + len).unwrap_or_default(),
+                    payload: self
+                        .raw
+                        .get(HEADER_LEN..HEADER_LEN + len)
+                        .unwrap_or_default(),
                 };
                 match a.seal(&m) {
                     Ok(tag) => seal_in_place_tagged(
@@ -385,7 +390,13 @@ where
             self.evict_oldest();
         }
         let start = self.front + self.slots.len() as u64 - n as u64;
-        if self.open.is_full() || !self.can_send() {
+        let starved = !self.can_send();
+        if starved && !self.stopped() {
+            if let Some(a) = self.auth.as_mut() {
+                a.starve();
+            }
+        }
+        if self.open.is_full() || starved {
             // Only while answers are being handed over; the caller expires these slots.
             for _ in 0..n {
                 self.slots.pop_back();
@@ -668,16 +679,16 @@ where
                     ) {
                         Err(r) => Got::Refused(r),
                         Ok(()) => {
-                        let count = v.count();
-                        if let Some(d) = self.cur.get_mut(..count) {
-                            d.copy_from_slice(v.entry_bytes());
-                        }
-                        Got::Answers {
-                            seq: f.seq,
-                            ann_seq: v.ann_seq,
-                            first_slot: v.first_slot,
-                            count,
-                        }
+                            let count = v.count();
+                            if let Some(d) = self.cur.get_mut(..count) {
+                                d.copy_from_slice(v.entry_bytes());
+                            }
+                            Got::Answers {
+                                seq: f.seq,
+                                ann_seq: v.ann_seq,
+                                first_slot: v.first_slot,
+                                count,
+                            }
                         }
                     },
                 },
@@ -748,7 +759,9 @@ fn check_tag<const KEYW: usize>(
         .iter()
         .find(|o| o.seq == ann_seq)
         .map(|o| o.num)
-        .unwrap_or_else(|| next_num.wrapping_sub(u64::from((next_num as u16).wrapping_sub(ann_seq))));
+        .unwrap_or_else(|| {
+            next_num.wrapping_sub(u64::from((next_num as u16).wrapping_sub(ann_seq)))
+        });
     let m = TagInput {
         dir: Direction::ToReceiver,
         record: f.record,

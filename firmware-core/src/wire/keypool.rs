@@ -46,10 +46,16 @@ impl fmt::Display for RefillError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::NotContiguous { expected, got } => {
-                write!(f, "key starts at pad word {got}; the pool expects {expected}")
+                write!(
+                    f,
+                    "key starts at pad word {got}; the pool expects {expected}"
+                )
             }
             Self::Ragged { bytes } => {
-                write!(f, "{bytes} key bytes are not whole {PAD_LEN}-byte pad words")
+                write!(
+                    f,
+                    "{bytes} key bytes are not whole {PAD_LEN}-byte pad words"
+                )
             }
             Self::NoRoom { words, room } => {
                 write!(f, "{words} pad words offered, room for {room}")
@@ -156,7 +162,7 @@ impl<const WORDS: usize> KeyPool<WORDS> {
     /// Load `key` (whole pad words) as the words from `first_word` on; all or nothing. Returns the
     /// words loaded. Words below an abandoned floor are wiped at once.
     pub fn load(&mut self, first_word: u64, key: &[u8]) -> Result<usize, RefillError> {
-        if key.len() % PAD_LEN != 0 {
+        if !key.len().is_multiple_of(PAD_LEN) {
             return Err(RefillError::Ragged { bytes: key.len() });
         }
         if first_word != self.end() {
@@ -266,7 +272,9 @@ mod tests {
     use super::*;
 
     fn key(words: usize, seed: u8) -> Vec<u8> {
-        (0..words * PAD_LEN).map(|i| (i as u8).wrapping_mul(31) ^ seed).collect()
+        (0..words * PAD_LEN)
+            .map(|i| (i as u8).wrapping_mul(31) ^ seed)
+            .collect()
     }
 
     #[test]
@@ -289,15 +297,30 @@ mod tests {
                 got: 5
             })
         );
-        assert_eq!(p.load(3, &key(4, 2)), Err(RefillError::NoRoom { words: 4, room: 3 }));
-        assert_eq!(p.load(3, &key(1, 2)[..5]), Err(RefillError::Ragged { bytes: 5 }));
+        assert_eq!(
+            p.load(3, &key(4, 2)),
+            Err(RefillError::NoRoom { words: 4, room: 3 })
+        );
+        assert_eq!(
+            p.load(3, &key(1, 2)[..5]),
+            Err(RefillError::Ragged { bytes: 5 })
+        );
         assert_eq!(p.load(3, &key(3, 2)), Ok(3));
         assert_eq!(p.state(6), PadState::Absent);
         p.abandon_below(5);
-        assert_eq!((p.state(2), p.state(4), p.state(5)), (PadState::Gone, PadState::Gone, PadState::Fresh));
+        assert_eq!(
+            (p.state(2), p.state(4), p.state(5)),
+            (PadState::Gone, PadState::Gone, PadState::Fresh)
+        );
         let c = *p.counters();
-        assert_eq!((c.loaded_words, c.spent_words, c.abandoned_words), (6, 2, 3));
-        assert_eq!(c.loaded_words, c.spent_words + c.abandoned_words + p.fresh_words() as u64);
+        assert_eq!(
+            (c.loaded_words, c.spent_words, c.abandoned_words),
+            (6, 2, 3)
+        );
+        assert_eq!(
+            c.loaded_words,
+            c.spent_words + c.abandoned_words + p.fresh_words() as u64
+        );
     }
 
     #[test]
@@ -306,7 +329,10 @@ mod tests {
         p.load(0, &key(2, 0)).unwrap();
         p.abandon_below(4);
         p.load(2, &key(4, 0)).unwrap();
-        assert_eq!((p.state(3), p.state(4), p.state(5)), (PadState::Gone, PadState::Fresh, PadState::Fresh));
+        assert_eq!(
+            (p.state(3), p.state(4), p.state(5)),
+            (PadState::Gone, PadState::Fresh, PadState::Fresh)
+        );
         assert_eq!(p.counters().abandoned_words, 4);
     }
 }

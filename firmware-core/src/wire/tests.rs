@@ -595,3 +595,5 @@ proptest! {
         prop_assert_eq!(c.announcements, c.answers_in + c.expired_announcements);
     }
 }
+
+mod auth;

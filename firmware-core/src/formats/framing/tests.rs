@@ -58,10 +58,14 @@ fn tagged_frame_round_trips() {
     let tag = [1, 2, 3, 4, 5, 6, 7, 8];
     let mut raw = vec![0u8; MAX_RAW];
     let mut out = vec![0u8; MAX_FRAME];
-    let n = encode_frame_tagged(RecordType::Answers, 9, &[0xAA, 0], &tag, &mut raw, &mut out).unwrap();
+    let n =
+        encode_frame_tagged(RecordType::Answers, 9, &[0xAA, 0], &tag, &mut raw, &mut out).unwrap();
     let mut scratch = vec![0u8; MAX_RAW];
     let f = decode_frame(&out[..n], &mut scratch).unwrap();
-    assert_eq!((f.record, f.seq, f.payload, f.tag), (RecordType::Answers, 9, &[0xAA, 0][..], Some(tag)));
+    assert_eq!(
+        (f.record, f.seq, f.payload, f.tag),
+        (RecordType::Answers, 9, &[0xAA, 0][..], Some(tag))
+    );
     let plain = frame(RecordType::Answers, 9, &[0xAA, 0]);
     assert_eq!(decode_frame(&plain, &mut scratch).unwrap().tag, None);
 }
