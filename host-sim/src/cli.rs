@@ -157,6 +157,15 @@ pub enum LinkMode {
     Direct,
 }
 
+/// Whether the classical link is authenticated.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum AuthMode {
+    /// Every frame tagged and checked.
+    On,
+    /// No tags (for comparison only: the key is then not secure against an active attacker).
+    Off,
+}
+
 /// The classical link between receiver and transmitter.
 #[derive(Args, Debug, Clone)]
 pub struct LinkArgs {
@@ -187,6 +196,20 @@ pub struct LinkArgs {
     /// Seed of the link's faults (default: derived from the scenario's seed).
     #[arg(long, value_name = "N")]
     pub link_seed: Option<u64>,
+    /// `on`: every frame carries a Wegman-Carter tag (docs/wire-protocol.md §9) and both ends
+    /// keep a key pool; `off`: untagged frames, which an active attacker can forge.
+    #[arg(long, value_enum, default_value_t = AuthMode::On)]
+    pub link_auth: AuthMode,
+    /// Put an adversary on the link: flip (alter answers, recompute the CRC), inject (forged
+    /// answers), replay (every frame twice), delay (hold frames past their timeout), impersonate
+    /// (answer in the transmitter's place with another key).
+    #[arg(long, value_enum, value_name = "MODE")]
+    pub link_attack: Option<crate::link::auth::LinkAttack>,
+    /// Key the post-processing host can supply for authentication in all, in bits (pre-shared
+    /// key included; default: unlimited). When it runs out the link stops: it never sends an
+    /// untagged frame.
+    #[arg(long, value_name = "BITS")]
+    pub auth_key_bits: Option<u64>,
     /// Share of answered slots whose transmitted bit is revealed for the QBER (0..=1).
     #[arg(long, default_value_t = 1.0, value_name = "F")]
     pub test_fraction: f64,
@@ -213,6 +236,11 @@ impl LinkArgs {
             reorder_slots: self.link_reorder_slots,
             seed: self.link_seed.unwrap_or(base.seed),
             test_fraction: self.test_fraction,
+            authenticated: self.link_auth == AuthMode::On,
+            auth_key_words: self
+                .auth_key_bits
+                .map_or(u64::MAX, |b| b / (8 * slotwise::formats::TAG_LEN as u64)),
+            attack: self.link_attack,
             ..base
         };
         m.validate()?;

@@ -5,7 +5,14 @@
 //! Time on the link is the newest slot the receiver announced: a frame sent at slot `s` arrives
 //! at slot `s + latency`. Every random choice of the model comes from one seeded stream per
 //! direction, so a run is reproducible.
+//!
+//! The link is authenticated unless the model says otherwise: both ends hold the same key
+//! ([`auth::KeySupply`]), the board's pool is topped up with key-refill frames as it empties, and
+//! an [`auth::Adversary`] may sit on the line. Every answer the receiver takes is checked
+//! against what the transmitter sent, and every announce frame the transmitter takes against
+//! what the receiver sent, so a forgery that got through would be counted.
 
+pub mod auth;
 pub mod keyfile;
 pub mod report;
 pub mod tx;
@@ -13,13 +20,16 @@ pub mod tx;
 use crate::scenario::Scenario;
 use crate::sim::rng::Stream;
 use crate::sim::SimTransmitter;
+use auth::{Adversary, AttackStats, KeySupply, LinkAttack};
 use serde::Serialize;
 use slotwise::wire::{LinkConfig, LinkCounters, ReceiverLink};
 use slotwise::{Announcement, Answer, Transmitter};
 use std::cell::RefCell;
 use std::cmp::Reverse;
-use std::collections::{BinaryHeap, VecDeque};
+use std::collections::hash_map::DefaultHasher;
+use std::collections::{BinaryHeap, HashSet, VecDeque};
 use std::convert::Infallible;
+use std::hash::{Hash, Hasher};
 use std::rc::Rc;
 use tx::HostTransmitter;
 
@@ -27,6 +37,8 @@ use tx::HostTransmitter;
 pub const HOST_BATCH: usize = 64;
 /// Unanswered announcements the host endpoint keeps.
 pub const HOST_OUT: usize = 1024;
+/// Pad words of the host endpoint's key pool (4 KiB of key, as a board would hold).
+pub const HOST_KEY_WORDS: usize = 512;
 
 /// How the simulated link treats frames (probabilities per frame and direction).
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
@@ -51,6 +63,12 @@ pub struct LinkModel {
     pub answer_timeout_slots: u64,
     /// Largest slot span of one announce batch.
     pub flush_age_slots: u64,
+    /// Every frame carries a Wegman-Carter tag and both ends keep a key pool.
+    pub authenticated: bool,
+    /// Pad words of key the post-processing host can supply in all (pre-shared ones included).
+    pub auth_key_words: u64,
+    /// The adversary on the line, if any.
+    pub attack: Option<LinkAttack>,
 }
 
 impl LinkModel {
@@ -73,6 +91,9 @@ impl LinkModel {
             test_fraction: 1.0,
             answer_timeout_slots,
             flush_age_slots: 5000,
+            authenticated: true,
+            auth_key_words: u64::MAX,
+            attack: None,
         }
     }
 
@@ -193,6 +214,12 @@ struct Shared {
     now: u64,
     up: Channel,
     down: Channel,
+    supply: Option<KeySupply>,
+    adversary: Option<Adversary>,
+    /// Fingerprints of the announce frames the receiver really sent.
+    genuine_up: HashSet<u64>,
+    /// Announce frames the transmitter accepted that the receiver never sent.
+    forged_tx_accepted: u64,
     /// Bytes the endpoint wrote since the last delimiter.
     partial: Vec<u8>,
     /// Bytes arrived for the endpoint to read.
@@ -200,16 +227,67 @@ struct Shared {
     tx: HostTransmitter,
 }
 
+fn fingerprint(frame: &[u8]) -> u64 {
+    let mut h = DefaultHasher::new();
+    frame.hash(&mut h);
+    h.finish()
+}
+
 impl Shared {
     fn pump(&mut self) {
         let now = self.now;
+        self.refill_tx();
         for f in self.up.due(now) {
-            for answer in self.tx.receive(&f) {
-                self.down.send(now, answer);
+            let before = self.verified_by_tx();
+            let answers = self.tx.receive(&f);
+            if self.verified_by_tx() > before && !self.genuine_up.contains(&fingerprint(&f)) {
+                self.forged_tx_accepted += 1;
+            }
+            for answer in answers {
+                self.send(true, now, answer);
             }
         }
         for f in self.down.due(now) {
             self.inbox.extend(f);
+        }
+    }
+
+    fn verified_by_tx(&self) -> u64 {
+        self.tx.auth().map_or(0, |a| a.counters().frames_verified)
+    }
+
+    /// Put a frame on the line, through the adversary when there is one.
+    fn send(&mut self, down: bool, now: u64, frame: Vec<u8>) {
+        if !down {
+            self.genuine_up.insert(fingerprint(&frame));
+        }
+        let emits = match self.adversary.as_mut() {
+            None => vec![auth::Emit {
+                down,
+                extra_slots: 0,
+                frame,
+            }],
+            Some(a) if down => a.on_down(frame),
+            Some(a) => a.on_up(frame),
+        };
+        for e in emits {
+            let ch = if e.down { &mut self.down } else { &mut self.up };
+            ch.send(now + e.extra_slots, e.frame);
+        }
+    }
+
+    /// Top the transmitter's mirror pool up from the same key stream as the board's.
+    fn refill_tx(&mut self) {
+        let Some(supply) = self.supply else { return };
+        while let Some(a) = self.tx.auth() {
+            let (end, room) = (a.pool().end(), a.pool().room());
+            let key = supply.words(end, room.min(slotwise::formats::refill::MAX_WORDS) as u64);
+            if room < slotwise::formats::refill::MAX_WORDS || key.is_empty() {
+                break;
+            }
+            if self.tx.refill(end, &key).is_err() {
+                break;
+            }
         }
     }
 }
@@ -253,7 +331,7 @@ impl embedded_io::Write for UpWriter {
             if b == 0 {
                 let frame = std::mem::take(&mut s.partial);
                 let now = s.now;
-                s.up.send(now, frame);
+                s.send(false, now, frame);
             }
         }
         Ok(buf.len())
@@ -264,7 +342,7 @@ impl embedded_io::Write for UpWriter {
 }
 
 /// The core's endpoint type on the host.
-pub type HostEndpoint = ReceiverLink<DownReader, UpWriter, HOST_BATCH, HOST_OUT>;
+pub type HostEndpoint = ReceiverLink<DownReader, UpWriter, HOST_BATCH, HOST_OUT, HOST_KEY_WORDS>;
 
 /// The receiver's transmitter as a framed link: the core's endpoint, the link model and the host
 /// transmitter behind it.
@@ -273,6 +351,10 @@ pub struct FramedLink {
     shared: Rc<RefCell<Shared>>,
     model: LinkModel,
     final_reports: u64,
+    /// Answers the receiver took that the transmitter never gave.
+    forged_rx_accepted: u64,
+    /// Key-refill frames the board took.
+    refill_frames: u64,
 }
 
 impl FramedLink {
@@ -286,21 +368,92 @@ impl FramedLink {
         model.validate()?;
         let cfg = LinkConfig::new(model.answer_timeout_slots, model.flush_age_slots)
             .map_err(|e| e.to_string())?;
+        let supply = model
+            .authenticated
+            .then(|| KeySupply::new(model.seed, model.auth_key_words));
+        let tx = match supply {
+            Some(k) => tx.with_auth(Box::new(k.end()?)),
+            None => tx,
+        };
+        let adversary = match model.attack {
+            Some(a) => Some(Adversary::new(
+                a,
+                model.seed ^ 0xA77A_C4E5,
+                model.answer_timeout_slots.saturating_mul(2),
+            )?),
+            None => None,
+        };
         let shared = Rc::new(RefCell::new(Shared {
             now: 0,
             up: Channel::new(model, 0x5550),
             down: Channel::new(model, 0x444F),
+            supply,
+            adversary,
+            genuine_up: HashSet::new(),
+            forged_tx_accepted: 0,
             partial: Vec::new(),
             inbox: VecDeque::new(),
             tx,
         }));
-        let ep = HostEndpoint::new(cfg, DownReader(shared.clone()), UpWriter(shared.clone()));
-        Ok(Self {
+        let (down, up) = (DownReader(shared.clone()), UpWriter(shared.clone()));
+        let ep = match supply {
+            Some(k) => HostEndpoint::new_authenticated(cfg, k.end()?, down, up),
+            None => HostEndpoint::new(cfg, down, up),
+        };
+        let mut l = Self {
             ep,
             shared,
             model,
             final_reports: 0,
-        })
+            forged_rx_accepted: 0,
+            refill_frames: 0,
+        };
+        l.refill_board();
+        Ok(l)
+    }
+
+    /// Hand the board key-refill frames while its pool has room for a full record.
+    fn refill_board(&mut self) {
+        let Some(supply) = self.shared.borrow().supply else {
+            return;
+        };
+        while let Some(pool) = self.ep.auth().map(|a| a.pool()) {
+            let Some(frame) = supply.refill_frame(pool.end(), pool.room()) else {
+                break;
+            };
+            if self.ep.take_refill_frame(&frame).is_err() {
+                break;
+            }
+            self.refill_frames += 1;
+        }
+    }
+
+    /// The core endpoint (its authentication state included).
+    pub fn endpoint(&self) -> &HostEndpoint {
+        &self.ep
+    }
+
+    /// Answers the receiver took that the transmitter never gave, and announce frames the
+    /// transmitter took that the receiver never sent.
+    pub fn forgeries_accepted(&self) -> (u64, u64) {
+        (
+            self.forged_rx_accepted,
+            self.shared.borrow().forged_tx_accepted,
+        )
+    }
+
+    /// Key-refill frames the board took.
+    pub fn refill_frames(&self) -> u64 {
+        self.refill_frames
+    }
+
+    /// What the adversary did, when there is one.
+    pub fn attack_stats(&self) -> Option<(LinkAttack, AttackStats)> {
+        self.shared
+            .borrow()
+            .adversary
+            .as_ref()
+            .map(|a| (a.attack(), a.stats()))
     }
 
     /// The model in use.
@@ -374,11 +527,16 @@ impl Transmitter for FramedLink {
             let mut s = self.shared.borrow_mut();
             s.now = s.now.max(a.slot);
         }
+        self.refill_board();
         self.ep.announce(a);
     }
 
     fn poll_answer(&mut self) -> Option<Answer> {
-        self.ep.poll_answer()
+        let a = self.ep.poll_answer()?;
+        if !self.shared.borrow_mut().tx.answered_as_sent(&a) {
+            self.forged_rx_accepted += 1;
+        }
+        Some(a)
     }
 
     fn answers_final_below(&self) -> Option<u64> {

@@ -37,6 +37,7 @@ use crate::sift::{Announcement, Answer, Transmitter};
 use core::fmt;
 use embedded_io::{Read, ReadReady, Write};
 use heapless::Deque;
+use zeroize::Zeroize;
 
 /// Announce frames that may wait for their answers at once.
 pub const MAX_OPEN_FRAMES: usize = 32;
@@ -211,7 +212,8 @@ where
     /// Take one stuffed key-refill frame ([`RecordType::KeyRefill`]) from the local link and load
     /// its key; returns the pad words loaded. Never panics, whatever the bytes.
     pub fn take_refill_frame(&mut self, stuffed: &[u8]) -> Result<usize, RefillFrameError> {
-        let f = decode_frame(stuffed, &mut self.raw).map_err(RefillFrameError::Frame)?;
+        // `enc` is free between frames; `raw` may hold the batch being built.
+        let f = decode_frame(stuffed, &mut self.enc).map_err(RefillFrameError::Frame)?;
         if f.record != RecordType::KeyRefill || f.tag.is_some() {
             return Err(RefillFrameError::Frame(FrameError::UnknownType(
                 f.record.code(),
@@ -225,7 +227,7 @@ where
                 room: 0,
             }),
         };
-        self.raw.fill(0);
+        self.enc.zeroize();
         r.map_err(RefillFrameError::Pool)
     }
 

@@ -1,9 +1,11 @@
 //! The `link` object of the summary: frames each way, refusals by reason, what happened to every
 //! announcement, and whether both sides ended with the same sifted key.
 
+use super::auth::{AttackStats, LinkAttack};
 use super::{ChannelStats, FramedLink, LinkModel};
 use serde::Serialize;
-use slotwise::wire::RejectCounts;
+use slotwise::formats::TAG_LEN;
+use slotwise::wire::{AuthCounters, Reject, RejectCounts};
 use slotwise::SiftedBit;
 use std::collections::BTreeMap;
 
@@ -84,6 +86,83 @@ pub struct KeyComparison {
     pub bit_differences: u64,
 }
 
+/// One end's authentication.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct AuthSide {
+    /// Frames tagged and sent.
+    pub frames_tagged: u64,
+    /// Frames whose tag checked.
+    pub frames_verified: u64,
+    /// Frames refused by the tag check, by reason (nonzero only).
+    pub refused: BTreeMap<&'static str, u64>,
+    /// Sum of `refused`.
+    pub refused_total: u64,
+    /// Key bits loaded (pre-shared and refilled).
+    pub key_bits_loaded: u64,
+    /// Key bits spent on tags.
+    pub key_bits_consumed: u64,
+    /// Key bits wiped unused.
+    pub key_bits_abandoned: u64,
+    /// Key bits left in the pool.
+    pub key_bits_left: u64,
+    /// Frames not sent for want of key.
+    pub starved_frames: u64,
+    /// Times the low-key alarm rose.
+    pub low_key_alarms: u64,
+    /// Times the attack alarm rose.
+    pub attack_alarms: u64,
+    /// Whether the link stopped (out of key, or too many refusals).
+    pub stopped: bool,
+}
+
+impl AuthSide {
+    fn of(c: &AuthCounters, rejected: &RejectCounts, left: u64, stopped: bool) -> Self {
+        let refused: BTreeMap<&'static str, u64> = Reject::AUTH
+            .iter()
+            .map(|&r| (r.name(), rejected.get(r)))
+            .filter(|&(_, v)| v > 0)
+            .collect();
+        Self {
+            frames_tagged: c.frames_tagged,
+            frames_verified: c.frames_verified,
+            refused_total: refused.values().sum(),
+            refused,
+            key_bits_loaded: c.key_bits_loaded,
+            key_bits_consumed: c.key_bits_consumed,
+            key_bits_abandoned: c.key_bits_abandoned,
+            key_bits_left: left,
+            starved_frames: c.starved_frames,
+            low_key_alarms: c.low_key_alarms,
+            attack_alarms: c.attack_alarms,
+            stopped,
+        }
+    }
+}
+
+/// The summary's `link.auth` object: Wegman-Carter tags on every frame, both ways.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct AuthSummary {
+    /// The tag: hash, length and pad.
+    pub scheme: &'static str,
+    /// Bits per tag (one-time-pad bits consumed per tagged frame).
+    pub tag_bits: u32,
+    /// The receiver's end (the board's pool).
+    pub receiver: AuthSide,
+    /// The transmitter's end (the mirror pool).
+    pub transmitter: AuthSide,
+    /// Forged frames or answers either end accepted (answers the receiver took that the
+    /// transmitter never gave, plus announce frames the transmitter took that the receiver never
+    /// sent).
+    pub forgeries_accepted: u64,
+    /// Key-refill frames the board took.
+    pub refill_frames: u64,
+    /// Shared key bits gone (consumed or abandoned, counted once, on the board) per sifted bit.
+    pub key_bits_per_sifted_bit: f64,
+    /// The adversary on the line and what it did.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub attack: Option<(LinkAttack, AttackStats)>,
+}
+
 /// The summary's `link` object.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct LinkSummary {
@@ -102,6 +181,11 @@ pub struct LinkSummary {
     pub transmitter: TransmitterSide,
     /// Sifted keys of both sides.
     pub keys: KeyComparison,
+    /// Authentication of the frames (`None` on an unauthenticated link).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub auth: Option<AuthSummary>,
+    /// Forged answers the receiver accepted (counted on unauthenticated links too).
+    pub forgeries_accepted: u64,
     /// Key-block frames written to the key file.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub key_blocks_written: Option<u64>,
@@ -150,6 +234,36 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
             key_bits: tx.key().len() as u64,
         }
     });
+    let keys = compare(link, rx_bits);
+    let (frx, ftx) = link.forgeries_accepted();
+    let auth = link.endpoint().auth().map(|ra| {
+        let rx = AuthSide::of(ra.counters(), &c.rejected, ra.key_bits_left(), ra.stopped());
+        let tx = link.with_tx(|tx| {
+            tx.auth().map(|ta| {
+                AuthSide::of(
+                    ta.counters(),
+                    &tx.counters().rejected,
+                    ta.key_bits_left(),
+                    ta.stopped(),
+                )
+            })
+        });
+        let tx = tx.unwrap_or_else(|| {
+            AuthSide::of(&AuthCounters::default(), &RejectCounts::new(), 0, false)
+        });
+        // Both pools hold the same key: count the board's, where each pad word goes once.
+        let gone = rx.key_bits_consumed + rx.key_bits_abandoned;
+        AuthSummary {
+            scheme: "POLYVAL (RFC 8452) over GF(2^128), truncated, one-time padded (Wegman-Carter)",
+            tag_bits: (TAG_LEN * 8) as u32,
+            key_bits_per_sifted_bit: gone as f64 / keys.receiver_bits.max(1) as f64,
+            receiver: rx,
+            transmitter: tx,
+            forgeries_accepted: frx + ftx,
+            refill_frames: link.refill_frames(),
+            attack: link.attack_stats(),
+        }
+    });
     LinkSummary {
         model: *link.model(),
         endpoint_ram_bytes: std::mem::size_of::<super::HostEndpoint>(),
@@ -173,7 +287,9 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
             final_reports: link.final_reports(),
         },
         transmitter,
-        keys: compare(link, rx_bits),
+        keys,
+        auth,
+        forgeries_accepted: frx + ftx,
         key_blocks_written: None,
         key_file: None,
     }
@@ -241,9 +357,17 @@ impl std::fmt::Display for LinkSummary {
             },
             k.bit_differences
         )?;
+        match &self.auth {
+            Some(a) => write_auth(f, a)?,
+            None => writeln!(
+                f,
+                "auth           OFF: frames carry no tag; {} forged answers accepted",
+                self.forgeries_accepted
+            )?,
+        }
         writeln!(
             f,
-            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 64, 1024>)",
+            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 64, 1024, 512>)",
             self.endpoint_ram_bytes
         )?;
         if let (Some(n), Some(p)) = (self.key_blocks_written, &self.key_file) {
@@ -251,4 +375,54 @@ impl std::fmt::Display for LinkSummary {
         }
         Ok(())
     }
+}
+
+fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Result {
+    let (r, t) = (&a.receiver, &a.transmitter);
+    let alarm = |s: &AuthSide| match (s.attack_alarms, s.stopped) {
+        (_, true) => "STOPPED".to_string(),
+        (0, _) => "no alarm".to_string(),
+        (n, _) => format!("ATTACK ALARM x{n}"),
+    };
+    writeln!(
+        f,
+        "auth           {}-bit Wegman-Carter tags (POLYVAL + one-time pad): {} forgeries accepted; \
+         key {:.2} % of the sifted bits",
+        a.tag_bits,
+        a.forgeries_accepted,
+        100.0 * a.key_bits_per_sifted_bit
+    )?;
+    for (name, s) in [("rx", r), ("tx", t)] {
+        let why = s
+            .refused
+            .iter()
+            .map(|(k, v)| format!("{k} {v}"))
+            .collect::<Vec<_>>()
+            .join(", ");
+        writeln!(
+            f,
+            "  {name} auth      tagged {}, verified {}, refused {}{}; key bits: {} used, {} wiped \
+             unused, {} left; {}",
+            s.frames_tagged,
+            s.frames_verified,
+            s.refused_total,
+            if why.is_empty() {
+                String::new()
+            } else {
+                format!(" ({why})")
+            },
+            s.key_bits_consumed,
+            s.key_bits_abandoned,
+            s.key_bits_left,
+            alarm(s)
+        )?;
+    }
+    if let Some((attack, st)) = &a.attack {
+        writeln!(
+            f,
+            "  adversary    {attack:?}: {} frames forged, {} replayed, {} held back",
+            st.forged, st.replayed, st.delayed
+        )?;
+    }
+    Ok(())
 }

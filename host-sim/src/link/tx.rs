@@ -1,16 +1,28 @@
 //! The transmitter's half of the link on the host, built on the core's codec: decode announce
 //! frames, look up its own choices, answer, and keep the bits of the frames the receiver reports
 //! as answered — its own sifted key.
+//!
+//! On an authenticated link it keeps the mirror of the board's key pool (the core's
+//! [`LinkAuth`]): it checks each announce frame's tag against pad word `2·n` (n the frame's
+//! number, widened from its `seq`), tags its answers with pad word `2·n + 1`, and wipes the pad
+//! words of every frame the receiver's report declares final.
 
 use crate::scenario::Scenario;
 use crate::sim::rng::{splitmix_at, stream_key, unit_f64};
 use crate::sim::TxSource;
-use slotwise::formats::{answers, encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
-use slotwise::wire::{
-    AnnounceView, AnswerEntry, FrameDecoder, Reject, RejectCounts, Report, SeqClass, SeqWindow,
+use slotwise::formats::tag::{Direction, TagInput};
+use slotwise::formats::{
+    answers, encode_frame, encode_frame_tagged, Frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
 };
-use slotwise::Basis;
-use std::collections::BTreeMap;
+use slotwise::wire::{
+    widen_seq, AnnounceView, AnswerEntry, FrameDecoder, LinkAuth, Reject, RejectCounts, Report,
+    SeqClass, SeqWindow,
+};
+use slotwise::{Answer, Basis};
+use std::collections::{BTreeMap, HashMap};
+
+/// Pad words of the host transmitter's mirror pool.
+pub const TX_KEY_WORDS: usize = 4096;
 
 /// Stream number of the test-bit choices.
 const STREAM_REVEAL: u64 = 7;
@@ -82,6 +94,11 @@ pub struct HostTransmitter {
     announced: Option<(u64, u64)>,
     raw: Vec<u8>,
     enc: Vec<u8>,
+    auth: Option<Box<LinkAuth<TX_KEY_WORDS>>>,
+    /// Highest announce-frame number authenticated.
+    highest_num: Option<u64>,
+    /// What the receiver should derive from each answer sent, by slot (to spot forgeries).
+    given: HashMap<u64, Answer>,
 }
 
 impl HostTransmitter {
@@ -107,7 +124,35 @@ impl HostTransmitter {
             announced: None,
             raw: vec![0; MAX_RAW],
             enc: vec![0; MAX_FRAME],
+            auth: None,
+            highest_num: None,
+            given: HashMap::new(),
         }
+    }
+
+    /// The same transmitter on an authenticated link, holding the mirror pool `auth`.
+    pub fn with_auth(mut self, auth: Box<LinkAuth<TX_KEY_WORDS>>) -> Self {
+        self.auth = Some(auth);
+        self
+    }
+
+    /// The mirror pool, on an authenticated link.
+    pub fn auth(&self) -> Option<&LinkAuth<TX_KEY_WORDS>> {
+        self.auth.as_deref()
+    }
+
+    /// Load refill key into the mirror pool (pad words from `first_word` on).
+    pub fn refill(&mut self, first_word: u64, key: &[u8]) -> Result<usize, String> {
+        match self.auth.as_mut() {
+            Some(a) => a.refill(first_word, key).map_err(|e| e.to_string()),
+            None => Err("the link is not authenticated".into()),
+        }
+    }
+
+    /// Whether the receiver took `a` exactly as this transmitter answered it; the answer is
+    /// forgotten either way (each slot is answered once).
+    pub fn answered_as_sent(&mut self, a: &Answer) -> bool {
+        self.given.remove(&a.slot).is_some_and(|g| g == *a)
     }
 
     /// Whether a final report arrived.
@@ -165,7 +210,7 @@ impl HostTransmitter {
             let Some(r) = self.dec.push(b) else {
                 continue;
             };
-            let (seq, payload) = match r {
+            let payload_of = match r {
                 Err(e) => {
                     self.counters.rejected.add(Reject::from(e));
                     continue;
@@ -174,16 +219,28 @@ impl HostTransmitter {
                     self.counters.rejected.add(Reject::UnexpectedType);
                     continue;
                 }
-                Ok(f) => (f.seq, f.payload.to_vec()),
+                Ok(f) => match authenticate(self.auth.as_deref_mut(), self.highest_num, &f) {
+                    Err(r) => {
+                        self.counters.rejected.add(r);
+                        continue;
+                    }
+                    Ok(num) => {
+                        if self.auth.is_some() {
+                            self.highest_num = Some(self.highest_num.map_or(num, |h| h.max(num)));
+                        }
+                        (f.seq, num, f.payload.to_vec())
+                    }
+                },
             };
-            if let Some(frame) = self.announce_frame(seq, &payload) {
+            let (seq, num, payload) = payload_of;
+            if let Some(frame) = self.announce_frame(seq, num, &payload) {
                 out.push(frame);
             }
         }
         out
     }
 
-    fn announce_frame(&mut self, seq: u16, payload: &[u8]) -> Option<Vec<u8>> {
+    fn announce_frame(&mut self, seq: u16, num: u64, payload: &[u8]) -> Option<Vec<u8>> {
         let v = match AnnounceView::parse(payload) {
             Ok(v) => v,
             Err(e) => {
@@ -202,6 +259,12 @@ impl HostTransmitter {
             SeqClass::TooOld | SeqClass::First => {}
         }
         self.apply(v.report, v.is_final());
+        if let Some(a) = self.auth.as_mut() {
+            // Frames before the report's cursor are final at the receiver: their pads are of no
+            // further use, and a late copy of one is refused.
+            let below = widen_seq(v.report.resolved_below, num);
+            a.abandon_below(Direction::ToTransmitter.pad_word(below.min(num)));
+        }
         if v.is_final() {
             self.counters.final_reports += 1;
             self.closed = true;
@@ -216,6 +279,7 @@ impl HostTransmitter {
             let (lo, hi) = self.announced.unwrap_or((a.slot, a.slot));
             self.announced = Some((lo.min(a.slot), hi.max(a.slot)));
             let c = self.choices.choice(a.slot);
+            let revealed = self.revealed(a.slot);
             // The answers record has no "no answer" entry: a slot without content is answered
             // as a mismatch that reveals nothing, so no key bit can come from it.
             let withheld = AnswerEntry {
@@ -223,17 +287,35 @@ impl HostTransmitter {
                 intensity: 0,
                 bit: None,
             };
+            let other = if a.basis == Basis::X {
+                Basis::Z
+            } else {
+                Basis::X
+            };
+            let given = &mut self.given;
+            let mut give = |e: AnswerEntry| {
+                let basis = if e.basis_match { a.basis } else { other };
+                given.insert(
+                    a.slot,
+                    Answer {
+                        slot: a.slot,
+                        basis,
+                        intensity: e.intensity,
+                        bit: e.bit,
+                    },
+                );
+                entries.push(e);
+            };
             if c.is_some_and(|c| c.intensity > 3) || self.choices.is_marker_slot(a.slot) {
                 self.counters.marker_announcements += 1;
-                entries.push(withheld);
+                give(withheld);
                 continue;
             }
             let Some(c) = c else {
                 self.counters.unrecorded += 1;
-                entries.push(withheld);
+                give(withheld);
                 continue;
             };
-            let revealed = self.revealed(a.slot);
             let basis_match = c.basis == a.basis;
             if basis_match {
                 matched.push((
@@ -246,7 +328,7 @@ impl HostTransmitter {
                     },
                 ));
             }
-            entries.push(AnswerEntry {
+            give(AnswerEntry {
                 basis_match,
                 intensity: c.intensity,
                 bit: revealed.then_some(c.bit),
@@ -254,13 +336,35 @@ impl HostTransmitter {
         }
         let mut p = vec![0u8; MAX_PAYLOAD];
         let n = answers::emit(seq, v.first_slot, &entries, &mut p).ok()?;
-        let m = encode_frame(
-            RecordType::Answers,
-            self.next_seq,
-            p.get(..n)?,
-            &mut self.raw,
-            &mut self.enc,
-        )
+        let payload = p.get(..n)?;
+        let m = match self.auth.as_mut() {
+            None => encode_frame(
+                RecordType::Answers,
+                self.next_seq,
+                payload,
+                &mut self.raw,
+                &mut self.enc,
+            ),
+            Some(a) => {
+                let m = TagInput {
+                    dir: Direction::ToReceiver,
+                    record: RecordType::Answers,
+                    seq: self.next_seq,
+                    num,
+                    payload,
+                };
+                // Out of key: nothing is sent, the receiver's frame expires (fails closed).
+                let tag = a.seal(&m).ok()?;
+                encode_frame_tagged(
+                    RecordType::Answers,
+                    self.next_seq,
+                    payload,
+                    &tag,
+                    &mut self.raw,
+                    &mut self.enc,
+                )
+            }
+        }
         .ok()?;
         self.next_seq = self.next_seq.wrapping_add(1);
         self.counters.frames_out += 1;
@@ -271,6 +375,30 @@ impl HostTransmitter {
         });
         self.enc.get(..m).map(<[u8]>::to_vec)
     }
+}
+
+/// Check an announce frame's tag (authenticated link) or its lack of one; returns the frame's
+/// full number.
+fn authenticate(
+    auth: Option<&mut LinkAuth<TX_KEY_WORDS>>,
+    highest: Option<u64>,
+    f: &Frame<'_>,
+) -> Result<u64, Reject> {
+    let num = widen_seq(f.seq, highest.unwrap_or(0));
+    let Some(a) = auth else {
+        return match f.tag {
+            Some(_) => Err(Reject::Untagged),
+            None => Ok(num),
+        };
+    };
+    let m = TagInput {
+        dir: Direction::ToTransmitter,
+        record: f.record,
+        seq: f.seq,
+        num,
+        payload: f.payload,
+    };
+    a.verify(&m, f.tag.as_ref()).map(|()| num)
 }
 
 #[cfg(test)]

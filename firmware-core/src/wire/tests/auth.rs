@@ -269,7 +269,11 @@ fn an_empty_pool_stops_the_link() {
 
 #[test]
 fn refill_frames_load_the_pool() {
-    let (mut l, _, _) = alink(4);
+    let (mut l, _, up) = alink(4);
+    // A batch half built when the refill arrives is not disturbed by it.
+    for s in [10, 13, 400] {
+        l.announce(ann(s, s == 13));
+    }
     let k = key(3, 5);
     let mut p = vec![0u8; 64];
     let n = refill::emit(4, &k, &mut p).unwrap();
@@ -283,6 +287,10 @@ fn refill_frames_load_the_pool() {
     bad[5] ^= 1;
     assert!(l.take_refill_frame(&bad).is_err());
     assert_eq!(l.auth().unwrap().key_bits_left(), 7 * 64);
+    l.flush();
+    let f = frames_in_tagged(&drain(&up)).remove(0);
+    let v = AnnounceView::parse(&f.2).unwrap();
+    assert_eq!(v.iter().map(|a| a.slot).collect::<Vec<_>>(), [10, 13, 400]);
     let (mut u, _, _) = link(10);
     assert!(u.take_refill_frame(&good).is_err());
 }
