@@ -196,6 +196,13 @@ pub struct LinkArgs {
     /// Seed of the link's faults (default: derived from the scenario's seed).
     #[arg(long, value_name = "N")]
     pub link_seed: Option<u64>,
+    /// Most announcements per announce frame (1..=512): larger frames spend fewer
+    /// authentication tags per sifted bit.
+    #[arg(long, default_value_t = crate::link::DEFAULT_BATCH, value_name = "N")]
+    pub link_batch: usize,
+    /// A batch leaves before a slot this many slots after its first would join it.
+    #[arg(long, default_value_t = 5000, value_name = "SLOTS")]
+    pub link_flush_age_slots: u64,
     /// `on`: every frame carries a Wegman-Carter tag (docs/wire-protocol.md §9) and both ends
     /// keep a key pool; `off`: untagged frames, which an active attacker can forge.
     #[arg(long, value_enum, default_value_t = AuthMode::On)]
@@ -236,6 +243,8 @@ impl LinkArgs {
             reorder_slots: self.link_reorder_slots,
             seed: self.link_seed.unwrap_or(base.seed),
             test_fraction: self.test_fraction,
+            batch: self.link_batch,
+            flush_age_slots: self.link_flush_age_slots,
             authenticated: self.link_auth == AuthMode::On,
             auth_key_words: self
                 .auth_key_bits

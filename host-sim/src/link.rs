@@ -33,8 +33,11 @@ use std::hash::{Hash, Hasher};
 use std::rc::Rc;
 use tx::HostTransmitter;
 
-/// Announcements per announce frame on the host link.
-pub const HOST_BATCH: usize = 64;
+/// Most announcements per announce frame the host endpoint can hold (the model's `batch` picks
+/// the limit in use).
+pub const HOST_BATCH: usize = 512;
+/// Announcements per announce frame on the host link unless the model says otherwise.
+pub const DEFAULT_BATCH: usize = 64;
 /// Unanswered announcements the host endpoint keeps.
 pub const HOST_OUT: usize = 1024;
 /// Pad words of the host endpoint's key pool (4 KiB of key, as a board would hold).
@@ -63,6 +66,8 @@ pub struct LinkModel {
     pub answer_timeout_slots: u64,
     /// Largest slot span of one announce batch.
     pub flush_age_slots: u64,
+    /// Most announcements per announce frame (1..=512).
+    pub batch: usize,
     /// Every frame carries a Wegman-Carter tag and both ends keep a key pool.
     pub authenticated: bool,
     /// Pad words of key the post-processing host can supply in all (pre-shared ones included).
@@ -91,6 +96,7 @@ impl LinkModel {
             test_fraction: 1.0,
             answer_timeout_slots,
             flush_age_slots: 5000,
+            batch: DEFAULT_BATCH,
             authenticated: true,
             auth_key_words: u64::MAX,
             attack: None,
@@ -112,6 +118,12 @@ impl LinkModel {
         }
         if self.loss >= 1.0 {
             return Err("--link-loss 1: nothing would ever arrive".into());
+        }
+        if !(1..=HOST_BATCH).contains(&self.batch) {
+            return Err(format!(
+                "--link-batch {}: expected 1..={HOST_BATCH}",
+                self.batch
+            ));
         }
         LinkConfig::new(self.answer_timeout_slots, self.flush_age_slots)
             .map_err(|e| format!("link timeout: {e}"))?;
@@ -367,6 +379,7 @@ impl FramedLink {
     pub fn with_transmitter(tx: HostTransmitter, model: LinkModel) -> Result<Self, String> {
         model.validate()?;
         let cfg = LinkConfig::new(model.answer_timeout_slots, model.flush_age_slots)
+            .and_then(|c| c.with_max_batch(model.batch))
             .map_err(|e| e.to_string())?;
         let supply = model
             .authenticated

@@ -84,9 +84,18 @@ fn every_attack_is_refused_and_both_keys_stay_identical() {
         exact(&a.transmitter);
         // One tag per frame sent; one passed check per frame answered or reported.
         assert_eq!(a.receiver.frames_tagged, l.receiver.frames_sent, "{what}");
-        assert_eq!(a.transmitter.frames_tagged, l.transmitter.frames_sent, "{what}");
-        assert_eq!(a.receiver.frames_verified, l.receiver.answered_frames, "{what}");
-        assert_eq!(a.transmitter.frames_verified, l.transmitter.frames_received, "{what}");
+        assert_eq!(
+            a.transmitter.frames_tagged, l.transmitter.frames_sent,
+            "{what}"
+        );
+        assert_eq!(
+            a.receiver.frames_verified, l.receiver.answered_frames,
+            "{what}"
+        );
+        assert_eq!(
+            a.transmitter.frames_verified, l.transmitter.frames_received,
+            "{what}"
+        );
         assert!(
             a.receiver.attack_alarms + a.transmitter.attack_alarms > 0,
             "{what}"
@@ -104,7 +113,10 @@ fn every_attack_is_refused_and_both_keys_stay_identical() {
             // Each copy finds its pad word already spent.
             LinkAttack::Replay => {
                 assert!(st.replayed > 10, "{what}");
-                assert!(st.replayed - (rx("replayed") + tx("replayed")) <= 1, "{what}");
+                assert!(
+                    st.replayed - (rx("replayed") + tx("replayed")) <= 1,
+                    "{what}"
+                );
                 assert_eq!(rx("bad_tag") + tx("bad_tag"), 0, "{what}");
             }
             // Answers held past their frame's fate find their pad word wiped.

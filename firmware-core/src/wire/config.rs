@@ -9,12 +9,15 @@ use core::fmt;
 pub enum LinkConfigError {
     /// Answer timeout of zero slots.
     ZeroTimeout,
+    /// A batch limit of zero announcements.
+    ZeroBatch,
 }
 
 impl fmt::Display for LinkConfigError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::ZeroTimeout => write!(f, "answer_timeout_slots must be at least 1"),
+            Self::ZeroBatch => write!(f, "max_batch must be at least 1"),
         }
     }
 }
@@ -27,6 +30,7 @@ impl core::error::Error for LinkConfigError {}
 pub struct LinkConfig {
     answer_timeout_slots: u64,
     flush_age_slots: u64,
+    max_batch: usize,
 }
 
 impl LinkConfig {
@@ -43,7 +47,22 @@ impl LinkConfig {
         Ok(Self {
             answer_timeout_slots,
             flush_age_slots,
+            max_batch: usize::MAX,
         })
+    }
+
+    /// The same settings with at most `max_batch` announcements per frame (the endpoint's
+    /// `BATCH` still caps it): fewer, larger frames spend fewer authentication tags.
+    pub const fn with_max_batch(self, max_batch: usize) -> Result<Self, LinkConfigError> {
+        if max_batch == 0 {
+            return Err(LinkConfigError::ZeroBatch);
+        }
+        Ok(Self { max_batch, ..self })
+    }
+
+    /// Most announcements per frame (before the endpoint's `BATCH` cap).
+    pub const fn max_batch(&self) -> usize {
+        self.max_batch
     }
 
     /// Slots after which an unanswered frame expires.

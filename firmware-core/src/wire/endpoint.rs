@@ -367,6 +367,14 @@ where
         true
     }
 
+    fn batch_limit(&self) -> usize {
+        if self.cfg.max_batch() < BATCH {
+            self.cfg.max_batch()
+        } else {
+            BATCH
+        }
+    }
+
     /// Whether the next announce frame can be tagged (always, when unauthenticated).
     fn can_send(&self) -> bool {
         let word = Direction::ToTransmitter.pad_word(self.next_num);
@@ -378,7 +386,7 @@ where
             return true;
         }
         let d = slot.wrapping_sub(self.batch_prev);
-        self.batch_n < BATCH
+        self.batch_n < self.batch_limit()
             && ANNOUNCE_FIXED + self.batch_deltas + varint_len(d) + (self.batch_n + 1).div_ceil(8)
                 <= MAX_PAYLOAD
     }
@@ -647,7 +655,7 @@ where
         if self.slots.push_back(a.slot << 1 | a.basis as u64).is_err() {
             self.counters.refused_announcements += 1;
         }
-        if self.batch_n >= BATCH {
+        if self.batch_n >= self.batch_limit() {
             self.send_batch();
         }
     }

@@ -168,8 +168,8 @@ pub struct AuthSummary {
 pub struct LinkSummary {
     /// The link model.
     pub model: LinkModel,
-    /// RAM of the core's endpoint as the host instantiates it (64-announcement batches, 1024
-    /// open announcements), bytes (`core::mem::size_of`).
+    /// RAM of the core's endpoint as the host instantiates it (batches of up to 512
+    /// announcements, 1024 open announcements, 512 pad words), bytes (`core::mem::size_of`).
     pub endpoint_ram_bytes: usize,
     /// What the model did to frames from the receiver.
     pub channel_up: ChannelStats,
@@ -367,7 +367,7 @@ impl std::fmt::Display for LinkSummary {
         }
         writeln!(
             f,
-            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 64, 1024, 512>)",
+            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 512, 1024, 512>)",
             self.endpoint_ram_bytes
         )?;
         if let (Some(n), Some(p)) = (self.key_blocks_written, &self.key_file) {
