@@ -404,3 +404,94 @@ proptest! {
         }
     }
 }
+
+/// The tagged example of docs/wire-protocol.md §9: the §7 frames, authenticated with the hash key
+/// of RFC 8452's Appendix A and a pre-shared key whose byte i is i.
+#[test]
+fn documented_tagged_frames() {
+    let h: [u8; 16] = [
+        0x25, 0x62, 0x93, 0x47, 0x58, 0x92, 0x42, 0x76, 0x1d, 0x31, 0xf8, 0x26, 0xba, 0x4b, 0x75,
+        0x7b,
+    ];
+    let pre: Vec<u8> = (0..=255u8).collect();
+    let (mut rx, mut tx) = (
+        LinkAuth::<32>::new(AuthConfig::DEFAULT, h, &pre).unwrap(),
+        LinkAuth::<32>::new(AuthConfig::DEFAULT, h, &pre).unwrap(),
+    );
+    let entries = [ann(1000, false), ann(1003, true), ann(1300, false)];
+    let report = Report {
+        resolved_below: 4,
+        answered_map: 0b1011,
+    };
+    let mut p = [0u8; 64];
+    let n = announce::emit(&entries, report, 0, &mut p).unwrap();
+    let m = TagInput {
+        dir: Direction::ToTransmitter,
+        record: RecordType::Announce,
+        seq: 5,
+        num: 5,
+        payload: &p[..n],
+    };
+    let full_a = tag::polyval_hash(&h, Some(&m.header_block()), m.payload);
+    let ta = rx.seal(&m).unwrap();
+    assert_eq!(tx.verify(&m, Some(&ta)), Ok(()));
+    let a = tagged(RecordType::Announce, 5, &p[..n], &ta);
+    let hb_a = m.header_block();
+    let e = [
+        AnswerEntry { basis_match: true, intensity: 0, bit: Some(1) },
+        AnswerEntry { basis_match: false, intensity: 1, bit: None },
+        AnswerEntry { basis_match: true, intensity: 0, bit: None },
+    ];
+    let n = answers::emit(5, 1000, &e, &mut p).unwrap();
+    let m = TagInput {
+        dir: Direction::ToReceiver,
+        record: RecordType::Answers,
+        seq: 9,
+        num: 5,
+        payload: &p[..n],
+    };
+    let full_b = tag::polyval_hash(&h, Some(&m.header_block()), m.payload);
+    let tb = tx.seal(&m).unwrap();
+    assert_eq!(rx.verify(&m, Some(&tb)), Ok(()));
+    let b = tagged(RecordType::Answers, 9, &p[..n], &tb);
+    let hb_b = m.header_block();
+    let unstuff = |f: &[u8]| {
+        let mut raw = [0u8; 80];
+        let k = cobs::decode(&f[..f.len() - 1], &mut raw).unwrap();
+        raw[..k].to_vec()
+    };
+    for (name, v) in [
+        ("block0 a", hb_a.to_vec()),
+        ("polyval a", full_a.to_vec()),
+        ("tag a", ta.to_vec()),
+        ("raw a", unstuff(&a)),
+        ("wire a", a.clone()),
+        ("block0 b", hb_b.to_vec()),
+        ("polyval b", full_b.to_vec()),
+        ("tag b", tb.to_vec()),
+        ("raw b", unstuff(&b)),
+        ("wire b", b.clone()),
+    ] {
+        println!("{name}: {}", hex(&v));
+    }
+    assert_eq!(hex(&full_a), "F6 AE 6E B6 BF F0 B5 56 B6 15 EB CD DA 36 7B 81");
+    assert_eq!(
+        hex(&unstuff(&a)),
+        "02 03 05 00 19 00 E8 03 00 00 00 00 00 00 03 00 04 00 0B 00 00 00 00 00 00 00 00 03 A9 \
+         02 02 A6 FF 3C E5 EB A5 E3 01 4E F5 25 24"
+    );
+    assert_eq!(hex(&full_b), "00 29 0A 2C F5 5F FB 07 66 B1 7C C5 40 CD 07 3E");
+    assert_eq!(
+        hex(&unstuff(&b)),
+        "02 04 09 00 0F 00 05 00 03 00 E8 03 00 00 00 00 00 00 07 08 01 58 70 50 77 A9 02 A5 58 \
+         6C 04 3C 1E"
+    );
+    // Pad words 10 and 11 (bytes 0x50..0x5F of the pre-shared key): frame 5's pad pair.
+    let pad_a: Vec<u8> = (0x50..0x58).collect();
+    let pad_b: Vec<u8> = (0x58..0x60).collect();
+    for ((t, f), pad) in [(ta, full_a), (tb, full_b)].iter().zip([pad_a, pad_b]) {
+        for i in 0..TAG_LEN {
+            assert_eq!(t[i], f[i] ^ pad[i]);
+        }
+    }
+}
