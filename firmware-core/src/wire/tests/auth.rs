@@ -438,9 +438,21 @@ fn documented_tagged_frames() {
     let a = tagged(RecordType::Announce, 5, &p[..n], &ta);
     let hb_a = m.header_block();
     let e = [
-        AnswerEntry { basis_match: true, intensity: 0, bit: Some(1) },
-        AnswerEntry { basis_match: false, intensity: 1, bit: None },
-        AnswerEntry { basis_match: true, intensity: 0, bit: None },
+        AnswerEntry {
+            basis_match: true,
+            intensity: 0,
+            bit: Some(1),
+        },
+        AnswerEntry {
+            basis_match: false,
+            intensity: 1,
+            bit: None,
+        },
+        AnswerEntry {
+            basis_match: true,
+            intensity: 0,
+            bit: None,
+        },
     ];
     let n = answers::emit(5, 1000, &e, &mut p).unwrap();
     let m = TagInput {
@@ -474,13 +486,19 @@ fn documented_tagged_frames() {
     ] {
         println!("{name}: {}", hex(&v));
     }
-    assert_eq!(hex(&full_a), "F6 AE 6E B6 BF F0 B5 56 B6 15 EB CD DA 36 7B 81");
+    assert_eq!(
+        hex(&full_a),
+        "F6 AE 6E B6 BF F0 B5 56 B6 15 EB CD DA 36 7B 81"
+    );
     assert_eq!(
         hex(&unstuff(&a)),
         "02 03 05 00 19 00 E8 03 00 00 00 00 00 00 03 00 04 00 0B 00 00 00 00 00 00 00 00 03 A9 \
          02 02 A6 FF 3C E5 EB A5 E3 01 4E F5 25 24"
     );
-    assert_eq!(hex(&full_b), "00 29 0A 2C F5 5F FB 07 66 B1 7C C5 40 CD 07 3E");
+    assert_eq!(
+        hex(&full_b),
+        "00 29 0A 2C F5 5F FB 07 66 B1 7C C5 40 CD 07 3E"
+    );
     assert_eq!(
         hex(&unstuff(&b)),
         "02 04 09 00 0F 00 05 00 03 00 E8 03 00 00 00 00 00 00 07 08 01 58 70 50 77 A9 02 A5 58 \
