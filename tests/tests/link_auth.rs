@@ -5,8 +5,9 @@
 //! - both sides' sifted keys cover the same slots with the same bits (error-free optics);
 //! - the key accounting is exact (loaded = used + wiped + left on both ends; one tag per frame
 //!   sent; one check passed per answered frame; refusals by reason add up);
-//! - the attack alarm is raised;
-//! and, as a control, that the same bit-flipping adversary gets forged answers accepted when the
+//! - the attack alarm is raised.
+//!
+//! As a control, that the same bit-flipping adversary gets forged answers accepted when the
 //! link is not authenticated.
 
 use slotwise_sim::cli::{run_simulated_linked, ClockArgs};

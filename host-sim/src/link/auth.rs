@@ -24,7 +24,7 @@ use slotwise::wire::{widen_seq, AnnounceView, AnswerEntry, AuthConfig, LinkAuth}
 pub const PRESHARED_WORDS: u64 = 256;
 
 /// Stream of the key supply under the link seed.
-const STREAM_KEY: u64 = 0x4B45_59;
+const STREAM_KEY: u64 = 0x004B_4559;
 
 /// The key both ends share: a hash key and a stream of pad words, indexed from 0.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -181,7 +181,7 @@ impl Adversary {
                 self.stats.replayed += 1;
                 out.push(up(frame.clone(), 1));
             }
-            LinkAttack::Delay if self.announces_seen % 3 == 0 => {
+            LinkAttack::Delay if self.announces_seen.is_multiple_of(3) => {
                 self.stats.delayed += 1;
                 out.push(up(frame, self.hold_slots / 16));
                 return out;
@@ -211,7 +211,7 @@ impl Adversary {
             frame,
         };
         match self.attack {
-            LinkAttack::Flip if self.answers_seen % 2 == 0 => match flip(&frame) {
+            LinkAttack::Flip if self.answers_seen.is_multiple_of(2) => match flip(&frame) {
                 Some(f) => {
                     self.stats.forged += 1;
                     vec![down(f, 0)]
@@ -222,7 +222,7 @@ impl Adversary {
                 self.stats.replayed += 1;
                 vec![down(frame.clone(), 0), down(frame, 1)]
             }
-            LinkAttack::Delay if self.answers_seen % 4 == 0 => {
+            LinkAttack::Delay if self.answers_seen.is_multiple_of(4) => {
                 self.stats.delayed += 1;
                 vec![down(frame, self.hold_slots)]
             }
@@ -268,7 +268,7 @@ impl Adversary {
             }
             None => self.rng.next_u64().to_le_bytes(),
         };
-        Some(tagged(RecordType::Answers, seq, &p[..n], &tag)?)
+        tagged(RecordType::Answers, seq, &p[..n], &tag)
     }
 }
 
