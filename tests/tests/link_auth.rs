@@ -35,12 +35,15 @@ fn scenario() -> Scenario {
 }
 
 fn run(attack: Option<LinkAttack>, authenticated: bool) -> LinkSummary {
-    let s = scenario();
-    let model = LinkModel {
+    run_with(LinkModel {
         attack,
         authenticated,
-        ..LinkModel::perfect(&s)
-    };
+        ..LinkModel::perfect(&scenario())
+    })
+}
+
+fn run_with(model: LinkModel) -> LinkSummary {
+    let s = scenario();
     let (summary, _, _) = run_simulated_linked(&s, &clock(), None, Some(model), None).unwrap();
     summary.link.unwrap()
 }
@@ -57,7 +60,6 @@ fn exact(side: &AuthSide) {
         "{side:?}"
     );
     assert_eq!(side.refused_total, side.refused.values().sum::<u64>());
-    assert_eq!(side.starved_frames, 0);
 }
 
 #[test]
@@ -83,6 +85,7 @@ fn every_attack_is_refused_and_both_keys_stay_identical() {
         assert!(l.keys.receiver_bits > 1000, "{what}");
         exact(&a.receiver);
         exact(&a.transmitter);
+        assert_eq!(a.receiver.starved_frames + a.transmitter.starved_frames, 0);
         // One tag per frame sent; one passed check per frame answered or reported.
         assert_eq!(a.receiver.frames_tagged, l.receiver.frames_sent, "{what}");
         assert_eq!(
@@ -136,4 +139,30 @@ fn without_authentication_a_bit_flipper_gets_forged_answers_accepted() {
     let l = run(Some(LinkAttack::Flip), false);
     assert!(l.auth.is_none());
     assert!(l.forgeries_accepted > 10, "{}", l.forgeries_accepted);
+}
+
+/// When the key runs out the link stops sending: no untagged frame, every later announcement
+/// refused and counted, the close still reported with the key kept for it, both keys identical.
+#[test]
+fn out_of_key_the_link_stops_and_both_keys_stay_identical() {
+    let l = run_with(LinkModel {
+        auth_key_words: 1000,
+        ..LinkModel::perfect(&scenario())
+    });
+    let a = l.auth.as_ref().unwrap();
+    assert!(
+        a.receiver.stopped && a.receiver.starved_frames == 1,
+        "{a:#?}"
+    );
+    assert!(a.receiver.low_key_alarms > 0);
+    assert_eq!(a.receiver.frames_tagged, l.receiver.frames_sent);
+    assert_eq!(a.receiver.key_bits_loaded, 1000 * 64);
+    exact(&a.receiver);
+    assert!(l.receiver.refused_announcements > 1000, "{:?}", l.receiver);
+    assert!(
+        l.keys.same_slots && l.keys.bit_differences == 0,
+        "{:?}",
+        l.keys
+    );
+    assert!(l.keys.receiver_bits > 1000);
 }

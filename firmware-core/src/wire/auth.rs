@@ -139,6 +139,9 @@ pub struct LinkAuth<const WORDS: usize> {
     recent: u64,
     attack: bool,
     low: bool,
+    /// Out of key for a new frame: nothing new is sent, checks and closing reports go on.
+    starved: bool,
+    /// Too many refusals: nothing is sent or accepted any more.
     stopped: bool,
     counters: AuthCounters,
 }
@@ -166,6 +169,7 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
             recent: 0,
             attack: false,
             low: false,
+            starved: false,
             stopped: false,
             counters: AuthCounters::default(),
         };
@@ -203,10 +207,16 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         self.low
     }
 
-    /// Whether the link has stopped: out of key for a frame, or too many refusals. It never
-    /// sends or accepts a frame again.
+    /// Whether the link has stopped after too many refusals: it never sends or accepts a frame
+    /// again.
     pub const fn stopped(&self) -> bool {
         self.stopped
+    }
+
+    /// Whether the pool ran out of key for a new frame: the link sends no new frame (it still
+    /// checks answers to frames already sent, and closes with key it kept for that).
+    pub const fn starved(&self) -> bool {
+        self.starved
     }
 
     /// Load refill key `key` as pad words from `first_word` on (all or nothing); returns the
@@ -222,13 +232,13 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         !self.stopped && self.pool.state(word) == PadState::Fresh
     }
 
-    /// A frame could not be sent for want of its pad word: count it and stop the link for good.
+    /// A frame could not be sent for want of key: count it; no new frame is sent from now on.
     pub fn starve(&mut self) {
         self.counters.starved_frames += 1;
-        self.stopped = true;
+        self.starved = true;
     }
 
-    /// Tag an outgoing frame with its pad word (spent and wiped); without one the link stops.
+    /// Tag an outgoing frame with its pad word (spent and wiped); without one the link starves.
     pub fn seal(&mut self, m: &TagInput<'_>) -> Result<[u8; TAG_LEN], Reject> {
         let word = m.dir.pad_word(m.num);
         let pad = if self.stopped {

@@ -43,6 +43,10 @@ use zeroize::Zeroize;
 pub const MAX_OPEN_FRAMES: usize = 32;
 /// Bytes read from the link per call to `read`.
 pub const READ_CHUNK: usize = 64;
+/// Final reports an authenticated endpoint keeps key for: it sends no announce frame that would
+/// leave it unable to close (the transmitter keeps an answered frame's bits only once a report
+/// says so).
+pub const CLOSE_RESERVE: u64 = 4;
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 enum FrameState {
@@ -232,9 +236,11 @@ where
     }
 
     /// Whether the link has stopped for want of key or after too many refusals (authenticated
-    /// links only): it sends nothing more, and every announcement is refused and counted.
+    /// links only): it sends no new announce frame, and every announcement is refused and counted.
     pub fn stopped(&self) -> bool {
-        self.auth.as_ref().is_some_and(LinkAuth::stopped)
+        self.auth
+            .as_ref()
+            .is_some_and(|a| a.stopped() || a.starved())
     }
 
     /// What the endpoint did so far.
@@ -375,10 +381,15 @@ where
         }
     }
 
-    /// Whether the next announce frame can be tagged (always, when unauthenticated).
+    /// Whether the next announce frame can be tagged with key to spare for closing: the pad
+    /// words of [`CLOSE_RESERVE`] final reports after it must be loaded too (always true when
+    /// unauthenticated).
     fn can_send(&self) -> bool {
         let word = Direction::ToTransmitter.pad_word(self.next_num);
-        self.auth.as_ref().is_none_or(|a| a.can_tag(word))
+        let reserve = Direction::ToTransmitter.pad_word(self.next_num + CLOSE_RESERVE);
+        self.auth
+            .as_ref()
+            .is_none_or(|a| a.can_tag(word) && a.can_tag(reserve))
     }
 
     fn batch_fits(&self, slot: u64) -> bool {

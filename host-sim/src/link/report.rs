@@ -111,7 +111,7 @@ pub struct AuthSide {
     pub low_key_alarms: u64,
     /// Times the attack alarm rose.
     pub attack_alarms: u64,
-    /// Whether the link stopped (out of key, or too many refusals).
+    /// Whether the link stopped (out of key for new frames, or too many refusals).
     pub stopped: bool,
 }
 
@@ -237,14 +237,15 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
     let keys = compare(link, rx_bits);
     let (frx, ftx) = link.forgeries_accepted();
     let auth = link.endpoint().auth().map(|ra| {
-        let rx = AuthSide::of(ra.counters(), &c.rejected, ra.key_bits_left(), ra.stopped());
+        let stopped = ra.stopped() || ra.starved();
+        let rx = AuthSide::of(ra.counters(), &c.rejected, ra.key_bits_left(), stopped);
         let tx = link.with_tx(|tx| {
             tx.auth().map(|ta| {
                 AuthSide::of(
                     ta.counters(),
                     &tx.counters().rejected,
                     ta.key_bits_left(),
-                    ta.stopped(),
+                    ta.stopped() || ta.starved(),
                 )
             })
         });
@@ -379,10 +380,22 @@ impl std::fmt::Display for LinkSummary {
 
 fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Result {
     let (r, t) = (&a.receiver, &a.transmitter);
-    let alarm = |s: &AuthSide| match (s.attack_alarms, s.stopped) {
-        (_, true) => "STOPPED".to_string(),
-        (0, _) => "no alarm".to_string(),
-        (n, _) => format!("ATTACK ALARM x{n}"),
+    let alarm = |s: &AuthSide| {
+        let mut v = Vec::new();
+        if s.stopped {
+            v.push("STOPPED".to_string());
+        }
+        if s.attack_alarms > 0 {
+            v.push(format!("ATTACK ALARM x{}", s.attack_alarms));
+        }
+        if s.low_key_alarms > 0 {
+            v.push(format!("low-key alarm x{}", s.low_key_alarms));
+        }
+        if v.is_empty() {
+            "no alarm".to_string()
+        } else {
+            v.join(", ")
+        }
     };
     writeln!(
         f,

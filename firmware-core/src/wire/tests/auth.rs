@@ -246,12 +246,15 @@ fn authenticated_endpoint_refuses_every_attack() {
 
 #[test]
 fn an_empty_pool_stops_the_link() {
-    // Pad words 0 and 1 serve announce frame 0 and its answers; nothing is left for frame 1.
-    let (mut l, _down, up) = alink(2);
+    // Frame 0 takes pad words 0 and 1 and keeps words 2, 4, 6, 8 for closing reports; frame 1
+    // would leave too little to close, so the link stops before sending it.
+    let (mut l, down, up) = alink(10);
+    let mut tx = Tx::new(10);
     for s in 0..8 {
         l.announce(ann(10 + s, false));
     }
-    assert_eq!(frames_in_tagged(&drain(&up)).len(), 1);
+    let sent = drain(&up);
+    assert_eq!(frames_in_tagged(&sent).len(), 1);
     for s in 0..8 {
         l.announce(ann(30 + s, false));
     }
@@ -261,22 +264,30 @@ fn an_empty_pool_stops_the_link() {
     let c = l.counters();
     assert_eq!((c.announcements, c.refused_announcements), (8, 9));
     assert_eq!(l.auth().unwrap().counters().starved_frames, 1);
-    // A refill does not restart a stopped link: it fails closed.
-    assert_eq!(l.refill(2, &key(4, 3)), Ok(4));
+    // Frames already sent are still answered, and the link closes with the key it kept.
+    down.0.borrow_mut().extend(tx.answer(&sent));
+    assert_eq!(apoll(&mut l).len(), 8);
+    l.close();
+    let fin = drain(&up);
+    assert_eq!(frames_in_tagged(&fin).len(), 1);
+    assert!(tx.answer(&fin).is_empty());
+    assert_eq!(tx.auth.counters().frames_verified, 2);
+    // A refill does not restart a starved link: it fails closed until a new session.
+    assert_eq!(l.refill(10, &key(4, 3)), Ok(4));
     l.announce(ann(200, false));
     assert!(l.stopped() && drain(&up).is_empty());
 }
 
 #[test]
 fn refill_frames_load_the_pool() {
-    let (mut l, _, up) = alink(4);
+    let (mut l, _, up) = alink(8);
     // A batch half built when the refill arrives is not disturbed by it.
     for s in [10, 13, 400] {
         l.announce(ann(s, s == 13));
     }
     let k = key(3, 5);
     let mut p = vec![0u8; 64];
-    let n = refill::emit(4, &k, &mut p).unwrap();
+    let n = refill::emit(8, &k, &mut p).unwrap();
     let good = frame_bytes(RecordType::KeyRefill, 0, &p[..n]);
     assert_eq!(l.take_refill_frame(&good), Ok(3));
     assert!(l.take_refill_frame(&good).is_err());
@@ -286,7 +297,7 @@ fn refill_frames_load_the_pool() {
     let mut bad = good.clone();
     bad[5] ^= 1;
     assert!(l.take_refill_frame(&bad).is_err());
-    assert_eq!(l.auth().unwrap().key_bits_left(), 7 * 64);
+    assert_eq!(l.auth().unwrap().key_bits_left(), 11 * 64);
     l.flush();
     let f = frames_in_tagged(&drain(&up)).remove(0);
     let v = AnnounceView::parse(&f.2).unwrap();
