@@ -24,7 +24,7 @@ impl fmt::Display for LinkConfigError {
 
 impl core::error::Error for LinkConfigError {}
 
-/// Validated settings of a [`ReceiverLink`].
+/// Validated settings of a [`ReceiverLink`](super::ReceiverLink).
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct LinkConfig {
