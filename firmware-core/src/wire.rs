@@ -32,10 +32,12 @@ pub mod seqwin;
 
 pub use crate::formats::announce::{AnnounceView, Report};
 pub use crate::formats::answers::{AnswerEntry, AnswersView};
-pub use auth::{widen_seq, AuthConfig, AuthConfigError, AuthCounters, LinkAuth};
+pub use auth::{
+    check_frame, widen_seq, AuthConfig, AuthConfigError, AuthCounters, LinkAuth, RefillFrameError,
+};
 pub use config::{LinkConfig, LinkConfigError, LinkCounters};
 pub use decoder::FrameDecoder;
-pub use endpoint::{ReceiverLink, RefillFrameError};
+pub use endpoint::ReceiverLink;
 pub use keypool::{KeyPool, PadState, PoolCounters, RefillError};
 pub use seqwin::{SeqClass, SeqWindow};
 

@@ -19,8 +19,8 @@
 
 use super::keypool::{KeyPool, PadState, RefillError};
 use super::Reject;
-use crate::formats::tag::{tag, tags_equal, TagInput, HASH_KEY_LEN, PAD_LEN};
-use crate::formats::TAG_LEN;
+use crate::formats::tag::{tag, tags_equal, Direction, TagInput, HASH_KEY_LEN, PAD_LEN};
+use crate::formats::{Frame, FrameError, TAG_LEN};
 use core::fmt;
 use zeroize::Zeroize;
 
@@ -317,6 +317,51 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         }
         self.low = low;
     }
+}
+
+/// Why a key-refill frame was not loaded.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum RefillFrameError {
+    /// The frame or its payload is broken, or it is not an untagged refill record.
+    Frame(FrameError),
+    /// The pool refused the key (gap, overlap, no room, or an unauthenticated link).
+    Pool(RefillError),
+}
+
+impl fmt::Display for RefillFrameError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            Self::Frame(e) => write!(f, "refill frame: {e}"),
+            Self::Pool(e) => write!(f, "refill key: {e}"),
+        }
+    }
+}
+
+impl core::error::Error for RefillFrameError {}
+
+/// Check a decoded frame travelling `dir` with frame number `num`: its tag on an authenticated
+/// end (`auth` given), its lack of one on an unauthenticated end. Both ends of the link use it.
+pub fn check_frame<const W: usize>(
+    auth: Option<&mut LinkAuth<W>>,
+    dir: Direction,
+    num: u64,
+    f: &Frame<'_>,
+) -> Result<(), Reject> {
+    let Some(auth) = auth else {
+        return match f.tag {
+            Some(_) => Err(Reject::Untagged),
+            None => Ok(()),
+        };
+    };
+    let m = TagInput {
+        dir,
+        record: f.record,
+        seq: f.seq,
+        num,
+        payload: f.payload,
+    };
+    auth.verify(&m, f.tag.as_ref())
 }
 
 /// The full frame number whose low 16 bits are `seq`, nearest to `near` (serial-number

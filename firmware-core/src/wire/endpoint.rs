@@ -15,7 +15,7 @@
 //! answers count as `unmatched` in [`AnswerErrors`](crate::AnswerErrors)), but both sides' keys
 //! may then differ.
 
-use super::auth::LinkAuth;
+use super::auth::{check_frame, LinkAuth, RefillFrameError};
 use super::config::{LinkConfig, LinkCounters};
 use super::decoder::FrameDecoder;
 use super::keypool::RefillError;
@@ -34,7 +34,6 @@ use crate::formats::refill::RefillView;
 use crate::formats::tag::{Direction, TagInput};
 use crate::gates::Basis;
 use crate::sift::{Announcement, Answer, Transmitter};
-use core::fmt;
 use embedded_io::{Read, ReadReady, Write};
 use heapless::Deque;
 use zeroize::Zeroize;
@@ -739,30 +738,8 @@ where
     }
 }
 
-/// Why a key-refill frame was not loaded.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub enum RefillFrameError {
-    /// The frame or its payload is broken, or it is not an untagged refill record.
-    Frame(FrameError),
-    /// The pool refused the key (gap, overlap, no room, or an unauthenticated link).
-    Pool(RefillError),
-}
-
-impl fmt::Display for RefillFrameError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            Self::Frame(e) => write!(f, "refill frame: {e}"),
-            Self::Pool(e) => write!(f, "refill key: {e}"),
-        }
-    }
-}
-
-impl core::error::Error for RefillFrameError {}
-
 /// Authenticate an answers frame before anything reads it: its pad word follows from the
-/// announce frame it answers (`ann_seq`, widened against the frames sent). An unauthenticated
-/// link takes only untagged frames.
+/// announce frame it answers (`ann_seq`, widened against the frames sent).
 fn check_tag<const KEYW: usize>(
     auth: Option<&mut LinkAuth<KEYW>>,
     open: &Deque<OpenFrame, MAX_OPEN_FRAMES>,
@@ -770,12 +747,6 @@ fn check_tag<const KEYW: usize>(
     f: &crate::formats::Frame<'_>,
     ann_seq: u16,
 ) -> Result<(), Reject> {
-    let Some(auth) = auth else {
-        return match f.tag {
-            Some(_) => Err(Reject::Untagged),
-            None => Ok(()),
-        };
-    };
     let num = open
         .iter()
         .find(|o| o.seq == ann_seq)
@@ -783,12 +754,5 @@ fn check_tag<const KEYW: usize>(
         .unwrap_or_else(|| {
             next_num.wrapping_sub(u64::from((next_num as u16).wrapping_sub(ann_seq)))
         });
-    let m = TagInput {
-        dir: Direction::ToReceiver,
-        record: f.record,
-        seq: f.seq,
-        num,
-        payload: f.payload,
-    };
-    auth.verify(&m, f.tag.as_ref())
+    check_frame(auth, Direction::ToReceiver, num, f)
 }

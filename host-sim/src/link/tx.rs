@@ -14,6 +14,7 @@ use slotwise::formats::tag::{Direction, TagInput};
 use slotwise::formats::{
     answers, encode_frame, encode_frame_tagged, Frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
 };
+use slotwise::wire::check_frame;
 use slotwise::wire::{
     widen_seq, AnnounceView, AnswerEntry, FrameDecoder, LinkAuth, Reject, RejectCounts, Report,
     SeqClass, SeqWindow,
@@ -385,20 +386,7 @@ fn authenticate(
     f: &Frame<'_>,
 ) -> Result<u64, Reject> {
     let num = widen_seq(f.seq, highest.unwrap_or(0));
-    let Some(a) = auth else {
-        return match f.tag {
-            Some(_) => Err(Reject::Untagged),
-            None => Ok(num),
-        };
-    };
-    let m = TagInput {
-        dir: Direction::ToTransmitter,
-        record: f.record,
-        seq: f.seq,
-        num,
-        payload: f.payload,
-    };
-    a.verify(&m, f.tag.as_ref()).map(|()| num)
+    check_frame(auth, Direction::ToTransmitter, num, f).map(|()| num)
 }
 
 #[cfg(test)]
