@@ -77,7 +77,7 @@ fn every_attack_is_refused_and_both_keys_stay_identical() {
     ] {
         let l = run(Some(attack), true);
         let a = l.auth.as_ref().unwrap();
-        let (_, st) = a.attack.unwrap();
+        let st = a.attack.unwrap().stats;
         let what = format!("{attack:?}: {a:#?}\n{:?}", l.receiver);
         assert_eq!(a.forgeries_accepted, 0, "{what}");
         assert_eq!(l.forgeries_accepted, 0, "{what}");

@@ -205,10 +205,7 @@ where
     pub fn refill(&mut self, first_word: u64, key: &[u8]) -> Result<usize, RefillError> {
         match self.auth.as_mut() {
             Some(a) => a.refill(first_word, key),
-            None => Err(RefillError::NoRoom {
-                words: key.len() / crate::formats::tag::PAD_LEN,
-                room: 0,
-            }),
+            None => Err(RefillError::Unauthenticated),
         }
     }
 
@@ -225,10 +222,7 @@ where
         let v = RefillView::parse(f.payload).map_err(RefillFrameError::Frame)?;
         let r = match self.auth.as_mut() {
             Some(a) => a.refill(v.first_word, v.key),
-            None => Err(RefillError::NoRoom {
-                words: v.words(),
-                room: 0,
-            }),
+            None => Err(RefillError::Unauthenticated),
         };
         self.enc.zeroize();
         r.map_err(RefillFrameError::Pool)

@@ -33,6 +33,8 @@ pub enum RefillError {
         /// Key length, bytes.
         bytes: usize,
     },
+    /// The link is not authenticated: it holds no key pool.
+    Unauthenticated,
     /// The key does not fit beside the words held.
     NoRoom {
         /// Pad words offered.
@@ -57,6 +59,7 @@ impl fmt::Display for RefillError {
                     "{bytes} key bytes are not whole {PAD_LEN}-byte pad words"
                 )
             }
+            Self::Unauthenticated => write!(f, "the link is not authenticated: no key pool"),
             Self::NoRoom { words, room } => {
                 write!(f, "{words} pad words offered, room for {room}")
             }

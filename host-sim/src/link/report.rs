@@ -139,6 +139,16 @@ impl AuthSide {
     }
 }
 
+/// The adversary on the line and what it did.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct AttackSummary {
+    /// The `--link-attack` mode.
+    pub mode: LinkAttack,
+    /// Frames it forged, replayed and held back.
+    #[serde(flatten)]
+    pub stats: AttackStats,
+}
+
 /// The summary's `link.auth` object: Wegman-Carter tags on every frame, both ways.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct AuthSummary {
@@ -160,7 +170,7 @@ pub struct AuthSummary {
     pub key_bits_per_sifted_bit: f64,
     /// The adversary on the line and what it did.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub attack: Option<(LinkAttack, AttackStats)>,
+    pub attack: Option<AttackSummary>,
 }
 
 /// The summary's `link` object.
@@ -262,7 +272,9 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
             transmitter: tx,
             forgeries_accepted: frx + ftx,
             refill_frames: link.refill_frames(),
-            attack: link.attack_stats(),
+            attack: link
+                .attack_stats()
+                .map(|(mode, stats)| AttackSummary { mode, stats }),
         }
     });
     LinkSummary {
@@ -430,7 +442,11 @@ fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Res
             alarm(s)
         )?;
     }
-    if let Some((attack, st)) = &a.attack {
+    if let Some(AttackSummary {
+        mode: attack,
+        stats: st,
+    }) = &a.attack
+    {
         writeln!(
             f,
             "  adversary    {attack:?}: {} frames forged, {} replayed, {} held back",
