@@ -71,6 +71,11 @@ pub trait SlotClock {
     /// (0 before the first lock). A numbering stage restarts its alignment when it changes.
     fn epoch(&self) -> u32;
 
+    /// After the latest epoch change, the new numbers differ from the old by at most ± this
+    /// many slots; `None` when unknown (a cold start, or a clock that never renumbers). No
+    /// default: a wrapper that forgot to forward it would cost a full realignment.
+    fn renumbered_within(&self) -> Option<u64>;
+
     /// The clock's own slot number at time `t_ps` (for coarse hints); `None` without a period.
     fn slot_at(&self, t_ps: u64) -> Option<u64>;
 }
@@ -256,6 +261,10 @@ impl SlotClock for FixedClock {
 
     fn epoch(&self) -> u32 {
         1
+    }
+
+    fn renumbered_within(&self) -> Option<u64> {
+        None
     }
 
     fn slot_at(&self, t_ps: u64) -> Option<u64> {

@@ -352,7 +352,13 @@ impl FrameConfig {
         self.hint_error_slots
     }
 
-    /// The hint-window test's error exponent: wrong offset accepted with probability ≤ 2^−bits.
+    /// Confirmation's bound: a wrong offset survives it with probability ≤ 2^−confirm_bits.
+    pub const fn confirm_bits(&self) -> u8 {
+        self.confirm_bits
+    }
+
+    /// The hint-window test's bound: it accepts a wrong offset with probability
+    /// ≤ 2^−window_bits.
     pub const fn window_bits(&self) -> u8 {
         self.window_bits
     }

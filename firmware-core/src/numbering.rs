@@ -240,6 +240,28 @@ impl<const W: usize> MarkerNumbering<W> {
         }
     }
 
+    /// The clock renumbered: align again. When the clock bounds the change (±k slots) and the
+    /// old offset was established, the window opens around the old offset with that bound, so
+    /// the numbers come back after the window test's few thousand detections instead of the
+    /// full search's tens of thousands.
+    #[inline(never)]
+    fn new_epoch<C: SlotClock + ?Sized>(&mut self, clock: &C, epoch: u32) {
+        if self.epoch != 0 {
+            self.realignments += 1;
+        }
+        let old = match self.aligner.state() {
+            AlignState::Aligned { offset } => Some(offset),
+            _ => None,
+        };
+        self.epoch = epoch;
+        self.aligner.restart();
+        self.window.reset();
+        self.by_window = false;
+        if let (Some(offset), Some(k)) = (old, clock.renumbered_within()) {
+            self.window.open_bounded(offset, k);
+        }
+    }
+
     fn apply_hint<C: SlotClock + ?Sized>(&mut self, clock: &C) {
         if let (Some((t_ps, tx_slot)), AlignState::AwaitingHint { .. }) =
             (self.hint, self.aligner.state())
@@ -263,13 +285,7 @@ impl<const W: usize> Numbering for MarkerNumbering<W> {
     ) -> Numbered {
         let epoch = clock.epoch();
         if epoch != self.epoch {
-            if self.epoch != 0 {
-                self.realignments += 1;
-            }
-            self.epoch = epoch;
-            self.aligner.restart();
-            self.window.reset();
-            self.by_window = false;
+            self.new_epoch(clock, epoch);
         }
         self.aligner.observe(slot, z_bit);
         match self.aligner.state() {

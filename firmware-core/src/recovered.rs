@@ -5,27 +5,35 @@
 //! bounded amount of search work ([`crate::acquire`]) and answers [`Located::NotLocked`]; once
 //! locked it answers slots from the tracking loop ([`crate::track`]) and updates it.
 //!
-//! Lock states: Acquiring (cold prior) → Locked → Lost (blackout, in-window fraction, residual) →
-//! Reacquiring (prior ±`reacquire_ppm` around the last good frequency; the cold prior after
-//! [`NARROW_ATTEMPTS`] failed attempts) → Locked.
+//! Lock states: Acquiring (cold prior) → Locked ⇄ Holdover (the lock's averages failed: the
+//! model is extrapolated, no slot given, see [`crate::track::hold`]) → Lost (the prediction's
+//! bound reached 3/8 slot, or the arrivals were not found) → Reacquiring (prior
+//! ±`reacquire_ppm` around the last good frequency; the cold prior after [`NARROW_ATTEMPTS`]
+//! failed attempts) → Locked.
 //!
-//! ## Slot numbering across a loss
-//! A cold lock numbers slots from the time origin (slot ≈ t·f) and opens numbering epoch 1.
-//! After a relock, the last good model is extrapolated to the new lock's anchor: if the new slot
-//! phase agrees with the prediction within 1/8 slot and the gap times `bridge_ppb` stays below
-//! 1/8 slot, the gap is bridged and numbering continues. Otherwise the slot after the predicted
-//! one is used (numbers never go back), the epoch counter increments, and
-//! [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
-//! [`RecoveredClock::align_numbering`].
-//!
+//! ## Slot numbering across a holdover and a loss
+//! A cold lock numbers slots from the time origin (slot ≈ t·f) and opens numbering epoch 1. A
+//! holdover that ends with the arrivals where predicted, or on a phase jump taken the short way
+//! round, keeps the numbers. A jump within 1/16 slot of half a slot is ambiguous: the epoch
+//! increments with the new numbers within ±1 slot of the old
+//! ([`SlotClock::renumbered_within`]). After a relock, the last good model is extrapolated with
+//! the drift estimate to the new lock's anchor ([`Tracker::predict`]): if the prediction's bound
+//! U stays below 3/8 slot and the new phase agrees with it within U + 1/8 slot, the gap is
+//! bridged and numbering continues. Otherwise the slot after the predicted one is used (numbers
+//! never go back), the epoch increments with the new numbers within ±(⌈U⌉ + 2) slots of the old,
+//! and [`RecoveredClock::slot_numbering_valid`] turns false until frame alignment calls
+//! [`RecoveredClock::align_numbering`]. A numbering stage that knows the old offset then tests
+//! only those few offsets ([`crate::MarkerNumbering`]).
+
 //! ## Memory
-//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 16,728 bytes on
-//! thumbv7em (16,784 on x86_64, where `i128` aligns to 16): the acquisition buffer 10.2 KB
+//! `RecoveredClock<2048, 8, 2>` (the host's and the HIL's capacities) takes 17,136 bytes on
+//! x86_64 (where `i128` aligns to 16; the HIL's size report gives thumbv7em's): the acquisition buffer 10.2 KB
 //! (2048 entries of 5 bytes, see [`crate::acquire`]), the arrival patterns 2.4 KB (17 channel
 //! patterns with 16 positions each), the tracker 2.5 KB (mostly its calibration histograms,
 //! 16 channels × 32 bins), the rest of the acquirer 1.1 KB (candidates, the search step and the
 //! chirp lattice; the drift search added 320 bytes on thumbv7em) and the settings and lock
-//! evidence 0.3 KB. Storing each detection as a 64-bit time and a channel
+//! evidence 0.3 KB, and the holdover's state, drift estimate and channel health (added with
+//! them) 0.35 KB. Storing each detection as a 64-bit time and a channel
 //! byte took 24,976 bytes; the `size_report` test prints every part.
 //!
 //! ## Work per detection
@@ -33,14 +41,17 @@
 //! 17 ms; during confirmation also one fold: n harmonics) plus at most
 //! `work_per_call` search units (see [`crate::acquire`]); [`RecoveredClock::work`] spends more in
 //! idle time. Locked: one loop update — one residual per expected position of the channel
-//! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment. A lock
-//! clears the calibration histograms once (MAX_CHANNELS × 32 counters).
+//! (≤ [`crate::gates::MAX_GATES`]), a few 128-bit multiplies, one histogram increment, the
+//! channel's health average and the gear's fast average; every 4.3 ms one drift sample (a
+//! division). A lock clears the calibration histograms once (MAX_CHANNELS × 32 counters). In
+//! holdover: the prediction (a few 128-bit products) and one fold of n harmonics per detection,
+//! and a matched-filter search over 1024 offsets once when the fold passes its test.
 
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::{AcquireConfig, AcquireConfigError, AcquireStats, AcquiredLock, Acquirer};
 use crate::clock::{Located, SlotClock, SlotPos};
 use crate::gates::MAX_CHANNELS;
-use crate::track::{LockState, LossCause, TrackConfig, Tracker};
+use crate::track::{LockState, LossCause, Resumed, TrackConfig, TrackEvent, Tracker};
 use core::fmt;
 use fixed::types::{U0F32, U32F32};
 
@@ -112,6 +123,12 @@ pub struct LockCounters {
     pub bridged: u32,
     /// Numbering epoch: increments whenever slot numbers restart without continuity.
     pub epoch: u32,
+    /// Holdovers entered (the lock's averages failed; see [`crate::track::hold`]).
+    pub holdovers: u32,
+    /// Holdovers that ended with the arrivals where the prediction put them.
+    pub holdovers_bridged: u32,
+    /// Holdovers that ended on a phase jump of the arrivals, the lock kept.
+    pub jumps: u32,
 }
 
 /// A clock recovered from the detections: buffer `N`, `K` candidates, Z²_`H`.
@@ -127,11 +144,16 @@ pub struct RecoveredClock<const N: usize, const K: usize, const H: usize> {
     last_lock: Option<AcquiredLock>,
     /// Acquisition attempts when the narrow reacquisition started (`None` once widened).
     reacquire_from: Option<u32>,
+    /// After the latest epoch change: the new numbers differ from the old by at most ± this
+    /// many slots (`None`: unknown).
+    renumbered_within: Option<u64>,
+    /// The lock event of the latest detection.
+    last_event: Option<TrackEvent>,
 }
 
 // The host's and the HIL's capacities: 16,784 bytes on x86_64, 16,728 on thumbv7em (see the
 // size report, `size_report` in the tests); the acquisition's drift search added 304 / 320 bytes.
-const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 16_800);
+const _: () = assert!(core::mem::size_of::<RecoveredClock<2048, 8, 2>>() <= 17_300);
 
 /// Failed narrow reacquisition attempts before the search widens to the cold prior.
 pub const NARROW_ATTEMPTS: u32 = 4;
@@ -149,6 +171,8 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
             numbering_valid: false,
             last_lock: None,
             reacquire_from: None,
+            renumbered_within: None,
+            last_event: None,
         })
     }
 
@@ -172,6 +196,11 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
     pub fn align_numbering(&mut self, offset_slots: i64) {
         self.trk.shift_slots(offset_slots);
         self.numbering_valid = true;
+    }
+
+    /// The lock event of the latest detection that had one (holdover started or ended).
+    pub const fn last_event(&self) -> Option<&TrackEvent> {
+        self.last_event.as_ref()
     }
 
     /// Why the last lock was lost.
@@ -221,41 +250,79 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
         let Some(lock) = self.acq.take_lock() else {
             return;
         };
-        let slot = if self.state == LockState::Acquiring {
+        let cold = self.state == LockState::Acquiring;
+        let slot = if cold {
             self.counters.locks += 1;
-            self.counters.epoch += 1;
-            self.numbering_valid = false;
+            self.renumber(None);
             ((u128::from(lock.anchor_t_ps) * u128::from(lock.nu_q64)) >> 64) as u64
         } else {
             self.counters.relocks += 1;
             self.continue_numbering(&lock)
         };
-        self.trk.start(&lock, slot);
+        self.trk.start(&lock, slot, cold);
         self.last_lock = Some(lock);
         self.state = LockState::Locked;
     }
 
-    /// Slot number for the relock's anchor slot, from the last good model.
+    /// Start a new numbering epoch whose numbers differ from the old by at most ±`within`.
+    fn renumber(&mut self, within: Option<u64>) {
+        self.counters.epoch += 1;
+        self.numbering_valid = false;
+        self.renumbered_within = within;
+    }
+
+    /// Slot number for the relock's anchor slot, from the last good model extrapolated with
+    /// the drift estimate ([`Tracker::predict`]): the gap is bridged when the prediction's bound
+    /// stays below 3/8 slot and the new lock's phase agrees with it within that bound plus 1/8
+    /// slot. Otherwise the slot after the predicted one is used (numbers never go back) and a
+    /// new epoch starts, its numbers within the bound (plus one slot) of the old ones.
     fn continue_numbering(&mut self, lock: &AcquiredLock) -> u64 {
-        let s = *self.trk.last_good();
         let frac = i128::from(lock.anchor_phase_q64);
-        let Some(pred) = s.position(lock.anchor_t_ps) else {
-            self.counters.epoch += 1;
-            self.numbering_valid = false;
+        let Some(pred) = self.trk.predict(lock.anchor_t_ps) else {
+            self.renumber(None);
             return ((u128::from(lock.anchor_t_ps) * u128::from(lock.nu_q64)) >> 64) as u64;
         };
-        let mismatch = (pred as u64).wrapping_sub(lock.anchor_phase_q64) as i64;
-        let slot = ((pred - frac + (1 << 63)) >> 64).max(0) as u64;
-        let gap_slots = ((pred - s.pos_q64) >> 64).unsigned_abs();
-        let drift = gap_slots.saturating_mul(u128::from(self.cfg.track.params().bridge_ppb));
-        if mismatch.unsigned_abs() <= 1 << 61 && drift <= 125_000_000 {
+        let mismatch = (pred.pos_q64 as u64).wrapping_sub(lock.anchor_phase_q64) as i64;
+        let slot = ((pred.pos_q64 - frac + (1 << 63)) >> 64).max(0) as u64;
+        let u = pred.bound_q32;
+        if u < crate::track::hold::GIVE_UP_Q32
+            && mismatch.unsigned_abs() >> 32 <= u.saturating_add(1 << 29)
+        {
             self.counters.bridged += 1;
             slot
         } else {
-            self.counters.epoch += 1;
-            self.numbering_valid = false;
+            // Within ⌈U⌉ + 1 slots; beyond a window's reach the numbering searches anyway.
+            let k = (u >> 32).saturating_add(2);
+            self.renumber((k <= 1 << 20).then_some(k));
             slot + 1
         }
+    }
+
+    /// Follow the tracker's lock events.
+    fn follow(&mut self, event: TrackEvent) {
+        match event {
+            TrackEvent::HoldoverStarted(_) => {
+                self.state = LockState::Holdover;
+                self.counters.holdovers += 1;
+            }
+            TrackEvent::Resumed { how, .. } => {
+                self.state = LockState::Locked;
+                match how {
+                    Resumed::Bridged => self.counters.holdovers_bridged += 1,
+                    Resumed::Jump { renumber } => {
+                        self.counters.jumps += 1;
+                        if renumber {
+                            self.renumber(Some(1));
+                        }
+                    }
+                }
+            }
+            // Entered and given up on one detection (the first after a long dark gap): still a
+            // holdover.
+            TrackEvent::Lost(_) if self.state == LockState::Locked => self.counters.holdovers += 1,
+            TrackEvent::Lost(_) => {}
+        }
+        self.last_event = Some(event);
     }
 
     fn handle(&mut self, channel: Option<u8>, t_ps: u64) -> Located {
@@ -276,7 +343,7 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
                 .restart(cold.nominal_nu_q64(), cold.params().prior_ppm);
             self.reacquire_from = None;
         }
-        if self.state != LockState::Locked {
+        if !matches!(self.state, LockState::Locked | LockState::Holdover) {
             self.acq.push(t_ps, channel, &self.pattern);
             self.work(self.cfg.acquire.params().work_per_call);
             return Located::NotLocked;
@@ -284,6 +351,9 @@ impl<const N: usize, const K: usize, const H: usize> RecoveredClock<N, K, H> {
         let r = self
             .trk
             .update(t_ps, channel, self.pattern.channel(channel));
+        if let Some(e) = self.trk.take_event() {
+            self.follow(e);
+        }
         if !self.trk.is_locked() {
             self.state = LockState::Lost;
             self.counters.losses += 1;
@@ -318,6 +388,10 @@ impl<const N: usize, const K: usize, const H: usize> SlotClock for RecoveredCloc
 
     fn epoch(&self) -> u32 {
         self.counters.epoch
+    }
+
+    fn renumbered_within(&self) -> Option<u64> {
+        self.renumbered_within
     }
 
     /// The recovered clock numbers slots from the time origin (slot ≈ t / T).

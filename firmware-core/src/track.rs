@@ -54,300 +54,57 @@
 //! products are 64×64→high 64 ([`crate::clock`]'s `mul_hi`) and 32×32→64, so a 32-bit core
 //! never calls a 128-bit multiply in the steady state.
 //!
-//! ## Lock quality and loss
+//! ## Lock quality, gears and holdover
 //! Two averages over about 2^`average_shift` detections: the fraction of detections inside the
-//! window, and the mean squared residual of those inside. The lock is lost when the fraction
-//! falls below the midpoint between its value at lock and the value uniform noise would give (a
-//! phase jump or a frequency step moves the peaks out of the windows), when the rms residual
-//! exceeds `max_rms`, or when no in-window detection came for `blackout_ps`. Reacquisition and
-//! slot-numbering continuity across the gap are decided by the recovered clock.
+//! window, and the mean squared residual of those inside. When the fraction falls below the
+//! midpoint between its value at lock and the value uniform noise would give (a cut, a phase
+//! jump, a frequency step the loop could not follow), when the rms residual exceeds `max_rms`,
+//! or when no in-window detection came for `blackout_ps`, the tracker goes into holdover
+//! ([`hold`]): it extrapolates its last good model with the drift estimate (`drift`), gives no
+//! slot, and looks for the arrivals around the prediction. It resumes with the numbers kept
+//! when it finds them, and loses the lock when the prediction's error bound reaches 3/8 slot;
+//! reacquisition and the numbering after a loss are the recovered clock's.
 //!
+//! A fast average of the in-window residuals (over about 16) shifts the loop into a wide gear
+//! (`wide_factor` times the bandwidth, Rice's gains for it) when its bias exceeds the
+//! single-detection rms, and back after 2^`average_shift` calm detections. A type-II loop
+//! answers a frequency step Δf (slots/s) with a peak phase error of e^(−π/4)·Δf/ω_n ≈
+//! 0.46·Δf/ω_n at ζ = 0.707 [derived from the loop's step response]: 0.35 slot for +2 ppm at
+//! 100 MHz and ω_n = 264 rad/s, far outside a ±1/16-slot window, and 0.02 slot with 16 times
+//! ω_n. A lock and a holdover's end also start wide, to pull in their residual error.
+//!
+//! Each channel's own in-window fraction is watched (`health`): a blinded or saturated detector
+//! is set aside, its detections given no slot, without taking the lock down. Once the drift
+//! estimate is in use, the model's frequency is steered by it between loop updates
+//! (`Tracker::steer`), so the loop carries no ramp lag and a model without in-window
+//! detections for a while follows the drift instead of walking off it.
+
 //! ## Delay calibration
 //! While locked, each channel keeps a 32-bin histogram of its residuals over ±1/2 slot and the
 //! sum of those within ±w; [`Tracker::delay_corrections_ps`] turns them into per-channel delay
 //! corrections (the noise inside the window is estimated from a guard band of equal width).
 
+mod cal;
+mod config;
+mod drift;
+mod health;
+pub mod hold;
+mod snapshot;
+
+pub use config::{bandwidth_for_mhz, TrackConfig, TrackConfigError, TrackParams};
+pub use hold::{Prediction, Resumed, TrackEvent};
+pub use snapshot::Snapshot;
+
 use crate::acquire::fold::ChannelPattern;
 use crate::acquire::AcquiredLock;
-use crate::clock::{mul_hi, Located, SlotPos};
+use crate::clock::{Located, SlotPos};
 use crate::gates::MAX_CHANNELS;
-use core::fmt;
-use fixed::types::{U0F32, U0F64, U32F32};
-
-/// Tracking settings before validation.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-// No defmt::Format: the fixed-point fields have none.
-pub struct TrackParams {
-    /// Loop noise bandwidth B_n in mHz.
-    pub bandwidth_mhz: u32,
-    /// Damping ζ in thousandths (707 for 1/√2).
-    pub damping_milli: u32,
-    /// Expected rate R of signal detections (noise excluded) inside the window, per second
-    /// (at most 10¹²: one per ps).
-    pub rate_per_s: u64,
-    /// Half-width w of the window around each expected position, slot fraction (0, 1/4].
-    pub window: U0F32,
-    /// Averages run over about 2^shift detections (1..=16).
-    pub average_shift: u8,
-    /// Lock is lost after this long without an in-window detection, ps.
-    pub blackout_ps: u64,
-    /// Lock is lost when the rms residual of in-window detections exceeds this, slot fraction.
-    pub max_rms: U0F32,
-    /// Frequency uncertainty assumed when bridging a gap, parts per 10⁹.
-    pub bridge_ppb: u32,
-    /// The loop filter runs once per this many in-window detections, on their mean residual
-    /// (a power of two, 1..=65536; 1: at every one).
-    pub update_every: u32,
-}
-
-impl TrackParams {
-    /// Defaults: ζ = 0.707, w = 1/16 slot, averages over 256, max rms w/2, bridge 50 ppb (about
-    /// five times the loop's frequency rms at the rates of the examples above), an update at
-    /// every in-window detection.
-    pub const fn new(bandwidth_mhz: u32, rate_per_s: u64, blackout_ps: u64) -> Self {
-        Self {
-            bandwidth_mhz,
-            damping_milli: 707,
-            rate_per_s,
-            window: U0F32::from_bits(1 << 28),
-            average_shift: 8,
-            blackout_ps,
-            max_rms: U0F32::from_bits(1 << 27),
-            bridge_ppb: 50,
-            update_every: 1,
-        }
-    }
-}
-
-/// Why tracking settings were refused.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub enum TrackConfigError {
-    /// Zero bandwidth or zero rate.
-    Zero,
-    /// Rate above 10¹² per second.
-    Rate,
-    /// B_n·T_u' above 0.1 (loop too wide for its update interval T_u' = update_every/R).
-    TooWide,
-    /// Damping outside 0.1..=4.
-    Damping,
-    /// Window zero or wider than a quarter slot.
-    Window,
-    /// Averaging shift outside 1..=16.
-    AverageShift,
-    /// Zero blackout time or zero max rms.
-    Limits,
-    /// `update_every` not a power of two in 1..=65536.
-    UpdateEvery,
-}
-
-impl fmt::Display for TrackConfigError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            Self::Zero => write!(f, "bandwidth_mhz and rate_per_s must be nonzero"),
-            Self::Rate => write!(f, "rate_per_s must be at most 10^12"),
-            Self::TooWide => write!(
-                f,
-                "bandwidth_mhz · update_every / rate_per_s exceeds 0.1 (B_n·T_u)"
-            ),
-            Self::Damping => write!(f, "damping_milli must lie in 100..=4000"),
-            Self::Window => write!(f, "window must lie in (0, 1/4] slot"),
-            Self::AverageShift => write!(f, "average_shift must lie in 1..=16"),
-            Self::Limits => write!(f, "blackout_ps and max_rms must be nonzero"),
-            Self::UpdateEvery => write!(f, "update_every must be a power of two in 1..=65536"),
-        }
-    }
-}
-
-impl core::error::Error for TrackConfigError {}
-
-/// Validated tracking settings with the loop gains and the constants the hot path uses.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-// No defmt::Format: the fixed-point fields have none.
-pub struct TrackConfig {
-    p: TrackParams,
-    k1: u64,
-    k2: u64,
-    /// K2/T_u': ν change (cycles/ps, Q0.96) per Q0.32 unit of mean phase error.
-    g2_q96: u128,
-    /// Window half-width w, Q0.64 slot fraction.
-    window_q64: u64,
-    /// max_rms², Q0.64 slot fraction squared.
-    max_r2_q64: u64,
-    /// log2(update_every): the mean of the summed residuals is a shift.
-    mean_shift: u32,
-}
-
-impl TrackConfig {
-    /// Check the settings and compute K1, K2 (Rice App. C) in Q0.64 for the update interval
-    /// T_u' = update_every/R.
-    pub fn new(p: TrackParams) -> Result<Self, TrackConfigError> {
-        if p.bandwidth_mhz == 0 || p.rate_per_s == 0 {
-            return Err(TrackConfigError::Zero);
-        }
-        if p.rate_per_s > 1_000_000_000_000 {
-            return Err(TrackConfigError::Rate);
-        }
-        if !(100..=4000).contains(&p.damping_milli) {
-            return Err(TrackConfigError::Damping);
-        }
-        if p.window == U0F32::ZERO || p.window.to_bits() > 1 << 30 {
-            return Err(TrackConfigError::Window);
-        }
-        if !(1..=16).contains(&p.average_shift) {
-            return Err(TrackConfigError::AverageShift);
-        }
-        if p.blackout_ps == 0 || p.max_rms == U0F32::ZERO {
-            return Err(TrackConfigError::Limits);
-        }
-        if !p.update_every.is_power_of_two() || p.update_every > 1 << 16 {
-            return Err(TrackConfigError::UpdateEvery);
-        }
-        let rate = u128::from(p.rate_per_s);
-        let n = u128::from(p.update_every);
-        // B_n·T_u' = B_mHz·N / (1000·R), Q0.64.
-        let bt = ((u128::from(p.bandwidth_mhz) * n) << 64) / (1000 * rate);
-        if bt > (1u128 << 64) / 10 {
-            return Err(TrackConfigError::TooWide);
-        }
-        let z = u128::from(p.damping_milli);
-        // θ = B_nT_u / (ζ + 1/(4ζ)) = B_nT_u · 4ζ / (4ζ² + 1), ζ = z/1000.
-        let theta = bt * 4000 * z / (4 * z * z + 1_000_000);
-        let d = (1u128 << 64) + 2 * z * theta / 1000 + ((theta * theta) >> 64);
-        let k1 = ((4 * z * theta / 1000) << 64) / d;
-        let k2 = 4 * theta * theta / d;
-        // K2/T_u' in Q0.96 per Q0.32 error: K2·2^32·R/(N·10^12) = K2·R·2^20/(244140625·N),
-        // below 2^92 (K2 < 0.04 at B_n·T_u' ≤ 0.1, R ≤ 10^12), as the hot path needs.
-        let g2_q96 = k2.saturating_mul(rate).saturating_mul(1 << 20) / 244_140_625 / n;
-        let max = u64::from(p.max_rms.to_bits());
-        Ok(Self {
-            p,
-            k1: u64::try_from(k1).unwrap_or(u64::MAX),
-            k2: u64::try_from(k2).unwrap_or(u64::MAX),
-            g2_q96,
-            window_q64: u64::from(p.window.to_bits()) << 32,
-            max_r2_q64: max * max,
-            mean_shift: p.update_every.trailing_zeros(),
-        })
-    }
-
-    /// The settings.
-    pub const fn params(&self) -> &TrackParams {
-        &self.p
-    }
-
-    /// Proportional gain K1 per loop update (Q0.64).
-    pub fn k1(&self) -> U0F64 {
-        U0F64::from_bits(self.k1)
-    }
-
-    /// Integral gain K2 per loop update (Q0.64).
-    pub fn k2(&self) -> U0F64 {
-        U0F64::from_bits(self.k2)
-    }
-}
-
-/// x·n/d for d > 0, saturating instead of overflowing.
-fn mul_div(x: u128, n: u128, d: u128) -> u128 {
-    (x / d)
-        .saturating_mul(n)
-        .saturating_add((x % d).saturating_mul(n) / d)
-}
-
-/// Optimal loop bandwidth in mHz for in-window rate `rate_per_s`, drift `drift_ppb_per_s` and
-/// per-detection phase noise `sigma_ps` (rms, ps), damping ζ = `damping_milli`/1000:
-/// B_n⁵ = 2·R·D²·10⁶/(κ⁴·σ²), κ = 8ζ/(4ζ² + 1). Not clamped to B_n·T_u ≤ 0.1.
-pub fn bandwidth_for_mhz(
-    rate_per_s: u64,
-    drift_ppb_per_s: u64,
-    sigma_ps: u64,
-    damping_milli: u32,
-) -> u64 {
-    let s2 = u128::from(sigma_ps.max(1)).pow(2);
-    // 10^15 mHz⁵ per Hz⁵, 10^6 from the units.
-    let mut x = mul_div(
-        (2 * u128::from(rate_per_s)).saturating_mul(u128::from(drift_ppb_per_s).pow(2)),
-        1_000_000_000_000_000_000_000,
-        s2,
-    );
-    let z = u128::from(damping_milli.max(1));
-    // (1/κ)^4 = ((4z² + 10^6) / (8000·z))^4.
-    for _ in 0..4 {
-        x = mul_div(x, 4 * z * z + 1_000_000, 8000 * z);
-    }
-    // Integer fifth root by bisection.
-    let (mut lo, mut hi) = (0u64, 1u64 << 26);
-    while lo < hi {
-        let mid = lo + (hi - lo).div_ceil(2);
-        match u128::from(mid).checked_pow(5) {
-            Some(v) if v <= x => lo = mid,
-            _ => hi = mid - 1,
-        }
-    }
-    lo
-}
-
-/// ⌊e·k/2^64⌋ for signed e: the unsigned high product of e's bits, less k when e < 0
-/// (e's bits are e + 2^64 then). The result fits in an i64, so the wrapping sum is exact.
-fn mul_hi_signed(e: i64, k: u64) -> i64 {
-    let hi = mul_hi(e as u64, k);
-    (if e < 0 { hi.wrapping_sub(k) } else { hi }) as i64
-}
-
-/// ⌊Δt·ν/2^32⌋ for ν = hi·2^32 + lo and Δt < 2^62 (< 2^127), and whether the division left a
-/// remainder: two 64×64→128 products on 64-bit hosts, [`advance_limbs`] elsewhere.
-#[inline(always)]
-fn advance(dt_ps: u64, hi: u64, lo: u32) -> (u128, bool) {
-    #[cfg(target_pointer_width = "64")]
-    {
-        let part = u128::from(dt_ps) * u128::from(lo);
-        (
-            u128::from(dt_ps) * u128::from(hi) + (part >> 32),
-            part as u32 != 0,
-        )
-    }
-    #[cfg(not(target_pointer_width = "64"))]
-    {
-        advance_limbs(dt_ps, hi, lo)
-    }
-}
-
-/// [`advance`] from `mul_hi` and 32×32→64 products, for 32-bit cores (where a 128-bit multiply
-/// is a library call): Δt·lo/2^32 = (Δt div 2^32)·lo + (Δt mod 2^32)·lo/2^32.
-#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
-#[inline(always)]
-fn advance_limbs(dt_ps: u64, hi: u64, lo: u32) -> (u128, bool) {
-    let lo = u64::from(lo);
-    let whole = (u128::from(mul_hi(dt_ps, hi)) << 64) | u128::from(dt_ps.wrapping_mul(hi));
-    let low = (dt_ps & 0xFFFF_FFFF) * lo;
-    let part = (dt_ps >> 32) * lo + (low >> 32);
-    (whole + u128::from(part), low as u32 != 0)
-}
-
-/// ⌊e_q32·g/2^32⌋ (the ν step, Q0.96) for a 32-bit error and g < 2^96 (checked in
-/// [`TrackConfig::new`]): one 128-bit product on 64-bit hosts, [`nu_step_limbs`] elsewhere.
-#[inline(always)]
-fn nu_step_q96(e_q32: i32, g_q96: u128) -> i128 {
-    #[cfg(target_pointer_width = "64")]
-    {
-        (i128::from(e_q32) * g_q96 as i128) >> 32
-    }
-    #[cfg(not(target_pointer_width = "64"))]
-    {
-        nu_step_limbs(e_q32, g_q96)
-    }
-}
-
-/// [`nu_step_q96`] from three 32×32→64 products of g's 32-bit limbs.
-#[cfg_attr(target_pointer_width = "64", allow(dead_code))]
-#[inline(always)]
-fn nu_step_limbs(e_q32: i32, g_q96: u128) -> i128 {
-    let e = i64::from(e_q32);
-    let limb = |k: u32| i64::from((g_q96 >> k) as u32);
-    // |e| ≤ 2^31 and each limb < 2^32, so each product fits in an i64; the two upper ones are
-    // whole after the shift by 32.
-    (i128::from(e * limb(64)) << 32) + i128::from(e * limb(32)) + i128::from((e * limb(0)) >> 32)
-}
+use cal::ChannelCal;
+use drift::DriftEstimate;
+use fixed::types::U0F32;
+use health::Health;
+use hold::Hold;
+use snapshot::{mul_hi_signed, nu_step_q96};
 
 /// Where the receiver stands with the transmitter's clock.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -357,6 +114,9 @@ pub enum LockState {
     Acquiring,
     /// Tracking: slots are given.
     Locked,
+    /// The lock's averages failed: the model is extrapolated and no slot is given, until the
+    /// arrivals are found again (see [`hold`]).
+    Holdover,
     /// Lock just lost; reacquisition starts with the next detection.
     Lost,
     /// Searching again around the last known period.
@@ -375,122 +135,16 @@ pub enum LossCause {
     ResidualRms,
 }
 
-/// The loop's model at one instant: enough to extrapolate slot positions.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+/// Counters of the tracker's robustness machinery since construction.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct Snapshot {
-    /// Anchor time in ps.
-    pub t_ps: u64,
-    /// Position at the anchor in slots (Q64.64).
-    pub pos_q64: i128,
-    /// Frequency in cycles per ps (Q0.96).
-    pub nu_q96: u128,
-}
-
-impl Snapshot {
-    /// Position of time `t_ps` in slots (Q64.64); `None` beyond ±2^62 ps from the anchor.
-    pub fn position(&self, t_ps: u64) -> Option<i128> {
-        let (dt_ps, early) = match t_ps.checked_sub(self.t_ps) {
-            Some(d) => (d, false),
-            None => (self.t_ps - t_ps, true),
-        };
-        if dt_ps >= 1 << 62 {
-            return None;
-        }
-        let Ok(hi) = u64::try_from(self.nu_q96 >> 32) else {
-            return self.position_wide(t_ps);
-        };
-        let (adv, inexact) = advance(dt_ps, hi, self.nu_q96 as u32);
-        // An early time rounds the negative advance down, as the 128-bit product would.
-        let adv = adv as i128;
-        self.pos_q64.checked_add(if early {
-            -adv - i128::from(inexact)
-        } else {
-            adv
-        })
-    }
-
-    /// [`Self::position`] with 128-bit products, for frequencies of 2^-32 cycles/ps and above.
-    fn position_wide(&self, t_ps: u64) -> Option<i128> {
-        let d = i128::from(t_ps) - i128::from(self.t_ps);
-        let hi = (self.nu_q96 >> 32) as i128;
-        let lo = (self.nu_q96 & 0xFFFF_FFFF) as i128;
-        self.pos_q64.checked_add(d * hi + ((d * lo) >> 32))
-    }
-
-    /// Period in ps (Q32.32).
-    pub fn period_ps(&self) -> U32F32 {
-        let bits = u128::MAX / self.nu_q96.max(1);
-        U32F32::from_bits(u64::try_from(bits).unwrap_or(u64::MAX))
-    }
-}
-
-const BINS: usize = 32;
-
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-struct ChannelCal {
-    hist: [u32; BINS],
-    sum_in_q32: i64,
-    n_in: u32,
-    n_guard: u32,
-}
-
-impl ChannelCal {
-    const EMPTY: Self = Self {
-        hist: [0; BINS],
-        sum_in_q32: 0,
-        n_in: 0,
-        n_guard: 0,
-    };
-
-    fn record(&mut self, r: i64, w: u64) {
-        let bin = (((r as u64) ^ (1 << 63)) >> 59) as usize;
-        if let Some(h) = self.hist.get_mut(bin) {
-            *h = h.saturating_add(1);
-        }
-        if r.unsigned_abs() <= w {
-            self.sum_in_q32 = self.sum_in_q32.saturating_add(r >> 32);
-            self.n_in = self.n_in.saturating_add(1);
-        } else if r.unsigned_abs() <= 2 * w {
-            self.n_guard = self.n_guard.saturating_add(1);
-        }
-    }
-
-    /// Mean residual of the channel's peak, Q0.32 slot fraction.
-    fn offset_q32(&self, w: u64) -> Option<i64> {
-        let h = |b: usize| i64::from(self.hist.get(b % BINS).copied().unwrap_or(0));
-        let total: i64 = (0..BINS).map(h).sum();
-        if total < 64 {
-            return None;
-        }
-        let peak = (0..BINS).max_by_key(|&b| h(b + BINS - 1) + h(b) + h(b + 1))?;
-        let centre = |b: usize| ((2 * b as i64 + 1) << 26) - (1 << 31);
-        let signal = i64::from(self.n_in) - i64::from(self.n_guard);
-        if centre(peak).unsigned_abs() <= (w >> 32) + (1 << 26) && signal >= 16 {
-            return Some(self.sum_in_q32 / signal);
-        }
-        // Outside the window: centroid of the three peak bins above the floor.
-        let outside: i64 = (0..BINS)
-            .filter(|&b| (b + BINS - peak) % BINS > 3 && (peak + BINS - b) % BINS > 3)
-            .map(h)
-            .sum();
-        let floor = outside / (BINS as i64 - 7);
-        let (mut wsum, mut xsum) = (0i64, 0i64);
-        for b in [peak + BINS - 1, peak, peak + 1] {
-            let wt = (h(b) - floor).max(0);
-            let c = centre(b % BINS);
-            // The bins are circular: keep the neighbours on the peak's side of ±1/2.
-            let c = if (c - centre(peak)).abs() > 1 << 31 {
-                c - c.signum() * (1 << 32)
-            } else {
-                c
-            };
-            wsum += wt;
-            xsum = xsum.saturating_add(wt.saturating_mul(c));
-        }
-        (wsum > 0).then(|| xsum / wsum)
-    }
+pub struct TrackCounters {
+    /// Times the wide gear was engaged.
+    pub wide_gear: u32,
+    /// Times a channel was set aside.
+    pub set_asides: u32,
+    /// Detections given no slot because their channel was set aside.
+    pub aside_detections: u64,
 }
 
 /// The type-II tracking loop with lock detection and per-channel delay calibration.
@@ -502,6 +156,10 @@ pub struct Tracker {
     last_good: Snapshot,
     in_frac_q32: i64,
     lost_below_q32: i64,
+    /// In-window fraction at lock, Q0.32.
+    lock_in_q32: i64,
+    /// Mean squared residual at lock, Q0.64.
+    lock_r2_q64: i64,
     r2_q64: i64,
     t_last_in: u64,
     loss: Option<LossCause>,
@@ -512,6 +170,19 @@ pub struct Tracker {
     acc_q64: i64,
     /// In-window detections since the last loop update.
     acc_n: u32,
+    /// Fast average of the in-window residuals (over about 16), Q0.64.
+    e_fast_q64: i64,
+    /// Wide gear engaged.
+    wide: bool,
+    /// In-window detections in a row with a small mean error, while wide.
+    calm: u32,
+    wide_gear: u32,
+    drift: DriftEstimate,
+    health: Health,
+    hold: Hold,
+    event: Option<TrackEvent>,
+    /// Time of the latest drift steering (see `Tracker::steer`).
+    steered_ps: u64,
 }
 
 impl Tracker {
@@ -529,6 +200,8 @@ impl Tracker {
             last_good: s,
             in_frac_q32: 0,
             lost_below_q32: 0,
+            lock_in_q32: 0,
+            lock_r2_q64: 0,
             r2_q64: 0,
             t_last_in: 0,
             loss: None,
@@ -536,6 +209,15 @@ impl Tracker {
             updates: 0,
             acc_q64: 0,
             acc_n: 0,
+            e_fast_q64: 0,
+            wide: false,
+            calm: 0,
+            wide_gear: 0,
+            drift: DriftEstimate::new(),
+            health: Health::new(),
+            hold: Hold::new(),
+            event: None,
+            steered_ps: 0,
         }
     }
 
@@ -545,7 +227,8 @@ impl Tracker {
     }
 
     /// Start tracking from an acquisition; the slot at the lock's anchor gets number `slot`.
-    pub fn start(&mut self, lock: &AcquiredLock, slot: u64) {
+    /// A cold lock (`cold`) forgets the drift estimate; a relock keeps it.
+    pub fn start(&mut self, lock: &AcquiredLock, slot: u64, cold: bool) {
         self.model = Snapshot {
             t_ps: lock.anchor_t_ps,
             pos_q64: (i128::from(slot) << 64) + i128::from(lock.anchor_phase_q64),
@@ -553,20 +236,52 @@ impl Tracker {
         };
         self.last_good = self.model;
         let in_frac = i64::from(lock.in_window.to_bits());
-        self.in_frac_q32 = in_frac;
+        self.lock_in_q32 = in_frac;
         self.lost_below_q32 = (in_frac + i64::from(lock.null_window.to_bits())) / 2;
-        self.r2_q64 = i64::try_from(lock.mean_r2_q64).unwrap_or(i64::MAX);
-        self.t_last_in = lock.anchor_t_ps;
+        self.lock_r2_q64 = i64::try_from(lock.mean_r2_q64).unwrap_or(i64::MAX);
         self.loss = None;
         self.cal = [ChannelCal::EMPTY; MAX_CHANNELS];
-        self.acc_q64 = 0;
-        self.acc_n = 0;
+        if cold {
+            self.drift.reset(lock.anchor_t_ps, self.model.nu_q96);
+        } else {
+            self.drift.remark(lock.anchor_t_ps, self.model.nu_q96);
+        }
+        self.resume_averages(lock.anchor_t_ps);
+        // Pull in the acquisition's residual error fast (and keep the pull-in out of the drift
+        // estimate).
+        self.wide = true;
         self.locked = true;
     }
 
-    /// Whether slots are being given.
+    /// Restart the lock's averages at their values at lock (after a lock or a holdover).
+    fn resume_averages(&mut self, t_ps: u64) {
+        self.in_frac_q32 = self.lock_in_q32;
+        // A lock whose fit spanned a cut can report a large residual; the average starts no
+        // higher than half its limit and has to earn a loss on fresh detections.
+        self.r2_q64 = self.lock_r2_q64.min((self.cfg.max_r2_q64 / 2) as i64);
+        self.t_last_in = t_ps;
+        self.acc_q64 = 0;
+        self.acc_n = 0;
+        self.e_fast_q64 = 0;
+        self.calm = 0;
+        self.health.reset();
+        self.hold.active = false;
+        self.steered_ps = t_ps;
+    }
+
+    /// Whether the lock is held (tracking or in holdover).
     pub const fn is_locked(&self) -> bool {
         self.locked
+    }
+
+    /// Whether the tracker is in holdover (locked, no slots given).
+    pub const fn in_holdover(&self) -> bool {
+        self.locked && self.hold.active
+    }
+
+    /// The lock event of the latest detection, if any (taken once).
+    pub fn take_event(&mut self) -> Option<TrackEvent> {
+        self.event.take()
     }
 
     /// Why the last lock ended.
@@ -589,6 +304,25 @@ impl Tracker {
         self.updates
     }
 
+    /// Wide-gear engagements and channel set-asides since construction.
+    pub const fn counters(&self) -> TrackCounters {
+        TrackCounters {
+            wide_gear: self.wide_gear,
+            set_asides: self.health.set_asides,
+            aside_detections: self.health.aside_detections,
+        }
+    }
+
+    /// Channels set aside now (bit c: channel c).
+    pub const fn channels_set_aside(&self) -> u16 {
+        self.health.aside()
+    }
+
+    /// Whether the wide gear is engaged.
+    pub const fn wide(&self) -> bool {
+        self.wide
+    }
+
     /// Running fraction of detections inside the window (Q0.32).
     pub fn in_window_fraction(&self) -> U0F32 {
         U0F32::from_bits(self.in_frac_q32.clamp(0, i64::from(u32::MAX)) as u32)
@@ -604,7 +338,41 @@ impl Tracker {
     /// Stop giving slots.
     pub fn lose(&mut self, cause: LossCause) {
         self.locked = false;
+        self.hold.active = false;
         self.loss = Some(cause);
+    }
+
+    /// The last good model extrapolated to `t_ps` with the drift estimate, and the bound on its
+    /// error ([`hold`]); `None` beyond 4.4 s from it.
+    pub fn predict(&self, t_ps: u64) -> Option<Prediction> {
+        let p = &self.cfg.p;
+        let mut from = self.last_good;
+        let nu_q64 = (from.nu_q96 >> 32) as u64;
+        // The drift allowance as a slope: ν·D per 2^32 ps.
+        let allow_q64 = u128::from(nu_q64) * u128::from(p.drift_ppb_per_s) << 32;
+        let allow_q64 =
+            u64::try_from(allow_q64 / 1_000_000_000_000_000_000_000).unwrap_or(u64::MAX);
+        let floor = u128::from(nu_q64) * u128::from(p.hold_ppt) / 1_000_000_000_000;
+        let floor = u64::try_from(floor).unwrap_or(u64::MAX);
+        let sigmas = hold::SIGMAS;
+        // With the drift known, extrapolate from the smoothed frequency (its noise a quarter of
+        // the loop's); before, from the loop's own, bounded by the whole allowance.
+        let (nu_bound, slope_bound) =
+            match (self.drift.nu_at(from.t_ps), self.drift.slope_error_q64()) {
+                (Some(nu), Some(slope_err)) => {
+                    from.nu_q96 = u128::from(nu) << 32;
+                    (
+                        self.drift.nu_error_q64().saturating_mul(sigmas).max(floor),
+                        slope_err.saturating_mul(sigmas),
+                    )
+                }
+                _ => (floor.max(allow_q64), allow_q64),
+            };
+        let rate = match self.drift.slope_error_q64() {
+            Some(_) => self.drift.rate_q16((allow_q64.min(1 << 46) as i64) << 16),
+            None => 0,
+        };
+        hold::predict(&from, t_ps, rate, nu_bound, slope_bound)
     }
 
     /// Locate one delay-corrected detection and update the loop with it.
@@ -612,13 +380,17 @@ impl Tracker {
         if !self.locked {
             return Located::NotLocked;
         }
+        if self.hold.active {
+            return self.hold_update(t_ps, channel, pat);
+        }
         if t_ps.saturating_sub(self.t_last_in) > self.cfg.p.blackout_ps {
-            self.lose(LossCause::Blackout);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::Blackout, t_ps, channel, pat);
+        }
+        if t_ps.wrapping_sub(self.steered_ps) >> drift::SAMPLE_SHIFT != 0 {
+            self.steer(t_ps);
         }
         let Some(pos) = self.model.position(t_ps) else {
-            self.lose(LossCause::Blackout);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::Blackout, t_ps, channel, pat);
         };
         if pos < 0 {
             return Located::BeforeOrigin;
@@ -626,11 +398,19 @@ impl Tracker {
         let frac = pos as u64;
         let w = self.cfg.window_q64;
         let (r, _) = pat.residual(frac);
-        if let Some(c) = channel.and_then(|c| self.cal.get_mut(usize::from(c))) {
-            c.record(r, w);
+        let inside = r.unsigned_abs() <= w;
+        if let Some(c) = channel {
+            // Recorded even when the channel is set aside: a channel whose delay is off shows
+            // no in-window fraction, and its histogram is what finds the correction.
+            if let Some(cal) = self.cal.get_mut(usize::from(c)) {
+                cal.record(r, w);
+            }
+            let null = (pat.null_fraction(self.cfg.p.window) >> 16) as u16;
+            if !self.health.observe(usize::from(c), inside, null) {
+                return Located::NotLocked;
+            }
         }
         let shift = self.cfg.p.average_shift;
-        let inside = r.unsigned_abs() <= w;
         let ind = if inside { 1i64 << 32 } else { 0 };
         self.in_frac_q32 += (ind - self.in_frac_q32) >> shift;
         if inside {
@@ -639,6 +419,7 @@ impl Tracker {
             let r_q32 = i64::from((r >> 32) as i32);
             self.r2_q64 += (r_q32 * r_q32 - self.r2_q64) >> shift;
             self.t_last_in = self.t_last_in.max(t_ps);
+            self.gear(r);
             // N residuals within ±1/4 slot, each divided by N: the sum stays within ±1/4.
             self.acc_q64 += r >> self.cfg.mean_shift;
             self.acc_n += 1;
@@ -647,17 +428,40 @@ impl Tracker {
             }
         }
         if self.in_frac_q32 < self.lost_below_q32 {
-            self.lose(LossCause::InWindowFraction);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::InWindowFraction, t_ps, channel, pat);
         }
         if self.r2_q64.unsigned_abs() > self.cfg.max_r2_q64 {
-            self.lose(LossCause::ResidualRms);
-            return Located::NotLocked;
+            return self.enter_hold(LossCause::ResidualRms, t_ps, channel, pat);
         }
         Located::At(SlotPos {
             slot: (pos >> 64) as u64,
             phase: U0F32::from_bits((frac >> 32) as u32),
         })
+    }
+
+    /// Shift gears on the fast mean error: wide when its square exceeds the mean squared
+    /// residual (a bias of one single-detection rms σ, about six times the fast mean's own
+    /// noise σ/√31), narrow again after 2^`average_shift` in-window detections in a row below
+    /// σ/2 (2.8 times its noise, so a calm loop passes 99.5 % of them).
+    #[inline]
+    fn gear(&mut self, r: i64) {
+        self.e_fast_q64 += (r - self.e_fast_q64) >> 4;
+        let e = i64::from((self.e_fast_q64 >> 32) as i32);
+        let e2 = e * e;
+        if !self.wide {
+            if e2 > self.r2_q64 {
+                self.wide = true;
+                self.calm = 0;
+                self.wide_gear = self.wide_gear.saturating_add(1);
+            }
+        } else if e2.saturating_mul(4) < self.r2_q64 {
+            self.calm += 1;
+            if self.calm >> self.cfg.p.average_shift != 0 {
+                self.wide = false;
+            }
+        } else {
+            self.calm = 0;
+        }
     }
 
     /// Run the loop filter on the mean residual since the last update; the detection at `t_ps`
@@ -666,17 +470,124 @@ impl Tracker {
         let e = self.acc_q64;
         self.acc_q64 = 0;
         self.acc_n = 0;
-        let dnu = nu_step_q96((e >> 32) as i32, self.cfg.g2_q96);
+        let (k1, g2) = if self.wide {
+            (self.cfg.k1w, self.cfg.g2w_q96)
+        } else {
+            (self.cfg.k1, self.cfg.g2_q96)
+        };
+        let dnu = nu_step_q96((e >> 32) as i32, g2);
         self.model = Snapshot {
             t_ps,
-            pos_q64: pos - i128::from(mul_hi_signed(e, self.cfg.k1)),
+            pos_q64: pos - i128::from(mul_hi_signed(e, k1)),
             nu_q96: (self.model.nu_q96 as i128 - dnu).max(1) as u128,
         };
         if self.in_frac_q32 >= self.lost_below_q32 {
             self.last_good = self.model;
+            if self.wide {
+                self.drift.remark(t_ps, self.model.nu_q96);
+            } else {
+                self.drift.observe(t_ps, self.model.nu_q96);
+            }
         }
     }
 
+    /// Steer the model with the drift estimate, once per sampling interval (4.3 ms) and on any
+    /// detection: ν moves by ν̇·Δt, the position stays. The loop then follows a ramp without
+    /// the type-II lag, and a model that gets no in-window detection for a while (noise, a
+    /// fade) keeps following the drift instead of walking off it by ½·ν̇·Δt², which at 1 GHz
+    /// and 0.1 ppm/s is half a slot in 0.1 s. Off when `drift_steering` is false or before the
+    /// slope is in use.
+    #[inline(never)]
+    fn steer(&mut self, t_ps: u64) {
+        let dt = t_ps.wrapping_sub(self.steered_ps);
+        self.steered_ps = t_ps;
+        if !self.cfg.p.drift_steering || dt >> 40 != 0 || self.drift.slope_error_q64().is_none() {
+            return;
+        }
+        let Some(pos) = self.model.position(t_ps) else {
+            return;
+        };
+        let nu_q64 = (self.model.nu_q96 >> 32) as u64;
+        let allow = (u128::from(nu_q64) * u128::from(self.cfg.p.drift_ppb_per_s) << 32)
+            / 1_000_000_000_000_000_000_000;
+        let rate = self.drift.rate_q16((allow.min(1 << 46) as i64) << 16);
+        let dnu_q96 = (i128::from(rate) * i128::from(dt)) >> 16;
+        self.model = Snapshot {
+            t_ps,
+            pos_q64: pos,
+            nu_q96: (self.model.nu_q96 as i128).saturating_add(dnu_q96).max(1) as u128,
+        };
+    }
+
+    /// Go into holdover for `cause`, with this detection as its first.
+    #[inline(never)]
+    fn enter_hold(
+        &mut self,
+        cause: LossCause,
+        t_ps: u64,
+        channel: Option<u8>,
+        pat: &ChannelPattern,
+    ) -> Located {
+        self.hold.start(cause, self.last_good.t_ps);
+        self.wide = false;
+        // A failure of every channel at once is the clock's, not a detector's: all fold.
+        self.health.reset();
+        self.event = Some(TrackEvent::HoldoverStarted(cause));
+        self.hold_update(t_ps, channel, pat)
+    }
+
+    /// One detection in holdover: fold it at its predicted phase, resume once the arrivals
+    /// are found, give up once the prediction's bound reaches 3/8 slot.
+    #[inline(never)]
+    fn hold_update(&mut self, t_ps: u64, channel: Option<u8>, pat: &ChannelPattern) -> Located {
+        let pred = match self.predict(t_ps) {
+            Some(p) if p.bound_q32 < hold::GIVE_UP_Q32 && !self.hold.exhausted => p,
+            _ => {
+                let cause = self.hold.cause;
+                self.lose(cause);
+                self.event = Some(TrackEvent::Lost(cause));
+                return Located::NotLocked;
+            }
+        };
+        let aside = channel.is_some_and(|c| self.health.aside() & (1 << (c & 15)) != 0);
+        if !aside {
+            if let Some(phi) = self.hold.observe(pred.pos_q64 as u64, pat) {
+                self.resume(t_ps, &pred, phi);
+            }
+        }
+        Located::NotLocked
+    }
+
+    /// Leave holdover: the arrivals are `phi` (Q0.64) from the prediction `pred` at `t_ps`.
+    fn resume(&mut self, t_ps: u64, pred: &Prediction, phi: i64) {
+        let a = phi.unsigned_abs() >> 32;
+        let u = pred.bound_q32;
+        let w = u64::from(self.cfg.p.window.to_bits());
+        let how = if a <= u.saturating_add(2 * w) {
+            Resumed::Bridged
+        } else {
+            Resumed::Jump {
+                renumber: a.saturating_add(u) > hold::JUMP_KEEP_Q32,
+            }
+        };
+        self.event = Some(TrackEvent::Resumed {
+            how,
+            phase_q32: (phi >> 32) as i32,
+            bound_q32: u,
+            held_ps: t_ps.saturating_sub(self.hold.since_ps),
+        });
+        self.model = Snapshot {
+            t_ps,
+            pos_q64: pred.pos_q64 - i128::from(phi),
+            nu_q96: pred.nu_q96,
+        };
+        self.last_good = self.model;
+        self.drift.remark(t_ps, self.model.nu_q96);
+        self.resume_averages(t_ps);
+        // The prediction leaves a residual error within a fold's resolution: pull it in fast.
+        self.wide = true;
+        self.wide_gear = self.wide_gear.saturating_add(1);
+    }
     /// Per-channel delay corrections in ps to add to each channel's configured delay (positive:
     /// the channel's detections come late); `None` with fewer than 64 detections since lock.
     pub fn delay_corrections_ps(&self) -> [Option<i64>; MAX_CHANNELS] {

@@ -8,8 +8,8 @@ use crate::sim;
 use serde::Serialize;
 use slotwise::acquire::{AcquireConfig, AcquireParams};
 use slotwise::fixed::types::U32F32;
-use slotwise::recovered::{RecoveredClock, RecoveredConfig};
-use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackParams};
+use slotwise::recovered::{LockCounters, RecoveredClock, RecoveredConfig};
+use slotwise::track::{bandwidth_for_mhz, LockState, TrackConfig, TrackCounters, TrackParams};
 use slotwise::{
     Absolute, FixedClock, GateTable, Located, MarkerNumbering, Numbered, Numbering, SlotClock,
 };
@@ -65,6 +65,13 @@ impl SlotClock for HostClock {
         match self {
             Self::Reference(c) => c.epoch(),
             Self::Recovered(c) => c.epoch(),
+        }
+    }
+
+    fn renumbered_within(&self) -> Option<u64> {
+        match self {
+            Self::Reference(c) => c.renumbered_within(),
+            Self::Recovered(c) => c.renumbered_within(),
         }
     }
 
@@ -146,6 +153,19 @@ pub struct LockReport {
     pub relocks: u32,
     /// Relocks whose gap was bridged without losing the slot numbering.
     pub bridged: u32,
+    /// Holdovers: the lock's averages failed, the model was extrapolated and no slot given.
+    pub holdovers: u32,
+    /// Holdovers that ended with the arrivals where the prediction put them (numbers kept).
+    pub holdovers_bridged: u32,
+    /// Holdovers that ended on a phase jump of the arrivals, taken without losing the lock.
+    pub jumps: u32,
+    /// Times the tracking loop shifted to its wide gear (on a large mean error, or to pull in
+    /// after a lock or a holdover).
+    pub wide_gear: u32,
+    /// Times a channel was set aside by its health check (blinded, saturated).
+    pub channels_set_aside: u32,
+    /// Detections given no slot because their channel was set aside (counted `no_clock`).
+    pub set_aside_detections: u64,
     /// Final lock state.
     pub state: String,
     /// Marker alignment of the slot numbering: `aligned`, `searching`, `confirming`,
@@ -160,6 +180,10 @@ pub struct LockReport {
     /// What established it: `hint-window` (a bounded hint and few detections) or `search`.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub aligned_by: Option<String>,
+    /// The numbering's confidence: the test that established the offset accepts a wrong one
+    /// with probability at most 2^−this (given its assumptions, `docs/marker.md`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub wrong_offset_log2_bound: Option<u8>,
     /// Per channel: delay correction measured from the data since the latest lock, ps (relative
     /// to the loop; `null` where the channel had too few detections).
     pub delay_corrections_ps: Vec<Option<i64>>,
@@ -182,15 +206,54 @@ impl HostClock {
         }
     }
 
-    /// Lock counters (a reference clock is always locked).
-    pub fn counters(&self) -> (u32, u32, u32, String) {
+    /// Whether the clock is in holdover now.
+    pub fn holding(&self) -> bool {
+        matches!(self, Self::Recovered(c) if c.state() == LockState::Holdover)
+    }
+
+    /// Holdovers, bridged holdovers and phase jumps so far (zero for a reference clock).
+    pub fn holdover_counts(&self) -> (u32, u32, u32) {
         match self {
-            Self::Reference(..) => (0, 0, 0, "reference".into()),
+            Self::Reference(_) => (0, 0, 0),
             Self::Recovered(c) => {
                 let k = c.counters();
-                let state = format!("{:?}", c.state()).to_lowercase();
-                (k.losses, k.relocks, k.bridged, state)
+                (k.holdovers, k.holdovers_bridged, k.jumps)
             }
+        }
+    }
+
+    /// The latest holdover's end: the arrivals' offset from the prediction and the bound then,
+    /// slots.
+    pub fn last_resume(&self) -> Option<(f64, f64)> {
+        match self {
+            Self::Reference(_) => None,
+            Self::Recovered(c) => match c.last_event() {
+                Some(slotwise::track::TrackEvent::Resumed {
+                    phase_q32,
+                    bound_q32,
+                    ..
+                }) => Some((
+                    f64::from(*phase_q32) / 4_294_967_296.0,
+                    *bound_q32 as f64 / 4_294_967_296.0,
+                )),
+                _ => None,
+            },
+        }
+    }
+
+    /// Lock counters (a reference clock is always locked).
+    pub fn counters(&self) -> (LockCounters, TrackCounters, String) {
+        match self {
+            Self::Reference(..) => (
+                LockCounters::default(),
+                TrackCounters::default(),
+                "reference".into(),
+            ),
+            Self::Recovered(c) => (
+                *c.counters(),
+                c.tracker().counters(),
+                format!("{:?}", c.state()).to_lowercase(),
+            ),
         }
     }
 }
@@ -209,7 +272,8 @@ pub fn recovered_params(s: &Scenario, prior_ppm: u32) -> (AcquireParams, TrackPa
 /// Prior ±`prior_ppm` around the nominal period; loop bandwidth from the core's rule
 /// ([`bandwidth_for_mhz`]) with the expected signal rate, a drift allowance of
 /// max(|drift|, 0.1 ppm/s), and σ² = jitter² + the window's uniform-noise share; blackout after
-/// the longer of 1 ms and 50 expected detections. The acquisition's drift range is the
+/// the longer of 1 ms and 50 expected detections; a drift allowance for holdover of twice the
+/// profile's drift (at least 0.1 ppm/s). The acquisition's drift range is the
 /// profile's |drift| (no chirp search when it is 0).
 pub fn recovered_params_for(k: &ClockToml, prior_ppm: u32) -> (AcquireParams, TrackParams) {
     let period = 1e12 / k.rep_rate_hz;
@@ -226,7 +290,11 @@ pub fn recovered_params_for(k: &ClockToml, prior_ppm: u32) -> (AcquireParams, Tr
     let rate_u = rate.max(1.0) as u64;
     let b = bandwidth_for_mhz(rate_u, drift_ppb, sigma, 707).min(rate_u * 100) as u32;
     let blackout_ps = (1e9_f64).max(50.0 / rate * 1e12) as u64;
-    (a, TrackParams::new(b.max(1), rate_u, blackout_ps))
+    let mut t = TrackParams::new(b.max(1), rate_u, blackout_ps);
+    // Holdover extrapolates with the measured drift, bounded by twice the profile's (at least
+    // 0.1 ppm/s).
+    t.drift_ppb_per_s = (2.0 * k.drift_ppm_per_s.abs() * 1e3).clamp(100.0, 1e6) as u32;
+    (a, t)
 }
 
 /// Build the scenario's clock and numbering in the chosen mode, as for its profile
@@ -330,11 +398,24 @@ impl HostNumbering {
 
     /// Gated detections until the offset in use was established, and by which test.
     pub fn aligned_after(&self) -> Option<(u64, &'static str)> {
+        self.alignment().map(|(d, by, _)| (d, by))
+    }
+
+    /// Gated detections until the offset in use was established, by which test, and that
+    /// test's bound on a wrong offset (bits: probability ≤ 2^−bits).
+    pub fn alignment(&self) -> Option<(u64, &'static str, u8)> {
         match self {
             Self::Absolute(_) => None,
-            Self::Marker(n) => n
-                .aligned_after()
-                .map(|(d, w)| (d, if w { "hint-window" } else { "search" })),
+            Self::Marker(n) => {
+                let cfg = n.aligner().config();
+                n.aligned_after().map(|(d, w)| {
+                    if w {
+                        (d, "hint-window", cfg.window_bits())
+                    } else {
+                        (d, "search", cfg.confirm_bits())
+                    }
+                })
+            }
         }
     }
 

@@ -104,6 +104,21 @@ where
             RGBColor(40, 90, 200),
             "numbering aligned",
         ),
+        (
+            ClockEventKind::HoldoverStarted,
+            RGBColor(150, 150, 150),
+            "holdover",
+        ),
+        (
+            ClockEventKind::HoldoverBridged,
+            RGBColor(120, 60, 170),
+            "holdover bridged",
+        ),
+        (
+            ClockEventKind::PhaseJump,
+            RGBColor(200, 40, 160),
+            "phase jump taken",
+        ),
     ];
     for (kind, c, label) in kinds {
         let at: Vec<f64> = events

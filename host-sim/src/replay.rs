@@ -55,6 +55,12 @@ pub enum ClockEventKind {
     Aligned,
     /// The numbering lost them (new clock epoch, or misalignment).
     AlignmentLost,
+    /// The clock went into holdover: no slots, the model extrapolated (`docs/holdover.md`).
+    HoldoverStarted,
+    /// A holdover ended with the arrivals where the prediction put them: numbers kept.
+    HoldoverBridged,
+    /// A holdover ended on a phase jump of the arrivals, taken without losing the lock.
+    PhaseJump,
 }
 
 /// One [`ClockEventKind`] at a time, seconds since the first detection.
@@ -64,6 +70,12 @@ pub struct ClockEvent {
     pub t_s: f64,
     /// What changed.
     pub kind: ClockEventKind,
+    /// At the end of a holdover: the arrivals' offset from the prediction, slots.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub offset_slots: Option<f64>,
+    /// At the end of a holdover: the prediction's error bound then, slots.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bound_slots: Option<f64>,
 }
 
 /// Most clock events a session keeps (later ones are counted, not kept).
@@ -168,6 +180,10 @@ pub struct Session<T: Transmitter> {
     first_lock: Option<(u64, f64)>,
     /// Clock locked and numbering aligned at the latest detection.
     state: (bool, bool),
+    /// Holdovers, bridged holdovers and jumps so far (to note each as it happens).
+    holds: (u32, u32, u32),
+    /// Whether the clock was in holdover at the previous detection.
+    was_holding: bool,
     clock_events: Vec<ClockEvent>,
     monitor: Box<HostMonitor>,
     live: LiveLog,
@@ -216,6 +232,8 @@ impl<T: Transmitter> Session<T> {
             first_t_ps: None,
             first_lock: None,
             state: (false, false),
+            holds: (0, 0, 0),
+            was_holding: false,
             clock_events: Vec::new(),
             monitor: Box::new(HostMonitor::new(
                 StatsConfig::new((bucket_s * 1e12).max(1.0) as u64, 0, cfg.gates())
@@ -378,24 +396,46 @@ impl<T: Transmitter> Session<T> {
         self.trace(tr);
     }
 
-    /// Note when the clock's lock or the numbering's alignment changed.
+    /// Note when the clock's lock or the numbering's alignment changed. A holdover's start and
+    /// end are noted as such, not as a loss and a lock.
     fn clock_transitions(&mut self, rel_ps: u64) {
-        let now = (self.rx.clock().locked(), self.rx.numbering().aligned());
+        let clock = self.rx.clock();
+        let now = (clock.locked(), self.rx.numbering().aligned());
+        let holds = clock.holdover_counts();
+        let holding = clock.holding();
         let (was, t_s) = (self.state, rel_ps as f64 * 1e-12);
+        let was_holds = self.holds;
         self.state = now;
-        let mut note = |kind| {
+        self.holds = holds;
+        let (offset, bound) = clock.last_resume().unzip();
+        let mut note = |kind, detail: bool| {
             if self.clock_events.len() < MAX_CLOCK_EVENTS {
-                self.clock_events.push(ClockEvent { t_s, kind });
+                self.clock_events.push(ClockEvent {
+                    t_s,
+                    kind,
+                    offset_slots: offset.filter(|_| detail),
+                    bound_slots: bound.filter(|_| detail),
+                });
             }
         };
-        match (was.0, now.0) {
-            (false, true) => note(ClockEventKind::Locked),
-            (true, false) => note(ClockEventKind::LockLost),
+        if holds.0 > was_holds.0 {
+            note(ClockEventKind::HoldoverStarted, false);
+        }
+        if holds.1 > was_holds.1 {
+            note(ClockEventKind::HoldoverBridged, true);
+        } else if holds.2 > was_holds.2 {
+            note(ClockEventKind::PhaseJump, true);
+        }
+        let resumed = holds.1 > was_holds.1 || holds.2 > was_holds.2;
+        match (was.0 || self.was_holding, now.0 || holding) {
+            (false, true) if !resumed => note(ClockEventKind::Locked, false),
+            (true, false) => note(ClockEventKind::LockLost, false),
             _ => {}
         }
+        self.was_holding = holding;
         match (was.1, now.1) {
-            (false, true) => note(ClockEventKind::Aligned),
-            (true, false) => note(ClockEventKind::AlignmentLost),
+            (false, true) => note(ClockEventKind::Aligned, false),
+            (true, false) => note(ClockEventKind::AlignmentLost, false),
             _ => {}
         }
     }

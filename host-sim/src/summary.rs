@@ -201,23 +201,30 @@ pub fn summarize<T: Transmitter>(
             truth: truth_period_ps,
         },
         lock: {
-            let (losses, relocks, bridged, state) = rx.clock().counters();
+            let (k, t, state) = rx.clock().counters();
             let (numbering, realignments) = rx.numbering().state();
-            let aligned = rx.numbering().aligned_after();
+            let aligned = rx.numbering().alignment();
             LockReport {
                 numbering,
                 realignments,
                 aligned_after_detections: aligned.map(|a| a.0),
                 aligned_by: aligned.map(|a| a.1.to_string()),
+                wrong_offset_log2_bound: aligned.map(|a| a.2),
                 delay_corrections_ps: rx
                     .clock()
                     .delay_corrections_ps(rx.config().gates().channels()),
                 acquired: res.first_lock.is_some(),
                 after_detections: res.first_lock.map(|l| l.0),
                 after_s: res.first_lock.map(|l| l.1),
-                losses,
-                relocks,
-                bridged,
+                losses: k.losses,
+                relocks: k.relocks,
+                bridged: k.bridged,
+                holdovers: k.holdovers,
+                holdovers_bridged: k.holdovers_bridged,
+                jumps: k.jumps,
+                wide_gear: t.wide_gear,
+                channels_set_aside: t.set_asides,
+                set_aside_detections: t.aside_detections,
                 state,
             }
         },
@@ -320,12 +327,19 @@ impl std::fmt::Display for Summary {
         match l.after_detections {
             Some(n) => writeln!(
                 f,
-                "clock          {} after {n} detections ({:.4} s); {} losses, {} relocks ({} bridged); gate residual rms {residual}",
+                "clock          {} after {n} detections ({:.4} s); {} losses, {} relocks ({} bridged); gate residual rms {residual}\n\
+                 holdover       {} ({} bridged, {} phase jumps taken); wide gear {}×; channels set aside {}× ({} detections)",
                 l.state,
                 l.after_s.unwrap_or(0.0),
                 l.losses,
                 l.relocks,
                 l.bridged,
+                l.holdovers,
+                l.holdovers_bridged,
+                l.jumps,
+                l.wide_gear,
+                l.channels_set_aside,
+                l.set_aside_detections,
             )?,
             None => writeln!(f, "clock          never locked ({})", l.state)?,
         }
@@ -337,8 +351,9 @@ impl std::fmt::Display for Summary {
         match (&l.aligned_by, l.aligned_after_detections) {
             (Some(by), Some(n)) => writeln!(
                 f,
-                ", after {n} gated detections by the {}",
-                by.replace('-', " ")
+                ", after {n} gated detections by the {} (wrong offset ≤ 2^-{})",
+                by.replace('-', " "),
+                l.wrong_offset_log2_bound.unwrap_or(0)
             )?,
             _ => writeln!(f)?,
         }

@@ -5,7 +5,7 @@
 use slotwise::Transmitter;
 use slotwise_sim::cli::{model_qber, receiver_setup, ClockArgs};
 use slotwise_sim::clocks::{self, ClockMode};
-use slotwise_sim::replay::{Bucket, Session, TruthTag};
+use slotwise_sim::replay::{Bucket, ClockEvent, Session, TruthTag};
 use slotwise_sim::scenario::Scenario;
 use slotwise_sim::sim::{self, SimStats, SimTransmitter, Simulator};
 use slotwise_sim::summary::{summarize, Summary};
@@ -60,6 +60,9 @@ pub struct FaultRun {
     pub receiver_bytes: usize,
     /// QBER, rate, residual and period per time bucket.
     pub buckets: Vec<Bucket>,
+    /// The session's clock events (locks, holdovers, alignments), with a holdover's offset and
+    /// bound where it ended.
+    pub clock_events: Vec<ClockEvent>,
 }
 
 /// Gated detections so far: those past clock, numbering and gates (in flight or resolved by the
@@ -200,6 +203,7 @@ pub fn run_buckets<T: Transmitter>(
         pending_capacity: slotwise_sim::replay::HOST_PENDING,
         receiver_bytes: std::mem::size_of_val(&*res.rx),
         buckets: res.buckets,
+        clock_events: res.clock_events,
     }
 }
 

@@ -1,6 +1,6 @@
 //! The run's clock events, as the clock plot marks them: on the default link the clock locks,
-//! then the numbering aligns; a fibre cut that outlasts the loop's blackout loses the lock and
-//! the link locks again. Checked against the simulator's own fault window.
+//! then the numbering aligns; a short fibre cut is held over (`docs/holdover.md`), a long one
+//! loses the lock and the link locks again. Checked against the simulator's own fault windows.
 
 use slotwise_sim::cli::{run_simulated, ClockArgs};
 use slotwise_sim::clocks::ClockMode;
@@ -17,11 +17,12 @@ fn recovered() -> ClockArgs {
 #[test]
 fn lock_then_alignment_then_a_cut_and_a_relock() {
     let text = format!(
-        "{}\n[[faults.blackout]]\nfrom_s = 0.06\nduration_s = 0.02\n",
+        "{}\n[[faults.blackout]]\nfrom_s = 0.06\nduration_s = 0.02\n\
+         [[faults.blackout]]\nfrom_s = 0.12\nduration_s = 0.5\n",
         slotwise_sim::scenario::DEFAULT_BENCH_TOML
     );
     let mut s = Scenario::from_toml_str(&text, "cut.toml").unwrap();
-    s.duration_s = 0.12;
+    s.duration_s = 0.7;
     let (summary, res) = run_simulated(&s, &recovered(), None).unwrap();
     let kinds: Vec<K> = res.clock_events.iter().map(|e| e.kind).collect();
     assert_eq!(kinds.first(), Some(&K::Locked), "{kinds:?}");
@@ -36,8 +37,17 @@ fn lock_then_alignment_then_a_cut_and_a_relock() {
     let locks = kinds.iter().filter(|k| **k == K::Locked).count() as u32;
     assert_eq!(losses, summary.lock.losses, "{kinds:?}");
     assert_eq!(locks, 1 + summary.lock.relocks, "{kinds:?}");
-    // The cut (20 ms from 60 ms after the start of the run) is where the lock went.
-    let lost = res.clock_events.iter().find(|e| e.kind == K::LockLost);
-    let lost = lost.unwrap_or_else(|| panic!("the cut lost no lock: {kinds:?}"));
-    assert!((0.055..0.09).contains(&lost.t_s), "{lost:?}");
+    // The short cut (20 ms from 60 ms after the start) was held over and bridged: its
+    // prediction's bound, from the whole drift allowance (0.1 ppm/s), is a few thousandths of a
+    // slot. The long one (0.5 s from 120 ms; bound over a slot) is where the lock went.
+    let at = |k: K| res.clock_events.iter().filter(move |e| e.kind == k);
+    let held: Vec<f64> = at(K::HoldoverStarted).map(|e| e.t_s).collect();
+    assert!((0.055..0.09).contains(&held[0]), "{kinds:?}");
+    let bridged = at(K::HoldoverBridged).next().expect("a bridged holdover");
+    assert!((0.08..0.1).contains(&bridged.t_s), "{bridged:?}");
+    assert!(bridged.bound_slots.unwrap() < 0.05, "{bridged:?}");
+    let lost = at(K::LockLost).next();
+    let lost = lost.unwrap_or_else(|| panic!("the long cut lost no lock: {kinds:?}"));
+    assert!((0.115..0.65).contains(&lost.t_s), "{lost:?}");
+    assert_eq!(summary.lock.holdovers_bridged, 1, "{summary}");
 }

@@ -81,6 +81,8 @@ pub struct HintWindow<const W: usize> {
     support: [u8; W],
     state: WindowState,
     since_check: u32,
+    /// Detections counted since the window opened.
+    since_open: u32,
     stats: WindowStats,
 }
 
@@ -104,6 +106,7 @@ impl<const W: usize> HintWindow<W> {
             support: [0; W],
             state: WindowState::Idle,
             since_check: 0,
+            since_open: 0,
             stats: WindowStats {
                 observed: 0,
                 too_wide: 0,
@@ -140,6 +143,12 @@ impl<const W: usize> HintWindow<W> {
             self.state = WindowState::Closed;
             return;
         };
+        self.open_bounded(centre, h);
+    }
+
+    /// Open the window around `centre` with an error bound of ±`h` slots (a hint, or the old
+    /// offset after a clock renumbered within ±`h`); a bound wider than the capacity closes it.
+    pub fn open_bounded(&mut self, centre: i64, h: u64) {
         if h > Self::max_error_slots() {
             self.stats.too_wide += 1;
             self.state = WindowState::Closed;
@@ -149,6 +158,7 @@ impl<const W: usize> HintWindow<W> {
         self.contra.iter_mut().for_each(|c| *c = 0);
         self.support.iter_mut().for_each(|c| *c = 0);
         self.since_check = 0;
+        self.since_open = 0;
         self.state = WindowState::Open {
             low: centre.saturating_sub(h as i64),
             width,
@@ -169,6 +179,7 @@ impl<const W: usize> HintWindow<W> {
             return None;
         };
         self.stats.observed = self.stats.observed.saturating_add(1);
+        self.since_open = self.since_open.saturating_add(1);
         let bit = z_bit.filter(|b| *b <= 1);
         self.count(cfg.spec(), local_slot, bit, low, width);
         self.since_check += 1;
@@ -180,7 +191,7 @@ impl<const W: usize> HintWindow<W> {
             self.state = WindowState::Accepted { offset };
             return Some(offset);
         }
-        if self.stats.observed >= GIVE_UP_AFTER {
+        if self.since_open >= GIVE_UP_AFTER {
             self.stats.gave_up += 1;
             self.state = WindowState::Closed;
         }

@@ -3,6 +3,7 @@
 use super::*;
 use crate::acquire::fold::ArrivalPattern;
 use crate::acquire::synth::{Scenario, Stream};
+use fixed::types::U32F32;
 
 fn rice(bt: f64, zeta: f64) -> (f64, f64) {
     // Rice, App. C: θ = B_nT/(ζ + 1/(4ζ)); K1 = 4ζθ/(1 + 2ζθ + θ²); K2 = 4θ²/(1 + 2ζθ + θ²).
@@ -21,6 +22,8 @@ fn gains_match_rice_appendix_c() {
     ] {
         let cfg = TrackConfig::new(TrackParams {
             damping_milli: z,
+            wide_factor: 1,
+            drift_steering: false,
             ..TrackParams::new(b_mhz, rate, 1 << 40)
         })
         .unwrap();
@@ -79,7 +82,7 @@ fn started(cfg: TrackConfig, stream: &Stream, k0: f64, in_window: f64, null: f64
         mean_r2_q64: 0,
     };
     let mut tr = Tracker::new(cfg);
-    tr.start(&lock, k0 as u64);
+    tr.start(&lock, k0 as u64, true);
     tr
 }
 
@@ -173,7 +176,12 @@ fn drift_ramp_lag_matches_type_two_theory() {
     sc.drift_ppm_per_s = 0.1;
     // R counts signal detections only: noise inside the window moves the loop at random but
     // carries no phase information.
-    let cfg = TrackConfig::new(TrackParams::new(20_000, 100_000, 1 << 40)).unwrap();
+    let cfg = TrackConfig::new(TrackParams {
+        wide_factor: 1,
+        drift_steering: false,
+        ..TrackParams::new(20_000, 100_000, 1 << 40)
+    })
+    .unwrap();
     let m = run(sc, cfg, 1.5, 0.5, 1e10);
     assert!(!m.lost);
     let wn = 2.0 * 20.0 / (0.707 + 1.0 / (4.0 * 0.707));
@@ -200,6 +208,8 @@ fn frequency_and_phase_noise_match_loop_theory_and_crb() {
     let b = 1000.0;
     let p = TrackParams {
         window: U0F32::from_num(w),
+        wide_factor: 1,
+        drift_steering: false,
         ..TrackParams::new((b * 1000.0) as u32, r_in as u64, 1 << 40)
     };
     let m = run(sc, TrackConfig::new(p).unwrap(), 1.0, 0.05, 1e10);

@@ -7,7 +7,7 @@
 //! | offset | size | field |
 //! |---|---|---|
 //! | 0 | 4 | magic `SWHB` |
-//! | 4 | 1 | version, 2 |
+//! | 4 | 1 | version, 3 |
 //! | 5 | 8 | acquire: nominal period ps, Q32.32 |
 //! | 13 | 4 | acquire: prior ppm |
 //! | 17 | 4 | acquire: first stage, detections |
@@ -23,22 +23,24 @@
 //! | 58 | 1 | track: average shift |
 //! | 59 | 8 | track: blackout ps |
 //! | 67 | 4 | track: max rms, Q0.32 slot fraction |
-//! | 71 | 4 | track: bridge ppb |
-//! | 75 | 4 | reacquisition prior ppm |
-//! | 79 | 8 | hint: receiver time ps |
-//! | 87 | 8 | hint: transmitter slot |
-//! | 95 | 8 | link: answer timeout, slots |
-//! | 103 | 8 | link: batch flush age, slots |
-//! | 111 | 8 | monitor: block length ps |
-//! | 119 | 8 | monitor: detector dead time ps |
-//! | 127 | 4 | alarms: QBER ceiling ppm |
-//! | 131 | 1 | alarms: bound, 0 = Wilson, 1 = Hoeffding |
-//! | 132 | 8 | alarms: Wilson z (Q16.16) or Hoeffding 1/ε |
-//! | 140 | 8 | alarms: tested bits before the QBER alarm speaks |
-//! | 148 | 1 | alarms: intensity class watched |
-//! | 149 | 4 | alarms: rate floor ppm |
-//! | 153 | 4 | alarms: saturation ppm |
-//! | 157 | 4 | CRC-32/ISCSI over every byte before it |
+//! | 71 | 4 | track: wide-gear bandwidth factor |
+//! | 75 | 4 | track: drift allowance, ppb/s |
+//! | 79 | 4 | track: least holdover frequency uncertainty, ppt |
+//! | 83 | 4 | reacquisition prior ppm |
+//! | 87 | 8 | hint: receiver time ps |
+//! | 95 | 8 | hint: transmitter slot |
+//! | 103 | 8 | link: answer timeout, slots |
+//! | 111 | 8 | link: batch flush age, slots |
+//! | 119 | 8 | monitor: block length ps |
+//! | 127 | 8 | monitor: detector dead time ps |
+//! | 135 | 4 | alarms: QBER ceiling ppm |
+//! | 139 | 1 | alarms: bound, 0 = Wilson, 1 = Hoeffding |
+//! | 140 | 8 | alarms: Wilson z (Q16.16) or Hoeffding 1/ε |
+//! | 148 | 8 | alarms: tested bits before the QBER alarm speaks |
+//! | 156 | 1 | alarms: intensity class watched |
+//! | 157 | 4 | alarms: rate floor ppm |
+//! | 161 | 4 | alarms: saturation ppm |
+//! | 165 | 4 | CRC-32/ISCSI over every byte before it |
 
 use crate::setup::{Reader, SetupError, Writer};
 use core::fmt;
@@ -60,9 +62,9 @@ use slotwise::{
 /// File magic.
 pub const BOARD_MAGIC: [u8; 4] = *b"SWHB";
 /// Board file format version.
-pub const BOARD_VERSION: u8 = 2;
+pub const BOARD_VERSION: u8 = 3;
 /// Bytes of a board file.
-pub const BOARD_LEN: usize = 161;
+pub const BOARD_LEN: usize = 169;
 
 /// Why a board file could not be read, or its settings were refused by the core.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -170,7 +172,9 @@ impl BoardSettings {
         w.put(&[t.average_shift]);
         w.put(&t.blackout_ps.to_le_bytes());
         w.put(&t.max_rms.to_bits().to_le_bytes());
-        w.put(&t.bridge_ppb.to_le_bytes());
+        w.put(&t.wide_factor.to_le_bytes());
+        w.put(&t.drift_ppb_per_s.to_le_bytes());
+        w.put(&t.hold_ppt.to_le_bytes());
         w.put(&self.reacquire_ppm.to_le_bytes());
         w.put(&self.hint_t_ps.to_le_bytes());
         w.put(&self.hint_tx_slot.to_le_bytes());
@@ -222,7 +226,9 @@ impl BoardSettings {
         track.average_shift = r.u8("track.average_shift")?;
         track.blackout_ps = r.u64("track.blackout_ps")?;
         track.max_rms = U0F32::from_bits(r.u32("track.max_rms")?);
-        track.bridge_ppb = r.u32("track.bridge_ppb")?;
+        track.wide_factor = r.u32("track.wide_factor")?;
+        track.drift_ppb_per_s = r.u32("track.drift_ppb_per_s")?;
+        track.hold_ppt = r.u32("track.hold_ppt")?;
         let reacquire_ppm = r.u32("reacquire_ppm")?;
         let hint_t_ps = r.u64("hint.t_ps")?;
         let hint_tx_slot = r.u64("hint.tx_slot")?;

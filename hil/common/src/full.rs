@@ -268,6 +268,10 @@ impl<C: BoardClock> SlotClock for ProbedClock<C> {
         self.inner.epoch()
     }
 
+    fn renumbered_within(&self) -> Option<u64> {
+        self.inner.renumbered_within()
+    }
+
     fn slot_at(&self, t_ps: u64) -> Option<u64> {
         self.inner.slot_at(t_ps)
     }

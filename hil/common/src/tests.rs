@@ -213,20 +213,20 @@ fn board_file_round_trip_and_refusals() {
     assert_eq!(&b[..4], &BOARD_MAGIC);
     // Offsets from the layout table in board.rs.
     assert_eq!(
-        u64::from_le_bytes(b[79..87].try_into().unwrap()),
+        u64::from_le_bytes(b[87..95].try_into().unwrap()),
         1_000_000_000
     );
-    assert_eq!(u64::from_le_bytes(b[119..127].try_into().unwrap()), 40_000);
+    assert_eq!(u64::from_le_bytes(b[127..135].try_into().unwrap()), 40_000);
     assert_eq!(BoardSettings::decode(&b), Ok(board()));
     let mut bad = b;
     bad[20] ^= 1;
     assert!(matches!(
         BoardSettings::decode(&bad),
-        Err(BoardError::Layout(SetupError::BadCrc { offset: 157 }))
+        Err(BoardError::Layout(SetupError::BadCrc { offset: 165 }))
     ));
     // A zero answer timeout is refused by the core's link configuration.
     let mut bad = b;
-    bad[95..103].copy_from_slice(&0u64.to_le_bytes());
+    bad[103..111].copy_from_slice(&0u64.to_le_bytes());
     reseal(&mut bad);
     assert!(matches!(
         BoardSettings::decode(&bad),

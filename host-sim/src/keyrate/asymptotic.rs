@@ -4,7 +4,7 @@
 //! Counts are taken as their expectations (no statistical fluctuations). With a vacuum class its
 //! gain is Y0; without one, Y0 is bounded from the signal and the weak decoy (derived below).
 
-use super::channel::{gllp, E0};
+use super::channel::{gllp, Link, E0};
 use super::entropy::{h2, h2_capped};
 use super::{Bound, EstimatorError, Observed, Terms, X, Z};
 
@@ -12,8 +12,10 @@ use super::{Bound, EstimatorError, Observed, Terms, X, Z};
 pub const VACUUM_MU: f64 = 1e-9;
 
 /// Lower bound on the single-photon yield from signal μ and weak decoy ν < μ (Ma, Qi, Zhao, Lo
-/// 2005, the vacuum + weak decoy bound, eq. (34) in our reading — from memory):
+/// 2005, eq. (34), the vacuum + weak decoy bound):
 /// Y1 ≥ μ/(μν − ν²)·[Q_ν·e^ν − Q_μ·e^μ·ν²/μ² − (μ² − ν²)/μ²·Y0], with Y0 its upper bound.
+/// Derived again here: Q_ν·e^ν − Q_μ·e^μ·ν²/μ² = Y0·(μ² − ν²)/μ² + Y1·(μν − ν²)/μ
+/// + Σ_(n≥3) Y_n·(ν^n − ν²·μ^(n−2))/n!, and every term of the sum is ≤ 0 for ν < μ.
 pub fn y1_lower(mu: f64, nu: f64, q_mu: f64, q_nu: f64, y0_upper: f64) -> f64 {
     let a = q_nu * nu.exp() - q_mu * mu.exp() * nu * nu / (mu * mu);
     let b = (mu * mu - nu * nu) / (mu * mu) * y0_upper;
@@ -21,8 +23,9 @@ pub fn y1_lower(mu: f64, nu: f64, q_mu: f64, q_nu: f64, y0_upper: f64) -> f64 {
 }
 
 /// Upper bound on the single-photon error rate from the weak decoy ν (Ma, Qi, Zhao, Lo 2005,
-/// eq. (37) in our reading — from memory): e1 ≤ (E_ν·Q_ν·e^ν − e0·Y0)/(Y1·ν), with Y0 its
-/// lower bound and Y1 its lower bound; fraction, not capped (a bound ≥ 1/2 leaves no secrecy).
+/// eq. (37)): e1 ≤ (E_ν·Q_ν·e^ν − e0·Y0)/(Y1·ν), with Y0 its lower bound and Y1 its lower
+/// bound (derived again: E_ν·Q_ν·e^ν = e0·Y0 + e1·Y1·ν + Σ_(n≥2) e_n·Y_n·ν^n/n!, every term ≥ 0);
+/// fraction, not capped (a bound ≥ 1/2 leaves no secrecy).
 pub fn e1_upper(nu: f64, q_nu: f64, e_nu: f64, y0_lower: f64, y1_lower: f64) -> f64 {
     if y1_lower <= 0.0 || nu <= 0.0 {
         return f64::INFINITY;
@@ -100,9 +103,20 @@ pub fn decoy_rate(o: &Observed, f_ec: f64) -> Result<Bound, EstimatorError> {
     })
 }
 
+/// Vacuum + weak decoy rate of the standard channel model (Ma, Qi, Zhao, Lo 2005: eq. (1) with
+/// Y1 from eq. (34) and e1 from eq. (37); the vacuum decoy measures Y0 itself), signal μ, weak
+/// decoy ν, at `l_km`; the share q of pulses that give key, as in eq. (1); bits per pulse.
+pub fn vacuum_weak_rate(link: &Link, mu: f64, nu: f64, l_km: f64, f: f64, q: f64) -> f64 {
+    let (q_mu, e_mu) = link.coherent(mu, l_km);
+    let (q_nu, e_nu) = link.coherent(nu, l_km);
+    let y1 = y1_lower(mu, nu, q_mu, q_nu, link.y0);
+    let e1 = e1_upper(nu, q_nu, e_nu, link.y0, y1);
+    gllp(q, q_mu, e_mu, y1 * mu * (-mu).exp(), e1, f)
+}
+
 #[cfg(test)]
 mod tests {
-    use super::super::channel::{infinite_decoy_rate, Link};
+    use super::super::channel::infinite_decoy_rate;
     use super::super::ClassCounts;
     use super::*;
 

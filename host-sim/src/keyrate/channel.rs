@@ -1,9 +1,18 @@
 //! The standard channel model (Lo, Ma, Chen, PRL 94, 230504 (2005); Ma, Qi, Zhao, Lo, PRA 72,
-//! 012326 (2005)) and the infinite-decoy rate it gives; used for the checks of BRIEF §4 and for
-//! rate-versus-distance curves.
+//! 012326 (2005)) and the infinite-decoy rate it gives; used for the checks of BRIEF §4, the
+//! published maximum distances of Ma et al. and rate-versus-distance curves.
 //!
 //! η = η_Bob·10^(−(αL + extra)/10); Q_μ = Y0 + 1 − e^(−ημ); E_μ·Q_μ = e0·Y0 + e_d(1 − e^(−ημ)),
-//! e0 = 1/2; Y1 ≈ Y0 + η; e1 = (e0·Y0 + e_d·η)/Y1.
+//! e0 = 1/2; Y1 ≈ Y0 + η; e1 = (e0·Y0 + e_d·η)/Y1 (the model section of Ma et al. 2005; the
+//! exact Y1 = Y0 + η − Y0·η moves the maximum distance by less than 1e-4 km).
+//!
+//! Two ways to choose μ give two maximum distances on the parameters of Ma et al.'s Table I
+//! (α = 0.21 dB/km, e_d = 3.3 %, Y0 = 1.7e-6, η_Bob = 4.5 %, f = 1.22): μ optimised again at
+//! every length ([`max_distance_km`], 142.21 km) and μ held at the optimum of the approximate
+//! rate, (1 − μ)e^(−μ) = f·h(e_d)/(1 − h(e_d)), μ = 0.4789 ([`mu_opt_approx`],
+//! [`max_distance_at_mu`], 142.02 km). The published 142.05 km (their Fig. 3) is reproduced by
+//! the second (within 0.03 km), not by the first (0.16 km off); that Ma et al. hold μ at the
+//! approximate optimum is our reading of their text, from memory — see `docs/keyrate.md`.
 
 use super::entropy::{golden_max, h2, h2_capped};
 
@@ -26,7 +35,7 @@ pub struct Link {
 }
 
 impl Link {
-    /// The example of BRIEF §4 (Ma, Qi, Zhao, Lo 2005 parameters): α = 0.21 dB/km, e_d = 3.3 %,
+    /// The parameters of Ma, Qi, Zhao, Lo 2005, Table I (BRIEF §4): α = 0.21 dB/km, e_d = 3.3 %,
     /// Y0 = 1.7e-6, η_Bob = 4.5 %.
     pub const GYS_EXAMPLE: Link = Link {
         eta_bob: 0.045,
@@ -77,13 +86,34 @@ pub fn optimal_mu(link: &Link, l_km: f64, f: f64, q: f64) -> (f64, f64) {
     })
 }
 
-/// Largest fibre length (km) with a positive infinite-decoy rate at the optimal μ, found by
-/// bisection on [0, 1000] km.
+/// Largest fibre length (km) with a positive infinite-decoy rate, μ optimised again at every
+/// length; bisection on [0, 1000] km. On Ma et al.'s Table I parameters: 142.21 km.
 pub fn max_distance_km(link: &Link, f: f64, q: f64) -> f64 {
-    if optimal_mu(link, 0.0, f, q).1 <= 0.0 {
+    reach_km(|l| optimal_mu(link, l, f, q).1)
+}
+
+/// Mean photon number that maximises the approximate infinite-decoy rate, which neglects Y0:
+/// R ≈ q·η·μ·{e^(−μ)·[1 − h(e_d)] − f·h(e_d)}, so (1 − μ)·e^(−μ) = f·h(e_d)/(1 − h(e_d)) (the
+/// approximation of Ma et al. 2005 — from memory). Independent of distance; 0.4789 on Table I.
+pub fn mu_opt_approx(link: &Link, f: f64) -> f64 {
+    let h = h2(link.e_d);
+    let rhs = f * h / (1.0 - h);
+    // (1 − μ)e^(−μ) falls from 1 at μ = 0 to 0 at μ = 1.
+    super::entropy::bisect(0.0, 1.0, 1e-12, |mu| (1.0 - mu) * (-mu).exp() - rhs)
+}
+
+/// Largest fibre length (km) with a positive rate `rate(l_km)` for a rate that falls through
+/// zero once; bisection on [0, 1000] km, 0 when there is no key at 0 km.
+pub fn reach_km(rate: impl Fn(f64) -> f64) -> f64 {
+    if rate(0.0) <= 0.0 {
         return 0.0;
     }
-    super::entropy::bisect(0.0, 1000.0, 1e-4, |l| optimal_mu(link, l, f, q).1)
+    super::entropy::bisect(0.0, 1000.0, 1e-4, rate)
+}
+
+/// Largest fibre length (km) with a positive infinite-decoy rate at a fixed μ.
+pub fn max_distance_at_mu(link: &Link, mu: f64, f: f64, q: f64) -> f64 {
+    reach_km(|l| infinite_decoy_rate(link, mu, l, f, q))
 }
 
 #[cfg(test)]

@@ -2,15 +2,20 @@
 //! bounds for practical decoy-state quantum key distribution", PRA 89, 022307 (2014).
 //!
 //! The paper extracts key from its X basis and tests in Z; here the key basis is Z and the test
-//! basis X (names swapped, formulas unchanged). Intensities μ1 > μ2 + μ3, μ2 > μ3 ≥ 0. Every
-//! formula below is written from memory of the paper; the equation numbers are our reading of it.
-//! Counts are treated as i.i.d. and bounded with Hoeffding's inequality (JASA 58, 13 (1963)).
+//! basis X (names swapped, formulas unchanged). Intensities μ1 > μ2 + μ3, μ2 > μ3 ≥ 0. Each line
+//! carries the number of the equation it implements (eqs. (1)-(5) and Appendix B, checked against
+//! the paper's text); the simulation model and its checks are in [`super::lim_model`]. Counts are
+//! treated as i.i.d. and bounded with Hoeffding's inequality (JASA 58, 13 (1963)).
+//!
+//! Where the earlier form differed (docs/keyrate.md lists the figures that moved): n^−_k was
+//! clamped at 0, which raises s_0 and s_1 when a weak class has fewer counts than δ (the paper
+//! has no clamp, and a negative n^−_k is what keeps the bound a bound); ℓ was not rounded down.
 
 use super::entropy::{h2, h2_capped};
 use super::{Bound, ClassCounts, EstimatorError, Observed, Terms, X, Z};
 
-/// Number of error terms ε_sec is split into in Lim et al. (the "21" of their eqs. (1), (2)
-/// and (5) — from memory).
+/// Number of error terms ε_sec is split into in Lim et al. (Appendix B: ε_sec = 21ε; the "21"
+/// of their eqs. (1), (2) and (5)).
 pub const LIM_SPLIT: f64 = 21.0;
 
 /// Security and correctness parameters of a finite-key bound.
@@ -23,7 +28,7 @@ pub struct Epsilons {
 }
 
 /// Hoeffding deviation δ(n, ε) = sqrt(n/2 · ln(1/ε)) for a total of `n` counts (Lim et al.
-/// 2014, below eq. (2) with ε = ε_sec/21 — from memory), counts.
+/// 2014, the n^± of eq. (2), with ε = ε_sec/21), counts.
 pub fn hoeffding_delta(n: f64, eps: f64) -> f64 {
     (n / 2.0 * (1.0 / eps).ln()).sqrt()
 }
@@ -39,15 +44,15 @@ pub fn tau(o: &Observed, n: u32) -> f64 {
 }
 
 /// The Hoeffding-corrected, rescaled count n^±_k = (e^(μ_k)/p_k)·(n_k ± δ) (Lim et al. 2014,
-/// the definition after eq. (2) — from memory).
+/// the definition after eq. (2)); n^− may be negative, as in the paper.
 pub fn rescaled(mu: f64, p: f64, n_k: f64, delta: f64) -> (f64, f64) {
     let s = mu.exp() / p;
-    (s * (n_k - delta).max(0.0), s * (n_k + delta))
+    (s * (n_k - delta), s * (n_k + delta))
 }
 
 /// γ(a, b, c, d) = sqrt[(c + d)(1 − b)b/(c·d·ln 2) · log2((c + d)/(c·d·(1 − b)b) · split²/a²)]:
-/// the random-sampling deviation of the phase error (Lim et al. 2014, the function below eq. (5)
-/// with split = 21 — from memory), fraction.
+/// the random-sampling deviation of the phase error (Lim et al. 2014, the γ of eq. (5), split =
+/// 21; "log 2" in its denominator is the natural logarithm), fraction.
 pub fn gamma(a: f64, b: f64, c: f64, d: f64, split: f64) -> f64 {
     if c <= 0.0 || d <= 0.0 || b <= 0.0 || b >= 1.0 {
         return if b <= 0.0 && c > 0.0 && d > 0.0 {
@@ -114,8 +119,8 @@ pub fn lim_s0_s1(
     Ok((s0, s1.max(0.0)))
 }
 
-/// Upper bound on single-photon errors in the test basis X, counts (Lim et al. 2014, eq. (4) —
-/// from memory): v_X,1 ≤ τ1·(m^+_X,2 − m^-_X,3)/(μ2 − μ3).
+/// Upper bound on single-photon errors in the test basis X, counts (Lim et al. 2014, eq. (4)):
+/// v_X,1 ≤ τ1·(m^+_X,2 − m^-_X,3)/(μ2 − μ3).
 pub fn lim_v1(o: &Observed, eps: Epsilons, fluct: bool) -> Result<f64, EstimatorError> {
     let [_, i2, i3] = ordered(o)?;
     Ok(v1_upper(
@@ -129,8 +134,9 @@ pub fn lim_v1(o: &Observed, eps: Epsilons, fluct: bool) -> Result<f64, Estimator
 }
 
 /// Upper bound on single-photon errors in X from a higher class `hi` and a lower class `lo`,
-/// counts: τ1·(m^+_X,hi − m^-_X,lo)/(μ_hi − μ_lo), with Hoeffding's δ at ε_sec/`split` when
-/// `fluct` (Lim et al. 2014 eq. (4), Rusca et al. 2018 eq. (4) — from memory).
+/// counts: τ1·(m^+_X,hi − m^-_X,lo)/(μ_hi − μ_lo), with Hoeffding's δ(m_X) at ε_sec/`split`
+/// when `fluct` (Lim et al. 2014, eq. (4); the one-decoy protocol uses it with (μ2, μ3) →
+/// (μ1, μ2)).
 pub fn v1_upper(
     o: &Observed,
     hi: &ClassCounts,
@@ -149,10 +155,11 @@ pub fn v1_upper(
     (tau(o, 1) * (m_hi_p - m_lo_m) / (hi.mu - lo.mu)).max(0.0)
 }
 
-/// Finite-key length of two-decoy BB84 (Lim et al. 2014, eq. (1) — from memory):
+/// Finite-key length of two-decoy BB84 (Lim et al. 2014, eq. (1)):
 /// ℓ = s_Z,0 + s_Z,1·[1 − h(φ_Z)] − λ_EC − 6·log2(21/ε_sec) − log2(2/ε_cor), with
-/// φ_Z = v_X,1/s_X,1 + γ(ε_sec, v_X,1/s_X,1, s_Z,1, s_X,1) (eq. (5)) and λ_EC = f·n_Z·h(E_Z) (the
-/// leakage model of their simulations). Returned per pulse sent (ℓ/N) with its terms.
+/// φ_Z = v_X,1/s_X,1 + γ(ε_sec, v_X,1/s_X,1, s_X,1, s_Z,1) (eq. (5); γ is symmetric in its last
+/// two arguments) and λ_EC = f·n_Z·h(E_Z) (the leakage model of their simulations). Returned per
+/// pulse sent (ℓ/N, ℓ rounded down when positive) with its terms.
 pub fn lim_key(o: &Observed, eps: Epsilons, f_ec: f64) -> Result<Bound, EstimatorError> {
     finite_key(o, eps, f_ec, LIM_SPLIT, |fluct| {
         let (s0z, s1z) = lim_s0_s1(o, Z, eps, fluct)?;
@@ -162,9 +169,10 @@ pub fn lim_key(o: &Observed, eps: Epsilons, f_ec: f64) -> Result<Bound, Estimato
     })
 }
 
-/// Finite-key length ℓ = s_Z,0 + s_Z,1·[1 − h(φ_Z)] − λ_EC − 6·log2(split/ε_sec) −
-/// log2(2/ε_cor) with φ_Z = v_X,1/s_X,1 + γ (Lim et al. 2014 eqs. (1), (5) — from memory), per
-/// pulse sent with its terms. `bounds(fluct)` gives (s_Z,0, s_Z,1, s_X,1, v_X,1) in counts.
+/// Finite-key length ℓ = ⌊s_Z,0 + s_Z,1·[1 − h(φ_Z)] − λ_EC − 6·log2(split/ε_sec) −
+/// log2(2/ε_cor)⌋ with φ_Z = v_X,1/s_X,1 + γ (Lim et al. 2014, eqs. (1) and (5); Rusca et al.
+/// 2018, (A25), with split 19), per pulse sent with its terms. `bounds(fluct)` gives
+/// (s_Z,0, s_Z,1, s_X,1, v_X,1) in counts.
 pub fn finite_key(
     o: &Observed,
     eps: Epsilons,
@@ -207,6 +215,7 @@ pub fn finite_key(
     // The terms are those of the same counts without fluctuations, so that they add up with the
     // finite-size penalty (ε terms + fluctuations) to the finite key length.
     let (l, finite) = len(true)?;
+    let l = if l > 0.0 { l.floor() } else { l };
     let (l_inf, mut terms) = len(false)?;
     terms.epsilon_terms = finite.epsilon_terms;
     terms.statistical_penalty = (l_inf - l) / o.pulses - finite.epsilon_terms;

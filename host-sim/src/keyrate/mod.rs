@@ -3,9 +3,12 @@
 //!
 //! Estimators (each a documented function with its reference):
 //! - [`asymptotic`]: GLLP rate with vacuum + weak decoy bounds (Lo, Ma, Chen, PRL 94, 230504
-//!   (2005); Ma, Qi, Zhao, Lo, PRA 72, 012326 (2005)), and the infinite-decoy form;
+//!   (2005); Ma, Qi, Zhao, Lo, PRA 72, 012326 (2005), eqs. (34) and (37)); the infinite-decoy
+//!   form and the standard channel model are in [`channel`];
 //! - [`finite_lim`]: finite-key decoy BB84 with two decoys (Lim, Curty, Walenta, Xu, Zbinden,
 //!   PRA 89, 022307 (2014));
+//! - [`lim_model`]: the simulation model of Lim et al. 2014 and the search of their parameters
+//!   ([`optimise`]: Nelder-Mead), behind `--vs-distance --model lim2014`;
 //! - [`one_decoy`]: finite-key one-decoy bound for efficient BB84 and the three-state protocol
 //!   (Rusca, Boaron, Grünenfelder, Martin, Zbinden, APL 112, 171104 (2018));
 //! - [`sps`]: a sub-Poissonian source characterised by g2(0) (multi-photon bound of Waks et al.,
@@ -13,15 +16,18 @@
 //!
 //! The key is taken from the Z basis; the X basis tests the phase error. All figures are
 //! estimates under each model's assumptions, not a security certification: see [`CAUTION`].
-//! f64 throughout (host only).
+//! f64 throughout (host only). Which published figures these reproduce, and which not, is in
+//! `docs/keyrate.md`.
 
 pub mod asymptotic;
 pub mod channel;
 pub mod cmd;
 pub mod entropy;
 pub mod finite_lim;
+pub mod lim_model;
 pub mod observed;
 pub mod one_decoy;
+pub mod optimise;
 pub mod plot;
 pub mod report;
 pub mod sps;

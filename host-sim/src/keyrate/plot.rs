@@ -12,6 +12,7 @@ fn draw<DB: DrawingBackend>(
     curve: &[CurvePoint],
     est: &Estimate,
     title: &str,
+    labels: &CurveLabels,
 ) -> Result<(), DynErr>
 where
     DB::ErrorType: 'static,
@@ -54,21 +55,14 @@ where
             series(|p| p.infinite_decoy_bits_per_pulse),
             grey.stroke_width(2),
         ))?
-        .label("infinite decoys (channel model)")
+        .label(labels.asymptote.as_str())
         .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], grey.stroke_width(2)));
     chart
         .draw_series(LineSeries::new(
             series(|p| p.bits_per_pulse),
             blue.stroke_width(2),
         ))?
-        .label(match est.estimator {
-            Estimator::FiniteLim | Estimator::OneDecoy => format!(
-                "{} on model counts, N = {:.1e}",
-                est.estimator.name(),
-                est.pulses
-            ),
-            _ => format!("{} on model counts", est.estimator.name()),
-        })
+        .label(labels.bound.as_str())
         .legend(move |(x, y)| PathElement::new([(x, y), (x + 18, y)], blue.stroke_width(2)));
     if est.bits_per_pulse > 0.0 {
         let red = RGBColor(214, 39, 40);
@@ -90,12 +84,40 @@ where
     Ok(())
 }
 
+/// Legend of the two curves.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct CurveLabels {
+    /// The finite (or asymptotic) bound on model counts.
+    pub bound: String,
+    /// The infinite-decoy rate of the same model.
+    pub asymptote: String,
+}
+
+impl CurveLabels {
+    /// The legend of a curve on the scenario's channel model for the run's estimator.
+    pub fn channel_model(est: &Estimate) -> Self {
+        let bound = match est.estimator {
+            Estimator::FiniteLim | Estimator::OneDecoy => format!(
+                "{} on model counts, N = {:.1e}",
+                est.estimator.name(),
+                est.pulses
+            ),
+            _ => format!("{} on model counts", est.estimator.name()),
+        };
+        Self {
+            bound,
+            asymptote: "infinite decoys (channel model)".to_string(),
+        }
+    }
+}
+
 /// Draw the curve into `path`: PNG when it ends in `.png` (needs a system font), else SVG.
 pub fn rate_vs_distance(
     path: &Path,
     curve: &[CurvePoint],
     est: &Estimate,
     title: &str,
+    labels: &CurveLabels,
 ) -> Result<(), DynErr> {
     let size = (900, 600);
     // Text layout needs the registered font on either backend.
@@ -112,11 +134,11 @@ pub fn rate_vs_distance(
             .into());
         }
         let root = BitMapBackend::new(path, size).into_drawing_area();
-        draw(&root, curve, est, title)?;
+        draw(&root, curve, est, title, labels)?;
         root.present()?;
     } else {
         let root = SVGBackend::new(path, size).into_drawing_area();
-        draw(&root, curve, est, title)?;
+        draw(&root, curve, est, title, labels)?;
         root.present()?;
     }
     Ok(())

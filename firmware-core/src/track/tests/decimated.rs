@@ -6,6 +6,8 @@ use super::*;
 fn cfg(bandwidth_mhz: u32, rate_per_s: u64, n: u32) -> TrackConfig {
     TrackConfig::new(TrackParams {
         update_every: n,
+        wide_factor: 1,
+        drift_steering: false,
         ..TrackParams::new(bandwidth_mhz, rate_per_s, 1 << 40)
     })
     .unwrap()
@@ -31,6 +33,8 @@ fn gains_are_rices_for_the_update_interval() {
     // 100 Hz at 10⁴/s: B_n·T_u' = 0.08 for N = 8, 0.16 for N = 16.
     let p = |n| TrackParams {
         update_every: n,
+        wide_factor: 1,
+        drift_steering: false,
         ..TrackParams::new(100_000, 10_000, 1 << 40)
     };
     assert!(TrackConfig::new(p(8)).is_ok());
@@ -122,6 +126,8 @@ fn decimated_loop_keeps_its_noise_bandwidth() {
     let p = TrackParams {
         window: U0F32::from_num(w),
         update_every: 4,
+        wide_factor: 1,
+        drift_steering: false,
         ..TrackParams::new((b * 1000.0) as u32, r_in as u64, 1 << 40)
     };
     let m = run(sc, TrackConfig::new(p).unwrap(), 1.0, 0.05, 1e10);
