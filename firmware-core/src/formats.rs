@@ -14,6 +14,7 @@
 //! | 5 | [`alarm`] | board → post-processing host |
 //! | 6 | [`statistics`] | board → post-processing host |
 //! | 7 | [`refill`] | post-processing host → board (authentication key) |
+//! | 8 | [`round`] | both ways on the sifting link (one authentication tag per round) |
 //!
 //! [`tag`] computes the Wegman-Carter tag a frame of the sifting link carries after its payload.
 //!
@@ -49,6 +50,7 @@ pub mod cobs;
 pub mod framing;
 pub mod key_block;
 pub mod refill;
+pub mod round;
 pub mod statistics;
 pub mod summary;
 pub mod tag;

@@ -21,13 +21,15 @@
 //! - [`endpoint`]: [`ReceiverLink`], the receiver's side, a [`Transmitter`](crate::Transmitter);
 //!   its settings and counters are in [`config`].
 //! - [`auth`] and [`keypool`]: Wegman-Carter authentication of every frame both ways
-//!   ([`LinkAuth`]), with a bounded pool of one-time-pad words that fails closed.
+//!   ([`LinkAuth`]), with a bounded pool of one-time-pad words that fails closed; [`round`]:
+//!   or one tag per round of frames over the agreed sifting transcript ([`RoundLedger`]).
 
 pub mod auth;
 pub mod config;
 pub mod decoder;
 pub mod endpoint;
 pub mod keypool;
+pub mod round;
 pub mod seqwin;
 
 pub use crate::formats::announce::{AnnounceView, Report};
@@ -39,6 +41,7 @@ pub use config::{LinkConfig, LinkConfigError, LinkCounters};
 pub use decoder::FrameDecoder;
 pub use endpoint::ReceiverLink;
 pub use keypool::{KeyPool, PadState, PoolCounters, RefillError};
+pub use round::{RoundConfigError, RoundCounters, RoundFailure, RoundLedger};
 pub use seqwin::{SeqClass, SeqWindow};
 
 use crate::formats::FrameError;

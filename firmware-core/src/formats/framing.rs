@@ -63,11 +63,14 @@ pub enum RecordType {
     Stats = 6,
     /// Post-processing host to board: fresh key for the authentication pool ([`super::refill`]).
     KeyRefill = 7,
+    /// Both ways on the sifting link: round tags and the receiver's round verdicts
+    /// ([`super::round`]).
+    RoundTag = 8,
 }
 
 impl RecordType {
     /// Every record type, in wire-code order.
-    pub const ALL: [RecordType; 7] = [
+    pub const ALL: [RecordType; 8] = [
         Self::KeyBlock,
         Self::Summary,
         Self::Announce,
@@ -75,6 +78,7 @@ impl RecordType {
         Self::Alarm,
         Self::Stats,
         Self::KeyRefill,
+        Self::RoundTag,
     ];
 
     /// Short snake-case name for reports.
@@ -87,6 +91,7 @@ impl RecordType {
             Self::Alarm => "alarm",
             Self::Stats => "stats",
             Self::KeyRefill => "key_refill",
+            Self::RoundTag => "round_tag",
         }
     }
 

@@ -19,6 +19,7 @@
 
 use super::keypool::{KeyPool, PadState, RefillError};
 use super::Reject;
+use crate::formats::round::{pad_hash, FrameDigest};
 use crate::formats::tag::{tag, tags_equal, Direction, TagInput, HASH_KEY_LEN, PAD_LEN};
 use crate::formats::{Frame, FrameError, TAG_LEN};
 use core::fmt;
@@ -261,12 +262,97 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
     /// changes but the counters and the alarm window.
     pub fn verify(&mut self, m: &TagInput<'_>, got: Option<&[u8; TAG_LEN]>) -> Result<(), Reject> {
         let r = self.check(m, got);
-        self.recent = self.recent << 1 | u64::from(r.is_err());
+        self.record(r)
+    }
+
+    /// Start digesting one answered announce frame under the session hash key (round mode).
+    pub fn frame_digest(&self, count: u16, first_slot: u64) -> FrameDigest {
+        FrameDigest::new(&self.hash_key, count, first_slot)
+    }
+
+    /// Spend pad words `first ..` into `out` (a whole number of words), e.g. the round mode's
+    /// transcript key; nothing is spent unless every word is there.
+    pub fn take_words(&mut self, first: u64, out: &mut [u8]) -> Result<(), Reject> {
+        let words = out.len() / PAD_LEN;
+        if (first..first + words as u64).any(|w| self.pool.state(w) != PadState::Fresh) {
+            return Err(Reject::NoKey);
+        }
+        for (w, chunk) in (first..).zip(out.chunks_exact_mut(PAD_LEN)) {
+            let mut pad = self.pool.spend(w).ok_or(Reject::NoKey)?;
+            chunk.copy_from_slice(&pad);
+            pad.zeroize();
+        }
+        self.sync_bits();
+        Ok(())
+    }
+
+    /// Tag a 16-byte hash (a round transcript) with pad word `word`, spent and wiped.
+    pub fn seal_hash(&mut self, word: u64, full: &[u8; 16]) -> Result<[u8; TAG_LEN], Reject> {
+        let pad = if self.stopped {
+            None
+        } else {
+            self.pool.spend(word)
+        };
+        let Some(mut pad) = pad else {
+            self.counters.starved_frames += 1;
+            return Err(Reject::NoKey);
+        };
+        let t = pad_hash(full, &pad);
+        pad.zeroize();
+        self.counters.frames_tagged += 1;
+        self.sync_bits();
+        Ok(t)
+    }
+
+    /// Check a tag over a 16-byte hash with pad word `word`. The word is spent whatever the
+    /// outcome: a round is decided by its first check.
+    pub fn verify_hash(
+        &mut self,
+        word: u64,
+        full: &[u8; 16],
+        got: &[u8; TAG_LEN],
+    ) -> Result<(), Reject> {
+        let r = if self.stopped {
+            Err(Reject::NoKey)
+        } else {
+            match self.pool.state(word) {
+                PadState::Gone => Err(Reject::Replayed),
+                PadState::Absent => Err(Reject::NoKey),
+                PadState::Fresh => match self.pool.spend(word) {
+                    None => Err(Reject::NoKey),
+                    Some(mut pad) => {
+                        let want = pad_hash(full, &pad);
+                        pad.zeroize();
+                        if tags_equal(&want, got) {
+                            Ok(())
+                        } else {
+                            Err(Reject::BadTag)
+                        }
+                    }
+                },
+            }
+        };
+        self.record(r)
+    }
+
+    /// Count one check made outside the tag (round mode: a duplicate, late or mismatched frame)
+    /// in the attack alarm's window, without counting it as a refusal of the tag.
+    pub fn note_check(&mut self, suspicious: bool) {
+        self.recent = self.recent << 1 | u64::from(suspicious);
+        self.update_alarm();
+    }
+
+    fn update_alarm(&mut self) {
         let active = self.recent.count_ones() >= self.cfg.alarm_refusals;
         if active && !self.attack {
             self.counters.attack_alarms += 1;
         }
         self.attack = active;
+    }
+
+    fn record(&mut self, r: Result<(), Reject>) -> Result<(), Reject> {
+        self.recent = self.recent << 1 | u64::from(r.is_err());
+        self.update_alarm();
         if r.is_err() {
             self.counters.refusals += 1;
             if self.counters.refusals >= self.cfg.stop_after_refusals {

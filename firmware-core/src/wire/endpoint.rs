@@ -19,6 +19,7 @@ use super::auth::{check_frame, LinkAuth, RefillFrameError};
 use super::config::{LinkConfig, LinkCounters};
 use super::decoder::FrameDecoder;
 use super::keypool::RefillError;
+use super::round::{RoundConfigError, RoundLedger};
 use super::seqwin::{SeqClass, SeqWindow};
 use super::{Reject, RejectCounts};
 use crate::formats::announce::{
@@ -31,7 +32,8 @@ use crate::formats::framing::{
     MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
 };
 use crate::formats::refill::RefillView;
-use crate::formats::tag::{Direction, TagInput};
+use crate::formats::round::{self as round_rec, round_pad_word, RoundTag, Verdict};
+use crate::formats::tag::{Direction, TagInput, BLOCK_LEN};
 use crate::gates::Basis;
 use crate::sift::{Announcement, Answer, Transmitter};
 use embedded_io::{Read, ReadReady, Write};
@@ -65,6 +67,8 @@ struct OpenFrame {
     first_slot: u64,
     last_slot: u64,
     state: FrameState,
+    /// Round mode: the digest of the frame's transcript entry, once answered.
+    digest: Option<[u8; BLOCK_LEN]>,
 }
 
 /// An incoming frame reduced to what the endpoint checks (so the decoder's borrow ends).
@@ -75,6 +79,7 @@ enum Got {
         first_slot: u64,
         count: usize,
     },
+    RoundTags([RoundTag; round_rec::MAX_ENTRIES], usize),
     Refused(Reject),
 }
 
@@ -99,6 +104,12 @@ pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize, const KEYW: 
     /// Number of the next announce frame (its `seq` is the low 16 bits).
     next_num: u64,
     auth: Option<LinkAuth<KEYW>>,
+    /// Round mode: frames go untagged and one tag per round covers the sifting transcript.
+    rounds: Option<RoundLedger>,
+    /// Sequence number of the next round-tag record.
+    round_seq: u16,
+    /// Number of the announce frame whose answers are being handed out.
+    cur_num: u64,
     /// Slot << 1 | basis of every announcement in an open frame or the batch.
     slots: Deque<u64, OUT>,
     /// Running index of `slots`' front.
@@ -150,6 +161,9 @@ where
             bases: [0; MAX_ENTRIES / 8],
             next_num: 0,
             auth: None,
+            rounds: None,
+            round_seq: 0,
+            cur_num: 0,
             slots: Deque::new(),
             front: 0,
             open: Deque::new(),
@@ -193,6 +207,46 @@ where
         let mut l = Self::new(cfg, reader, writer);
         l.auth = Some(auth);
         l
+    }
+
+    /// A round-authenticated endpoint: frames travel untagged and one tag per round of
+    /// `frames_per_round` announce frames, each way, covers the round's sifting transcript
+    /// ([`super::round`]); the transcript key is taken from pad words 0 and 1 of `auth`.
+    pub fn new_round_authenticated(
+        cfg: LinkConfig,
+        mut auth: LinkAuth<KEYW>,
+        frames_per_round: u32,
+        reader: R,
+        writer: W,
+    ) -> Result<Self, RoundConfigError> {
+        let rounds = RoundLedger::new(frames_per_round, &mut auth)?;
+        let mut l = Self::new_authenticated(cfg, auth, reader, writer);
+        l.rounds = Some(rounds);
+        Ok(l)
+    }
+
+    /// The round ledger, in round mode.
+    pub const fn rounds(&self) -> Option<&RoundLedger> {
+        self.rounds.as_ref()
+    }
+
+    /// Round mode: the round of the answers [`Transmitter::poll_answer`] last handed out (its
+    /// key is kept only if [`Self::poll_verdict`] later says so).
+    pub fn answer_round(&self) -> Option<u64> {
+        self.rounds.as_ref().map(|r| r.round_of(self.cur_num))
+    }
+
+    /// Round mode: the next round verdict for the post-processing host, (round, key kept).
+    pub fn poll_verdict(&mut self) -> Option<(u64, bool)> {
+        self.rounds.as_mut().and_then(RoundLedger::poll_verdict)
+    }
+
+    /// Round mode, end of the session: every round still waiting for the transmitter's tag
+    /// fails; the verdicts go out with the next final report.
+    pub fn give_up_rounds(&mut self) {
+        if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+            l.give_up(a);
+        }
     }
 
     /// The authentication state, when the link is authenticated.
@@ -298,6 +352,9 @@ where
             }
         }
         self.pop_resolved();
+        if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+            l.close_round(a);
+        }
         self.closed = true;
         self.send_final_report();
     }
@@ -311,7 +368,7 @@ where
         if emit_fixed(area, 0, 0, self.report, FLAG_FINAL).is_ok() && self.emit(ANNOUNCE_FIXED) {
             // No answers come for a report: its answers pad word is of no further use.
             let answers_word = Direction::ToReceiver.pad_word(self.next_num - 1);
-            if let Some(a) = self.auth.as_mut() {
+            if let (Some(a), None) = (self.auth.as_mut(), self.rounds.as_ref()) {
                 a.abandon_below(answers_word + 1);
             }
         }
@@ -325,7 +382,8 @@ where
     fn emit(&mut self, len: usize) -> bool {
         let num = self.next_num;
         let seq = num as u16;
-        let sealed = match self.auth.as_mut() {
+        let frame_auth = self.auth.as_mut().filter(|_| self.rounds.is_none());
+        let sealed = match frame_auth {
             None => seal_in_place(RecordType::Announce, seq, len, &mut self.raw, &mut self.enc),
             Some(a) => {
                 let m = TagInput {
@@ -363,7 +421,41 @@ where
             }
             Err(_) => self.counters.write_errors += 1,
         }
+        self.send_round_tags();
         true
+    }
+
+    /// Round mode: send the round tags due (after each announce frame).
+    fn send_round_tags(&mut self) {
+        let Some(l) = self.rounds.as_mut() else {
+            return;
+        };
+        let mut tags = [RoundTag {
+            round: 0,
+            dir: Direction::ToTransmitter,
+            verdict: Verdict::Open,
+            tag: [0; 8],
+        }; round_rec::MAX_ENTRIES];
+        let n = l.outgoing(&mut tags);
+        let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
+        let Some(len) = tags
+            .get(..n)
+            .and_then(|t| round_rec::emit(t, area).ok())
+        else {
+            return;
+        };
+        let seq = self.round_seq;
+        self.round_seq = seq.wrapping_add(1);
+        match seal_in_place(RecordType::RoundTag, seq, len, &mut self.raw, &mut self.enc) {
+            Ok(m) => {
+                self.counters.bytes_out += m as u64;
+                let bytes = self.enc.get(..m).unwrap_or_default();
+                if self.writer.write_all(bytes).is_err() {
+                    self.counters.write_errors += 1;
+                }
+            }
+            Err(_) => self.counters.write_errors += 1,
+        }
     }
 
     fn batch_limit(&self) -> usize {
@@ -378,6 +470,11 @@ where
     /// words of [`CLOSE_RESERVE`] final reports after it must be loaded too (always true when
     /// unauthenticated).
     fn can_send(&self) -> bool {
+        if let (Some(l), Some(a)) = (self.rounds.as_ref(), self.auth.as_ref()) {
+            let r = l.round_of(self.next_num);
+            return a.can_tag(round_pad_word(r, Direction::ToTransmitter))
+                && a.can_tag(round_pad_word(r, Direction::ToReceiver));
+        }
         let word = Direction::ToTransmitter.pad_word(self.next_num);
         let reserve = Direction::ToTransmitter.pad_word(self.next_num + CLOSE_RESERVE);
         self.auth
@@ -434,6 +531,7 @@ where
             first_slot: self.batch_first,
             last_slot: self.batch_prev,
             state: FrameState::Waiting,
+            digest: None,
         };
         if fixed.is_ok() && self.open.push_back(rec).is_ok() {
             if self.emit(ANNOUNCE_FIXED + self.batch_deltas + m) {
@@ -500,8 +598,10 @@ where
                     self.front += 1;
                 }
             }
-            if let Some(a) = self.auth.as_mut() {
-                a.abandon_below(Direction::ToReceiver.pad_word(f.num) + 1);
+            match (self.auth.as_mut(), self.rounds.as_mut()) {
+                (Some(a), Some(l)) => l.frame_final(a, f.num, f.digest.as_ref()),
+                (Some(a), None) => a.abandon_below(Direction::ToReceiver.pad_word(f.num) + 1),
+                _ => {}
             }
             let answered = u64::from(f.state == FrameState::Answered);
             self.report.answered_map = self.report.answered_map << 1 | answered;
@@ -529,6 +629,20 @@ where
             }
         }
         None
+    }
+
+    /// Round mode: the digest of the answers frame just taken (its slots, bases and entries).
+    fn digest_current(&self, first_slot: u64) -> Option<[u8; BLOCK_LEN]> {
+        self.rounds.as_ref()?;
+        let a = self.auth.as_ref()?;
+        let mut d = a.frame_digest(self.cur_n as u16, first_slot);
+        for i in 0..self.cur_n {
+            let at = (self.cur_start + i as u64).checked_sub(self.front);
+            let packed = at.and_then(|k| self.slots.get(k as usize)).copied()?;
+            let e = self.cur.get(i).copied()?;
+            d.add(packed >> 1, packed & 1 == 1, e);
+        }
+        Some(d.finish())
     }
 
     fn next_byte(&mut self) -> Option<u8> {
@@ -592,10 +706,15 @@ where
             FrameState::Waiting => {
                 f.state = FrameState::Answered;
                 self.cur_seq = Some(f.seq);
+                self.cur_num = f.num;
                 self.cur_start = f.start;
                 self.cur_n = count;
                 self.cur_pos = 0;
                 self.counters.answered_frames += 1;
+                let digest = self.digest_current(first_slot);
+                if let Some(f) = self.open.iter_mut().find(|f| f.seq == ann_seq) {
+                    f.digest = digest;
+                }
                 return true;
             }
         };
@@ -679,13 +798,26 @@ where
             let got = match self.dec.push(b) {
                 None => continue,
                 Some(Err(e)) => Got::Refused(e.into()),
+                Some(Ok(f)) if f.record == RecordType::RoundTag && self.rounds.is_some() => {
+                    let mut tags = [RoundTag {
+                        round: 0,
+                        dir: Direction::ToReceiver,
+                        verdict: Verdict::Open,
+                        tag: [0; 8],
+                    }; round_rec::MAX_ENTRIES];
+                    match (f.tag, round_rec::parse(f.payload, &mut tags)) {
+                        (Some(_), _) => Got::Refused(Reject::Untagged),
+                        (None, Err(e)) => Got::Refused(e.into()),
+                        (None, Ok(n)) => Got::RoundTags(tags, n),
+                    }
+                }
                 Some(Ok(f)) if f.record != RecordType::Answers => {
                     Got::Refused(Reject::UnexpectedType)
                 }
                 Some(Ok(f)) => match AnswersView::parse(f.payload) {
                     Err(e) => Got::Refused(e.into()),
                     Ok(v) => match check_tag(
-                        self.auth.as_mut(),
+                        self.auth.as_mut().filter(|_| self.rounds.is_none()),
                         &self.open,
                         self.next_num,
                         &f,
@@ -709,13 +841,25 @@ where
             };
             match got {
                 Got::Refused(r) => self.counters.rejected.add(r),
+                Got::RoundTags(tags, n) => {
+                    if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+                        for t in tags.iter().take(n) {
+                            l.take(a, t);
+                        }
+                    }
+                }
                 Got::Answers {
                     seq,
                     ann_seq,
                     first_slot,
                     count,
                 } => {
-                    self.take(seq, ann_seq, first_slot, count);
+                    let taken = self.take(seq, ann_seq, first_slot, count);
+                    // Round mode: duplicate, late and mismatched answers count in the attack
+                    // alarm's window, as refused tags do on a frame-tagged link.
+                    if let (Some(a), Some(_)) = (self.auth.as_mut(), self.rounds.as_ref()) {
+                        a.note_check(!taken);
+                    }
                 }
             }
         }
