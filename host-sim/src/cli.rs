@@ -160,8 +160,12 @@ pub enum LinkMode {
 /// Whether the classical link is authenticated.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
 pub enum AuthMode {
-    /// Every frame tagged and checked.
-    On,
+    /// One tag per round of frames each way, over the round's agreed sifting transcript
+    /// (docs/wire-protocol.md §9.9): about 0.5 % of the sifted bits in key.
+    Round,
+    /// Every frame tagged and checked (a forged frame is refused on its own, at 64 key bits per
+    /// frame).
+    Frame,
     /// No tags (for comparison only: the key is then not secure against an active attacker).
     Off,
 }
@@ -203,10 +207,15 @@ pub struct LinkArgs {
     /// A batch leaves before a slot this many slots after its first would join it.
     #[arg(long, default_value_t = 5000, value_name = "SLOTS")]
     pub link_flush_age_slots: u64,
-    /// `on`: every frame carries a Wegman-Carter tag (docs/wire-protocol.md §9) and both ends
-    /// keep a key pool; `off`: untagged frames, which an active attacker can forge.
-    #[arg(long, value_enum, default_value_t = AuthMode::On)]
+    /// `round`: one Wegman-Carter tag per round of announce frames each way over the round's
+    /// sifting transcript, and a round's key is kept only when both tags check; `frame`: a tag
+    /// on every frame (docs/wire-protocol.md §9); `off`: untagged frames, which an active
+    /// attacker can forge. Both authenticated modes keep a key pool on each end.
+    #[arg(long, value_enum, default_value_t = AuthMode::Round)]
     pub link_auth: AuthMode,
+    /// Announce frames per authentication round (`--link-auth round`).
+    #[arg(long, default_value_t = slotwise::wire::round::DEFAULT_FRAMES_PER_ROUND, value_name = "N")]
+    pub link_round_frames: u32,
     /// Put an adversary on the link: flip (alter answers, recompute the CRC), inject (forged
     /// answers), replay (every frame twice), delay (hold frames past their timeout), impersonate
     /// (answer in the transmitter's place with another key).
@@ -245,7 +254,9 @@ impl LinkArgs {
             test_fraction: self.test_fraction,
             batch: self.link_batch,
             flush_age_slots: self.link_flush_age_slots,
-            authenticated: self.link_auth == AuthMode::On,
+            authenticated: self.link_auth != AuthMode::Off,
+            auth_round_frames: (self.link_auth == AuthMode::Round)
+                .then_some(self.link_round_frames),
             auth_key_words: self
                 .auth_key_bits
                 .map_or(u64::MAX, |b| b / (8 * slotwise::formats::TAG_LEN as u64)),

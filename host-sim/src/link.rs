@@ -15,6 +15,7 @@
 pub mod auth;
 pub mod keyfile;
 pub mod report;
+pub mod rounds;
 pub mod tx;
 
 use crate::scenario::Scenario;
@@ -27,7 +28,7 @@ use slotwise::{Announcement, Answer, Transmitter};
 use std::cell::RefCell;
 use std::cmp::Reverse;
 use std::collections::hash_map::DefaultHasher;
-use std::collections::{BinaryHeap, HashSet, VecDeque};
+use std::collections::{BTreeMap, BinaryHeap, HashMap, HashSet, VecDeque};
 use std::convert::Infallible;
 use std::hash::{Hash, Hasher};
 use std::rc::Rc;
@@ -70,6 +71,9 @@ pub struct LinkModel {
     pub batch: usize,
     /// Every frame carries a Wegman-Carter tag and both ends keep a key pool.
     pub authenticated: bool,
+    /// With `authenticated`: `None` tags every frame; `Some(F)` sends frames untagged and one
+    /// tag per round of `F` announce frames each way over the sifting transcript (§9.9).
+    pub auth_round_frames: Option<u32>,
     /// Pad words of key the post-processing host can supply in all (pre-shared ones included).
     pub auth_key_words: u64,
     /// The adversary on the line, if any.
@@ -98,6 +102,7 @@ impl LinkModel {
             flush_age_slots: 5000,
             batch: DEFAULT_BATCH,
             authenticated: true,
+            auth_round_frames: None,
             auth_key_words: u64::MAX,
             attack: None,
         }
@@ -118,6 +123,9 @@ impl LinkModel {
         }
         if self.loss >= 1.0 {
             return Err("--link-loss 1: nothing would ever arrive".into());
+        }
+        if self.auth_round_frames == Some(0) {
+            return Err("--link-round-frames 0: expected at least 1".into());
         }
         if !(1..=HOST_BATCH).contains(&self.batch) {
             return Err(format!(
@@ -367,6 +375,12 @@ pub struct FramedLink {
     forged_rx_accepted: u64,
     /// Key-refill frames the board took.
     refill_frames: u64,
+    /// Round mode: the round of every slot the receiver was answered, and the board's verdicts
+    /// (round → key kept), as the post-processing host sees them.
+    answer_rounds: HashMap<u64, u64>,
+    verdicts: BTreeMap<u64, bool>,
+    /// Slots of the answers the receiver took that the transmitter never gave.
+    forged_slots: Vec<u64>,
 }
 
 impl FramedLink {
@@ -384,15 +398,18 @@ impl FramedLink {
         let supply = model
             .authenticated
             .then(|| KeySupply::new(model.seed, model.auth_key_words));
-        let tx = match supply {
-            Some(k) => tx.with_auth(Box::new(k.end()?)),
-            None => tx,
+        let rounds = model.auth_round_frames.filter(|_| model.authenticated);
+        let tx = match (supply, rounds) {
+            (Some(k), Some(f)) => tx.with_round_auth(Box::new(k.end()?), f)?,
+            (Some(k), None) => tx.with_auth(Box::new(k.end()?)),
+            (None, _) => tx,
         };
         let adversary = match model.attack {
             Some(a) => Some(Adversary::new(
                 a,
                 model.seed ^ 0xA77A_C4E5,
                 model.answer_timeout_slots.saturating_mul(2),
+                rounds.is_none(),
             )?),
             None => None,
         };
@@ -409,9 +426,11 @@ impl FramedLink {
             tx,
         }));
         let (down, up) = (DownReader(shared.clone()), UpWriter(shared.clone()));
-        let ep = match supply {
-            Some(k) => HostEndpoint::new_authenticated(cfg, k.end()?, down, up),
-            None => HostEndpoint::new(cfg, down, up),
+        let ep = match (supply, rounds) {
+            (Some(k), Some(f)) => HostEndpoint::new_round_authenticated(cfg, k.end()?, f, down, up)
+                .map_err(|e| e.to_string())?,
+            (Some(k), None) => HostEndpoint::new_authenticated(cfg, k.end()?, down, up),
+            (None, _) => HostEndpoint::new(cfg, down, up),
         };
         let mut l = Self {
             ep,
@@ -420,6 +439,9 @@ impl FramedLink {
             final_reports: 0,
             forged_rx_accepted: 0,
             refill_frames: 0,
+            answer_rounds: HashMap::new(),
+            verdicts: BTreeMap::new(),
+            forged_slots: Vec::new(),
         };
         l.refill_board();
         Ok(l)
@@ -510,16 +532,75 @@ impl FramedLink {
     }
 
     /// After the receiver finished: close the endpoint and repeat the final report until the
-    /// transmitter has one (at most 64 tries).
+    /// transmitter has one (at most 64 tries). In round mode the report is also repeated while
+    /// rounds wait for the transmitter's tag or the receiver's tags are still being repeated;
+    /// rounds still waiting after that fail.
     pub fn close(&mut self) {
         self.ep.close();
         self.final_reports = 1;
         self.settle();
-        while !self.shared.borrow().tx.closed() && self.final_reports < 64 {
+        self.drain_round_tags();
+        while self.final_reports < 64 && (!self.shared.borrow().tx.closed() || self.rounds_busy()) {
             self.ep.send_final_report();
             self.final_reports += 1;
             self.settle();
+            self.drain_round_tags();
         }
+        if self.ep.rounds().is_some() {
+            self.ep.give_up_rounds();
+            for _ in 0..slotwise::wire::round::RESENDS {
+                self.ep.send_final_report();
+                self.settle();
+            }
+            self.drain_verdicts();
+        }
+    }
+
+    fn rounds_busy(&self) -> bool {
+        self.ep
+            .rounds()
+            .is_some_and(|r| r.waiting() > 0 || r.unsent() > 0)
+    }
+
+    /// Let the endpoint read what arrived (round tags after the last answers).
+    fn drain_round_tags(&mut self) {
+        if self.ep.rounds().is_some() {
+            while self.poll_answer().is_some() {}
+            self.drain_verdicts();
+        }
+    }
+
+    fn drain_verdicts(&mut self) {
+        while let Some((r, keep)) = self.ep.poll_verdict() {
+            self.verdicts.insert(r, keep);
+        }
+    }
+
+    /// Forged answers the receiver took whose key is kept (in round mode, those in verified
+    /// rounds; otherwise every forged answer taken).
+    pub fn forged_answers_kept(&self) -> u64 {
+        self.forged_slots
+            .iter()
+            .filter(|&&s| self.keeps_slot(s))
+            .count() as u64
+    }
+
+    /// Round mode: the board's verdicts so far, round → key kept.
+    pub fn verdicts(&self) -> &BTreeMap<u64, bool> {
+        &self.verdicts
+    }
+
+    /// Whether the receiver's sifted bit of `slot` is kept: always on a frame-tagged or
+    /// unauthenticated link; in round mode only when its round verified.
+    pub fn keeps_slot(&self, slot: u64) -> bool {
+        if self.ep.rounds().is_none() {
+            return true;
+        }
+        self.answer_rounds
+            .get(&slot)
+            .and_then(|r| self.verdicts.get(r))
+            .copied()
+            .unwrap_or(false)
     }
 
     /// Run `f` on the host transmitter.
@@ -545,9 +626,17 @@ impl Transmitter for FramedLink {
     }
 
     fn poll_answer(&mut self) -> Option<Answer> {
-        let a = self.ep.poll_answer()?;
+        let a = self.ep.poll_answer();
+        if self.ep.rounds().is_some() {
+            self.drain_verdicts();
+        }
+        let a = a?;
+        if let Some(r) = self.ep.answer_round() {
+            self.answer_rounds.insert(a.slot, r);
+        }
         if !self.shared.borrow_mut().tx.answered_as_sent(&a) {
             self.forged_rx_accepted += 1;
+            self.forged_slots.push(a.slot);
         }
         Some(a)
     }

@@ -335,6 +335,38 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         self.record(r)
     }
 
+    /// Check a tag over a 16-byte hash with pad word `word`, spending the word only when the tag
+    /// matches: a refused entry decides nothing, and the genuine one can still come.
+    pub fn check_hash(
+        &mut self,
+        word: u64,
+        full: &[u8; 16],
+        got: &[u8; TAG_LEN],
+    ) -> Result<(), Reject> {
+        let r = if self.stopped {
+            Err(Reject::NoKey)
+        } else {
+            match self.pool.state(word) {
+                PadState::Gone => Err(Reject::Replayed),
+                PadState::Absent => Err(Reject::NoKey),
+                PadState::Fresh => match self.pool.peek(word) {
+                    None => Err(Reject::NoKey),
+                    Some(mut pad) => {
+                        let want = pad_hash(full, &pad);
+                        pad.zeroize();
+                        if tags_equal(&want, got) {
+                            self.pool.spend(word);
+                            Ok(())
+                        } else {
+                            Err(Reject::BadTag)
+                        }
+                    }
+                },
+            }
+        };
+        self.record(r)
+    }
+
     /// Count one check made outside the tag (round mode: a duplicate, late or mismatched frame)
     /// in the attack alarm's window, without counting it as a refusal of the tag.
     pub fn note_check(&mut self, suspicious: bool) {

@@ -19,7 +19,7 @@ use super::auth::{check_frame, LinkAuth, RefillFrameError};
 use super::config::{LinkConfig, LinkCounters};
 use super::decoder::FrameDecoder;
 use super::keypool::RefillError;
-use super::round::{RoundConfigError, RoundLedger};
+use super::round::RoundLedger;
 use super::seqwin::{SeqClass, SeqWindow};
 use super::{Reject, RejectCounts};
 use crate::formats::announce::{
@@ -32,13 +32,15 @@ use crate::formats::framing::{
     MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
 };
 use crate::formats::refill::RefillView;
-use crate::formats::round::{self as round_rec, round_pad_word, RoundTag, Verdict};
+use crate::formats::round::{self as round_rec, round_pad_word, RoundTag};
 use crate::formats::tag::{Direction, TagInput, BLOCK_LEN};
 use crate::gates::Basis;
 use crate::sift::{Announcement, Answer, Transmitter};
 use embedded_io::{Read, ReadReady, Write};
 use heapless::Deque;
 use zeroize::Zeroize;
+
+mod rounds;
 
 /// Announce frames that may wait for their answers at once.
 pub const MAX_OPEN_FRAMES: usize = 32;
@@ -207,46 +209,6 @@ where
         let mut l = Self::new(cfg, reader, writer);
         l.auth = Some(auth);
         l
-    }
-
-    /// A round-authenticated endpoint: frames travel untagged and one tag per round of
-    /// `frames_per_round` announce frames, each way, covers the round's sifting transcript
-    /// ([`super::round`]); the transcript key is taken from pad words 0 and 1 of `auth`.
-    pub fn new_round_authenticated(
-        cfg: LinkConfig,
-        mut auth: LinkAuth<KEYW>,
-        frames_per_round: u32,
-        reader: R,
-        writer: W,
-    ) -> Result<Self, RoundConfigError> {
-        let rounds = RoundLedger::new(frames_per_round, &mut auth)?;
-        let mut l = Self::new_authenticated(cfg, auth, reader, writer);
-        l.rounds = Some(rounds);
-        Ok(l)
-    }
-
-    /// The round ledger, in round mode.
-    pub const fn rounds(&self) -> Option<&RoundLedger> {
-        self.rounds.as_ref()
-    }
-
-    /// Round mode: the round of the answers [`Transmitter::poll_answer`] last handed out (its
-    /// key is kept only if [`Self::poll_verdict`] later says so).
-    pub fn answer_round(&self) -> Option<u64> {
-        self.rounds.as_ref().map(|r| r.round_of(self.cur_num))
-    }
-
-    /// Round mode: the next round verdict for the post-processing host, (round, key kept).
-    pub fn poll_verdict(&mut self) -> Option<(u64, bool)> {
-        self.rounds.as_mut().and_then(RoundLedger::poll_verdict)
-    }
-
-    /// Round mode, end of the session: every round still waiting for the transmitter's tag
-    /// fails; the verdicts go out with the next final report.
-    pub fn give_up_rounds(&mut self) {
-        if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
-            l.give_up(a);
-        }
     }
 
     /// The authentication state, when the link is authenticated.
@@ -425,39 +387,6 @@ where
         true
     }
 
-    /// Round mode: send the round tags due (after each announce frame).
-    fn send_round_tags(&mut self) {
-        let Some(l) = self.rounds.as_mut() else {
-            return;
-        };
-        let mut tags = [RoundTag {
-            round: 0,
-            dir: Direction::ToTransmitter,
-            verdict: Verdict::Open,
-            tag: [0; 8],
-        }; round_rec::MAX_ENTRIES];
-        let n = l.outgoing(&mut tags);
-        let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
-        let Some(len) = tags
-            .get(..n)
-            .and_then(|t| round_rec::emit(t, area).ok())
-        else {
-            return;
-        };
-        let seq = self.round_seq;
-        self.round_seq = seq.wrapping_add(1);
-        match seal_in_place(RecordType::RoundTag, seq, len, &mut self.raw, &mut self.enc) {
-            Ok(m) => {
-                self.counters.bytes_out += m as u64;
-                let bytes = self.enc.get(..m).unwrap_or_default();
-                if self.writer.write_all(bytes).is_err() {
-                    self.counters.write_errors += 1;
-                }
-            }
-            Err(_) => self.counters.write_errors += 1,
-        }
-    }
-
     fn batch_limit(&self) -> usize {
         if self.cfg.max_batch() < BATCH {
             self.cfg.max_batch()
@@ -631,20 +560,6 @@ where
         None
     }
 
-    /// Round mode: the digest of the answers frame just taken (its slots, bases and entries).
-    fn digest_current(&self, first_slot: u64) -> Option<[u8; BLOCK_LEN]> {
-        self.rounds.as_ref()?;
-        let a = self.auth.as_ref()?;
-        let mut d = a.frame_digest(self.cur_n as u16, first_slot);
-        for i in 0..self.cur_n {
-            let at = (self.cur_start + i as u64).checked_sub(self.front);
-            let packed = at.and_then(|k| self.slots.get(k as usize)).copied()?;
-            let e = self.cur.get(i).copied()?;
-            d.add(packed >> 1, packed & 1 == 1, e);
-        }
-        Some(d.finish())
-    }
-
     fn next_byte(&mut self) -> Option<u8> {
         if self.rpos >= self.rlen {
             match self.reader.read_ready() {
@@ -791,7 +706,8 @@ where
             if self.cur_seq.take().is_some() {
                 self.pop_resolved();
             }
-            if self.closed {
+            // After the close only round mode reads on: the last rounds' tags still come.
+            if self.closed && self.rounds.is_none() {
                 return None;
             }
             let b = self.next_byte()?;
@@ -799,17 +715,7 @@ where
                 None => continue,
                 Some(Err(e)) => Got::Refused(e.into()),
                 Some(Ok(f)) if f.record == RecordType::RoundTag && self.rounds.is_some() => {
-                    let mut tags = [RoundTag {
-                        round: 0,
-                        dir: Direction::ToReceiver,
-                        verdict: Verdict::Open,
-                        tag: [0; 8],
-                    }; round_rec::MAX_ENTRIES];
-                    match (f.tag, round_rec::parse(f.payload, &mut tags)) {
-                        (Some(_), _) => Got::Refused(Reject::Untagged),
-                        (None, Err(e)) => Got::Refused(e.into()),
-                        (None, Ok(n)) => Got::RoundTags(tags, n),
-                    }
+                    rounds::parse_tags(&f)
                 }
                 Some(Ok(f)) if f.record != RecordType::Answers => {
                     Got::Refused(Reject::UnexpectedType)
@@ -841,13 +747,7 @@ where
             };
             match got {
                 Got::Refused(r) => self.counters.rejected.add(r),
-                Got::RoundTags(tags, n) => {
-                    if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
-                        for t in tags.iter().take(n) {
-                            l.take(a, t);
-                        }
-                    }
-                }
+                Got::RoundTags(tags, n) => self.take_round_tags(&tags, n),
                 Got::Answers {
                     seq,
                     ann_seq,

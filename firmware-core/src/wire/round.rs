@@ -17,9 +17,7 @@
 
 use super::auth::LinkAuth;
 use super::Reject;
-use crate::formats::round::{
-    round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES,
-};
+use crate::formats::round::{round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES};
 use crate::formats::tag::{Direction, BLOCK_LEN, HASH_KEY_LEN};
 use core::fmt;
 use heapless::Deque;

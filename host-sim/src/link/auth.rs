@@ -132,14 +132,22 @@ pub struct Adversary {
     answers_seen: u64,
     announces_seen: u64,
     own: Option<Box<LinkAuth<1024>>>,
+    /// Whether the link tags every frame (else its forgeries go untagged, as genuine frames do).
+    frame_tags: bool,
     highest: u64,
     next_seq: u16,
     stats: AttackStats,
 }
 
 impl Adversary {
-    /// An adversary doing `attack`, holding frames back `hold_slots` when it delays them.
-    pub fn new(attack: LinkAttack, seed: u64, hold_slots: u64) -> Result<Self, String> {
+    /// An adversary doing `attack`, holding frames back `hold_slots` when it delays them, on a
+    /// link whose frames carry tags (`frame_tags`) or not (round mode).
+    pub fn new(
+        attack: LinkAttack,
+        seed: u64,
+        hold_slots: u64,
+        frame_tags: bool,
+    ) -> Result<Self, String> {
         let own = match attack {
             LinkAttack::Impersonate => Some(Box::new(KeySupply::new(!seed, u64::MAX).end()?)),
             _ => None,
@@ -151,6 +159,7 @@ impl Adversary {
             answers_seen: 0,
             announces_seen: 0,
             own,
+            frame_tags,
             highest: 0,
             next_seq: 0x7000,
             stats: AttackStats::default(),
@@ -253,6 +262,19 @@ impl Adversary {
         self.next_seq = seq.wrapping_add(1);
         let num = widen_seq(f.seq, self.highest);
         self.highest = self.highest.max(num);
+        if !self.frame_tags {
+            let (mut raw, mut out) = (vec![0u8; MAX_RAW], vec![0u8; MAX_FRAME]);
+            let m = slotwise::formats::encode_frame(
+                RecordType::Answers,
+                seq,
+                &p[..n],
+                &mut raw,
+                &mut out,
+            )
+            .ok()?;
+            out.truncate(m);
+            return Some(out);
+        }
         let tag = match self.own.as_mut() {
             Some(a) => {
                 let m = TagInput {

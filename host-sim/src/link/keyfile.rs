@@ -55,6 +55,34 @@ impl KeyTap {
     }
 }
 
+impl KeyTap {
+    /// Write only the bits `keep` accepts (round mode: the rounds that verified), as fresh key
+    /// blocks with a summary whose sifted-bit and block counts describe them; returns the key
+    /// blocks written.
+    pub fn write_kept(
+        &self,
+        path: &Path,
+        summary: &Summary,
+        keep: impl Fn(u64) -> bool,
+    ) -> Result<u64, String> {
+        let r = self.0.borrow();
+        let mut out: FrameOut<VecSink, FILE_BLOCK_BITS> = FrameOut::new(VecSink::default());
+        let mut kept = 0u64;
+        for b in r.bits.iter().filter(|b| keep(b.slot)) {
+            out.sifted(*b);
+            kept += 1;
+        }
+        let s = Summary {
+            sifted_bits: kept,
+            ..*summary
+        };
+        out.finish(&s);
+        let blocks = out.key_blocks();
+        std::fs::write(path, &out.sink().0).map_err(|e| format!("{}: {e}", path.display()))?;
+        Ok(blocks)
+    }
+}
+
 impl Default for KeyTap {
     fn default() -> Self {
         Self::new()

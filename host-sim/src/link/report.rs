@@ -2,6 +2,7 @@
 //! announcement, and whether both sides ended with the same sifted key.
 
 use super::auth::{AttackStats, LinkAttack};
+use super::rounds::TxRoundCounters;
 use super::{ChannelStats, FramedLink, LinkModel};
 use serde::Serialize;
 use slotwise::formats::TAG_LEN;
@@ -149,9 +150,38 @@ pub struct AttackSummary {
     pub stats: AttackStats,
 }
 
-/// The summary's `link.auth` object: Wegman-Carter tags on every frame, both ways.
+/// Round authentication (`docs/wire-protocol.md` §9.9): one tag per round each way.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct RoundsSummary {
+    /// Announce frames per round.
+    pub frames_per_round: u32,
+    /// Rounds the receiver closed.
+    pub closed: u64,
+    /// Rounds verified: their key is kept on both sides.
+    pub verified: u64,
+    /// Rounds failed, by reason (their key is discarded on both sides).
+    pub failed: BTreeMap<&'static str, u64>,
+    /// Numbers of the failed rounds.
+    pub failed_rounds: Vec<u64>,
+    /// The transmitter's side.
+    pub transmitter: TxRoundCounters,
+    /// Forged answers the receiver took (round mode refuses no frame: their rounds fail).
+    pub forged_answers_taken: u64,
+    /// Forged answers whose key was kept (in a verified round).
+    pub forged_answers_kept: u64,
+    /// The receiver's sifted bits discarded with failed rounds.
+    pub sifted_bits_discarded: u64,
+}
+
+/// The summary's `link.auth` object: Wegman-Carter tags on every frame (mode `frame`) or one
+/// per round (mode `round`), both ways.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct AuthSummary {
+    /// `frame` (a tag on every frame) or `round` (one tag per round over the transcript).
+    pub mode: &'static str,
+    /// Round mode's figures.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub rounds: Option<RoundsSummary>,
     /// The tag: hash, length and pad.
     pub scheme: &'static str,
     /// Bits per tag (one-time-pad bits consumed per tagged frame).
@@ -166,7 +196,8 @@ pub struct AuthSummary {
     pub forgeries_accepted: u64,
     /// Key-refill frames the board took.
     pub refill_frames: u64,
-    /// Shared key bits gone (consumed or abandoned, counted once, on the board) per sifted bit.
+    /// Shared key bits gone (consumed or abandoned, counted once, on the board) per sifted bit
+    /// kept.
     pub key_bits_per_sifted_bit: f64,
     /// The adversary on the line and what it did.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -204,20 +235,22 @@ pub struct LinkSummary {
     pub key_file: Option<String>,
 }
 
-/// Compare the receiver's sifted bits with the transmitter's key.
+/// Compare the receiver's sifted bits (those it keeps: in round mode, the verified rounds')
+/// with the transmitter's key.
 pub fn compare(link: &FramedLink, rx_bits: &[SiftedBit]) -> KeyComparison {
+    let kept: Vec<&SiftedBit> = rx_bits.iter().filter(|b| link.keeps_slot(b.slot)).collect();
     link.with_tx(|tx| {
         let key = tx.key();
-        let mut same = rx_bits.len() == key.len();
+        let mut same = kept.len() == key.len();
         let mut diff = 0;
-        for b in rx_bits {
+        for b in &kept {
             match key.get(&b.slot) {
                 Some(k) => diff += u64::from(k.bit != b.bit),
                 None => same = false,
             }
         }
         KeyComparison {
-            receiver_bits: rx_bits.len() as u64,
+            receiver_bits: kept.len() as u64,
             transmitter_bits: key.len() as u64,
             same_slots: same,
             bit_differences: diff,
@@ -264,13 +297,47 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
         });
         // Both pools hold the same key: count the board's, where each pad word goes once.
         let gone = rx.key_bits_consumed + rx.key_bits_abandoned;
+        let rounds = link.endpoint().rounds().map(|l| {
+            let rc = l.counters();
+            let failed: BTreeMap<&'static str, u64> = [
+                ("bad_tag", rc.failed_bad_tag),
+                ("no_tag", rc.failed_no_tag),
+                ("no_key", rc.failed_no_key),
+            ]
+            .into_iter()
+            .filter(|&(_, v)| v > 0)
+            .collect();
+            RoundsSummary {
+                frames_per_round: l.frames_per_round(),
+                closed: rc.closed,
+                verified: rc.verified,
+                failed,
+                failed_rounds: link
+                    .verdicts()
+                    .iter()
+                    .filter(|&(_, &k)| !k)
+                    .map(|(&r, _)| r)
+                    .collect(),
+                transmitter: link
+                    .with_tx(|tx| tx.rounds().map(|r| r.counters()).unwrap_or_default()),
+                forged_answers_taken: frx,
+                forged_answers_kept: link.forged_answers_kept(),
+                sifted_bits_discarded: rx_bits.len() as u64 - keys.receiver_bits,
+            }
+        });
         AuthSummary {
+            mode: if rounds.is_some() { "round" } else { "frame" },
+            rounds,
             scheme: "POLYVAL (RFC 8452) over GF(2^128), truncated, one-time padded (Wegman-Carter)",
             tag_bits: (TAG_LEN * 8) as u32,
             key_bits_per_sifted_bit: gone as f64 / keys.receiver_bits.max(1) as f64,
             receiver: rx,
             transmitter: tx,
-            forgeries_accepted: frx + ftx,
+            forgeries_accepted: if link.endpoint().rounds().is_some() {
+                link.forged_answers_kept() + ftx
+            } else {
+                frx + ftx
+            },
             refill_frames: link.refill_frames(),
             attack: link
                 .attack_stats()
@@ -409,14 +476,47 @@ fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Res
             v.join(", ")
         }
     };
-    writeln!(
-        f,
-        "auth           {}-bit Wegman-Carter tags (POLYVAL + one-time pad): {} forgeries accepted; \
-         key {:.2} % of the sifted bits",
-        a.tag_bits,
-        a.forgeries_accepted,
-        100.0 * a.key_bits_per_sifted_bit
-    )?;
+    match &a.rounds {
+        None => writeln!(
+            f,
+            "auth           {}-bit Wegman-Carter tags on every frame (POLYVAL + one-time pad): {} \
+             forgeries accepted; key {:.2} % of the sifted bits",
+            a.tag_bits,
+            a.forgeries_accepted,
+            100.0 * a.key_bits_per_sifted_bit
+        )?,
+        Some(rs) => {
+            writeln!(
+                f,
+                "auth           one {}-bit Wegman-Carter tag per round of {} frames each way \
+                 (POLYVAL transcript + one-time pad): rounds {} verified, {} failed; {} forged \
+                 answers kept; key {:.3} % of the kept sifted bits",
+                a.tag_bits,
+                rs.frames_per_round,
+                rs.verified,
+                rs.failed.values().sum::<u64>(),
+                a.forgeries_accepted,
+                100.0 * a.key_bits_per_sifted_bit
+            )?;
+            if !rs.failed_rounds.is_empty() {
+                let why = rs
+                    .failed
+                    .iter()
+                    .map(|(k, v)| format!("{k} {v}"))
+                    .collect::<Vec<_>>()
+                    .join(", ");
+                writeln!(
+                    f,
+                    "  rounds       FAILED {:?} ({why}): {} sifted bits discarded; forged answers: \
+                     {} taken, {} kept",
+                    rs.failed_rounds,
+                    rs.sifted_bits_discarded,
+                    rs.forged_answers_taken,
+                    rs.forged_answers_kept
+                )?;
+            }
+        }
+    }
     for (name, s) in [("rx", r), ("tx", t)] {
         let why = s
             .refused

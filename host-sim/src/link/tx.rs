@@ -7,9 +7,11 @@
 //! number, widened from its `seq`), tags its answers with pad word `2·n + 1`, and wipes the pad
 //! words of every frame the receiver's report declares final.
 
+use super::rounds::TxRounds;
 use crate::scenario::Scenario;
 use crate::sim::rng::{splitmix_at, stream_key, unit_f64};
 use crate::sim::TxSource;
+use slotwise::formats::round::{self as round_rec, RoundTag, MAX_ENTRIES as ROUND_ENTRIES};
 use slotwise::formats::tag::{Direction, TagInput};
 use slotwise::formats::{
     answers, encode_frame, encode_frame_tagged, Frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
@@ -100,6 +102,10 @@ pub struct HostTransmitter {
     highest_num: Option<u64>,
     /// What the receiver should derive from each answer sent, by slot (to spot forgeries).
     given: HashMap<u64, Answer>,
+    /// Round mode: untagged frames, one tag per round over the transcript.
+    rounds: Option<TxRounds>,
+    /// Sequence number of the next round-tag record.
+    round_seq: u16,
 }
 
 impl HostTransmitter {
@@ -128,7 +134,26 @@ impl HostTransmitter {
             auth: None,
             highest_num: None,
             given: HashMap::new(),
+            rounds: None,
+            round_seq: 0,
         }
+    }
+
+    /// The same transmitter on a round-authenticated link (`docs/wire-protocol.md` §9.9):
+    /// rounds of `frames_per_round` announce frames, mirror pool `auth`.
+    pub fn with_round_auth(
+        mut self,
+        mut auth: Box<LinkAuth<TX_KEY_WORDS>>,
+        frames_per_round: u32,
+    ) -> Result<Self, String> {
+        self.rounds = Some(TxRounds::new(frames_per_round, &mut auth)?);
+        self.auth = Some(auth);
+        Ok(self)
+    }
+
+    /// The round state, in round mode.
+    pub fn rounds(&self) -> Option<&TxRounds> {
+        self.rounds.as_ref()
     }
 
     /// The same transmitter on an authenticated link, holding the mirror pool `auth`.
@@ -207,6 +232,7 @@ impl HostTransmitter {
     /// Take bytes from the link; returns the answers frames to send back.
     pub fn receive(&mut self, bytes: &[u8]) -> Vec<Vec<u8>> {
         let mut out = Vec::new();
+        let frame_auth = self.rounds.is_none();
         for &b in bytes {
             let Some(r) = self.dec.push(b) else {
                 continue;
@@ -216,17 +242,43 @@ impl HostTransmitter {
                     self.counters.rejected.add(Reject::from(e));
                     continue;
                 }
+                Ok(f) if f.record == RecordType::RoundTag && !frame_auth => {
+                    let mut tags = [RoundTag {
+                        round: 0,
+                        dir: Direction::ToTransmitter,
+                        verdict: round_rec::Verdict::Open,
+                        tag: [0; 8],
+                    }; ROUND_ENTRIES];
+                    match (f.tag, round_rec::parse(f.payload, &mut tags)) {
+                        (Some(_), _) => self.counters.rejected.add(Reject::Untagged),
+                        (None, Err(e)) => self.counters.rejected.add(Reject::from(e)),
+                        (None, Ok(n)) => {
+                            if let (Some(r), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+                                for t in tags.iter().take(n) {
+                                    r.take(a, t, &mut self.key);
+                                }
+                            }
+                        }
+                    }
+                    continue;
+                }
                 Ok(f) if f.record != RecordType::Announce => {
                     self.counters.rejected.add(Reject::UnexpectedType);
                     continue;
                 }
-                Ok(f) => match authenticate(self.auth.as_deref_mut(), self.highest_num, &f) {
+                Ok(f) => match authenticate(
+                    self.auth.as_deref_mut().filter(|_| frame_auth),
+                    self.highest_num,
+                    &f,
+                ) {
                     Err(r) => {
                         self.counters.rejected.add(r);
                         continue;
                     }
                     Ok(num) => {
                         if self.auth.is_some() {
+                            // Round mode widens against unauthenticated numbers: a forged
+                            // number can only make rounds fail.
                             self.highest_num = Some(self.highest_num.map_or(num, |h| h.max(num)));
                         }
                         (f.seq, num, f.payload.to_vec())
@@ -237,8 +289,33 @@ impl HostTransmitter {
             if let Some(frame) = self.announce_frame(seq, num, &payload) {
                 out.push(frame);
             }
+            if let Some(frame) = self.round_tags() {
+                out.push(frame);
+            }
         }
         out
+    }
+
+    /// Round mode: a record repeating the tags of every round waiting for its verdict.
+    fn round_tags(&mut self) -> Option<Vec<u8>> {
+        let tags = self.rounds.as_ref()?.outgoing();
+        if tags.is_empty() {
+            return None;
+        }
+        let mut p = vec![0u8; round_rec::MAX_LEN];
+        let n = round_rec::emit(&tags, &mut p).ok()?;
+        let seq = self.round_seq;
+        self.round_seq = seq.wrapping_add(1);
+        let m = encode_frame(
+            RecordType::RoundTag,
+            seq,
+            p.get(..n)?,
+            &mut self.raw,
+            &mut self.enc,
+        )
+        .ok()?;
+        self.counters.bytes_out += m as u64;
+        self.enc.get(..m).map(<[u8]>::to_vec)
     }
 
     fn announce_frame(&mut self, seq: u16, num: u64, payload: &[u8]) -> Option<Vec<u8>> {
@@ -259,8 +336,13 @@ impl HostTransmitter {
             SeqClass::Late => self.counters.late_frames += 1,
             SeqClass::TooOld | SeqClass::First => {}
         }
-        self.apply(v.report, v.is_final());
-        if let Some(a) = self.auth.as_mut() {
+        if let (Some(r), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+            let below = widen_seq(v.report.resolved_below, num);
+            r.report(a, below, v.report.answered_map, v.is_final());
+        } else {
+            self.apply(v.report, v.is_final());
+        }
+        if let (Some(a), None) = (self.auth.as_mut(), self.rounds.as_ref()) {
             // Frames before the report's cursor are final at the receiver: their pads are of no
             // further use, and a late copy of one is refused.
             let below = widen_seq(v.report.resolved_below, num);
@@ -338,7 +420,7 @@ impl HostTransmitter {
         let mut p = vec![0u8; MAX_PAYLOAD];
         let n = answers::emit(seq, v.first_slot, &entries, &mut p).ok()?;
         let payload = p.get(..n)?;
-        let m = match self.auth.as_mut() {
+        let m = match self.auth.as_mut().filter(|_| self.rounds.is_none()) {
             None => encode_frame(
                 RecordType::Answers,
                 self.next_seq,
@@ -370,10 +452,18 @@ impl HostTransmitter {
         self.next_seq = self.next_seq.wrapping_add(1);
         self.counters.frames_out += 1;
         self.counters.bytes_out += m as u64;
-        self.waiting.push(Answered {
-            ann_seq: seq,
-            matched,
-        });
+        if let (Some(r), Some(a)) = (self.rounds.as_mut(), self.auth.as_ref()) {
+            let mut d = a.frame_digest(v.count, v.first_slot);
+            for (x, e) in v.iter().zip(&entries) {
+                d.add(x.slot, x.basis == Basis::X, e.to_byte().unwrap_or(0));
+            }
+            r.answered(num, d.finish(), matched);
+        } else {
+            self.waiting.push(Answered {
+                ann_seq: seq,
+                matched,
+            });
+        }
         self.enc.get(..m).map(<[u8]>::to_vec)
     }
 }
