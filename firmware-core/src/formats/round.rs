@@ -313,6 +313,12 @@ impl Transcript {
     }
 }
 
+/// The hash a failed verdict is tagged over: the empty transcript of `round`, which the other
+/// end can rebuild whatever its own transcript says (a failed round's transcripts differ).
+pub fn failed_hash(hr: &[u8; HASH_KEY_LEN], round: u64, frames_per_round: u32) -> [u8; BLOCK_LEN] {
+    Transcript::new(hr, round, frames_per_round).hash_for(Direction::ToTransmitter, Verdict::Failed)
+}
+
 /// The tag of a 16-byte hash with pad `pad`: its first 8 bytes XOR the pad.
 pub fn pad_hash(full: &[u8; BLOCK_LEN], pad: &[u8; PAD_LEN]) -> [u8; TAG_LEN] {
     let mut t = [0u8; TAG_LEN];

@@ -374,6 +374,15 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         self.update_alarm();
     }
 
+    /// Raise the attack alarm at once (round mode: a round's tag failed, which noise cannot
+    /// cause).
+    pub fn raise_attack_alarm(&mut self) {
+        if !self.attack {
+            self.counters.attack_alarms += 1;
+        }
+        self.attack = true;
+    }
+
     fn update_alarm(&mut self) {
         let active = self.recent.count_ones() >= self.cfg.alarm_refusals;
         if active && !self.attack {

@@ -17,7 +17,9 @@
 
 use super::auth::LinkAuth;
 use super::Reject;
-use crate::formats::round::{round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES};
+use crate::formats::round::{
+    failed_hash, round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES,
+};
 use crate::formats::tag::{Direction, BLOCK_LEN, HASH_KEY_LEN};
 use core::fmt;
 use heapless::Deque;
@@ -276,7 +278,12 @@ impl RoundLedger {
         } else {
             Verdict::Failed
         };
-        let full = t.hash_for(Direction::ToTransmitter, verdict);
+        // A verified verdict is tagged over the transcript, a failed one over the empty
+        // transcript (the transmitter's differs, and it must still learn the verdict).
+        let full = match verdict {
+            Verdict::Verified => t.hash_for(Direction::ToTransmitter, verdict),
+            _ => failed_hash(&self.hr, round, self.frames_per_round),
+        };
         let word = round_pad_word(round, Direction::ToTransmitter);
         // Without a tag the transmitter never learns the verdict and discards the round: so
         // must this end.
@@ -286,7 +293,10 @@ impl RoundLedger {
         };
         match r {
             Ok(()) => self.counters.verified += 1,
-            Err(RoundFailure::BadTag) => self.counters.failed_bad_tag += 1,
+            Err(RoundFailure::BadTag) => {
+                self.counters.failed_bad_tag += 1;
+                auth.raise_attack_alarm();
+            }
             Err(RoundFailure::NoTag) => self.counters.failed_no_tag += 1,
             Err(RoundFailure::NoKey) => self.counters.failed_no_key += 1,
         }

@@ -11,7 +11,9 @@
 
 use super::tx::TxKeyBit;
 use serde::Serialize;
-use slotwise::formats::round::{round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES};
+use slotwise::formats::round::{
+    failed_hash, round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES,
+};
 use slotwise::formats::tag::{Direction, BLOCK_LEN, HASH_KEY_LEN};
 use slotwise::wire::LinkAuth;
 use std::collections::BTreeMap;
@@ -216,7 +218,10 @@ impl TxRounds {
             self.counters.stale += 1;
             return;
         };
-        let full = c.t.hash_for(Direction::ToTransmitter, e.verdict);
+        let full = match e.verdict {
+            Verdict::Verified => c.t.hash_for(Direction::ToTransmitter, e.verdict),
+            _ => failed_hash(&self.hr, e.round, self.frames_per_round),
+        };
         let word = round_pad_word(e.round, Direction::ToTransmitter);
         if auth.check_hash(word, &full, &e.tag).is_err() {
             self.counters.bad_tags += 1;
@@ -231,6 +236,7 @@ impl TxRounds {
             key.extend(c.bits);
         } else {
             self.counters.failed += 1;
+            auth.raise_attack_alarm();
         }
         self.decided.insert(e.round, keep);
     }
