@@ -585,6 +585,18 @@ impl FramedLink {
             .count() as u64
     }
 
+    /// Round mode: the rounds in which the receiver took a forged answer (each must fail).
+    pub fn attacked_rounds(&self) -> Vec<u64> {
+        let mut r: Vec<u64> = self
+            .forged_slots
+            .iter()
+            .filter_map(|s| self.answer_rounds.get(s).copied())
+            .collect();
+        r.sort_unstable();
+        r.dedup();
+        r
+    }
+
     /// Round mode: the board's verdicts so far, round → key kept.
     pub fn verdicts(&self) -> &BTreeMap<u64, bool> {
         &self.verdicts

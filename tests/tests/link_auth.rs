@@ -48,12 +48,18 @@ fn run_with(model: LinkModel) -> LinkSummary {
     summary.link.unwrap()
 }
 
-fn exact(side: &AuthSide) {
+/// Loaded = consumed + wiped + left, and refusals by reason add up.
+fn pool_exact(side: &AuthSide) {
     assert_eq!(
         side.key_bits_loaded,
         side.key_bits_consumed + side.key_bits_abandoned + side.key_bits_left,
         "{side:?}"
     );
+    assert_eq!(side.refused_total, side.refused.values().sum::<u64>());
+}
+
+fn exact(side: &AuthSide) {
+    pool_exact(side);
     assert_eq!(
         side.key_bits_consumed,
         64 * (side.frames_tagged + side.frames_verified),
@@ -199,5 +205,128 @@ fn every_attack_is_refused_on_the_noisy_demo_link() {
             a.receiver.attack_alarms + a.transmitter.attack_alarms > 0,
             "{what}"
         );
+    }
+}
+
+/// The demo's noisy link (1 % of frames lost, duplicated and reordered, 0.1 % corrupted,
+/// 2,000 slots of latency), authenticated with one tag per round of `frames` announce frames.
+fn noisy_rounds(frames: u32, attack: Option<LinkAttack>) -> LinkModel {
+    LinkModel {
+        loss: 0.01,
+        dup: 0.01,
+        reorder: 0.01,
+        corrupt: 0.001,
+        latency_slots: 2000,
+        auth_round_frames: Some(frames),
+        attack,
+        ..LinkModel::perfect(&scenario())
+    }
+}
+
+/// Exact key accounting of round mode: the transcript key (two pad words) once per end, one
+/// pad word per round tag sent and one per round tag checked.
+fn exact_rounds(l: &LinkSummary) {
+    let a = l.auth.as_ref().unwrap();
+    let rs = a.rounds.as_ref().unwrap();
+    let (rx, tx) = (&a.receiver, &a.transmitter);
+    pool_exact(rx);
+    pool_exact(tx);
+    let failed: u64 = rs.failed.values().sum();
+    assert_eq!(rs.closed, rs.verified + failed, "{rs:?}");
+    assert_eq!(rx.frames_tagged, rs.closed, "{rs:?}");
+    let rx_checks = rs.verified + rs.failed.get("bad_tag").copied().unwrap_or(0);
+    assert_eq!(
+        rx.key_bits_consumed,
+        128 + 64 * (rx.frames_tagged + rx_checks),
+        "{rx:?}"
+    );
+    let t = &rs.transmitter;
+    assert_eq!(tx.frames_tagged, t.closed, "{t:?}");
+    assert_eq!(
+        tx.key_bits_consumed,
+        128 + 64 * (tx.frames_tagged + t.verified + t.failed),
+        "{t:?}"
+    );
+    // Every round the receiver decided, the transmitter decided the same way.
+    assert_eq!(
+        (t.verified, t.failed, t.undecided),
+        (rs.verified, failed, 0)
+    );
+}
+
+/// On the noisy demo link, round mode verifies every round: loss, duplication, reordering
+/// and corruption change no transcript. Both kept keys are identical, and the key spent is
+/// far below the per-frame tags'.
+#[test]
+fn round_mode_verifies_every_round_on_the_noisy_link() {
+    let l = run_with(noisy_rounds(16, None));
+    let a = l.auth.as_ref().unwrap();
+    let rs = a.rounds.as_ref().unwrap();
+    let what = format!("{a:#?}\n{:?}", l.receiver);
+    assert_eq!(a.mode, "round");
+    assert!(rs.closed > 30, "{what}");
+    assert_eq!(rs.verified, rs.closed, "{what}");
+    assert!(rs.failed_rounds.is_empty(), "{what}");
+    assert_eq!(rs.sifted_bits_discarded, 0, "{what}");
+    assert!(l.keys.same_slots && l.keys.bit_differences == 0, "{what}");
+    assert!(l.keys.receiver_bits > 1000, "{what}");
+    assert_eq!(a.receiver.attack_alarms + a.transmitter.attack_alarms, 0);
+    exact_rounds(&l);
+    // Some frames were really lost, duplicated and reordered.
+    assert!(
+        l.channel_up.lost + l.channel_down.lost > 5,
+        "{:?}",
+        l.channel_up
+    );
+    assert!(l.receiver.expired_frames > 0, "{what}");
+}
+
+/// Under every attack mode in round mode: every round in which the receiver took a forged
+/// answer fails on both ends, no forged answer is kept, both kept keys are identical, the
+/// accounting is exact and the attack alarm rises. Replay and delay change no transcript
+/// (copies are dropped, held answers expire): their rounds verify, and the alarm rises on the
+/// duplicates and late answers.
+#[test]
+fn round_mode_fails_exactly_the_attacked_rounds() {
+    for attack in [
+        LinkAttack::Flip,
+        LinkAttack::Inject,
+        LinkAttack::Replay,
+        LinkAttack::Delay,
+        LinkAttack::Impersonate,
+    ] {
+        let l = run_with(noisy_rounds(16, Some(attack)));
+        let a = l.auth.as_ref().unwrap();
+        let rs = a.rounds.as_ref().unwrap();
+        let what = format!("{attack:?}: {a:#?}");
+        assert_eq!(rs.forged_answers_kept, 0, "{what}");
+        assert_eq!(a.forgeries_accepted, 0, "{what}");
+        assert!(l.keys.same_slots && l.keys.bit_differences == 0, "{what}");
+        assert!(
+            a.receiver.attack_alarms + a.transmitter.attack_alarms > 0,
+            "{what}"
+        );
+        exact_rounds(&l);
+        match attack {
+            LinkAttack::Flip | LinkAttack::Inject | LinkAttack::Impersonate => {
+                assert!(rs.forged_answers_taken > 10, "{what}");
+                // Every attacked round failed; a round fails only if attacked (flip also
+                // alters the transmitter's round-tag frames, which fails their round too).
+                for r in &rs.attacked_rounds {
+                    assert!(rs.failed_rounds.contains(r), "round {r}: {what}");
+                }
+                assert!(!rs.attacked_rounds.is_empty(), "{what}");
+                if attack != LinkAttack::Flip {
+                    assert_eq!(rs.failed_rounds, rs.attacked_rounds, "{what}");
+                }
+                assert_eq!(rs.failed.get("bad_tag"), Some(&rs.closed), "{what}");
+            }
+            LinkAttack::Replay | LinkAttack::Delay => {
+                assert_eq!(rs.forged_answers_taken, 0, "{what}");
+                assert!(rs.attacked_rounds.is_empty(), "{what}");
+                assert_eq!(rs.verified, rs.closed, "{what}");
+                assert!(l.keys.receiver_bits > 1000, "{what}");
+            }
+        }
     }
 }

@@ -345,3 +345,149 @@ impl RoundLedger {
         self.verdicts.pop_front()
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::formats::round::{failed_hash, pad_hash};
+    use crate::wire::auth::AuthConfig;
+    use proptest::prelude::*;
+
+    const H: [u8; 16] = [0x25; 16];
+
+    fn key(words: usize) -> [u8; 8 * 64] {
+        let mut k = [0u8; 8 * 64];
+        for (i, b) in k.iter_mut().enumerate().take(words * 8) {
+            *b = (i as u8).wrapping_mul(31).wrapping_add(1);
+        }
+        k
+    }
+
+    fn end() -> LinkAuth<64> {
+        LinkAuth::new(AuthConfig::DEFAULT, H, &key(64)).unwrap()
+    }
+
+    /// A round of two frames (one answered, one expired) fed to `l`; returns the transmitter's
+    /// transcript of the same round.
+    fn one_round(l: &mut RoundLedger, a: &mut LinkAuth<64>) -> Transcript {
+        let mut d = a.frame_digest(2, 500);
+        d.add(500, false, 0x07);
+        d.add(503, true, 0x08);
+        let d = d.finish();
+        l.frame_final(a, 0, Some(&d));
+        l.frame_final(a, 1, None);
+        let hr = {
+            let k = key(2);
+            let mut h = [0u8; 16];
+            h.copy_from_slice(&k[..16]);
+            h
+        };
+        let mut t = Transcript::new(&hr, 0, 2);
+        t.add(0, Fate::Answered, Some(&d));
+        t.add(1, Fate::Expired, None);
+        t
+    }
+
+    fn pad(word: u64) -> [u8; 8] {
+        let k = key(64);
+        let at = word as usize * 8;
+        let mut p = [0u8; 8];
+        p.copy_from_slice(&k[at..at + 8]);
+        p
+    }
+
+    #[test]
+    fn agreed_transcripts_verify_and_the_verdict_goes_back_tagged() {
+        let mut a = end();
+        let mut l = RoundLedger::new(2, &mut a).unwrap();
+        let t = one_round(&mut l, &mut a);
+        assert_eq!((l.counters().closed, l.waiting()), (1, 1));
+        let full = t.hash_for(Direction::ToReceiver, Verdict::Open);
+        let tag = pad_hash(&full, &pad(round_pad_word(0, Direction::ToReceiver)));
+        let e = RoundTag {
+            round: 0,
+            dir: Direction::ToReceiver,
+            verdict: Verdict::Open,
+            tag,
+        };
+        l.take(&mut a, &e);
+        assert_eq!(l.poll_verdict(), Some((0, true)));
+        assert_eq!(l.counters().verified, 1);
+        // A repeat decides nothing more.
+        l.take(&mut a, &e);
+        assert_eq!((l.counters().stale_tags, l.poll_verdict()), (1, None));
+        let mut out = [e; MAX_ENTRIES];
+        for _ in 0..RESENDS {
+            assert_eq!(l.outgoing(&mut out), 1);
+        }
+        assert_eq!(l.outgoing(&mut out), 0);
+        let want = pad_hash(
+            &t.hash_for(Direction::ToTransmitter, Verdict::Verified),
+            &pad(round_pad_word(0, Direction::ToTransmitter)),
+        );
+        assert_eq!((out[0].verdict, out[0].tag), (Verdict::Verified, want));
+        // Words 0, 1 (transcript key) and the round's two pads: 4 words spent.
+        assert_eq!(a.counters().key_bits_consumed, 4 * 64);
+    }
+
+    #[test]
+    fn a_round_without_a_tag_fails_at_the_end_and_says_so_under_a_tag() {
+        let mut a = end();
+        let mut l = RoundLedger::new(2, &mut a).unwrap();
+        one_round(&mut l, &mut a);
+        l.give_up(&mut a);
+        assert_eq!(l.poll_verdict(), Some((0, false)));
+        assert_eq!(l.counters().failed_no_tag, 1);
+        let mut out = [RoundTag {
+            round: 9,
+            dir: Direction::ToReceiver,
+            verdict: Verdict::Open,
+            tag: [0; 8],
+        }; MAX_ENTRIES];
+        assert_eq!(l.outgoing(&mut out), 1);
+        let mut hr = [0u8; 16];
+        hr.copy_from_slice(&key(2)[..16]);
+        let want = pad_hash(
+            &failed_hash(&hr, 0, 2),
+            &pad(round_pad_word(0, Direction::ToTransmitter)),
+        );
+        assert_eq!((out[0].verdict, out[0].tag), (Verdict::Failed, want));
+    }
+
+    proptest! {
+        /// No round tag made without the key verifies, whatever its bytes, whether it is made
+        /// up or computed over the right transcript with another key; the round fails and the
+        /// attack alarm rises.
+        #[test]
+        fn round_tags_without_the_key_never_verify(
+            tag in any::<[u8; 8]>(),
+            other_hr in any::<[u8; 16]>(),
+            other_pad in any::<[u8; 8]>(),
+            computed in any::<bool>(),
+        ) {
+            let mut a = end();
+            let mut l = RoundLedger::new(2, &mut a).unwrap();
+            let t = one_round(&mut l, &mut a);
+            let genuine = pad_hash(
+                &t.hash_for(Direction::ToReceiver, Verdict::Open),
+                &pad(round_pad_word(0, Direction::ToReceiver)),
+            );
+            let tag = if computed {
+                let mut f = Transcript::new(&other_hr, 0, 2);
+                f.add(0, Fate::Expired, None);
+                f.add(1, Fate::Expired, None);
+                pad_hash(&f.hash_for(Direction::ToReceiver, Verdict::Open), &other_pad)
+            } else {
+                tag
+            };
+            prop_assume!(tag != genuine);
+            l.take(&mut a, &RoundTag { round: 0, dir: Direction::ToReceiver, verdict: Verdict::Open, tag });
+            prop_assert_eq!(l.poll_verdict(), Some((0, false)));
+            prop_assert_eq!(l.counters().failed_bad_tag, 1);
+            prop_assert!(a.attack_alarm());
+            // The round is decided: the genuine tag, coming later, changes nothing.
+            l.take(&mut a, &RoundTag { round: 0, dir: Direction::ToReceiver, verdict: Verdict::Open, tag: genuine });
+            prop_assert_eq!(l.counters().verified, 0);
+        }
+    }
+}

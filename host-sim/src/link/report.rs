@@ -163,6 +163,8 @@ pub struct RoundsSummary {
     pub failed: BTreeMap<&'static str, u64>,
     /// Numbers of the failed rounds.
     pub failed_rounds: Vec<u64>,
+    /// Rounds in which the receiver took a forged answer.
+    pub attacked_rounds: Vec<u64>,
     /// The transmitter's side.
     pub transmitter: TxRoundCounters,
     /// Forged answers the receiver took (round mode refuses no frame: their rounds fail).
@@ -318,6 +320,7 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
                     .filter(|&(_, &k)| !k)
                     .map(|(&r, _)| r)
                     .collect(),
+                attacked_rounds: link.attacked_rounds(),
                 transmitter: link
                     .with_tx(|tx| tx.rounds().map(|r| r.counters()).unwrap_or_default()),
                 forged_answers_taken: frx,
