@@ -417,4 +417,47 @@ mod tests {
             t.hash_for(Direction::ToTransmitter, Verdict::Failed)
         );
     }
+
+    fn hex(b: &[u8]) -> String {
+        b.iter().map(|x| format!("{x:02X}")).collect::<Vec<_>>().join(" ")
+    }
+
+    /// The worked example of `docs/wire-protocol.md` §9.9, byte for byte.
+    #[test]
+    fn documented_round_tags() {
+        // RFC 8452 Appendix A's POLYVAL key, as in §9.7.
+        let h: [u8; 16] = [
+            0x25, 0x62, 0x93, 0x47, 0x58, 0x92, 0x42, 0x76, 0x1d, 0x31, 0xf8, 0x26, 0xba, 0x4b,
+            0x75, 0x7b,
+        ];
+        let hr: [u8; 16] = core::array::from_fn(|i| i as u8);
+        let mut d = FrameDigest::new(&h, 3, 1000);
+        d.add(1000, false, 0x07);
+        d.add(1003, true, 0x08);
+        d.add(1300, false, 0x01);
+        let d = d.finish();
+        let mut t = Transcript::new(&hr, 5, 1);
+        t.add(5, Fate::Answered, Some(&d));
+        let tx = t.hash_for(Direction::ToReceiver, Verdict::Open);
+        let rx = t.hash_for(Direction::ToTransmitter, Verdict::Verified);
+        let pad = |w: u8| -> [u8; 8] { core::array::from_fn(|i| w * 8 + i as u8) };
+        assert_eq!(round_pad_word(5, Direction::ToReceiver), 13);
+        let got = [
+            hex(&d),
+            hex(&tx),
+            hex(&pad_hash(&tx, &pad(13))),
+            hex(&rx),
+            hex(&pad_hash(&rx, &pad(12))),
+            hex(&failed_hash(&hr, 5, 1)),
+        ];
+        let want = [
+            "58 54 E8 2F 85 3A CD BD 5F 8E 62 54 B2 50 6C B8",
+            "4A 0E 93 4A 69 A1 EC 34 FE A8 77 80 69 6E 73 F9",
+            "22 67 F9 21 05 CC 82 5B",
+            "87 49 53 05 AE E6 2C 6B 37 EF B7 CF AE 29 B3 F8",
+            "E7 28 31 66 CA 83 4A 0C",
+            "80 9D EE 1E F4 30 CE F2 33 B3 41 20 5F F0 48 2B",
+        ];
+        assert_eq!(got, want.map(std::string::String::from));
+    }
 }
