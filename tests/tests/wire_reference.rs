@@ -5,7 +5,8 @@
 //! document's offsets and LEB128 rule; the test compares what it read with what was encoded.
 //! A second check recomputes the Wegman-Carter tags of §9 with a POLYVAL written in pure Python
 //! from the document (checked there against RFC 8452's Appendix A vector), and the core verifies
-//! the tags the Python transmitter makes. Skipped (with a note) when Python or the packages cannot
+//! the tags the Python transmitter makes. A third recomputes the round tags of §9.9 (frame
+//! digests, round transcripts, both directions and the failed verdict). Skipped (with a note) when Python or the packages cannot
 //! be had.
 
 use serde_json::Value;
@@ -389,4 +390,161 @@ fn tags_checked_and_made_by_a_python_polyval_from_the_document() {
     }
     assert_eq!(answered, 4);
     assert_eq!(rx.counters().frames_verified, 4);
+}
+
+/// Round tags of `docs/wire-protocol.md` §9.9 in pure Python: the frame digest, the round
+/// transcript, the tags both ways and the failed verdict's tag, from the document's block
+/// layouts, with the POLYVAL of [`TAG_SCRIPT`] (RFC 8452 vector checked again here).
+const ROUND_SCRIPT: &str = r#"
+import json, struct, sys
+
+P = (1 << 128) | (1 << 127) | (1 << 126) | (1 << 121) | 1
+
+def clmul(a, b):
+    r = 0
+    while b:
+        if b & 1:
+            r ^= a
+        a <<= 1
+        b >>= 1
+    return r
+
+def dot(a, b):
+    r = clmul(a, b)
+    for i in range(r.bit_length() - 1, 127, -1):
+        if r >> i & 1:
+            r ^= P << (i - 128)
+    for _ in range(128):
+        r = (r ^ P) >> 1 if r & 1 else r >> 1
+    return r
+
+def polyval(h, data):
+    hi, s = int.from_bytes(h, "little"), 0
+    data = data + bytes(-len(data) % 16)
+    for i in range(0, len(data), 16):
+        s = dot(s ^ int.from_bytes(data[i:i + 16], "little"), hi)
+    return s.to_bytes(16, "little")
+
+assert polyval(bytes.fromhex("25629347589242761d31f826ba4b757b"),
+               bytes.fromhex("4f4f95668c83dfb6401762bb2d01a262d1a24ddd2721d006bbe45f20d3c9f362")) \
+    == bytes.fromhex("f7a3b47b846119fae5b7866cf5e5b77e")
+
+def leb128(v):
+    out = bytearray()
+    while True:
+        b = v & 0x7F
+        v >>= 7
+        out.append(b | (0x80 if v else 0))
+        if not v:
+            return bytes(out)
+
+def digest(h, first_slot, anns):
+    data = struct.pack("<H6xQ", len(anns), first_slot)
+    prev = first_slot
+    for slot, basis_x, entry in anns:
+        data += leb128(slot - prev) + bytes([entry & 0x7F | basis_x << 7])
+        prev = slot
+    return polyval(h, data)
+
+def round_hash(hr, rnd, f, frames, direction, verdict):
+    data = struct.pack("<QIB3x", rnd, f, 0x52)
+    for fr in frames:
+        data += struct.pack("<QB7x", fr["num"], fr["fate"])
+        if fr["fate"] == 1:
+            data += fr["digest"]
+    data += struct.pack("<BB6xQ", direction, verdict, len(frames))
+    return polyval(hr, data)
+
+args = json.load(open(sys.argv[1]))
+h, hr, key = (bytes.fromhex(args[k]) for k in ("h", "hr", "key"))
+f = args["f"]
+pad = lambda word: key[8 * word:8 * word + 8]
+xor = lambda a, b: bytes(x ^ y for x, y in zip(a, b))
+out = []
+for rnd in args["rounds"]:
+    r = rnd["round"]
+    frames = []
+    for fr in rnd["frames"]:
+        if fr["fate"] == 1:
+            fr["digest"] = digest(h, fr["anns"][0][0], fr["anns"])
+        frames.append(fr)
+    tx = xor(round_hash(hr, r, f, frames, 1, 0)[:8], pad(2 + 2 * r + 1))
+    rx = xor(round_hash(hr, r, f, frames, 0, 1)[:8], pad(2 + 2 * r))
+    failed = xor(round_hash(hr, r, f, [], 0, 2)[:8], pad(2 + 2 * r))
+    out.append({"tx": tx.hex(), "rx": rx.hex(), "failed": failed.hex()})
+print(json.dumps(out))
+"#;
+
+#[test]
+fn round_tags_recomputed_by_a_python_polyval_from_the_document() {
+    use slotwise::formats::round::{
+        failed_hash, pad_hash, round_pad_word, Fate, FrameDigest, Transcript, Verdict,
+    };
+    use slotwise::formats::tag::Direction;
+    let py = match python() {
+        Ok(p) => p,
+        Err(why) => {
+            eprintln!("skipped: {why}");
+            return;
+        }
+    };
+    let h: [u8; 16] = core::array::from_fn(|i| (i as u8).wrapping_mul(53) ^ 0x5A);
+    let hr: [u8; 16] = core::array::from_fn(|i| (i as u8).wrapping_mul(29) ^ 0xC3);
+    let key: Vec<u8> = (0..64 * 8)
+        .map(|i| (i as u8).wrapping_mul(97) ^ 0x17)
+        .collect();
+    let pad = |w: u64| -> [u8; 8] { core::array::from_fn(|i| key[w as usize * 8 + i]) };
+    let f = 4u32;
+    let hex = |b: &[u8]| b.iter().map(|x| format!("{x:02x}")).collect::<String>();
+    let mut rounds = Vec::new();
+    let mut want = Vec::new();
+    for r in 0..3u64 {
+        let mut t = Transcript::new(&hr, r, f);
+        let mut frames = Vec::new();
+        for k in 0..u64::from(f) {
+            let num = r * u64::from(f) + k;
+            if (num + r) % 3 == 2 {
+                t.add(num, Fate::Expired, None);
+                frames.push(serde_json::json!({"num": num, "fate": 2}));
+                continue;
+            }
+            // Slot gaps from 1 to past the one-byte LEB128 range, both bases, varied entries.
+            let anns: Vec<(u64, bool, u8)> = (0..(5 + num * 7) % 40 + 1)
+                .scan(1_000 + num * 100_000, |s, i| {
+                    *s += 1 + (i * i * 37 + num) % 300;
+                    Some((*s, (i + num) % 2 == 1, ((i * 5 + num) % 32) as u8))
+                })
+                .collect();
+            let mut d = FrameDigest::new(&h, anns.len() as u16, anns[0].0);
+            for &(s, x, e) in &anns {
+                d.add(s, x, e);
+            }
+            t.add(num, Fate::Answered, Some(&d.finish()));
+            frames.push(serde_json::json!({"num": num, "fate": 1, "anns": anns}));
+        }
+        let tx = pad_hash(
+            &t.hash_for(Direction::ToReceiver, Verdict::Open),
+            &pad(round_pad_word(r, Direction::ToReceiver)),
+        );
+        let rx = pad_hash(
+            &t.hash_for(Direction::ToTransmitter, Verdict::Verified),
+            &pad(round_pad_word(r, Direction::ToTransmitter)),
+        );
+        let failed = pad_hash(
+            &failed_hash(&hr, r, f),
+            &pad(round_pad_word(r, Direction::ToTransmitter)),
+        );
+        want.push(serde_json::json!({"tx": hex(&tx), "rx": hex(&rx), "failed": hex(&failed)}));
+        rounds.push(serde_json::json!({"round": r, "frames": frames}));
+    }
+    let dir = Path::new(env!("CARGO_TARGET_TMPDIR"));
+    let input = dir.join("round_tags_input.json");
+    let args = serde_json::json!({"h": hex(&h), "hr": hex(&hr), "key": hex(&key), "f": f,
+        "rounds": rounds});
+    std::fs::write(&input, args.to_string()).unwrap();
+    let script = dir.join("round_tags.py");
+    std::fs::write(&script, ROUND_SCRIPT).unwrap();
+    let out = slotwise_tests::run_python(&py, [&script, &input]);
+    let got: Vec<Value> = serde_json::from_slice(&out).unwrap();
+    assert_eq!(got, want);
 }

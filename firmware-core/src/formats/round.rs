@@ -419,7 +419,10 @@ mod tests {
     }
 
     fn hex(b: &[u8]) -> String {
-        b.iter().map(|x| format!("{x:02X}")).collect::<Vec<_>>().join(" ")
+        b.iter()
+            .map(|x| format!("{x:02X}"))
+            .collect::<Vec<_>>()
+            .join(" ")
     }
 
     /// The worked example of `docs/wire-protocol.md` §9.9, byte for byte.

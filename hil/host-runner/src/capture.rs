@@ -163,7 +163,10 @@ pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
                 Snapshot::parse(fr.payload)
                     .map_err(|e| format!("{name}: stats record {k} at byte {offset}: {e}"))?;
             }
-            RecordType::Announce | RecordType::Answers | RecordType::KeyRefill => {
+            RecordType::Announce
+            | RecordType::Answers
+            | RecordType::KeyRefill
+            | RecordType::RoundTag => {
                 return Err(format!(
                     "{name}: frame {k} at byte {offset}: a {} record on the key-block stream",
                     fr.record
