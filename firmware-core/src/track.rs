@@ -349,7 +349,7 @@ impl Tracker {
         let mut from = self.last_good;
         let nu_q64 = (from.nu_q96 >> 32) as u64;
         // The drift allowance as a slope: ν·D per 2^32 ps.
-        let allow_q64 = u128::from(nu_q64) * u128::from(p.drift_ppb_per_s) << 32;
+        let allow_q64 = (u128::from(nu_q64) * u128::from(p.drift_ppb_per_s)) << 32;
         let allow_q64 =
             u64::try_from(allow_q64 / 1_000_000_000_000_000_000_000).unwrap_or(u64::MAX);
         let floor = u128::from(nu_q64) * u128::from(p.hold_ppt) / 1_000_000_000_000;
@@ -508,7 +508,7 @@ impl Tracker {
             return;
         };
         let nu_q64 = (self.model.nu_q96 >> 32) as u64;
-        let allow = (u128::from(nu_q64) * u128::from(self.cfg.p.drift_ppb_per_s) << 32)
+        let allow = ((u128::from(nu_q64) * u128::from(self.cfg.p.drift_ppb_per_s)) << 32)
             / 1_000_000_000_000_000_000_000;
         let rate = self.drift.rate_q16((allow.min(1 << 46) as i64) << 16);
         let dnu_q96 = (i128::from(rate) * i128::from(dt)) >> 16;

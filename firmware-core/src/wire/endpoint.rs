@@ -81,7 +81,8 @@ enum Got {
         first_slot: u64,
         count: usize,
     },
-    RoundTags([RoundTag; round_rec::MAX_ENTRIES], usize),
+    /// Round tags parsed into the endpoint's `round_in`, this many.
+    RoundTags(usize),
     Refused(Reject),
 }
 
@@ -112,6 +113,8 @@ pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize, const KEYW: 
     round_seq: u16,
     /// Number of the announce frame whose answers are being handed out.
     cur_num: u64,
+    /// Round tags of the last round-tag record taken.
+    round_in: [RoundTag; round_rec::MAX_ENTRIES],
     /// Slot << 1 | basis of every announcement in an open frame or the batch.
     slots: Deque<u64, OUT>,
     /// Running index of `slots`' front.
@@ -166,6 +169,7 @@ where
             rounds: None,
             round_seq: 0,
             cur_num: 0,
+            round_in: [rounds::NO_TAG; round_rec::MAX_ENTRIES],
             slots: Deque::new(),
             front: 0,
             open: Deque::new(),
@@ -715,7 +719,7 @@ where
                 None => continue,
                 Some(Err(e)) => Got::Refused(e.into()),
                 Some(Ok(f)) if f.record == RecordType::RoundTag && self.rounds.is_some() => {
-                    rounds::parse_tags(&f)
+                    rounds::parse_tags(&f, &mut self.round_in)
                 }
                 Some(Ok(f)) if f.record != RecordType::Answers => {
                     Got::Refused(Reject::UnexpectedType)
@@ -747,7 +751,7 @@ where
             };
             match got {
                 Got::Refused(r) => self.counters.rejected.add(r),
-                Got::RoundTags(tags, n) => self.take_round_tags(&tags, n),
+                Got::RoundTags(n) => self.take_round_tags(n),
                 Got::Answers {
                     seq,
                     ann_seq,

@@ -37,6 +37,9 @@ pub struct TxRoundCounters {
     pub unknown_fates: u64,
 }
 
+/// Matched-basis slots of a frame with their bits.
+type MatchedBits = Vec<(u64, TxKeyBit)>;
+
 struct Closed {
     t: Transcript,
     tag: [u8; 8],
@@ -48,7 +51,7 @@ pub struct TxRounds {
     frames_per_round: u32,
     hr: [u8; HASH_KEY_LEN],
     /// Frames this end answered: number → (digest, matched bits).
-    answered: BTreeMap<u64, ([u8; BLOCK_LEN], Vec<(u64, TxKeyBit)>)>,
+    answered: BTreeMap<u64, ([u8; BLOCK_LEN], MatchedBits)>,
     /// Fates from the receiver's reports: number → answered.
     fates: BTreeMap<u64, bool>,
     next_round: u64,

@@ -11,6 +11,14 @@ use crate::wire::config::LinkConfig;
 use crate::wire::round::{RoundConfigError, RoundLedger};
 use crate::wire::Reject;
 
+/// A blank round-tag entry, to fill buffers.
+pub(super) const NO_TAG: RoundTag = RoundTag {
+    round: 0,
+    dir: Direction::ToReceiver,
+    verdict: Verdict::Open,
+    tag: [0; 8],
+};
+
 impl<R, W, const BATCH: usize, const OUT: usize, const KEYW: usize>
     ReceiverLink<R, W, BATCH, OUT, KEYW>
 where
@@ -62,12 +70,7 @@ where
         let Some(l) = self.rounds.as_mut() else {
             return;
         };
-        let mut tags = [RoundTag {
-            round: 0,
-            dir: Direction::ToTransmitter,
-            verdict: Verdict::Open,
-            tag: [0; 8],
-        }; round_rec::MAX_ENTRIES];
+        let mut tags = [NO_TAG; round_rec::MAX_ENTRIES];
         let n = l.outgoing(&mut tags);
         let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
         let Some(len) = tags.get(..n).and_then(|t| round_rec::emit(t, area).ok()) else {
@@ -102,9 +105,9 @@ where
     }
 
     /// Check the transmitter's round tags against this end's closed rounds.
-    pub(super) fn take_round_tags(&mut self, tags: &[RoundTag], n: usize) {
+    pub(super) fn take_round_tags(&mut self, n: usize) {
         if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
-            for t in tags.iter().take(n) {
+            for t in self.round_in.iter().take(n) {
                 l.take(a, t);
             }
         }
@@ -112,16 +115,10 @@ where
 }
 
 /// A round-tag frame from the transmitter, parsed (it travels untagged: its entries are tags).
-pub(super) fn parse_tags(f: &Frame<'_>) -> Got {
-    let mut tags = [RoundTag {
-        round: 0,
-        dir: Direction::ToReceiver,
-        verdict: Verdict::Open,
-        tag: [0; 8],
-    }; round_rec::MAX_ENTRIES];
-    match (f.tag, round_rec::parse(f.payload, &mut tags)) {
+pub(super) fn parse_tags(f: &Frame<'_>, tags: &mut [RoundTag; round_rec::MAX_ENTRIES]) -> Got {
+    match (f.tag, round_rec::parse(f.payload, tags)) {
         (Some(_), _) => Got::Refused(Reject::Untagged),
         (None, Err(e)) => Got::Refused(e.into()),
-        (None, Ok(n)) => Got::RoundTags(tags, n),
+        (None, Ok(n)) => Got::RoundTags(n),
     }
 }
