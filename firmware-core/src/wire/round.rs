@@ -29,8 +29,10 @@ use zeroize::Zeroize;
 pub const PENDING_ROUNDS: usize = 4;
 /// Times the receiver sends each of its round tags (in consecutive round-tag records).
 pub const RESENDS: u8 = 4;
+/// Round tags of this end waiting to be sent (each leaves after [`RESENDS`] records).
+pub const OUTBOX: usize = 8;
 /// Verdicts held for the post-processing host until it takes them.
-pub const VERDICTS: usize = 16;
+pub const VERDICTS: usize = 8;
 /// Announce frames per round unless configured otherwise (see `docs/wire-protocol.md` §9.9).
 pub const DEFAULT_FRAMES_PER_ROUND: u32 = 512;
 
@@ -120,7 +122,7 @@ pub struct RoundLedger {
     hr: [u8; HASH_KEY_LEN],
     cur: Option<Transcript>,
     pending: Deque<Transcript, PENDING_ROUNDS>,
-    outbox: Deque<Outgoing, MAX_ENTRIES>,
+    outbox: Deque<Outgoing, OUTBOX>,
     verdicts: Deque<(u64, bool), VERDICTS>,
     counters: RoundCounters,
 }

@@ -33,7 +33,7 @@ fn record_type_list_is_consistent() {
         assert!(!t.name().is_empty());
     }
     assert_eq!(RecordType::from_code(0), None);
-    assert_eq!(RecordType::from_code(8), None);
+    assert_eq!(RecordType::from_code(9), None);
 }
 
 // Check value for ASCII "123456789" in Cook's catalogue of parametrised CRC algorithms.
