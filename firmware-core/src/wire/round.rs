@@ -322,6 +322,14 @@ impl RoundLedger {
             self.counters.verdicts_dropped += 1;
         }
         let _ = self.verdicts.push_back((round, r.is_ok()));
+        // Pads of rounds below the lowest one still undecided can serve no tag: wipe them (a
+        // round that failed without a check leaves its check word unused).
+        let low = self
+            .pending
+            .iter()
+            .map(Transcript::round)
+            .fold(round + 1, u64::min);
+        auth.abandon_below(round_pad_word(low, Direction::ToTransmitter));
     }
 
     /// The round tags to send in the next record (each sent [`RESENDS`] times in all); returns
@@ -440,6 +448,10 @@ mod tests {
         l.give_up(&mut a);
         assert_eq!(l.poll_verdict(), Some((0, false)));
         assert_eq!(l.counters().failed_no_tag, 1);
+        // The transcript key and the verdict's tag spent; the unused check word wiped, so the
+        // pool's ring moves on.
+        assert_eq!(a.counters().key_bits_consumed, 3 * 64);
+        assert_eq!(a.counters().key_bits_abandoned, 64);
         let mut out = [RoundTag {
             round: 9,
             dir: Direction::ToReceiver,

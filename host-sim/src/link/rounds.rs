@@ -242,5 +242,13 @@ impl TxRounds {
             auth.raise_attack_alarm();
         }
         self.decided.insert(e.round, keep);
+        // Pads of rounds below the lowest one still undecided can serve no tag.
+        let low = self
+            .pending
+            .keys()
+            .next()
+            .copied()
+            .unwrap_or(self.next_round);
+        auth.abandon_below(round_pad_word(low, Direction::ToTransmitter));
     }
 }
