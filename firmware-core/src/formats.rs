@@ -15,6 +15,7 @@
 //! | 6 | [`statistics`] | board → post-processing host |
 //! | 7 | [`refill`] | post-processing host → board (authentication key) |
 //! | 8 | [`round`] | both ways on the sifting link (one authentication tag per round) |
+//! | 9 | [`round`] | board → post-processing host (a round's verdict: keep or discard its key) |
 //!
 //! [`tag`] computes the Wegman-Carter tag a frame of the sifting link carries after its payload.
 //!

@@ -23,6 +23,7 @@ use crate::sim::rng::Stream;
 use crate::sim::SimTransmitter;
 use auth::{Adversary, AttackStats, KeySupply, LinkAttack};
 use serde::Serialize;
+use slotwise::formats::round::RoundVerdict;
 use slotwise::wire::{LinkConfig, LinkCounters, ReceiverLink};
 use slotwise::{Announcement, Answer, Transmitter};
 use std::cell::RefCell;
@@ -375,10 +376,10 @@ pub struct FramedLink {
     forged_rx_accepted: u64,
     /// Key-refill frames the board took.
     refill_frames: u64,
-    /// Round mode: the round of every slot the receiver was answered, and the board's verdicts
-    /// (round → key kept), as the post-processing host sees them.
+    /// Round mode: the round of every slot the receiver was answered (to name attacked rounds).
     answer_rounds: HashMap<u64, u64>,
-    verdicts: BTreeMap<u64, bool>,
+    /// The board's round verdicts (record type 9) by their first slot.
+    verdicts: BTreeMap<u64, RoundVerdict>,
     /// Slots of the answers the receiver took that the transmitter never gave.
     forged_slots: Vec<u64>,
 }
@@ -571,8 +572,8 @@ impl FramedLink {
     }
 
     fn drain_verdicts(&mut self) {
-        while let Some((r, keep)) = self.ep.poll_verdict() {
-            self.verdicts.insert(r, keep);
+        while let Some(v) = self.ep.poll_verdict() {
+            self.verdicts.insert(v.first_slot, v);
         }
     }
 
@@ -597,22 +598,22 @@ impl FramedLink {
         r
     }
 
-    /// Round mode: the board's verdicts so far, round → key kept.
-    pub fn verdicts(&self) -> &BTreeMap<u64, bool> {
-        &self.verdicts
+    /// Round mode: the board's verdicts so far (record type 9), in slot order.
+    pub fn verdicts(&self) -> impl Iterator<Item = &RoundVerdict> {
+        self.verdicts.values()
     }
 
     /// Whether the receiver's sifted bit of `slot` is kept: always on a frame-tagged or
-    /// unauthenticated link; in round mode only when its round verified.
+    /// unauthenticated link; in round mode only when a verdict record says the round whose slot
+    /// range holds it verified (what the post-processing host does with the board's records).
     pub fn keeps_slot(&self, slot: u64) -> bool {
         if self.ep.rounds().is_none() {
             return true;
         }
-        self.answer_rounds
-            .get(&slot)
-            .and_then(|r| self.verdicts.get(r))
-            .copied()
-            .unwrap_or(false)
+        self.verdicts
+            .range(..=slot)
+            .next_back()
+            .is_some_and(|(_, v)| v.kept && slot <= v.last_slot)
     }
 
     /// Run `f` on the host transmitter.

@@ -66,11 +66,14 @@ pub enum RecordType {
     /// Both ways on the sifting link: round tags and the receiver's round verdicts
     /// ([`super::round`]).
     RoundTag = 8,
+    /// Board to post-processing host: a round's verdict and slot range; the host keeps the
+    /// round's key bits only if it verified ([`super::round`]).
+    RoundVerdict = 9,
 }
 
 impl RecordType {
     /// Every record type, in wire-code order.
-    pub const ALL: [RecordType; 8] = [
+    pub const ALL: [RecordType; 9] = [
         Self::KeyBlock,
         Self::Summary,
         Self::Announce,
@@ -79,6 +82,7 @@ impl RecordType {
         Self::Stats,
         Self::KeyRefill,
         Self::RoundTag,
+        Self::RoundVerdict,
     ];
 
     /// Short snake-case name for reports.
@@ -92,6 +96,7 @@ impl RecordType {
             Self::Stats => "stats",
             Self::KeyRefill => "key_refill",
             Self::RoundTag => "round_tag",
+            Self::RoundVerdict => "round_verdict",
         }
     }
 

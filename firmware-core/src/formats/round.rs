@@ -145,6 +145,74 @@ pub fn emit(tags: &[RoundTag], out: &mut [u8]) -> Result<usize, FrameError> {
     Ok(n)
 }
 
+/// Bytes of a round-verdict payload (record type 9).
+pub const VERDICT_LEN: usize = 25;
+
+/// A round's verdict as the board reports it to the post-processing host (record type 9):
+/// `round u64 | kept u8 | first_slot u64 | last_slot u64`. The round's announce frames covered
+/// slots `first_slot ..= last_slot` (rounds never overlap); the host keeps the key bits of those
+/// slots only if `kept`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct RoundVerdict {
+    /// Round number.
+    pub round: u64,
+    /// Both tags checked: the round's key is kept.
+    pub kept: bool,
+    /// First slot announced in the round.
+    pub first_slot: u64,
+    /// Last slot announced in the round.
+    pub last_slot: u64,
+}
+
+impl RoundVerdict {
+    /// Parse a round-verdict payload.
+    pub fn parse(payload: &[u8]) -> Result<Self, FrameError> {
+        let mut r = Reader::new(payload);
+        let round = r.u64()?;
+        let kept = match r.u8()? {
+            0 => false,
+            1 => true,
+            _ => {
+                return Err(FrameError::BadField {
+                    offset: 8,
+                    field: "kept",
+                })
+            }
+        };
+        let first_slot = r.u64()?;
+        let last_slot = r.u64()?;
+        r.finish()?;
+        if last_slot < first_slot {
+            return Err(FrameError::BadField {
+                offset: 17,
+                field: "last_slot",
+            });
+        }
+        Ok(Self {
+            round,
+            kept,
+            first_slot,
+            last_slot,
+        })
+    }
+
+    /// Write the payload into `out`; returns [`VERDICT_LEN`].
+    pub fn emit(&self, out: &mut [u8]) -> Result<usize, FrameError> {
+        let dst = out
+            .get_mut(..VERDICT_LEN)
+            .ok_or(FrameError::BufferTooSmall {
+                needed: VERDICT_LEN,
+            })?;
+        let mut w = Writer::new(dst);
+        w.u64(self.round)?;
+        w.u8(u8::from(self.kept))?;
+        w.u64(self.first_slot)?;
+        w.u64(self.last_slot)?;
+        Ok(VERDICT_LEN)
+    }
+}
+
 /// POLYVAL over a byte stream cut into 16-byte blocks as it comes (zero-padded at the end).
 #[derive(Clone)]
 struct Blocks {
@@ -365,6 +433,30 @@ mod tests {
         assert!(parse(&buf[..n - 1], &mut out).is_err());
         assert!(parse(&[0], &mut out).is_err());
         assert!(emit(&[], &mut buf).is_err());
+    }
+
+    #[test]
+    fn verdicts_round_trip_and_refuse_bad_fields() {
+        let v = RoundVerdict {
+            round: 7,
+            kept: true,
+            first_slot: 1000,
+            last_slot: 1 << 40,
+        };
+        let mut buf = [0u8; VERDICT_LEN];
+        assert_eq!(v.emit(&mut buf), Ok(VERDICT_LEN));
+        assert_eq!(RoundVerdict::parse(&buf), Ok(v));
+        let mut bad = buf;
+        bad[8] = 2;
+        assert!(RoundVerdict::parse(&bad).is_err());
+        let back = RoundVerdict {
+            last_slot: 999,
+            ..v
+        };
+        back.emit(&mut bad).unwrap();
+        assert!(RoundVerdict::parse(&bad).is_err());
+        assert!(RoundVerdict::parse(&buf[..24]).is_err());
+        assert!(v.emit(&mut [0u8; 24]).is_err());
     }
 
     #[test]

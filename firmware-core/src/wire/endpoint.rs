@@ -532,7 +532,9 @@ where
                 }
             }
             match (self.auth.as_mut(), self.rounds.as_mut()) {
-                (Some(a), Some(l)) => l.frame_final(a, f.num, f.digest.as_ref()),
+                (Some(a), Some(l)) => {
+                    l.frame_final(a, f.num, (f.first_slot, f.last_slot), f.digest.as_ref())
+                }
                 (Some(a), None) => a.abandon_below(Direction::ToReceiver.pad_word(f.num) + 1),
                 _ => {}
             }

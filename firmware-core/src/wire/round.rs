@@ -18,7 +18,7 @@
 use super::auth::LinkAuth;
 use super::Reject;
 use crate::formats::round::{
-    failed_hash, round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES,
+    failed_hash, round_pad_word, Fate, RoundTag, RoundVerdict, Transcript, Verdict, MAX_ENTRIES,
 };
 use crate::formats::tag::{Direction, BLOCK_LEN, HASH_KEY_LEN};
 use core::fmt;
@@ -110,6 +110,19 @@ impl RoundCounters {
     }
 }
 
+/// A round's transcript and the slots its announce frames covered.
+struct Round {
+    t: Transcript,
+    first_slot: u64,
+    last_slot: u64,
+}
+
+impl Round {
+    fn round(&self) -> u64 {
+        self.t.round()
+    }
+}
+
 struct Outgoing {
     tag: RoundTag,
     left: u8,
@@ -120,10 +133,10 @@ struct Outgoing {
 pub struct RoundLedger {
     frames_per_round: u32,
     hr: [u8; HASH_KEY_LEN],
-    cur: Option<Transcript>,
-    pending: Deque<Transcript, PENDING_ROUNDS>,
+    cur: Option<Round>,
+    pending: Deque<Round, PENDING_ROUNDS>,
     outbox: Deque<Outgoing, OUTBOX>,
-    verdicts: Deque<(u64, bool), VERDICTS>,
+    verdicts: Deque<RoundVerdict, VERDICTS>,
     counters: RoundCounters,
 }
 
@@ -185,27 +198,33 @@ impl RoundLedger {
         self.outbox.len()
     }
 
-    /// Announce frame `num` became final (frames come in number order): add it to its round's
-    /// transcript, and close the round after its last frame.
+    /// Announce frame `num`, which announced slots `first_slot ..= last_slot`, became final
+    /// (frames come in number order): add it to its round's transcript, and close the round after
+    /// its last frame.
     pub fn frame_final<const W: usize>(
         &mut self,
         auth: &mut LinkAuth<W>,
         num: u64,
+        slots: (u64, u64),
         digest: Option<&[u8; BLOCK_LEN]>,
     ) {
         let round = self.round_of(num);
         if self.cur.as_ref().is_some_and(|t| t.round() != round) {
             self.close_round(auth);
         }
-        let t = self
-            .cur
-            .get_or_insert_with(|| Transcript::new(&self.hr, round, self.frames_per_round));
+        let r = self.cur.get_or_insert_with(|| Round {
+            t: Transcript::new(&self.hr, round, self.frames_per_round),
+            first_slot: slots.0,
+            last_slot: slots.1,
+        });
         let fate = if digest.is_some() {
             Fate::Answered
         } else {
             Fate::Expired
         };
-        t.add(num, fate, digest);
+        r.t.add(num, fate, digest);
+        r.first_slot = r.first_slot.min(slots.0);
+        r.last_slot = r.last_slot.max(slots.1);
         if (num + 1).is_multiple_of(u64::from(self.frames_per_round)) {
             self.close_round(auth);
         }
@@ -242,7 +261,7 @@ impl RoundLedger {
             return;
         };
         self.rotate(n - 1 - at);
-        let full = t.hash_for(Direction::ToReceiver, Verdict::Open);
+        let full = t.t.hash_for(Direction::ToReceiver, Verdict::Open);
         let word = round_pad_word(t.round(), Direction::ToReceiver);
         let r = match auth.verify_hash(word, &full, &e.tag) {
             Ok(()) => Ok(()),
@@ -271,7 +290,7 @@ impl RoundLedger {
     fn decide<const W: usize>(
         &mut self,
         auth: &mut LinkAuth<W>,
-        t: &Transcript,
+        t: &Round,
         r: Result<(), RoundFailure>,
     ) {
         let round = t.round();
@@ -283,7 +302,7 @@ impl RoundLedger {
         // A verified verdict is tagged over the transcript, a failed one over the empty
         // transcript (the transmitter's differs, and it must still learn the verdict).
         let full = match verdict {
-            Verdict::Verified => t.hash_for(Direction::ToTransmitter, verdict),
+            Verdict::Verified => t.t.hash_for(Direction::ToTransmitter, verdict),
             _ => failed_hash(&self.hr, round, self.frames_per_round),
         };
         let word = round_pad_word(round, Direction::ToTransmitter);
@@ -321,13 +340,18 @@ impl RoundLedger {
             self.verdicts.pop_front();
             self.counters.verdicts_dropped += 1;
         }
-        let _ = self.verdicts.push_back((round, r.is_ok()));
+        let _ = self.verdicts.push_back(RoundVerdict {
+            round,
+            kept: r.is_ok(),
+            first_slot: t.first_slot,
+            last_slot: t.last_slot,
+        });
         // Pads of rounds below the lowest one still undecided can serve no tag: wipe them (a
         // round that failed without a check leaves its check word unused).
         let low = self
             .pending
             .iter()
-            .map(Transcript::round)
+            .map(Round::round)
             .fold(round + 1, u64::min);
         auth.abandon_below(round_pad_word(low, Direction::ToTransmitter));
     }
@@ -350,8 +374,8 @@ impl RoundLedger {
         n
     }
 
-    /// The next round verdict for the post-processing host: (round, key kept).
-    pub fn poll_verdict(&mut self) -> Option<(u64, bool)> {
+    /// The next round verdict for the post-processing host (record type 9).
+    pub fn poll_verdict(&mut self) -> Option<RoundVerdict> {
         self.verdicts.pop_front()
     }
 }
@@ -384,8 +408,8 @@ mod tests {
         d.add(500, false, 0x07);
         d.add(503, true, 0x08);
         let d = d.finish();
-        l.frame_final(a, 0, Some(&d));
-        l.frame_final(a, 1, None);
+        l.frame_final(a, 0, (500, 503), Some(&d));
+        l.frame_final(a, 1, (600, 640), None);
         let hr = {
             let k = key(2);
             let mut h = [0u8; 16];
@@ -396,6 +420,16 @@ mod tests {
         t.add(0, Fate::Answered, Some(&d));
         t.add(1, Fate::Expired, None);
         t
+    }
+
+    /// Round 0's verdict: its frames announced slots 500 ..= 640.
+    fn verdict(kept: bool) -> RoundVerdict {
+        RoundVerdict {
+            round: 0,
+            kept,
+            first_slot: 500,
+            last_slot: 640,
+        }
     }
 
     fn pad(word: u64) -> [u8; 8] {
@@ -421,7 +455,7 @@ mod tests {
             tag,
         };
         l.take(&mut a, &e);
-        assert_eq!(l.poll_verdict(), Some((0, true)));
+        assert_eq!(l.poll_verdict(), Some(verdict(true)));
         assert_eq!(l.counters().verified, 1);
         // A repeat decides nothing more.
         l.take(&mut a, &e);
@@ -446,7 +480,7 @@ mod tests {
         let mut l = RoundLedger::new(2, &mut a).unwrap();
         one_round(&mut l, &mut a);
         l.give_up(&mut a);
-        assert_eq!(l.poll_verdict(), Some((0, false)));
+        assert_eq!(l.poll_verdict(), Some(verdict(false)));
         assert_eq!(l.counters().failed_no_tag, 1);
         // The transcript key and the verdict's tag spent; the unused check word wiped, so the
         // pool's ring moves on.
@@ -496,7 +530,7 @@ mod tests {
             };
             prop_assume!(tag != genuine);
             l.take(&mut a, &RoundTag { round: 0, dir: Direction::ToReceiver, verdict: Verdict::Open, tag });
-            prop_assert_eq!(l.poll_verdict(), Some((0, false)));
+            prop_assert_eq!(l.poll_verdict(), Some(verdict(false)));
             prop_assert_eq!(l.counters().failed_bad_tag, 1);
             prop_assert!(a.attack_alarm());
             // The round is decided: the genuine tag, coming later, changes nothing.

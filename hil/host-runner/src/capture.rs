@@ -163,6 +163,10 @@ pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
                 Snapshot::parse(fr.payload)
                     .map_err(|e| format!("{name}: stats record {k} at byte {offset}: {e}"))?;
             }
+            RecordType::RoundVerdict => {
+                slotwise::formats::round::RoundVerdict::parse(fr.payload)
+                    .map_err(|e| format!("{name}: round verdict {k} at byte {offset}: {e}"))?;
+            }
             RecordType::Announce
             | RecordType::Answers
             | RecordType::KeyRefill

@@ -74,9 +74,12 @@ pub(super) fn finish_session(
     let rounds = res.tx.framed().filter(|l| l.endpoint().rounds().is_some());
     let blocks = match (key_out, rounds) {
         // Round mode: the post-processing host keeps only the key of verified rounds.
-        (Some(p), Some(l)) => {
-            Some(tap.write_kept(p, &slotwise::Summary::of(&res.rx), |s| l.keeps_slot(s))?)
-        }
+        (Some(p), Some(l)) => Some(tap.write_kept(
+            p,
+            &slotwise::Summary::of(&res.rx),
+            |s| l.keeps_slot(s),
+            l.verdicts(),
+        )?),
         (Some(p), None) => Some(tap.write(p, &slotwise::Summary::of(&res.rx))?),
         (None, _) => None,
     };

@@ -173,6 +173,8 @@ pub struct RoundsSummary {
     pub forged_answers_kept: u64,
     /// The receiver's sifted bits discarded with failed rounds.
     pub sifted_bits_discarded: u64,
+    /// The receiver's sifted bits kept (verified rounds).
+    pub sifted_bits_kept: u64,
 }
 
 /// The summary's `link.auth` object: Wegman-Carter tags on every frame (mode `frame`) or one
@@ -316,9 +318,8 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
                 failed,
                 failed_rounds: link
                     .verdicts()
-                    .iter()
-                    .filter(|&(_, &k)| !k)
-                    .map(|(&r, _)| r)
+                    .filter(|v| !v.kept)
+                    .map(|v| v.round)
                     .collect(),
                 attacked_rounds: link.attacked_rounds(),
                 transmitter: link
@@ -326,6 +327,7 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
                 forged_answers_taken: frx,
                 forged_answers_kept: link.forged_answers_kept(),
                 sifted_bits_discarded: rx_bits.len() as u64 - keys.receiver_bits,
+                sifted_bits_kept: keys.receiver_bits,
             }
         });
         AuthSummary {
@@ -493,13 +495,20 @@ fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Res
                 f,
                 "auth           one {}-bit Wegman-Carter tag per round of {} frames each way \
                  (POLYVAL transcript + one-time pad): rounds {} verified, {} failed; {} forged \
-                 answers kept; key {:.3} % of the kept sifted bits",
+                 answers kept; {}",
                 a.tag_bits,
                 rs.frames_per_round,
                 rs.verified,
                 rs.failed.values().sum::<u64>(),
                 a.forgeries_accepted,
-                100.0 * a.key_bits_per_sifted_bit
+                if rs.sifted_bits_kept > 0 {
+                    format!(
+                        "key {:.3} % of the kept sifted bits",
+                        100.0 * a.key_bits_per_sifted_bit
+                    )
+                } else {
+                    "no key kept".to_string()
+                }
             )?;
             if !rs.failed_rounds.is_empty() {
                 let why = rs

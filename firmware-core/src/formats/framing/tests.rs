@@ -33,7 +33,7 @@ fn record_type_list_is_consistent() {
         assert!(!t.name().is_empty());
     }
     assert_eq!(RecordType::from_code(0), None);
-    assert_eq!(RecordType::from_code(9), None);
+    assert_eq!(RecordType::from_code(10), None);
 }
 
 // Check value for ASCII "123456789" in Cook's catalogue of parametrised CRC algorithms.
@@ -111,8 +111,8 @@ fn decoder_errors_are_typed() {
         })
     );
     assert_eq!(
-        decode(&stuffed_header(VERSION, 9, 0, &[])),
-        Err(FrameError::UnknownType(9))
+        decode(&stuffed_header(VERSION, 10, 0, &[])),
+        Err(FrameError::UnknownType(10))
     );
     assert_eq!(
         decode(&stuffed_header(VERSION, 1, 5000, &[])),

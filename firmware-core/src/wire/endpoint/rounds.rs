@@ -3,7 +3,7 @@
 
 use super::{Got, Read, ReadReady, ReceiverLink, Write};
 use crate::formats::framing::{seal_in_place, RecordType, HEADER_LEN};
-use crate::formats::round::{self as round_rec, RoundTag, Verdict};
+use crate::formats::round::{self as round_rec, RoundTag, RoundVerdict, Verdict};
 use crate::formats::tag::{Direction, BLOCK_LEN};
 use crate::formats::Frame;
 use crate::wire::auth::LinkAuth;
@@ -52,8 +52,9 @@ where
         self.rounds.as_ref().map(|r| r.round_of(self.cur_num))
     }
 
-    /// Round mode: the next round verdict for the post-processing host, (round, key kept).
-    pub fn poll_verdict(&mut self) -> Option<(u64, bool)> {
+    /// Round mode: the next round verdict for the post-processing host (send it as record type
+    /// 9 on the key-block stream: the host keeps the key bits of its slots only if it verified).
+    pub fn poll_verdict(&mut self) -> Option<RoundVerdict> {
         self.rounds.as_mut().and_then(RoundLedger::poll_verdict)
     }
 
