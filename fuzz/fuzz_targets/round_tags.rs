@@ -63,8 +63,8 @@ fuzz_target!(|data: &[u8]| {
     l.close();
     while l.poll_answer().is_some() {}
     l.give_up_rounds();
-    while let Some((_, kept)) = l.poll_verdict() {
-        assert!(!kept);
+    while let Some(v) = l.poll_verdict() {
+        assert!(!v.kept);
     }
     assert_eq!(l.rounds().unwrap().counters().verified, 0);
     let a = l.auth().unwrap();
