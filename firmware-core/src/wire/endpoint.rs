@@ -15,7 +15,7 @@
 //! answers count as `unmatched` in [`AnswerErrors`](crate::AnswerErrors)), but both sides' keys
 //! may then differ.
 
-use super::auth::{check_frame, LinkAuth, RefillFrameError};
+use super::auth::{LinkAuth, RefillFrameError};
 use super::config::{LinkConfig, LinkCounters};
 use super::decoder::FrameDecoder;
 use super::keypool::RefillError;
@@ -41,6 +41,9 @@ use heapless::Deque;
 use zeroize::Zeroize;
 
 mod rounds;
+mod tag_check;
+
+use tag_check::check_tag;
 
 /// Announce frames that may wait for their answers at once.
 pub const MAX_OPEN_FRAMES: usize = 32;
@@ -780,23 +783,4 @@ where
         }
         self.newest_slot.map(|s| s.saturating_add(1))
     }
-}
-
-/// Authenticate an answers frame before anything reads it: its pad word follows from the
-/// announce frame it answers (`ann_seq`, widened against the frames sent).
-fn check_tag<const KEYW: usize>(
-    auth: Option<&mut LinkAuth<KEYW>>,
-    open: &Deque<OpenFrame, MAX_OPEN_FRAMES>,
-    next_num: u64,
-    f: &crate::formats::Frame<'_>,
-    ann_seq: u16,
-) -> Result<(), Reject> {
-    let num = open
-        .iter()
-        .find(|o| o.seq == ann_seq)
-        .map(|o| o.num)
-        .unwrap_or_else(|| {
-            next_num.wrapping_sub(u64::from((next_num as u16).wrapping_sub(ann_seq)))
-        });
-    check_frame(auth, Direction::ToReceiver, num, f)
 }
