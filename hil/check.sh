@@ -180,7 +180,10 @@ for t in "${TARGETS[@]}"; do
       printf "%s: instructions per tag (seal / verify): 15-byte payload %d / %d, 76 bytes %d / %d, 1056 bytes %d / %d; LinkAuth<96> %d bytes\n",
         t, v["seal_counts_15"] * k, v["verify_counts_15"] * k, v["seal_counts_76"] * k,
         v["verify_counts_76"] * k, v["seal_counts_1056"] * k, v["verify_counts_1056"] * k,
-        v["link_auth_bytes"] }' "$d/auth-fw.txt"
+        v["link_auth_bytes"]
+      printf "%s: round mode: digest of a 64-announcement frame %d, transcript entry %d, round tag %d instructions; RoundLedger %d bytes\n",
+        t, v["digest_counts_64"] * k, v["transcript_add_counts"] * k, v["round_tag_counts"] * k,
+        v["round_ledger_bytes"] }' "$d/auth-fw.txt"
   else
     echo "$t: authentication cost run failed" >&2; failures=$((failures + 1))
   fi

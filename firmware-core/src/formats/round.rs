@@ -288,14 +288,16 @@ impl FrameDigest {
     pub fn add(&mut self, slot: u64, basis_x: bool, entry: u8) {
         let mut v = slot.wrapping_sub(self.prev);
         self.prev = slot;
-        let mut tmp = [0u8; 10];
+        let mut tmp = [0u8; 11];
         let n = varint_len(v);
         for d in tmp.iter_mut().take(n) {
             *d = (v & 0x7F) as u8 | if v > 0x7F { 0x80 } else { 0 };
             v >>= 7;
         }
-        self.b.push(tmp.get(..n).unwrap_or_default());
-        self.b.push(&[entry & 0x7F | u8::from(basis_x) << 7]);
+        if let Some(d) = tmp.get_mut(n) {
+            *d = entry & 0x7F | u8::from(basis_x) << 7;
+        }
+        self.b.push(tmp.get(..=n).unwrap_or_default());
     }
 
     /// The digest.

@@ -1,8 +1,10 @@
 //! What authenticating the sifting link costs on the board: the core's `LinkAuth` tags frames of
 //! three payload sizes (an answers frame of 3 entries, one of 64 — the host's batch — and the
 //! largest payload, 1056 bytes) and a second end checks each tag; the instructions of every
-//! `seal` and every `verify` are counted. Writes `auth-fw.txt`. A binary apart from the board
-//! build, so the board build stays what its figures measure.
+//! `seal` and every `verify` are counted. Round mode's work is counted too: the digest of an
+//! answered frame of 64 announcements, adding a frame to a round transcript, and one round tag
+//! (hashing the transcript's last block and padding it). Writes `auth-fw.txt`. A binary apart from
+//! the board build, so the board build stays what its figures measure.
 
 #![no_std]
 #![no_main]
@@ -25,9 +27,10 @@ mod files;
 
 use core::fmt::Write as _;
 use files::ShFile;
+use slotwise::formats::round::{pad_hash, Fate, FrameDigest, Transcript, Verdict};
 use slotwise::formats::tag::{Direction, TagInput};
 use slotwise::formats::RecordType;
-use slotwise::wire::{AuthConfig, LinkAuth};
+use slotwise::wire::{AuthConfig, LinkAuth, RoundLedger};
 
 /// Tags per payload size.
 const TAGS: u64 = 16;
@@ -92,6 +95,43 @@ fn run() -> Result<(), i32> {
         ok &= writeln!(r, "seal_counts_{size} {seal}").is_ok();
         ok &= writeln!(r, "verify_counts_{size} {verify}").is_ok();
     }
+    // Round mode, per answered frame of 64 announcements: its digest and its transcript entry;
+    // per round and direction: one tag.
+    let (mut digest, mut add, mut round_tag) = (0u64, 0u64, 0u64);
+    let mut t = Transcript::new(&h, 0, 512);
+    let mut slot = 1_000u64;
+    for f in 0..TAGS {
+        let t0 = arch::now();
+        let mut d = FrameDigest::new(&h, 64, slot);
+        for i in 0..64u64 {
+            d.add(slot, i % 3 == 0, (i % 32) as u8);
+            slot += 40 + (i * 37 + f) % 200;
+        }
+        let d = d.finish();
+        let t1 = arch::now();
+        t.add(f, Fate::Answered, Some(&d));
+        let t2 = arch::now();
+        let tag = pad_hash(
+            &t.hash_for(Direction::ToReceiver, Verdict::Open),
+            &[0x5A; 8],
+        );
+        let t3 = arch::now();
+        if tag == [0; 8] {
+            return Err(exit::REPORT);
+        }
+        digest += t1 - t0;
+        add += t2 - t1;
+        round_tag += t3 - t2;
+    }
+    ok &= writeln!(r, "digest_counts_64 {digest}").is_ok();
+    ok &= writeln!(r, "transcript_add_counts {add}").is_ok();
+    ok &= writeln!(r, "round_tag_counts {round_tag}").is_ok();
+    ok &= writeln!(
+        r,
+        "round_ledger_bytes {}",
+        core::mem::size_of::<RoundLedger>()
+    )
+    .is_ok();
     let (calib_instructions, calib_counts) = arch::calibrate();
     ok &= writeln!(r, "tags {TAGS}").is_ok();
     ok &= writeln!(r, "calib_instructions {calib_instructions}").is_ok();
