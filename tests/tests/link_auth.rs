@@ -330,3 +330,40 @@ fn round_mode_fails_exactly_the_attacked_rounds() {
         }
     }
 }
+
+/// The key file in round mode holds only verified rounds' key and one verdict record per round:
+/// under an injecting adversary with short rounds none verifies and the file holds no key; on the
+/// clean noisy link every round verifies and the file's bits are the kept key.
+#[test]
+fn round_mode_key_file_keeps_only_verified_rounds() {
+    use slotwise_sim::link::keyfile::inspect;
+    let dir = std::path::Path::new(env!("CARGO_TARGET_TMPDIR"));
+    for attack in [None, Some(LinkAttack::Inject)] {
+        let path = dir.join(format!("rounds-{attack:?}.swkey"));
+        let s = scenario();
+        let (summary, _, _) = run_simulated_linked(
+            &s,
+            &clock(),
+            None,
+            Some(noisy_rounds(16, attack)),
+            Some(&path),
+        )
+        .unwrap();
+        let l = summary.link.unwrap();
+        let rs = l.auth.as_ref().unwrap().rounds.clone().unwrap();
+        let r = inspect(&path).unwrap();
+        assert!(r.bad_frames.is_empty(), "{:?}", r.bad_frames);
+        assert_eq!(r.total_bits, l.keys.receiver_bits, "{attack:?}");
+        assert_eq!(r.summary.map(|s| s.0), Some(r.total_bits));
+        assert_eq!(r.rounds_kept, rs.verified, "{attack:?}");
+        assert_eq!(
+            r.rounds_discarded,
+            rs.failed_rounds.len() as u64,
+            "{attack:?}"
+        );
+        match attack {
+            None => assert!(r.total_bits > 1000 && r.rounds_discarded == 0),
+            Some(_) => assert!(r.total_bits == 0 && r.rounds_discarded > 30),
+        }
+    }
+}
