@@ -27,7 +27,7 @@ where
 {
     /// A round-authenticated endpoint: frames travel untagged and one tag per round of
     /// `frames_per_round` announce frames, each way, covers the round's sifting transcript
-    /// ([`super::round`]); the transcript key is taken from pad words 0 and 1 of `auth`.
+    /// ([`crate::wire::round`]); the transcript key is taken from pad words 0 and 1 of `auth`.
     pub fn new_round_authenticated(
         cfg: LinkConfig,
         mut auth: LinkAuth<KEYW>,
@@ -46,7 +46,7 @@ where
         self.rounds.as_ref()
     }
 
-    /// Round mode: the round of the answers [`Transmitter::poll_answer`] last handed out (its
+    /// Round mode: the round of the answers [`crate::Transmitter::poll_answer`] last handed out (its
     /// key is kept only if [`Self::poll_verdict`] later says so).
     pub fn answer_round(&self) -> Option<u64> {
         self.rounds.as_ref().map(|r| r.round_of(self.cur_num))
