@@ -233,6 +233,8 @@ fn exact_rounds(l: &LinkSummary) {
     pool_exact(tx);
     let failed: u64 = rs.failed.values().sum();
     assert_eq!(rs.closed, rs.verified + failed, "{rs:?}");
+    assert_eq!(rs.verified_rounds.len() as u64, rs.verified, "{rs:?}");
+    assert_eq!(rs.failed_rounds.len() as u64, failed, "{rs:?}");
     assert_eq!(rx.frames_tagged, rs.closed, "{rs:?}");
     let rx_checks = rs.verified + rs.failed.get("bad_tag").copied().unwrap_or(0);
     assert_eq!(

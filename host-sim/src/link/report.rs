@@ -161,6 +161,8 @@ pub struct RoundsSummary {
     pub verified: u64,
     /// Rounds failed, by reason (their key is discarded on both sides).
     pub failed: BTreeMap<&'static str, u64>,
+    /// Numbers of the verified rounds (their key is kept).
+    pub verified_rounds: Vec<u64>,
     /// Numbers of the failed rounds.
     pub failed_rounds: Vec<u64>,
     /// Rounds in which the receiver took a forged answer.
@@ -316,6 +318,11 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
                 closed: rc.closed,
                 verified: rc.verified,
                 failed,
+                verified_rounds: link
+                    .verdicts()
+                    .filter(|v| v.kept)
+                    .map(|v| v.round)
+                    .collect(),
                 failed_rounds: link
                     .verdicts()
                     .filter(|v| !v.kept)
