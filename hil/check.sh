@@ -62,6 +62,7 @@ elf() { echo "$HIL/target/$1/release/slotwise-hil-firmware"; }
 profile_elf() { echo "$HIL/target/$1/release/slotwise-hil-profile"; }
 acquire_elf() { echo "$HIL/target/$1/release/slotwise-hil-acquire"; }
 full_elf() { echo "$HIL/target/$1/release/slotwise-hil-full"; }
+auth_elf() { echo "$HIL/target/$1/release/slotwise-hil-auth"; }
 
 step "fault handlers exit with their own code"
 for t in "${TARGETS[@]}"; do
@@ -166,6 +167,25 @@ for t in "${TARGETS[@]}"; do
     "$HOST_TOOL" profile --dir "$d" --target "$t"
   else
     echo "$t: whole-receiver profile run failed" >&2; failures=$((failures + 1))
+  fi
+done
+
+step "link authentication: instructions per tag (reported)"
+for t in "${TARGETS[@]}"; do
+  d="$RUNS/$t-auth"
+  rm -rf "$d" && mkdir -p "$d"
+  if ./qemu-run.sh "$(auth_elf "$t")" "$d" >/dev/null 2>&1; then
+    awk -v t="$t" '{ v[$1] = $2 } END {
+      k = v["calib_instructions"] / v["calib_counts"] / v["tags"]
+      printf "%s: instructions per tag (seal / verify): 15-byte payload %d / %d, 76 bytes %d / %d, 1056 bytes %d / %d; LinkAuth<96> %d bytes\n",
+        t, v["seal_counts_15"] * k, v["verify_counts_15"] * k, v["seal_counts_76"] * k,
+        v["verify_counts_76"] * k, v["seal_counts_1056"] * k, v["verify_counts_1056"] * k,
+        v["link_auth_bytes"]
+      printf "%s: round mode: digest of a 64-announcement frame %d, transcript entry %d, round tag %d instructions; RoundLedger %d bytes\n",
+        t, v["digest_counts_64"] * k, v["transcript_add_counts"] * k, v["round_tag_counts"] * k,
+        v["round_ledger_bytes"] }' "$d/auth-fw.txt"
+  else
+    echo "$t: authentication cost run failed" >&2; failures=$((failures + 1))
   fi
 done
 

@@ -13,6 +13,11 @@
 //! | 4 | [`answers`] | transmitter → receiver (sifting link) |
 //! | 5 | [`alarm`] | board → post-processing host |
 //! | 6 | [`statistics`] | board → post-processing host |
+//! | 7 | [`refill`] | post-processing host → board (authentication key) |
+//! | 8 | [`round`] | both ways on the sifting link (one authentication tag per round) |
+//! | 9 | [`round`] | board → post-processing host (a round's verdict: keep or discard its key) |
+//!
+//! [`tag`] computes the Wegman-Carter tag a frame of the sifting link carries after its payload.
 //!
 //! Every codec reads and writes through the one cursor pair of [`bytes`], whose errors are never
 //! silent: a short buffer, a short payload or bytes left over are each a typed [`FrameError`].
@@ -45,16 +50,20 @@ pub mod bytes;
 pub mod cobs;
 pub mod framing;
 pub mod key_block;
+pub mod refill;
+pub mod round;
 pub mod statistics;
 pub mod summary;
+pub mod tag;
 
 pub use alarm::{AlarmEvent, AlarmKind};
 pub use announce::{AnnounceIter, AnnounceView, Report};
 pub use answers::{AnswerEntry, AnswersView};
 pub use bytes::{Reader, Writer};
 pub use framing::{
-    crc32c, decode_frame, encode_frame, seal_in_place, Frame, FrameError, RecordType, CRC_LEN,
-    HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW, VERSION,
+    crc32c, decode_frame, encode_frame, encode_frame_tagged, seal_in_place, seal_in_place_tagged,
+    Frame, FrameError, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW, TAG_LEN,
+    VERSION, VERSION_TAGGED,
 };
 pub use key_block::{KeyBit, KeyBlock};
 pub use statistics::Snapshot;

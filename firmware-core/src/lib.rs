@@ -50,7 +50,9 @@
 //!    COBS-stuffed records for the post-processing host, alarms and statistics snapshots.
 //! 9. [`wire`] — the sifting conversation over a framed byte link (`embedded-io`): batched
 //!    announcements out, answers in, every bad frame counted by reason; [`ReceiverLink`] is the
-//!    [`Transmitter`] a board hands to the receiver.
+//!    [`Transmitter`] a board hands to the receiver. Every frame carries a Wegman-Carter tag
+//!    (POLYVAL, one-time pad from a bounded key pool, [`wire::LinkAuth`]); the link fails
+//!    closed when the key runs out.
 //!
 //! [`receiver`] strings them together: front end → sifter, behind [`Receiver::push_block`]; its
 //! module doc shows a board building and feeding one.

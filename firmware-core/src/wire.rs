@@ -18,16 +18,30 @@
 //! - The two payloads are [`crate::formats::announce`] and [`crate::formats::answers`].
 //! - [`decoder`]: a streaming frame decoder that resynchronises at each 0x00.
 //! - [`seqwin`]: sequence-number bookkeeping (gaps, duplicates, late frames).
-//! - [`endpoint`]: [`ReceiverLink`], the receiver's side, a [`Transmitter`](crate::Transmitter).
+//! - [`endpoint`]: [`ReceiverLink`], the receiver's side, a [`Transmitter`](crate::Transmitter);
+//!   its settings and counters are in [`config`].
+//! - [`auth`] and [`keypool`]: Wegman-Carter authentication of every frame both ways
+//!   ([`LinkAuth`]), with a bounded pool of one-time-pad words that fails closed; [`round`]:
+//!   or one tag per round of frames over the agreed sifting transcript ([`RoundLedger`]).
 
+pub mod auth;
+pub mod config;
 pub mod decoder;
 pub mod endpoint;
+pub mod keypool;
+pub mod round;
 pub mod seqwin;
 
 pub use crate::formats::announce::{AnnounceView, Report};
 pub use crate::formats::answers::{AnswerEntry, AnswersView};
+pub use auth::{
+    check_frame, widen_seq, AuthConfig, AuthConfigError, AuthCounters, LinkAuth, RefillFrameError,
+};
+pub use config::{LinkConfig, LinkConfigError, LinkCounters};
 pub use decoder::FrameDecoder;
-pub use endpoint::{LinkConfig, LinkConfigError, LinkCounters, ReceiverLink};
+pub use endpoint::ReceiverLink;
+pub use keypool::{KeyPool, PadState, PoolCounters, RefillError};
+pub use round::{RoundConfigError, RoundCounters, RoundFailure, RoundLedger};
 pub use seqwin::{SeqClass, SeqWindow};
 
 use crate::formats::FrameError;
@@ -67,11 +81,20 @@ pub enum Reject {
     LateAnswers,
     /// Answers whose slot count or first slot differ from the announce frame's.
     SlotMismatch,
+    /// Authentication tag does not match (forged or altered frame, or a wrong key).
+    BadTag,
+    /// The frame's pad word is already spent or abandoned (a replay, or a frame held back past
+    /// its announce frame's fate).
+    Replayed,
+    /// No pad word for the frame (beyond the key loaded), or the link has stopped.
+    NoKey,
+    /// A frame without a tag on an authenticated link, or with one on an unauthenticated link.
+    Untagged,
 }
 
 impl Reject {
     /// Every reason, in the order of [`RejectCounts::fields`].
-    pub const ALL: [Reject; 15] = [
+    pub const ALL: [Reject; 19] = [
         Self::Cobs,
         Self::Truncated,
         Self::BadCrc,
@@ -87,7 +110,15 @@ impl Reject {
         Self::DuplicateAnswers,
         Self::LateAnswers,
         Self::SlotMismatch,
+        Self::BadTag,
+        Self::Replayed,
+        Self::NoKey,
+        Self::Untagged,
     ];
+
+    /// The reasons of the authentication check (a refusal for one of them counts towards the
+    /// attack alarm).
+    pub const AUTH: [Reject; 4] = [Self::BadTag, Self::Replayed, Self::NoKey, Self::Untagged];
 
     /// Short snake-case name for reports.
     pub const fn name(self) -> &'static str {
@@ -107,6 +138,10 @@ impl Reject {
             Self::DuplicateAnswers => "duplicate_answers",
             Self::LateAnswers => "late_answers",
             Self::SlotMismatch => "slot_mismatch",
+            Self::BadTag => "bad_tag",
+            Self::Replayed => "replayed",
+            Self::NoKey => "no_key",
+            Self::Untagged => "untagged",
         }
     }
 }
@@ -138,12 +173,12 @@ impl core::error::Error for Reject {}
 /// Refused frames by reason (index = position in [`Reject::ALL`]).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct RejectCounts(pub [u64; 15]);
+pub struct RejectCounts(pub [u64; Reject::ALL.len()]);
 
 impl RejectCounts {
     /// All zero.
     pub const fn new() -> Self {
-        Self([0; 15])
+        Self([0; Reject::ALL.len()])
     }
 
     /// Count one refusal.
@@ -164,8 +199,8 @@ impl RejectCounts {
     }
 
     /// (name, count) pairs in a fixed order, for reports.
-    pub fn fields(&self) -> [(&'static str, u64); 15] {
-        let mut out = [("", 0u64); 15];
+    pub fn fields(&self) -> [(&'static str, u64); Reject::ALL.len()] {
+        let mut out = [("", 0u64); Reject::ALL.len()];
         for (o, r) in out.iter_mut().zip(Reject::ALL) {
             *o = (r.name(), self.get(r));
         }

@@ -157,6 +157,19 @@ pub enum LinkMode {
     Direct,
 }
 
+/// Whether the classical link is authenticated.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
+pub enum AuthMode {
+    /// One tag per round of frames each way, over the round's agreed sifting transcript
+    /// (docs/wire-protocol.md §9.9): about 0.5 % of the sifted bits in key.
+    Round,
+    /// Every frame tagged and checked (a forged frame is refused on its own, at 64 key bits per
+    /// frame).
+    Frame,
+    /// No tags (for comparison only: the key is then not secure against an active attacker).
+    Off,
+}
+
 /// The classical link between receiver and transmitter.
 #[derive(Args, Debug, Clone)]
 pub struct LinkArgs {
@@ -187,6 +200,32 @@ pub struct LinkArgs {
     /// Seed of the link's faults (default: derived from the scenario's seed).
     #[arg(long, value_name = "N")]
     pub link_seed: Option<u64>,
+    /// Most announcements per announce frame (1..=512): larger frames spend fewer
+    /// authentication tags per sifted bit.
+    #[arg(long, default_value_t = crate::link::DEFAULT_BATCH, value_name = "N")]
+    pub link_batch: usize,
+    /// A batch leaves before a slot this many slots after its first would join it.
+    #[arg(long, default_value_t = 5000, value_name = "SLOTS")]
+    pub link_flush_age_slots: u64,
+    /// `round`: one Wegman-Carter tag per round of announce frames each way over the round's
+    /// sifting transcript, and a round's key is kept only when both tags check; `frame`: a tag
+    /// on every frame (docs/wire-protocol.md §9); `off`: untagged frames, which an active
+    /// attacker can forge. Both authenticated modes keep a key pool on each end.
+    #[arg(long, value_enum, default_value_t = AuthMode::Round)]
+    pub link_auth: AuthMode,
+    /// Announce frames per authentication round (`--link-auth round`).
+    #[arg(long, default_value_t = slotwise::wire::round::DEFAULT_FRAMES_PER_ROUND, value_name = "N")]
+    pub link_round_frames: u32,
+    /// Put an adversary on the link: flip (alter answers, recompute the CRC), inject (forged
+    /// answers), replay (every frame twice), delay (hold frames past their timeout), impersonate
+    /// (answer in the transmitter's place with another key).
+    #[arg(long, value_enum, value_name = "MODE")]
+    pub link_attack: Option<crate::link::auth::LinkAttack>,
+    /// Key the post-processing host can supply for authentication in all, in bits (pre-shared
+    /// key included; default: unlimited). When it runs out the link stops: it never sends an
+    /// untagged frame.
+    #[arg(long, value_name = "BITS")]
+    pub auth_key_bits: Option<u64>,
     /// Share of answered slots whose transmitted bit is revealed for the QBER (0..=1).
     #[arg(long, default_value_t = 1.0, value_name = "F")]
     pub test_fraction: f64,
@@ -213,6 +252,15 @@ impl LinkArgs {
             reorder_slots: self.link_reorder_slots,
             seed: self.link_seed.unwrap_or(base.seed),
             test_fraction: self.test_fraction,
+            batch: self.link_batch,
+            flush_age_slots: self.link_flush_age_slots,
+            authenticated: self.link_auth != AuthMode::Off,
+            auth_round_frames: (self.link_auth == AuthMode::Round)
+                .then_some(self.link_round_frames),
+            auth_key_words: self
+                .auth_key_bits
+                .map_or(u64::MAX, |b| b / (8 * slotwise::formats::TAG_LEN as u64)),
+            attack: self.link_attack,
             ..base
         };
         m.validate()?;

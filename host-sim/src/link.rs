@@ -5,28 +5,45 @@
 //! Time on the link is the newest slot the receiver announced: a frame sent at slot `s` arrives
 //! at slot `s + latency`. Every random choice of the model comes from one seeded stream per
 //! direction, so a run is reproducible.
+//!
+//! The link is authenticated unless the model says otherwise: both ends hold the same key
+//! ([`auth::KeySupply`]), the board's pool is topped up with key-refill frames as it empties, and
+//! an [`auth::Adversary`] may sit on the line. Every answer the receiver takes is checked
+//! against what the transmitter sent, and every announce frame the transmitter takes against
+//! what the receiver sent, so a forgery that got through would be counted.
 
+pub mod auth;
 pub mod keyfile;
 pub mod report;
+pub mod rounds;
 pub mod tx;
 
 use crate::scenario::Scenario;
 use crate::sim::rng::Stream;
 use crate::sim::SimTransmitter;
+use auth::{Adversary, AttackStats, KeySupply, LinkAttack};
 use serde::Serialize;
+use slotwise::formats::round::RoundVerdict;
 use slotwise::wire::{LinkConfig, LinkCounters, ReceiverLink};
 use slotwise::{Announcement, Answer, Transmitter};
 use std::cell::RefCell;
 use std::cmp::Reverse;
-use std::collections::{BinaryHeap, VecDeque};
+use std::collections::hash_map::DefaultHasher;
+use std::collections::{BTreeMap, BinaryHeap, HashMap, HashSet, VecDeque};
 use std::convert::Infallible;
+use std::hash::{Hash, Hasher};
 use std::rc::Rc;
 use tx::HostTransmitter;
 
-/// Announcements per announce frame on the host link.
-pub const HOST_BATCH: usize = 64;
+/// Most announcements per announce frame the host endpoint can hold (the model's `batch` picks
+/// the limit in use).
+pub const HOST_BATCH: usize = 512;
+/// Announcements per announce frame on the host link unless the model says otherwise.
+pub const DEFAULT_BATCH: usize = 64;
 /// Unanswered announcements the host endpoint keeps.
 pub const HOST_OUT: usize = 1024;
+/// Pad words of the host endpoint's key pool (4 KiB of key, as a board would hold).
+pub const HOST_KEY_WORDS: usize = 512;
 
 /// How the simulated link treats frames (probabilities per frame and direction).
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
@@ -51,6 +68,17 @@ pub struct LinkModel {
     pub answer_timeout_slots: u64,
     /// Largest slot span of one announce batch.
     pub flush_age_slots: u64,
+    /// Most announcements per announce frame (1..=512).
+    pub batch: usize,
+    /// Every frame carries a Wegman-Carter tag and both ends keep a key pool.
+    pub authenticated: bool,
+    /// With `authenticated`: `None` tags every frame; `Some(F)` sends frames untagged and one
+    /// tag per round of `F` announce frames each way over the sifting transcript (§9.9).
+    pub auth_round_frames: Option<u32>,
+    /// Pad words of key the post-processing host can supply in all (pre-shared ones included).
+    pub auth_key_words: u64,
+    /// The adversary on the line, if any.
+    pub attack: Option<LinkAttack>,
 }
 
 impl LinkModel {
@@ -73,6 +101,11 @@ impl LinkModel {
             test_fraction: 1.0,
             answer_timeout_slots,
             flush_age_slots: 5000,
+            batch: DEFAULT_BATCH,
+            authenticated: true,
+            auth_round_frames: None,
+            auth_key_words: u64::MAX,
+            attack: None,
         }
     }
 
@@ -91,6 +124,15 @@ impl LinkModel {
         }
         if self.loss >= 1.0 {
             return Err("--link-loss 1: nothing would ever arrive".into());
+        }
+        if self.auth_round_frames == Some(0) {
+            return Err("--link-round-frames 0: expected at least 1".into());
+        }
+        if !(1..=HOST_BATCH).contains(&self.batch) {
+            return Err(format!(
+                "--link-batch {}: expected 1..={HOST_BATCH}",
+                self.batch
+            ));
         }
         LinkConfig::new(self.answer_timeout_slots, self.flush_age_slots)
             .map_err(|e| format!("link timeout: {e}"))?;
@@ -193,6 +235,12 @@ struct Shared {
     now: u64,
     up: Channel,
     down: Channel,
+    supply: Option<KeySupply>,
+    adversary: Option<Adversary>,
+    /// Fingerprints of the announce frames the receiver really sent.
+    genuine_up: HashSet<u64>,
+    /// Announce frames the transmitter accepted that the receiver never sent.
+    forged_tx_accepted: u64,
     /// Bytes the endpoint wrote since the last delimiter.
     partial: Vec<u8>,
     /// Bytes arrived for the endpoint to read.
@@ -200,16 +248,67 @@ struct Shared {
     tx: HostTransmitter,
 }
 
+fn fingerprint(frame: &[u8]) -> u64 {
+    let mut h = DefaultHasher::new();
+    frame.hash(&mut h);
+    h.finish()
+}
+
 impl Shared {
     fn pump(&mut self) {
         let now = self.now;
+        self.refill_tx();
         for f in self.up.due(now) {
-            for answer in self.tx.receive(&f) {
-                self.down.send(now, answer);
+            let before = self.verified_by_tx();
+            let answers = self.tx.receive(&f);
+            if self.verified_by_tx() > before && !self.genuine_up.contains(&fingerprint(&f)) {
+                self.forged_tx_accepted += 1;
+            }
+            for answer in answers {
+                self.send(true, now, answer);
             }
         }
         for f in self.down.due(now) {
             self.inbox.extend(f);
+        }
+    }
+
+    fn verified_by_tx(&self) -> u64 {
+        self.tx.auth().map_or(0, |a| a.counters().frames_verified)
+    }
+
+    /// Put a frame on the line, through the adversary when there is one.
+    fn send(&mut self, down: bool, now: u64, frame: Vec<u8>) {
+        if !down {
+            self.genuine_up.insert(fingerprint(&frame));
+        }
+        let emits = match self.adversary.as_mut() {
+            None => vec![auth::Emit {
+                down,
+                extra_slots: 0,
+                frame,
+            }],
+            Some(a) if down => a.on_down(frame),
+            Some(a) => a.on_up(frame),
+        };
+        for e in emits {
+            let ch = if e.down { &mut self.down } else { &mut self.up };
+            ch.send(now + e.extra_slots, e.frame);
+        }
+    }
+
+    /// Top the transmitter's mirror pool up from the same key stream as the board's.
+    fn refill_tx(&mut self) {
+        let Some(supply) = self.supply else { return };
+        while let Some(a) = self.tx.auth() {
+            let (end, room) = (a.pool().end(), a.pool().room());
+            let key = supply.words(end, room.min(slotwise::formats::refill::MAX_WORDS) as u64);
+            if room < slotwise::formats::refill::MAX_WORDS || key.is_empty() {
+                break;
+            }
+            if self.tx.refill(end, &key).is_err() {
+                break;
+            }
         }
     }
 }
@@ -253,7 +352,7 @@ impl embedded_io::Write for UpWriter {
             if b == 0 {
                 let frame = std::mem::take(&mut s.partial);
                 let now = s.now;
-                s.up.send(now, frame);
+                s.send(false, now, frame);
             }
         }
         Ok(buf.len())
@@ -264,7 +363,7 @@ impl embedded_io::Write for UpWriter {
 }
 
 /// The core's endpoint type on the host.
-pub type HostEndpoint = ReceiverLink<DownReader, UpWriter, HOST_BATCH, HOST_OUT>;
+pub type HostEndpoint = ReceiverLink<DownReader, UpWriter, HOST_BATCH, HOST_OUT, HOST_KEY_WORDS>;
 
 /// The receiver's transmitter as a framed link: the core's endpoint, the link model and the host
 /// transmitter behind it.
@@ -273,6 +372,16 @@ pub struct FramedLink {
     shared: Rc<RefCell<Shared>>,
     model: LinkModel,
     final_reports: u64,
+    /// Answers the receiver took that the transmitter never gave.
+    forged_rx_accepted: u64,
+    /// Key-refill frames the board took.
+    refill_frames: u64,
+    /// Round mode: the round of every slot the receiver was answered (to name attacked rounds).
+    answer_rounds: HashMap<u64, u64>,
+    /// The board's round verdicts (record type 9) by their first slot.
+    verdicts: BTreeMap<u64, RoundVerdict>,
+    /// Slots of the answers the receiver took that the transmitter never gave.
+    forged_slots: Vec<u64>,
 }
 
 impl FramedLink {
@@ -285,22 +394,102 @@ impl FramedLink {
     pub fn with_transmitter(tx: HostTransmitter, model: LinkModel) -> Result<Self, String> {
         model.validate()?;
         let cfg = LinkConfig::new(model.answer_timeout_slots, model.flush_age_slots)
+            .and_then(|c| c.with_max_batch(model.batch))
             .map_err(|e| e.to_string())?;
+        let supply = model
+            .authenticated
+            .then(|| KeySupply::new(model.seed, model.auth_key_words));
+        let rounds = model.auth_round_frames.filter(|_| model.authenticated);
+        let tx = match (supply, rounds) {
+            (Some(k), Some(f)) => tx.with_round_auth(Box::new(k.end()?), f)?,
+            (Some(k), None) => tx.with_auth(Box::new(k.end()?)),
+            (None, _) => tx,
+        };
+        let adversary = match model.attack {
+            Some(a) => Some(Adversary::new(
+                a,
+                model.seed ^ 0xA77A_C4E5,
+                model.answer_timeout_slots.saturating_mul(2),
+                rounds.is_none(),
+            )?),
+            None => None,
+        };
         let shared = Rc::new(RefCell::new(Shared {
             now: 0,
             up: Channel::new(model, 0x5550),
             down: Channel::new(model, 0x444F),
+            supply,
+            adversary,
+            genuine_up: HashSet::new(),
+            forged_tx_accepted: 0,
             partial: Vec::new(),
             inbox: VecDeque::new(),
             tx,
         }));
-        let ep = HostEndpoint::new(cfg, DownReader(shared.clone()), UpWriter(shared.clone()));
-        Ok(Self {
+        let (down, up) = (DownReader(shared.clone()), UpWriter(shared.clone()));
+        let ep = match (supply, rounds) {
+            (Some(k), Some(f)) => HostEndpoint::new_round_authenticated(cfg, k.end()?, f, down, up)
+                .map_err(|e| e.to_string())?,
+            (Some(k), None) => HostEndpoint::new_authenticated(cfg, k.end()?, down, up),
+            (None, _) => HostEndpoint::new(cfg, down, up),
+        };
+        let mut l = Self {
             ep,
             shared,
             model,
             final_reports: 0,
-        })
+            forged_rx_accepted: 0,
+            refill_frames: 0,
+            answer_rounds: HashMap::new(),
+            verdicts: BTreeMap::new(),
+            forged_slots: Vec::new(),
+        };
+        l.refill_board();
+        Ok(l)
+    }
+
+    /// Hand the board key-refill frames while its pool has room for a full record.
+    fn refill_board(&mut self) {
+        let Some(supply) = self.shared.borrow().supply else {
+            return;
+        };
+        while let Some(pool) = self.ep.auth().map(|a| a.pool()) {
+            let Some(frame) = supply.refill_frame(pool.end(), pool.room()) else {
+                break;
+            };
+            if self.ep.take_refill_frame(&frame).is_err() {
+                break;
+            }
+            self.refill_frames += 1;
+        }
+    }
+
+    /// The core endpoint (its authentication state included).
+    pub fn endpoint(&self) -> &HostEndpoint {
+        &self.ep
+    }
+
+    /// Answers the receiver took that the transmitter never gave, and announce frames the
+    /// transmitter took that the receiver never sent.
+    pub fn forgeries_accepted(&self) -> (u64, u64) {
+        (
+            self.forged_rx_accepted,
+            self.shared.borrow().forged_tx_accepted,
+        )
+    }
+
+    /// Key-refill frames the board took.
+    pub fn refill_frames(&self) -> u64 {
+        self.refill_frames
+    }
+
+    /// What the adversary did, when there is one.
+    pub fn attack_stats(&self) -> Option<(LinkAttack, AttackStats)> {
+        self.shared
+            .borrow()
+            .adversary
+            .as_ref()
+            .map(|a| (a.attack(), a.stats()))
     }
 
     /// The model in use.
@@ -344,16 +533,87 @@ impl FramedLink {
     }
 
     /// After the receiver finished: close the endpoint and repeat the final report until the
-    /// transmitter has one (at most 64 tries).
+    /// transmitter has one (at most 64 tries). In round mode the report is also repeated while
+    /// rounds wait for the transmitter's tag or the receiver's tags are still being repeated;
+    /// rounds still waiting after that fail.
     pub fn close(&mut self) {
         self.ep.close();
         self.final_reports = 1;
         self.settle();
-        while !self.shared.borrow().tx.closed() && self.final_reports < 64 {
+        self.drain_round_tags();
+        while self.final_reports < 64 && (!self.shared.borrow().tx.closed() || self.rounds_busy()) {
             self.ep.send_final_report();
             self.final_reports += 1;
             self.settle();
+            self.drain_round_tags();
         }
+        if self.ep.rounds().is_some() {
+            self.ep.give_up_rounds();
+            for _ in 0..slotwise::wire::round::RESENDS {
+                self.ep.send_final_report();
+                self.settle();
+            }
+            self.drain_verdicts();
+        }
+    }
+
+    fn rounds_busy(&self) -> bool {
+        self.ep
+            .rounds()
+            .is_some_and(|r| r.waiting() > 0 || r.unsent() > 0)
+    }
+
+    /// Let the endpoint read what arrived (round tags after the last answers).
+    fn drain_round_tags(&mut self) {
+        if self.ep.rounds().is_some() {
+            while self.poll_answer().is_some() {}
+            self.drain_verdicts();
+        }
+    }
+
+    fn drain_verdicts(&mut self) {
+        while let Some(v) = self.ep.poll_verdict() {
+            self.verdicts.insert(v.first_slot, v);
+        }
+    }
+
+    /// Forged answers the receiver took whose key is kept (in round mode, those in verified
+    /// rounds; otherwise every forged answer taken).
+    pub fn forged_answers_kept(&self) -> u64 {
+        self.forged_slots
+            .iter()
+            .filter(|&&s| self.keeps_slot(s))
+            .count() as u64
+    }
+
+    /// Round mode: the rounds in which the receiver took a forged answer (each must fail).
+    pub fn attacked_rounds(&self) -> Vec<u64> {
+        let mut r: Vec<u64> = self
+            .forged_slots
+            .iter()
+            .filter_map(|s| self.answer_rounds.get(s).copied())
+            .collect();
+        r.sort_unstable();
+        r.dedup();
+        r
+    }
+
+    /// Round mode: the board's verdicts so far (record type 9), in slot order.
+    pub fn verdicts(&self) -> impl Iterator<Item = &RoundVerdict> {
+        self.verdicts.values()
+    }
+
+    /// Whether the receiver's sifted bit of `slot` is kept: always on a frame-tagged or
+    /// unauthenticated link; in round mode only when a verdict record says the round whose slot
+    /// range holds it verified (what the post-processing host does with the board's records).
+    pub fn keeps_slot(&self, slot: u64) -> bool {
+        if self.ep.rounds().is_none() {
+            return true;
+        }
+        self.verdicts
+            .range(..=slot)
+            .next_back()
+            .is_some_and(|(_, v)| v.kept && slot <= v.last_slot)
     }
 
     /// Run `f` on the host transmitter.
@@ -374,11 +634,24 @@ impl Transmitter for FramedLink {
             let mut s = self.shared.borrow_mut();
             s.now = s.now.max(a.slot);
         }
+        self.refill_board();
         self.ep.announce(a);
     }
 
     fn poll_answer(&mut self) -> Option<Answer> {
-        self.ep.poll_answer()
+        let a = self.ep.poll_answer();
+        if self.ep.rounds().is_some() {
+            self.drain_verdicts();
+        }
+        let a = a?;
+        if let Some(r) = self.ep.answer_round() {
+            self.answer_rounds.insert(a.slot, r);
+        }
+        if !self.shared.borrow_mut().tx.answered_as_sent(&a) {
+            self.forged_rx_accepted += 1;
+            self.forged_slots.push(a.slot);
+        }
+        Some(a)
     }
 
     fn answers_final_below(&self) -> Option<u64> {

@@ -3,7 +3,11 @@
 //! Overhead Byte Stuffing, Cheshire & Baker 1999) to unstuff, `crccheck`'s `Crc32c`
 //! (CRC-32/ISCSI of Cook's catalogue) for the check value. The script parses every field by the
 //! document's offsets and LEB128 rule; the test compares what it read with what was encoded.
-//! Skipped (with a note) when Python or the packages cannot be had.
+//! A second check recomputes the Wegman-Carter tags of §9 with a POLYVAL written in pure Python
+//! from the document (checked there against RFC 8452's Appendix A vector), and the core verifies
+//! the tags the Python transmitter makes. A third recomputes the round tags of §9.9 (frame
+//! digests, round transcripts, both directions and the failed verdict). Skipped (with a note) when Python or the packages cannot
+//! be had.
 
 use serde_json::Value;
 use slotwise::formats::announce::{self, FLAG_FINAL};
@@ -192,4 +196,355 @@ fn wire_frames_read_by_a_python_transmitter_from_the_document() {
             }
         }
     }
+}
+
+/// POLYVAL and the Wegman-Carter tag of `docs/wire-protocol.md` §9, in pure Python: GF(2^128)
+/// with the polynomial x^128 + x^127 + x^126 + x^121 + 1, elements little-endian (bit i of the
+/// 16 bytes read as a little-endian integer is the coefficient of x^i), dot(a, b) = a·b·x^−128
+/// (RFC 8452, §3). The transmitter checks each announce frame's tag with pad word 2n, answers it
+/// with a tagged answers frame using pad word 2n + 1, and refuses what does not check.
+const TAG_SCRIPT: &str = r#"
+import json, struct, sys
+from cobs import cobs
+from crccheck.crc import Crc32c
+
+P = (1 << 128) | (1 << 127) | (1 << 126) | (1 << 121) | 1
+
+def clmul(a, b):
+    r = 0
+    while b:
+        if b & 1:
+            r ^= a
+        a <<= 1
+        b >>= 1
+    return r
+
+def reduce(r):
+    for i in range(r.bit_length() - 1, 127, -1):
+        if r >> i & 1:
+            r ^= P << (i - 128)
+    return r
+
+def times_x_inverse(a):
+    # P = x*Q + 1, so x^-1 = Q: a*x^-1 = a/x when a has no x^0 term, else (a + P)/x.
+    return (a ^ P) >> 1 if a & 1 else a >> 1
+
+def dot(a, b):
+    r = reduce(clmul(a, b))
+    for _ in range(128):
+        r = times_x_inverse(r)
+    return r
+
+def polyval(h, data):
+    hi, s = int.from_bytes(h, "little"), 0
+    data = data + bytes(-len(data) % 16)
+    for i in range(0, len(data), 16):
+        s = dot(s ^ int.from_bytes(data[i:i + 16], "little"), hi)
+    return s.to_bytes(16, "little")
+
+# RFC 8452, Appendix A: POLYVAL(H, X_1, X_2).
+assert polyval(bytes.fromhex("25629347589242761d31f826ba4b757b"),
+               bytes.fromhex("4f4f95668c83dfb6401762bb2d01a262d1a24ddd2721d006bbe45f20d3c9f362")) \
+    == bytes.fromhex("f7a3b47b846119fae5b7866cf5e5b77e")
+
+def tag(h, pad, rtype, direction, seq, n, payload):
+    block0 = struct.pack("<BBHHHQ", rtype, direction, seq, len(payload), 0, n)
+    full = polyval(h, block0 + payload)
+    return bytes(a ^ b for a, b in zip(full[:8], pad))
+
+def frame(version, rtype, seq, payload, t):
+    raw = struct.pack("<BBHH", version, rtype, seq, len(payload)) + payload + t
+    raw += struct.pack("<I", Crc32c.calc(raw))
+    return cobs.encode(raw) + b"\0"
+
+args = json.load(open(sys.argv[1]))
+h, key = bytes.fromhex(args["hash_key"]), bytes.fromhex(args["key"])
+pad = lambda word: key[8 * word:8 * word + 8]
+out, highest, next_seq = [], 0, 0
+for hexframe in args["frames"]:
+    raw = cobs.decode(bytes.fromhex(hexframe)[:-1])
+    version, rtype, seq, length = struct.unpack_from("<BBHH", raw, 0)
+    payload, got = raw[6:6 + length], raw[6 + length:6 + length + 8]
+    crc_ok = Crc32c.calc(raw[:-4]) == struct.unpack_from("<I", raw, len(raw) - 4)[0]
+    # Widen seq to the frame number nearest the highest authenticated one (RFC 1982).
+    d = (seq - highest) & 0xFFFF
+    n = highest + d if d < 0x8000 else max(highest - (0x10000 - d), 0)
+    ok = version == 2 and rtype == 3 and crc_ok and got == tag(h, pad(2 * n), 3, 0, seq, n, payload)
+    rec = {"tag_ok": ok, "n": n}
+    count = struct.unpack_from("<H", payload, 8)[0] if ok else 0
+    if ok:
+        highest = max(highest, n)
+    if count:
+        first = struct.unpack_from("<Q", payload, 0)[0]
+        answers = struct.pack("<HHQ", seq, count, first) + bytes([1, 0b111, 0b1000][i % 3] for i in range(count))
+        t = tag(h, pad(2 * n + 1), 4, 1, next_seq, n, answers)
+        rec["answers"] = frame(2, 4, next_seq, answers, t).hex()
+        next_seq += 1
+    out.append(rec)
+print(json.dumps(out))
+"#;
+
+#[test]
+fn tags_checked_and_made_by_a_python_polyval_from_the_document() {
+    use slotwise::formats::tag::{Direction, TagInput};
+    use slotwise::formats::{decode_frame, encode_frame_tagged};
+    use slotwise::wire::{AuthConfig, LinkAuth};
+    let py = match python() {
+        Ok(p) => p,
+        Err(why) => {
+            eprintln!("skipped: {why}");
+            return;
+        }
+    };
+    let h: [u8; 16] = core::array::from_fn(|i| (i as u8).wrapping_mul(37) ^ 0xA5);
+    let key: Vec<u8> = (0..64 * 8)
+        .map(|i| (i as u8).wrapping_mul(101) ^ 0x3C)
+        .collect();
+    let (mut rx, mut tx_mirror) = (
+        LinkAuth::<64>::new(AuthConfig::DEFAULT, h, &key).unwrap(),
+        LinkAuth::<64>::new(AuthConfig::DEFAULT, h, &key).unwrap(),
+    );
+    let mut hex = Vec::new();
+    let mut expect = Vec::new();
+    let anns: Vec<_> = frames()
+        .into_iter()
+        .filter_map(|(_, s)| match s {
+            Sent::Ann(e, r, f) => Some((e, r, f)),
+            Sent::Ans(..) => None,
+        })
+        .collect();
+    for (num, (e, r, f)) in anns.iter().enumerate() {
+        let num = num as u64;
+        let mut p = vec![0u8; MAX_PAYLOAD];
+        let n = announce::emit(e, *r, *f, &mut p).unwrap();
+        let m = TagInput {
+            dir: Direction::ToTransmitter,
+            record: RecordType::Announce,
+            seq: num as u16,
+            num,
+            payload: &p[..n],
+        };
+        let mut t = rx.seal(&m).unwrap();
+        // Frame 2 goes out with one tag bit flipped: the Python side must refuse it.
+        if num == 2 {
+            t[3] ^= 0x10;
+        } else {
+            assert_eq!(tx_mirror.verify(&m, Some(&t)), Ok(()));
+        }
+        let (mut raw, mut out) = (vec![0u8; MAX_RAW], vec![0u8; MAX_FRAME]);
+        let k = encode_frame_tagged(
+            RecordType::Announce,
+            num as u16,
+            &p[..n],
+            &t,
+            &mut raw,
+            &mut out,
+        )
+        .unwrap();
+        hex.push(
+            out[..k]
+                .iter()
+                .map(|b| format!("{b:02x}"))
+                .collect::<String>(),
+        );
+        expect.push((num != 2, !e.is_empty() && num != 2));
+    }
+    let dir = Path::new(env!("CARGO_TARGET_TMPDIR"));
+    let input = dir.join("wire_tags_input.json");
+    let to_hex = |b: &[u8]| b.iter().map(|x| format!("{x:02x}")).collect::<String>();
+    let args = serde_json::json!({"hash_key": to_hex(&h), "key": to_hex(&key), "frames": hex});
+    std::fs::write(&input, args.to_string()).unwrap();
+    let script = dir.join("wire_tags.py");
+    std::fs::write(&script, TAG_SCRIPT).unwrap();
+    let out = slotwise_tests::run_python(&py, [&script, &input]);
+    let got: Vec<Value> = serde_json::from_slice(&out).unwrap();
+    assert_eq!(got.len(), expect.len());
+    let mut answered = 0;
+    for (num, (g, (tag_ok, answers))) in got.iter().zip(&expect).enumerate() {
+        assert_eq!(g["tag_ok"], *tag_ok, "frame {num}: {g}");
+        assert_eq!(g["n"], num as u64);
+        assert_eq!(g.get("answers").is_some(), *answers, "frame {num}: {g}");
+        let Some(a) = g["answers"].as_str() else {
+            continue;
+        };
+        // The Python transmitter's tag, checked by the core's verifier with pad word 2n + 1.
+        let bytes: Vec<u8> = (0..a.len())
+            .step_by(2)
+            .map(|i| u8::from_str_radix(&a[i..i + 2], 16).unwrap())
+            .collect();
+        let mut scratch = vec![0u8; MAX_RAW];
+        let f = decode_frame(&bytes, &mut scratch).unwrap();
+        let m = TagInput {
+            dir: Direction::ToReceiver,
+            record: f.record,
+            seq: f.seq,
+            num: num as u64,
+            payload: f.payload,
+        };
+        assert_eq!(
+            rx.verify(&m, f.tag.as_ref()),
+            Ok(()),
+            "answers to frame {num}"
+        );
+        answered += 1;
+    }
+    assert_eq!(answered, 4);
+    assert_eq!(rx.counters().frames_verified, 4);
+}
+
+/// Round tags of `docs/wire-protocol.md` §9.9 in pure Python: the frame digest, the round
+/// transcript, the tags both ways and the failed verdict's tag, from the document's block
+/// layouts, with the POLYVAL of [`TAG_SCRIPT`] (RFC 8452 vector checked again here).
+const ROUND_SCRIPT: &str = r#"
+import json, struct, sys
+
+P = (1 << 128) | (1 << 127) | (1 << 126) | (1 << 121) | 1
+
+def clmul(a, b):
+    r = 0
+    while b:
+        if b & 1:
+            r ^= a
+        a <<= 1
+        b >>= 1
+    return r
+
+def dot(a, b):
+    r = clmul(a, b)
+    for i in range(r.bit_length() - 1, 127, -1):
+        if r >> i & 1:
+            r ^= P << (i - 128)
+    for _ in range(128):
+        r = (r ^ P) >> 1 if r & 1 else r >> 1
+    return r
+
+def polyval(h, data):
+    hi, s = int.from_bytes(h, "little"), 0
+    data = data + bytes(-len(data) % 16)
+    for i in range(0, len(data), 16):
+        s = dot(s ^ int.from_bytes(data[i:i + 16], "little"), hi)
+    return s.to_bytes(16, "little")
+
+assert polyval(bytes.fromhex("25629347589242761d31f826ba4b757b"),
+               bytes.fromhex("4f4f95668c83dfb6401762bb2d01a262d1a24ddd2721d006bbe45f20d3c9f362")) \
+    == bytes.fromhex("f7a3b47b846119fae5b7866cf5e5b77e")
+
+def leb128(v):
+    out = bytearray()
+    while True:
+        b = v & 0x7F
+        v >>= 7
+        out.append(b | (0x80 if v else 0))
+        if not v:
+            return bytes(out)
+
+def digest(h, first_slot, anns):
+    data = struct.pack("<H6xQ", len(anns), first_slot)
+    prev = first_slot
+    for slot, basis_x, entry in anns:
+        data += leb128(slot - prev) + bytes([entry & 0x7F | basis_x << 7])
+        prev = slot
+    return polyval(h, data)
+
+def round_hash(hr, rnd, f, frames, direction, verdict):
+    data = struct.pack("<QIB3x", rnd, f, 0x52)
+    for fr in frames:
+        data += struct.pack("<QB7x", fr["num"], fr["fate"])
+        if fr["fate"] == 1:
+            data += fr["digest"]
+    data += struct.pack("<BB6xQ", direction, verdict, len(frames))
+    return polyval(hr, data)
+
+args = json.load(open(sys.argv[1]))
+h, hr, key = (bytes.fromhex(args[k]) for k in ("h", "hr", "key"))
+f = args["f"]
+pad = lambda word: key[8 * word:8 * word + 8]
+xor = lambda a, b: bytes(x ^ y for x, y in zip(a, b))
+out = []
+for rnd in args["rounds"]:
+    r = rnd["round"]
+    frames = []
+    for fr in rnd["frames"]:
+        if fr["fate"] == 1:
+            fr["digest"] = digest(h, fr["anns"][0][0], fr["anns"])
+        frames.append(fr)
+    tx = xor(round_hash(hr, r, f, frames, 1, 0)[:8], pad(2 + 2 * r + 1))
+    rx = xor(round_hash(hr, r, f, frames, 0, 1)[:8], pad(2 + 2 * r))
+    failed = xor(round_hash(hr, r, f, [], 0, 2)[:8], pad(2 + 2 * r))
+    out.append({"tx": tx.hex(), "rx": rx.hex(), "failed": failed.hex()})
+print(json.dumps(out))
+"#;
+
+#[test]
+fn round_tags_recomputed_by_a_python_polyval_from_the_document() {
+    use slotwise::formats::round::{
+        failed_hash, pad_hash, round_pad_word, Fate, FrameDigest, Transcript, Verdict,
+    };
+    use slotwise::formats::tag::Direction;
+    let py = match python() {
+        Ok(p) => p,
+        Err(why) => {
+            eprintln!("skipped: {why}");
+            return;
+        }
+    };
+    let h: [u8; 16] = core::array::from_fn(|i| (i as u8).wrapping_mul(53) ^ 0x5A);
+    let hr: [u8; 16] = core::array::from_fn(|i| (i as u8).wrapping_mul(29) ^ 0xC3);
+    let key: Vec<u8> = (0..64 * 8)
+        .map(|i| (i as u8).wrapping_mul(97) ^ 0x17)
+        .collect();
+    let pad = |w: u64| -> [u8; 8] { core::array::from_fn(|i| key[w as usize * 8 + i]) };
+    let f = 4u32;
+    let hex = |b: &[u8]| b.iter().map(|x| format!("{x:02x}")).collect::<String>();
+    let mut rounds = Vec::new();
+    let mut want = Vec::new();
+    for r in 0..3u64 {
+        let mut t = Transcript::new(&hr, r, f);
+        let mut frames = Vec::new();
+        for k in 0..u64::from(f) {
+            let num = r * u64::from(f) + k;
+            if (num + r) % 3 == 2 {
+                t.add(num, Fate::Expired, None);
+                frames.push(serde_json::json!({"num": num, "fate": 2}));
+                continue;
+            }
+            // Slot gaps from 1 to past the one-byte LEB128 range, both bases, varied entries.
+            let anns: Vec<(u64, bool, u8)> = (0..(5 + num * 7) % 40 + 1)
+                .scan(1_000 + num * 100_000, |s, i| {
+                    *s += 1 + (i * i * 37 + num) % 300;
+                    Some((*s, (i + num) % 2 == 1, ((i * 5 + num) % 32) as u8))
+                })
+                .collect();
+            let mut d = FrameDigest::new(&h, anns.len() as u16, anns[0].0);
+            for &(s, x, e) in &anns {
+                d.add(s, x, e);
+            }
+            t.add(num, Fate::Answered, Some(&d.finish()));
+            frames.push(serde_json::json!({"num": num, "fate": 1, "anns": anns}));
+        }
+        let tx = pad_hash(
+            &t.hash_for(Direction::ToReceiver, Verdict::Open),
+            &pad(round_pad_word(r, Direction::ToReceiver)),
+        );
+        let rx = pad_hash(
+            &t.hash_for(Direction::ToTransmitter, Verdict::Verified),
+            &pad(round_pad_word(r, Direction::ToTransmitter)),
+        );
+        let failed = pad_hash(
+            &failed_hash(&hr, r, f),
+            &pad(round_pad_word(r, Direction::ToTransmitter)),
+        );
+        want.push(serde_json::json!({"tx": hex(&tx), "rx": hex(&rx), "failed": hex(&failed)}));
+        rounds.push(serde_json::json!({"round": r, "frames": frames}));
+    }
+    let dir = Path::new(env!("CARGO_TARGET_TMPDIR"));
+    let input = dir.join("round_tags_input.json");
+    let args = serde_json::json!({"h": hex(&h), "hr": hex(&hr), "key": hex(&key), "f": f,
+        "rounds": rounds});
+    std::fs::write(&input, args.to_string()).unwrap();
+    let script = dir.join("round_tags.py");
+    std::fs::write(&script, ROUND_SCRIPT).unwrap();
+    let out = slotwise_tests::run_python(&py, [&script, &input]);
+    let got: Vec<Value> = serde_json::from_slice(&out).unwrap();
+    assert_eq!(got, want);
 }

@@ -9,12 +9,20 @@
 //!
 //! The record types are listed once, in [`RecordType`]; each payload's layout lives in its own
 //! module beside this one.
+//!
+//! An authenticated frame (version [`VERSION_TAGGED`]) carries a [`TAG_LEN`]-byte
+//! Wegman-Carter tag between its payload and its CRC ([`super::tag`] computes it; the endpoint
+//! checks it). `len` counts the payload only.
 
 use super::cobs::{self, CobsError};
 use core::fmt;
 
-/// Frame format version written into every frame.
+/// Frame format version of an untagged frame.
 pub const VERSION: u8 = 1;
+/// Frame format version of a frame carrying an authentication tag after its payload.
+pub const VERSION_TAGGED: u8 = 2;
+/// Bytes of the authentication tag of a tagged frame (64 bits).
+pub const TAG_LEN: usize = 8;
 /// Bytes before the payload: version, type, seq, len.
 pub const HEADER_LEN: usize = 6;
 /// Bytes of the CRC after the payload.
@@ -22,8 +30,8 @@ pub const CRC_LEN: usize = 4;
 /// Largest payload any record type uses, in bytes: the summary's
 /// ([`super::summary::LEN`], checked there).
 pub const MAX_PAYLOAD: usize = 1056;
-/// Largest unstuffed frame (header, payload, CRC), in bytes.
-pub const MAX_RAW: usize = HEADER_LEN + MAX_PAYLOAD + CRC_LEN;
+/// Largest unstuffed frame (header, payload, tag, CRC), in bytes.
+pub const MAX_RAW: usize = HEADER_LEN + MAX_PAYLOAD + TAG_LEN + CRC_LEN;
 /// Largest frame on the wire, COBS overhead and 0x00 delimiter included, in bytes.
 pub const MAX_FRAME: usize = cobs::max_encoded_len(MAX_RAW) + 1;
 
@@ -53,17 +61,28 @@ pub enum RecordType {
     Alarm = 5,
     /// Window statistics at the end of a block ([`super::statistics`]).
     Stats = 6,
+    /// Post-processing host to board: fresh key for the authentication pool ([`super::refill`]).
+    KeyRefill = 7,
+    /// Both ways on the sifting link: round tags and the receiver's round verdicts
+    /// ([`super::round`]).
+    RoundTag = 8,
+    /// Board to post-processing host: a round's verdict and slot range; the host keeps the
+    /// round's key bits only if it verified ([`super::round`]).
+    RoundVerdict = 9,
 }
 
 impl RecordType {
     /// Every record type, in wire-code order.
-    pub const ALL: [RecordType; 6] = [
+    pub const ALL: [RecordType; 9] = [
         Self::KeyBlock,
         Self::Summary,
         Self::Announce,
         Self::Answers,
         Self::Alarm,
         Self::Stats,
+        Self::KeyRefill,
+        Self::RoundTag,
+        Self::RoundVerdict,
     ];
 
     /// Short snake-case name for reports.
@@ -75,6 +94,9 @@ impl RecordType {
             Self::Answers => "answers",
             Self::Alarm => "alarm",
             Self::Stats => "stats",
+            Self::KeyRefill => "key_refill",
+            Self::RoundTag => "round_tag",
+            Self::RoundVerdict => "round_verdict",
         }
     }
 
@@ -133,7 +155,7 @@ pub enum FrameError {
         /// CRC computed over the frame.
         computed: u32,
     },
-    /// Version byte other than [`VERSION`].
+    /// Version byte other than [`VERSION`] or [`VERSION_TAGGED`].
     UnknownVersion(u8),
     /// Record type code not in [`RecordType`].
     UnknownType(u8),
@@ -205,6 +227,8 @@ pub struct Frame<'a> {
     pub seq: u16,
     /// Payload bytes.
     pub payload: &'a [u8],
+    /// The authentication tag of a tagged frame (version [`VERSION_TAGGED`]), else `None`.
+    pub tag: Option<[u8; TAG_LEN]>,
 }
 
 /// Build one frame into `out`: header, payload, CRC, COBS, 0x00. Returns bytes written.
@@ -226,16 +250,38 @@ pub fn encode_frame(
     let (head, rest) = buf.split_at_mut(HEADER_LEN);
     let (body, _) = rest.split_at_mut(len);
     body.copy_from_slice(payload);
-    write_header(head, record, seq, len);
+    write_header(head, VERSION, record, seq, len);
     seal(raw, total, out)
 }
 
-fn write_header(head: &mut [u8], record: RecordType, seq: u16, len: usize) {
+/// As [`encode_frame`], for a tagged frame: `tag` goes between the payload and the CRC.
+pub fn encode_frame_tagged(
+    record: RecordType,
+    seq: u16,
+    payload: &[u8],
+    tag: &[u8; TAG_LEN],
+    raw: &mut [u8],
+    out: &mut [u8],
+) -> Result<usize, FrameError> {
+    let len = payload.len();
+    if len > MAX_PAYLOAD {
+        return Err(FrameError::PayloadTooLong { len });
+    }
+    let body = raw
+        .get_mut(HEADER_LEN..HEADER_LEN + len)
+        .ok_or(FrameError::BufferTooSmall {
+            needed: HEADER_LEN + len + TAG_LEN + CRC_LEN,
+        })?;
+    body.copy_from_slice(payload);
+    seal_in_place_tagged(record, seq, len, tag, raw, out)
+}
+
+fn write_header(head: &mut [u8], version: u8, record: RecordType, seq: u16, len: usize) {
     let s = seq.to_le_bytes();
     let l = (len as u16).to_le_bytes();
     for (d, b) in head
         .iter_mut()
-        .zip([VERSION, record.code(), s[0], s[1], l[0], l[1]])
+        .zip([version, record.code(), s[0], s[1], l[0], l[1]])
     {
         *d = b;
     }
@@ -256,8 +302,31 @@ pub fn seal_in_place(
     let head = raw
         .get_mut(..HEADER_LEN)
         .ok_or(FrameError::BufferTooSmall { needed: HEADER_LEN })?;
-    write_header(head, record, seq, len);
+    write_header(head, VERSION, record, seq, len);
     seal(raw, HEADER_LEN + len + CRC_LEN, out)
+}
+
+/// As [`seal_in_place`], for a tagged frame: writes `tag` after the payload, then the CRC.
+pub fn seal_in_place_tagged(
+    record: RecordType,
+    seq: u16,
+    len: usize,
+    tag: &[u8; TAG_LEN],
+    raw: &mut [u8],
+    out: &mut [u8],
+) -> Result<usize, FrameError> {
+    if len > MAX_PAYLOAD {
+        return Err(FrameError::PayloadTooLong { len });
+    }
+    let total = HEADER_LEN + len + TAG_LEN + CRC_LEN;
+    let head = raw
+        .get_mut(..HEADER_LEN)
+        .ok_or(FrameError::BufferTooSmall { needed: total })?;
+    write_header(head, VERSION_TAGGED, record, seq, len);
+    raw.get_mut(HEADER_LEN + len..HEADER_LEN + len + TAG_LEN)
+        .ok_or(FrameError::BufferTooSmall { needed: total })?
+        .copy_from_slice(tag);
+    seal(raw, total, out)
 }
 
 /// CRC over `raw[..total - 4]` into its last 4 bytes, then COBS into `out` with the delimiter.
@@ -296,24 +365,26 @@ pub fn decode_frame<'a>(stuffed: &[u8], scratch: &'a mut [u8]) -> Result<Frame<'
     let (head, payload) = body.split_at(HEADER_LEN);
     let h: [u8; HEADER_LEN] = le_array(head);
     let [version, code, s0, s1, l0, l1] = h;
-    if version != VERSION {
-        return Err(FrameError::UnknownVersion(version));
-    }
+    let tag_len = match version {
+        VERSION => 0,
+        VERSION_TAGGED => TAG_LEN,
+        v => return Err(FrameError::UnknownVersion(v)),
+    };
     let record = RecordType::from_code(code).ok_or(FrameError::UnknownType(code))?;
     let declared = u16::from_le_bytes([l0, l1]);
     if usize::from(declared) > MAX_PAYLOAD {
         return Err(FrameError::Oversized(declared));
     }
-    if usize::from(declared) != payload.len() {
-        return Err(FrameError::LengthMismatch {
-            declared,
-            actual: payload.len(),
-        });
+    let actual = payload.len().saturating_sub(tag_len);
+    if payload.len() < tag_len || usize::from(declared) != actual {
+        return Err(FrameError::LengthMismatch { declared, actual });
     }
+    let (payload, tag_bytes) = payload.split_at(actual);
     Ok(Frame {
         record,
         seq: u16::from_le_bytes([s0, s1]),
         payload,
+        tag: (tag_len > 0).then(|| le_array(tag_bytes)),
     })
 }
 

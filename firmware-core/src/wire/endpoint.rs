@@ -15,7 +15,11 @@
 //! answers count as `unmatched` in [`AnswerErrors`](crate::AnswerErrors)), but both sides' keys
 //! may then differ.
 
+use super::auth::{LinkAuth, RefillFrameError};
+use super::config::{LinkConfig, LinkCounters};
 use super::decoder::FrameDecoder;
+use super::keypool::RefillError;
+use super::round::RoundLedger;
 use super::seqwin::{SeqClass, SeqWindow};
 use super::{Reject, RejectCounts};
 use crate::formats::announce::{
@@ -24,119 +28,31 @@ use crate::formats::announce::{
 use crate::formats::answers::{AnswerEntry, AnswersView};
 use crate::formats::bytes::{varint_len, Writer};
 use crate::formats::framing::{
-    seal_in_place, RecordType, HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
+    decode_frame, seal_in_place, seal_in_place_tagged, FrameError, RecordType, HEADER_LEN,
+    MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
 };
+use crate::formats::refill::RefillView;
+use crate::formats::round::{self as round_rec, round_pad_word, RoundTag};
+use crate::formats::tag::{Direction, TagInput, BLOCK_LEN};
 use crate::gates::Basis;
 use crate::sift::{Announcement, Answer, Transmitter};
-use core::fmt;
 use embedded_io::{Read, ReadReady, Write};
 use heapless::Deque;
+use zeroize::Zeroize;
+
+mod rounds;
+mod tag_check;
+
+use tag_check::check_tag;
 
 /// Announce frames that may wait for their answers at once.
 pub const MAX_OPEN_FRAMES: usize = 32;
 /// Bytes read from the link per call to `read`.
 pub const READ_CHUNK: usize = 64;
-
-/// Why a link configuration was refused.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub enum LinkConfigError {
-    /// Answer timeout of zero slots.
-    ZeroTimeout,
-}
-
-impl fmt::Display for LinkConfigError {
-    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        match self {
-            Self::ZeroTimeout => write!(f, "answer_timeout_slots must be at least 1"),
-        }
-    }
-}
-
-impl core::error::Error for LinkConfigError {}
-
-/// Validated settings of a [`ReceiverLink`].
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct LinkConfig {
-    answer_timeout_slots: u64,
-    flush_age_slots: u64,
-}
-
-impl LinkConfig {
-    /// `answer_timeout_slots`: a frame expires when the newest announced slot is more than this
-    /// after its last slot; `flush_age_slots`: a batch leaves before a slot this far after its
-    /// first joins it.
-    pub const fn new(
-        answer_timeout_slots: u64,
-        flush_age_slots: u64,
-    ) -> Result<Self, LinkConfigError> {
-        if answer_timeout_slots == 0 {
-            return Err(LinkConfigError::ZeroTimeout);
-        }
-        Ok(Self {
-            answer_timeout_slots,
-            flush_age_slots,
-        })
-    }
-
-    /// Slots after which an unanswered frame expires.
-    pub const fn answer_timeout_slots(&self) -> u64 {
-        self.answer_timeout_slots
-    }
-
-    /// Largest slot span of one batch.
-    pub const fn flush_age_slots(&self) -> u64 {
-        self.flush_age_slots
-    }
-}
-
-/// What the receiver's end of the link did; announcements sent = answered + expired + waiting.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-#[cfg_attr(feature = "defmt", derive(defmt::Format))]
-pub struct LinkCounters {
-    /// Frames written (announce frames and final reports).
-    pub frames_out: u64,
-    /// Bytes written, delimiters included.
-    pub bytes_out: u64,
-    /// Frames the writer refused (they count as sent and lost).
-    pub write_errors: u64,
-    /// Announcements put into sent frames.
-    pub announcements: u64,
-    /// Announcements not sent (slot ≥ 2^63, out of order, after close, or no room).
-    pub refused_announcements: u64,
-    /// Bytes read.
-    pub bytes_in: u64,
-    /// Calls to the reader that failed.
-    pub read_errors: u64,
-    /// Answers frames with a good CRC and payload (before sequence and content checks).
-    pub frames_in: u64,
-    /// Refused frames and contents, by reason.
-    pub rejected: RejectCounts,
-    /// Sequence numbers skipped over (frames missing at the time; late arrivals fill some).
-    pub seq_gaps: u64,
-    /// Frames arriving behind the highest sequence number (reordered).
-    pub late_frames: u64,
-    /// Frames older than the sequence window (checked on content only).
-    pub too_old_frames: u64,
-    /// Announce frames answered (their answers handed to the receiver).
-    pub answered_frames: u64,
-    /// Answers handed to the receiver.
-    pub answers_in: u64,
-    /// Announce frames expired unanswered.
-    pub expired_frames: u64,
-    /// Announcements in expired frames.
-    pub expired_announcements: u64,
-    /// Expired frames that were pushed out early for room (included in `expired_frames`).
-    pub evicted_frames: u64,
-}
-
-impl LinkCounters {
-    /// Sequence numbers never seen: gaps not filled by late frames.
-    pub const fn missing_frames(&self) -> u64 {
-        self.seq_gaps.saturating_sub(self.late_frames)
-    }
-}
+/// Final reports an authenticated endpoint keeps key for: it sends no announce frame that would
+/// leave it unable to close (the transmitter keeps an answered frame's bits only once a report
+/// says so).
+pub const CLOSE_RESERVE: u64 = 4;
 
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 enum FrameState {
@@ -148,12 +64,16 @@ enum FrameState {
 #[derive(Clone, Copy, Debug)]
 struct OpenFrame {
     seq: u16,
+    /// Full frame number (the low 16 bits are `seq`).
+    num: u64,
     /// Running index of the frame's first announcement.
     start: u64,
     count: u16,
     first_slot: u64,
     last_slot: u64,
     state: FrameState,
+    /// Round mode: the digest of the frame's transcript entry, once answered.
+    digest: Option<[u8; BLOCK_LEN]>,
 }
 
 /// An incoming frame reduced to what the endpoint checks (so the decoder's borrow ends).
@@ -164,12 +84,15 @@ enum Got {
         first_slot: u64,
         count: usize,
     },
+    /// Round tags parsed into the endpoint's `round_in`, this many.
+    RoundTags(usize),
     Refused(Reject),
 }
 
 /// The receiver's end of the link: batches announcements into frames of up to `BATCH`
-/// (1..=512), keeps the slots of up to `OUT` (≥ `BATCH`) unanswered announcements.
-pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize> {
+/// (1..=512), keeps the slots of up to `OUT` (≥ `BATCH`) unanswered announcements and, when
+/// authenticated, a pool of `KEYW` one-time-pad words (9 bytes each).
+pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize, const KEYW: usize = 0> {
     cfg: LinkConfig,
     reader: R,
     writer: W,
@@ -184,7 +107,17 @@ pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize> {
     batch_prev: u64,
     batch_deltas: usize,
     bases: [u8; MAX_ENTRIES / 8],
-    next_seq: u16,
+    /// Number of the next announce frame (its `seq` is the low 16 bits).
+    next_num: u64,
+    auth: Option<LinkAuth<KEYW>>,
+    /// Round mode: frames go untagged and one tag per round covers the sifting transcript.
+    rounds: Option<RoundLedger>,
+    /// Sequence number of the next round-tag record.
+    round_seq: u16,
+    /// Number of the announce frame whose answers are being handed out.
+    cur_num: u64,
+    /// Round tags of the last round-tag record taken.
+    round_in: [RoundTag; round_rec::MAX_ENTRIES],
     /// Slot << 1 | basis of every announcement in an open frame or the batch.
     slots: Deque<u64, OUT>,
     /// Running index of `slots`' front.
@@ -202,12 +135,15 @@ pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize> {
     counters: LinkCounters,
 }
 
-impl<R, W, const BATCH: usize, const OUT: usize> ReceiverLink<R, W, BATCH, OUT>
+impl<R, W, const BATCH: usize, const OUT: usize, const KEYW: usize>
+    ReceiverLink<R, W, BATCH, OUT, KEYW>
 where
     R: Read + ReadReady,
     W: Write,
 {
-    /// An endpoint reading answers from `reader` and writing announcements to `writer`.
+    /// An unauthenticated endpoint reading answers from `reader` and writing announcements to
+    /// `writer`. Its frames carry no tag and it refuses tagged ones: without authentication an
+    /// active attacker on the link voids every key figure (use [`Self::new_authenticated`]).
     pub const fn new(cfg: LinkConfig, reader: R, writer: W) -> Self {
         const {
             assert!(
@@ -231,7 +167,12 @@ where
             batch_prev: 0,
             batch_deltas: 0,
             bases: [0; MAX_ENTRIES / 8],
-            next_seq: 0,
+            next_num: 0,
+            auth: None,
+            rounds: None,
+            round_seq: 0,
+            cur_num: 0,
+            round_in: [rounds::NO_TAG; round_rec::MAX_ENTRIES],
             slots: Deque::new(),
             front: 0,
             open: Deque::new(),
@@ -267,6 +208,55 @@ where
                 evicted_frames: 0,
             },
         }
+    }
+
+    /// An authenticated endpoint: every frame it sends carries a tag from `auth`'s pool, every
+    /// frame it takes must carry a good one, and it stops for good when the pool runs dry.
+    pub fn new_authenticated(cfg: LinkConfig, auth: LinkAuth<KEYW>, reader: R, writer: W) -> Self {
+        let mut l = Self::new(cfg, reader, writer);
+        l.auth = Some(auth);
+        l
+    }
+
+    /// The authentication state, when the link is authenticated.
+    pub const fn auth(&self) -> Option<&LinkAuth<KEYW>> {
+        self.auth.as_ref()
+    }
+
+    /// Load fresh key from the post-processing host into the pool (pad words from `first_word`
+    /// on); an unauthenticated link refuses it.
+    pub fn refill(&mut self, first_word: u64, key: &[u8]) -> Result<usize, RefillError> {
+        match self.auth.as_mut() {
+            Some(a) => a.refill(first_word, key),
+            None => Err(RefillError::Unauthenticated),
+        }
+    }
+
+    /// Take one stuffed key-refill frame ([`RecordType::KeyRefill`]) from the local link and load
+    /// its key; returns the pad words loaded. Never panics, whatever the bytes.
+    pub fn take_refill_frame(&mut self, stuffed: &[u8]) -> Result<usize, RefillFrameError> {
+        // `enc` is free between frames; `raw` may hold the batch being built.
+        let f = decode_frame(stuffed, &mut self.enc).map_err(RefillFrameError::Frame)?;
+        if f.record != RecordType::KeyRefill || f.tag.is_some() {
+            return Err(RefillFrameError::Frame(FrameError::UnknownType(
+                f.record.code(),
+            )));
+        }
+        let v = RefillView::parse(f.payload).map_err(RefillFrameError::Frame)?;
+        let r = match self.auth.as_mut() {
+            Some(a) => a.refill(v.first_word, v.key),
+            None => Err(RefillError::Unauthenticated),
+        };
+        self.enc.zeroize();
+        r.map_err(RefillFrameError::Pool)
+    }
+
+    /// Whether the link has stopped for want of key or after too many refusals (authenticated
+    /// links only): it sends no new announce frame, and every announcement is refused and counted.
+    pub fn stopped(&self) -> bool {
+        self.auth
+            .as_ref()
+            .is_some_and(|a| a.stopped() || a.starved())
     }
 
     /// What the endpoint did so far.
@@ -331,6 +321,9 @@ where
             }
         }
         self.pop_resolved();
+        if let (Some(l), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+            l.close_round(a);
+        }
         self.closed = true;
         self.send_final_report();
     }
@@ -341,19 +334,53 @@ where
             return;
         }
         let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
-        if emit_fixed(area, 0, 0, self.report, FLAG_FINAL).is_ok() {
-            self.emit(ANNOUNCE_FIXED);
+        if emit_fixed(area, 0, 0, self.report, FLAG_FINAL).is_ok() && self.emit(ANNOUNCE_FIXED) {
+            // No answers come for a report: its answers pad word is of no further use.
+            let answers_word = Direction::ToReceiver.pad_word(self.next_num - 1);
+            if let (Some(a), None) = (self.auth.as_mut(), self.rounds.as_ref()) {
+                a.abandon_below(answers_word + 1);
+            }
         }
         if self.writer.flush().is_err() {
             self.counters.write_errors += 1;
         }
     }
 
-    fn emit(&mut self, len: usize) {
-        let seq = self.next_seq;
-        self.next_seq = seq.wrapping_add(1);
+    /// Seal and write the announce frame whose payload is in `raw`; false when it could not be
+    /// tagged (no key: the link stops) and nothing was sent.
+    fn emit(&mut self, len: usize) -> bool {
+        let num = self.next_num;
+        let seq = num as u16;
+        let frame_auth = self.auth.as_mut().filter(|_| self.rounds.is_none());
+        let sealed = match frame_auth {
+            None => seal_in_place(RecordType::Announce, seq, len, &mut self.raw, &mut self.enc),
+            Some(a) => {
+                let m = TagInput {
+                    dir: Direction::ToTransmitter,
+                    record: RecordType::Announce,
+                    seq,
+                    num,
+                    payload: self
+                        .raw
+                        .get(HEADER_LEN..HEADER_LEN + len)
+                        .unwrap_or_default(),
+                };
+                match a.seal(&m) {
+                    Ok(tag) => seal_in_place_tagged(
+                        RecordType::Announce,
+                        seq,
+                        len,
+                        &tag,
+                        &mut self.raw,
+                        &mut self.enc,
+                    ),
+                    Err(_) => return false,
+                }
+            }
+        };
+        self.next_num = num + 1;
         self.counters.frames_out += 1;
-        match seal_in_place(RecordType::Announce, seq, len, &mut self.raw, &mut self.enc) {
+        match sealed {
             Ok(n) => {
                 self.counters.bytes_out += n as u64;
                 let bytes = self.enc.get(..n).unwrap_or_default();
@@ -363,6 +390,32 @@ where
             }
             Err(_) => self.counters.write_errors += 1,
         }
+        self.send_round_tags();
+        true
+    }
+
+    fn batch_limit(&self) -> usize {
+        if self.cfg.max_batch() < BATCH {
+            self.cfg.max_batch()
+        } else {
+            BATCH
+        }
+    }
+
+    /// Whether the next announce frame can be tagged with key to spare for closing: the pad
+    /// words of [`CLOSE_RESERVE`] final reports after it must be loaded too (always true when
+    /// unauthenticated).
+    fn can_send(&self) -> bool {
+        if let (Some(l), Some(a)) = (self.rounds.as_ref(), self.auth.as_ref()) {
+            let r = l.round_of(self.next_num);
+            return a.can_tag(round_pad_word(r, Direction::ToTransmitter))
+                && a.can_tag(round_pad_word(r, Direction::ToReceiver));
+        }
+        let word = Direction::ToTransmitter.pad_word(self.next_num);
+        let reserve = Direction::ToTransmitter.pad_word(self.next_num + CLOSE_RESERVE);
+        self.auth
+            .as_ref()
+            .is_none_or(|a| a.can_tag(word) && a.can_tag(reserve))
     }
 
     fn batch_fits(&self, slot: u64) -> bool {
@@ -370,7 +423,7 @@ where
             return true;
         }
         let d = slot.wrapping_sub(self.batch_prev);
-        self.batch_n < BATCH
+        self.batch_n < self.batch_limit()
             && ANNOUNCE_FIXED + self.batch_deltas + varint_len(d) + (self.batch_n + 1).div_ceil(8)
                 <= MAX_PAYLOAD
     }
@@ -384,7 +437,13 @@ where
             self.evict_oldest();
         }
         let start = self.front + self.slots.len() as u64 - n as u64;
-        if self.open.is_full() {
+        let starved = !self.can_send();
+        if starved && !self.stopped() {
+            if let Some(a) = self.auth.as_mut() {
+                a.starve();
+            }
+        }
+        if self.open.is_full() || starved {
             // Only while answers are being handed over; the caller expires these slots.
             for _ in 0..n {
                 self.slots.pop_back();
@@ -401,16 +460,25 @@ where
         let area = self.raw.get_mut(HEADER_LEN..).unwrap_or_default();
         let fixed = emit_fixed(area, self.batch_first, n as u16, self.report, 0);
         let rec = OpenFrame {
-            seq: self.next_seq,
+            seq: self.next_num as u16,
+            num: self.next_num,
             start,
             count: n as u16,
             first_slot: self.batch_first,
             last_slot: self.batch_prev,
             state: FrameState::Waiting,
+            digest: None,
         };
         if fixed.is_ok() && self.open.push_back(rec).is_ok() {
-            self.emit(ANNOUNCE_FIXED + self.batch_deltas + m);
-            self.counters.announcements += n as u64;
+            if self.emit(ANNOUNCE_FIXED + self.batch_deltas + m) {
+                self.counters.announcements += n as u64;
+            } else {
+                self.open.pop_back();
+                for _ in 0..n {
+                    self.slots.pop_back();
+                }
+                self.counters.refused_announcements += n as u64;
+            }
         }
         self.reset_batch();
     }
@@ -440,7 +508,7 @@ where
     }
 
     fn expire_old(&mut self, now_slot: u64) {
-        let timeout = self.cfg.answer_timeout_slots;
+        let timeout = self.cfg.answer_timeout_slots();
         for f in self.open.iter_mut() {
             if f.state != FrameState::Waiting {
                 continue;
@@ -465,6 +533,13 @@ where
                 if self.slots.pop_front().is_some() {
                     self.front += 1;
                 }
+            }
+            match (self.auth.as_mut(), self.rounds.as_mut()) {
+                (Some(a), Some(l)) => {
+                    l.frame_final(a, f.num, (f.first_slot, f.last_slot), f.digest.as_ref())
+                }
+                (Some(a), None) => a.abandon_below(Direction::ToReceiver.pad_word(f.num) + 1),
+                _ => {}
             }
             let answered = u64::from(f.state == FrameState::Answered);
             self.report.answered_map = self.report.answered_map << 1 | answered;
@@ -536,7 +611,7 @@ where
             SeqClass::First => {}
         }
         let Some(f) = self.open.iter_mut().find(|f| f.seq == ann_seq) else {
-            let reason = if ann_seq.wrapping_sub(self.next_seq) < 0x8000 {
+            let reason = if ann_seq.wrapping_sub(self.next_num as u16) < 0x8000 {
                 Reject::NeverAnnounced
             } else if self.report.fate(ann_seq) == Some(true) {
                 Reject::DuplicateAnswers
@@ -555,10 +630,15 @@ where
             FrameState::Waiting => {
                 f.state = FrameState::Answered;
                 self.cur_seq = Some(f.seq);
+                self.cur_num = f.num;
                 self.cur_start = f.start;
                 self.cur_n = count;
                 self.cur_pos = 0;
                 self.counters.answered_frames += 1;
+                let digest = self.digest_current(first_slot);
+                if let Some(f) = self.open.iter_mut().find(|f| f.seq == ann_seq) {
+                    f.digest = digest;
+                }
                 return true;
             }
         };
@@ -567,7 +647,8 @@ where
     }
 }
 
-impl<R, W, const BATCH: usize, const OUT: usize> Transmitter for ReceiverLink<R, W, BATCH, OUT>
+impl<R, W, const BATCH: usize, const OUT: usize, const KEYW: usize> Transmitter
+    for ReceiverLink<R, W, BATCH, OUT, KEYW>
 where
     R: Read + ReadReady,
     W: Write,
@@ -578,13 +659,13 @@ where
             .open
             .back()
             .is_none_or(|f| a.slot > f.last_slot || self.batch_n > 0);
-        if self.closed || a.slot >= 1 << 63 || !in_order || !after_open {
+        if self.closed || self.stopped() || a.slot >= 1 << 63 || !in_order || !after_open {
             self.counters.refused_announcements += 1;
             return;
         }
         self.newest_slot = Some(self.newest_slot.map_or(a.slot, |s| s.max(a.slot)));
         self.expire_old(a.slot);
-        let too_old = self.batch_n > 0 && a.slot - self.batch_first > self.cfg.flush_age_slots;
+        let too_old = self.batch_n > 0 && a.slot - self.batch_first > self.cfg.flush_age_slots();
         if self.batch_n > 0 && (too_old || !self.batch_fits(a.slot)) {
             self.send_batch();
         }
@@ -621,7 +702,7 @@ where
         if self.slots.push_back(a.slot << 1 | a.basis as u64).is_err() {
             self.counters.refused_announcements += 1;
         }
-        if self.batch_n >= BATCH {
+        if self.batch_n >= self.batch_limit() {
             self.send_batch();
         }
     }
@@ -634,41 +715,60 @@ where
             if self.cur_seq.take().is_some() {
                 self.pop_resolved();
             }
-            if self.closed {
+            // After the close only round mode reads on: the last rounds' tags still come.
+            if self.closed && self.rounds.is_none() {
                 return None;
             }
             let b = self.next_byte()?;
             let got = match self.dec.push(b) {
                 None => continue,
                 Some(Err(e)) => Got::Refused(e.into()),
+                Some(Ok(f)) if f.record == RecordType::RoundTag && self.rounds.is_some() => {
+                    rounds::parse_tags(&f, &mut self.round_in)
+                }
                 Some(Ok(f)) if f.record != RecordType::Answers => {
                     Got::Refused(Reject::UnexpectedType)
                 }
                 Some(Ok(f)) => match AnswersView::parse(f.payload) {
                     Err(e) => Got::Refused(e.into()),
-                    Ok(v) => {
-                        let count = v.count();
-                        if let Some(d) = self.cur.get_mut(..count) {
-                            d.copy_from_slice(v.entry_bytes());
+                    Ok(v) => match check_tag(
+                        self.auth.as_mut().filter(|_| self.rounds.is_none()),
+                        &self.open,
+                        self.next_num,
+                        &f,
+                        v.ann_seq,
+                    ) {
+                        Err(r) => Got::Refused(r),
+                        Ok(()) => {
+                            let count = v.count();
+                            if let Some(d) = self.cur.get_mut(..count) {
+                                d.copy_from_slice(v.entry_bytes());
+                            }
+                            Got::Answers {
+                                seq: f.seq,
+                                ann_seq: v.ann_seq,
+                                first_slot: v.first_slot,
+                                count,
+                            }
                         }
-                        Got::Answers {
-                            seq: f.seq,
-                            ann_seq: v.ann_seq,
-                            first_slot: v.first_slot,
-                            count,
-                        }
-                    }
+                    },
                 },
             };
             match got {
                 Got::Refused(r) => self.counters.rejected.add(r),
+                Got::RoundTags(n) => self.take_round_tags(n),
                 Got::Answers {
                     seq,
                     ann_seq,
                     first_slot,
                     count,
                 } => {
-                    self.take(seq, ann_seq, first_slot, count);
+                    let taken = self.take(seq, ann_seq, first_slot, count);
+                    // Round mode: duplicate, late and mismatched answers count in the attack
+                    // alarm's window, as refused tags do on a frame-tagged link.
+                    if let (Some(a), Some(_)) = (self.auth.as_mut(), self.rounds.as_ref()) {
+                        a.note_check(!taken);
+                    }
                 }
             }
         }

@@ -323,11 +323,14 @@ fn open_frames_are_bounded() {
 }
 
 // RAM of the endpoint as the host instantiates it (64-announcement batches, 1024 open slots).
+// Round mode adds its ledger (five transcript states, eight outgoing tags, eight verdicts; on the
+// host each POLYVAL state holds both of the crate's backends), a 16-byte digest per open frame and
+// one round-tag record's entries: 17,584 bytes in all here.
 #[test]
 fn endpoint_size() {
     let n = core::mem::size_of::<ReceiverLink<Pipe, Pipe, 64, 1024>>();
     println!("ReceiverLink<_, _, 64, 1024>: {n} bytes");
-    assert!(n < 16 * 1024, "{n}");
+    assert!(n < 18 * 1024, "{n}");
 }
 
 fn independent_crc_ok(piece: &[u8]) -> bool {
@@ -595,3 +598,5 @@ proptest! {
         prop_assert_eq!(c.announcements, c.answers_in + c.expired_announcements);
     }
 }
+
+mod auth;

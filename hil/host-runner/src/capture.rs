@@ -163,9 +163,17 @@ pub fn check_stream(name: &str, bytes: &[u8]) -> Result<Summary, String> {
                 Snapshot::parse(fr.payload)
                     .map_err(|e| format!("{name}: stats record {k} at byte {offset}: {e}"))?;
             }
-            RecordType::Announce | RecordType::Answers => {
+            RecordType::RoundVerdict => {
+                slotwise::formats::round::RoundVerdict::parse(fr.payload)
+                    .map_err(|e| format!("{name}: round verdict {k} at byte {offset}: {e}"))?;
+            }
+            RecordType::Announce
+            | RecordType::Answers
+            | RecordType::KeyRefill
+            | RecordType::RoundTag => {
                 return Err(format!(
-                    "{name}: frame {k} at byte {offset}: a link record on the key-block stream"
+                    "{name}: frame {k} at byte {offset}: a {} record on the key-block stream",
+                    fr.record
                 ));
             }
         }

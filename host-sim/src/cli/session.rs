@@ -71,9 +71,17 @@ pub(super) fn finish_session(
     if let Some(l) = res.tx.framed_mut() {
         l.close();
     }
-    let blocks = match key_out {
-        Some(p) => Some(tap.write(p, &slotwise::Summary::of(&res.rx))?),
-        None => None,
+    let rounds = res.tx.framed().filter(|l| l.endpoint().rounds().is_some());
+    let blocks = match (key_out, rounds) {
+        // Round mode: the post-processing host keeps only the key of verified rounds.
+        (Some(p), Some(l)) => Some(tap.write_kept(
+            p,
+            &slotwise::Summary::of(&res.rx),
+            |s| l.keeps_slot(s),
+            l.verdicts(),
+        )?),
+        (Some(p), None) => Some(tap.write(p, &slotwise::Summary::of(&res.rx))?),
+        (None, _) => None,
     };
     let bits = std::mem::take(&mut tap.0.borrow_mut().bits);
     Ok((res, bits, blocks))

@@ -3,6 +3,7 @@
 //! (`docs/frames.md`, file rules in `docs/wire-protocol.md`). `slotwise inspect` reads it back.
 
 use serde::Serialize;
+use slotwise::formats::round::{RoundVerdict, VERDICT_LEN};
 use slotwise::formats::{self, KeyBlock, RecordType, Summary, MAX_RAW};
 use slotwise::{Basis, KeySink, SiftedBit};
 use slotwise::{FrameOut, FrameSink};
@@ -51,6 +52,42 @@ impl KeyTap {
         r.out.finish(summary);
         let blocks = r.out.key_blocks();
         std::fs::write(path, &r.out.sink().0).map_err(|e| format!("{}: {e}", path.display()))?;
+        Ok(blocks)
+    }
+}
+
+impl KeyTap {
+    /// Round mode: write only the bits `keep` accepts (the rounds that verified), as fresh key
+    /// blocks, then the board's round-verdict records (type 9), then a summary whose sifted-bit
+    /// and block counts describe the blocks written; returns the key blocks written.
+    pub fn write_kept<'a>(
+        &self,
+        path: &Path,
+        summary: &Summary,
+        keep: impl Fn(u64) -> bool,
+        verdicts: impl Iterator<Item = &'a RoundVerdict>,
+    ) -> Result<u64, String> {
+        let r = self.0.borrow();
+        let mut out: FrameOut<VecSink, FILE_BLOCK_BITS> = FrameOut::new(VecSink::default());
+        let mut kept = 0u64;
+        for b in r.bits.iter().filter(|b| keep(b.slot)) {
+            out.sifted(*b);
+            kept += 1;
+        }
+        out.flush();
+        let mut p = [0u8; VERDICT_LEN];
+        for v in verdicts {
+            if v.emit(&mut p).is_ok() {
+                out.record(RecordType::RoundVerdict, &p);
+            }
+        }
+        let s = Summary {
+            sifted_bits: kept,
+            ..*summary
+        };
+        out.finish(&s);
+        let blocks = out.key_blocks();
+        std::fs::write(path, &out.sink().0).map_err(|e| format!("{}: {e}", path.display()))?;
         Ok(blocks)
     }
 }
@@ -114,6 +151,10 @@ pub struct KeyFileReport {
     pub seq_gaps: u64,
     /// The closing summary's sifted-bit count and key-block count, when present and verified.
     pub summary: Option<(u64, u64)>,
+    /// Round verdicts (record type 9, round mode): rounds kept and discarded.
+    pub rounds_kept: u64,
+    /// Rounds discarded (their key blocks are not in the file).
+    pub rounds_discarded: u64,
 }
 
 /// Read a key file frame by frame and check every CRC.
@@ -128,6 +169,8 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
         bad_frames: Vec::new(),
         seq_gaps: 0,
         summary: None,
+        rounds_kept: 0,
+        rounds_discarded: 0,
     };
     let mut scratch = vec![0u8; MAX_RAW];
     let mut start = 0usize;
@@ -186,6 +229,13 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
                     .bad_frames
                     .push(bad(format!("{name}: summary at byte {offset}: {e}"))),
             },
+            RecordType::RoundVerdict => match RoundVerdict::parse(f.payload) {
+                Ok(v) if v.kept => report.rounds_kept += 1,
+                Ok(_) => report.rounds_discarded += 1,
+                Err(e) => report
+                    .bad_frames
+                    .push(bad(format!("{name}: round verdict at byte {offset}: {e}"))),
+            },
             other => report.bad_frames.push(bad(format!(
                 "{name}: byte {offset}: type field {} ({other:?}) does not belong in a key file",
                 other as u8
@@ -234,6 +284,13 @@ impl fmt::Display for KeyFileReport {
                 )?
             }
             None => writeln!(f, "summary frame  missing")?,
+        }
+        if self.rounds_kept + self.rounds_discarded > 0 {
+            writeln!(
+                f,
+                "round verdicts {} rounds verified (their key blocks above), {} failed (discarded)",
+                self.rounds_kept, self.rounds_discarded
+            )?;
         }
         writeln!(
             f,

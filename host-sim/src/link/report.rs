@@ -1,9 +1,12 @@
 //! The `link` object of the summary: frames each way, refusals by reason, what happened to every
 //! announcement, and whether both sides ended with the same sifted key.
 
+use super::auth::{AttackStats, LinkAttack};
+use super::rounds::TxRoundCounters;
 use super::{ChannelStats, FramedLink, LinkModel};
 use serde::Serialize;
-use slotwise::wire::RejectCounts;
+use slotwise::formats::TAG_LEN;
+use slotwise::wire::{AuthCounters, Reject, RejectCounts};
 use slotwise::SiftedBit;
 use std::collections::BTreeMap;
 
@@ -84,13 +87,136 @@ pub struct KeyComparison {
     pub bit_differences: u64,
 }
 
+/// One end's authentication.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct AuthSide {
+    /// Frames tagged and sent.
+    pub frames_tagged: u64,
+    /// Frames whose tag checked.
+    pub frames_verified: u64,
+    /// Frames refused by the tag check, by reason (nonzero only).
+    pub refused: BTreeMap<&'static str, u64>,
+    /// Sum of `refused`.
+    pub refused_total: u64,
+    /// Key bits loaded (pre-shared and refilled).
+    pub key_bits_loaded: u64,
+    /// Key bits spent on tags.
+    pub key_bits_consumed: u64,
+    /// Key bits wiped unused.
+    pub key_bits_abandoned: u64,
+    /// Key bits left in the pool.
+    pub key_bits_left: u64,
+    /// Frames not sent for want of key.
+    pub starved_frames: u64,
+    /// Times the low-key alarm rose.
+    pub low_key_alarms: u64,
+    /// Times the attack alarm rose.
+    pub attack_alarms: u64,
+    /// Whether the link stopped (out of key for new frames, or too many refusals).
+    pub stopped: bool,
+}
+
+impl AuthSide {
+    fn of(c: &AuthCounters, rejected: &RejectCounts, left: u64, stopped: bool) -> Self {
+        let refused: BTreeMap<&'static str, u64> = Reject::AUTH
+            .iter()
+            .map(|&r| (r.name(), rejected.get(r)))
+            .filter(|&(_, v)| v > 0)
+            .collect();
+        Self {
+            frames_tagged: c.frames_tagged,
+            frames_verified: c.frames_verified,
+            refused_total: refused.values().sum(),
+            refused,
+            key_bits_loaded: c.key_bits_loaded,
+            key_bits_consumed: c.key_bits_consumed,
+            key_bits_abandoned: c.key_bits_abandoned,
+            key_bits_left: left,
+            starved_frames: c.starved_frames,
+            low_key_alarms: c.low_key_alarms,
+            attack_alarms: c.attack_alarms,
+            stopped,
+        }
+    }
+}
+
+/// The adversary on the line and what it did.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize)]
+pub struct AttackSummary {
+    /// The `--link-attack` mode.
+    pub mode: LinkAttack,
+    /// Frames it forged, replayed and held back.
+    #[serde(flatten)]
+    pub stats: AttackStats,
+}
+
+/// Round authentication (`docs/wire-protocol.md` §9.9): one tag per round each way.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct RoundsSummary {
+    /// Announce frames per round.
+    pub frames_per_round: u32,
+    /// Rounds the receiver closed.
+    pub closed: u64,
+    /// Rounds verified: their key is kept on both sides.
+    pub verified: u64,
+    /// Rounds failed, by reason (their key is discarded on both sides).
+    pub failed: BTreeMap<&'static str, u64>,
+    /// Numbers of the verified rounds (their key is kept).
+    pub verified_rounds: Vec<u64>,
+    /// Numbers of the failed rounds.
+    pub failed_rounds: Vec<u64>,
+    /// Rounds in which the receiver took a forged answer.
+    pub attacked_rounds: Vec<u64>,
+    /// The transmitter's side.
+    pub transmitter: TxRoundCounters,
+    /// Forged answers the receiver took (round mode refuses no frame: their rounds fail).
+    pub forged_answers_taken: u64,
+    /// Forged answers whose key was kept (in a verified round).
+    pub forged_answers_kept: u64,
+    /// The receiver's sifted bits discarded with failed rounds.
+    pub sifted_bits_discarded: u64,
+    /// The receiver's sifted bits kept (verified rounds).
+    pub sifted_bits_kept: u64,
+}
+
+/// The summary's `link.auth` object: Wegman-Carter tags on every frame (mode `frame`) or one
+/// per round (mode `round`), both ways.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct AuthSummary {
+    /// `frame` (a tag on every frame) or `round` (one tag per round over the transcript).
+    pub mode: &'static str,
+    /// Round mode's figures.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub rounds: Option<RoundsSummary>,
+    /// The tag: hash, length and pad.
+    pub scheme: &'static str,
+    /// Bits per tag (one-time-pad bits consumed per tagged frame).
+    pub tag_bits: u32,
+    /// The receiver's end (the board's pool).
+    pub receiver: AuthSide,
+    /// The transmitter's end (the mirror pool).
+    pub transmitter: AuthSide,
+    /// Forged frames or answers either end accepted (answers the receiver took that the
+    /// transmitter never gave, plus announce frames the transmitter took that the receiver never
+    /// sent).
+    pub forgeries_accepted: u64,
+    /// Key-refill frames the board took.
+    pub refill_frames: u64,
+    /// Shared key bits gone (consumed or abandoned, counted once, on the board) per sifted bit
+    /// kept.
+    pub key_bits_per_sifted_bit: f64,
+    /// The adversary on the line and what it did.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub attack: Option<AttackSummary>,
+}
+
 /// The summary's `link` object.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct LinkSummary {
     /// The link model.
     pub model: LinkModel,
-    /// RAM of the core's endpoint as the host instantiates it (64-announcement batches, 1024
-    /// open announcements), bytes (`core::mem::size_of`).
+    /// RAM of the core's endpoint as the host instantiates it (batches of up to 512
+    /// announcements, 1024 open announcements, 512 pad words), bytes (`core::mem::size_of`).
     pub endpoint_ram_bytes: usize,
     /// What the model did to frames from the receiver.
     pub channel_up: ChannelStats,
@@ -102,6 +228,11 @@ pub struct LinkSummary {
     pub transmitter: TransmitterSide,
     /// Sifted keys of both sides.
     pub keys: KeyComparison,
+    /// Authentication of the frames (`None` on an unauthenticated link).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub auth: Option<AuthSummary>,
+    /// Forged answers the receiver accepted (counted on unauthenticated links too).
+    pub forgeries_accepted: u64,
     /// Key-block frames written to the key file.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub key_blocks_written: Option<u64>,
@@ -110,20 +241,22 @@ pub struct LinkSummary {
     pub key_file: Option<String>,
 }
 
-/// Compare the receiver's sifted bits with the transmitter's key.
+/// Compare the receiver's sifted bits (those it keeps: in round mode, the verified rounds')
+/// with the transmitter's key.
 pub fn compare(link: &FramedLink, rx_bits: &[SiftedBit]) -> KeyComparison {
+    let kept: Vec<&SiftedBit> = rx_bits.iter().filter(|b| link.keeps_slot(b.slot)).collect();
     link.with_tx(|tx| {
         let key = tx.key();
-        let mut same = rx_bits.len() == key.len();
+        let mut same = kept.len() == key.len();
         let mut diff = 0;
-        for b in rx_bits {
+        for b in &kept {
             match key.get(&b.slot) {
                 Some(k) => diff += u64::from(k.bit != b.bit),
                 None => same = false,
             }
         }
         KeyComparison {
-            receiver_bits: rx_bits.len() as u64,
+            receiver_bits: kept.len() as u64,
             transmitter_bits: key.len() as u64,
             same_slots: same,
             bit_differences: diff,
@@ -150,6 +283,79 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
             key_bits: tx.key().len() as u64,
         }
     });
+    let keys = compare(link, rx_bits);
+    let (frx, ftx) = link.forgeries_accepted();
+    let auth = link.endpoint().auth().map(|ra| {
+        let stopped = ra.stopped() || ra.starved();
+        let rx = AuthSide::of(ra.counters(), &c.rejected, ra.key_bits_left(), stopped);
+        let tx = link.with_tx(|tx| {
+            tx.auth().map(|ta| {
+                AuthSide::of(
+                    ta.counters(),
+                    &tx.counters().rejected,
+                    ta.key_bits_left(),
+                    ta.stopped() || ta.starved(),
+                )
+            })
+        });
+        let tx = tx.unwrap_or_else(|| {
+            AuthSide::of(&AuthCounters::default(), &RejectCounts::new(), 0, false)
+        });
+        // Both pools hold the same key: count the board's, where each pad word goes once.
+        let gone = rx.key_bits_consumed + rx.key_bits_abandoned;
+        let rounds = link.endpoint().rounds().map(|l| {
+            let rc = l.counters();
+            let failed: BTreeMap<&'static str, u64> = [
+                ("bad_tag", rc.failed_bad_tag),
+                ("no_tag", rc.failed_no_tag),
+                ("no_key", rc.failed_no_key),
+            ]
+            .into_iter()
+            .filter(|&(_, v)| v > 0)
+            .collect();
+            RoundsSummary {
+                frames_per_round: l.frames_per_round(),
+                closed: rc.closed,
+                verified: rc.verified,
+                failed,
+                verified_rounds: link
+                    .verdicts()
+                    .filter(|v| v.kept)
+                    .map(|v| v.round)
+                    .collect(),
+                failed_rounds: link
+                    .verdicts()
+                    .filter(|v| !v.kept)
+                    .map(|v| v.round)
+                    .collect(),
+                attacked_rounds: link.attacked_rounds(),
+                transmitter: link
+                    .with_tx(|tx| tx.rounds().map(|r| r.counters()).unwrap_or_default()),
+                forged_answers_taken: frx,
+                forged_answers_kept: link.forged_answers_kept(),
+                sifted_bits_discarded: rx_bits.len() as u64 - keys.receiver_bits,
+                sifted_bits_kept: keys.receiver_bits,
+            }
+        });
+        AuthSummary {
+            mode: if rounds.is_some() { "round" } else { "frame" },
+            rounds,
+            scheme: "POLYVAL (RFC 8452) over GF(2^128), truncated, one-time padded (Wegman-Carter)",
+            tag_bits: (TAG_LEN * 8) as u32,
+            key_bits_per_sifted_bit: gone as f64 / keys.receiver_bits.max(1) as f64,
+            receiver: rx,
+            transmitter: tx,
+            forgeries_accepted: if link.endpoint().rounds().is_some() {
+                link.forged_answers_kept() + ftx
+            } else {
+                frx + ftx
+            },
+            refill_frames: link.refill_frames(),
+            attack: link
+                .attack_stats()
+                .map(|(mode, stats)| AttackSummary { mode, stats }),
+        }
+    });
     LinkSummary {
         model: *link.model(),
         endpoint_ram_bytes: std::mem::size_of::<super::HostEndpoint>(),
@@ -173,7 +379,9 @@ pub fn link_summary(link: &FramedLink, rx_bits: &[SiftedBit]) -> LinkSummary {
             final_reports: link.final_reports(),
         },
         transmitter,
-        keys: compare(link, rx_bits),
+        keys,
+        auth,
+        forgeries_accepted: frx + ftx,
         key_blocks_written: None,
         key_file: None,
     }
@@ -241,9 +449,17 @@ impl std::fmt::Display for LinkSummary {
             },
             k.bit_differences
         )?;
+        match &self.auth {
+            Some(a) => write_auth(f, a)?,
+            None => writeln!(
+                f,
+                "auth           OFF: frames carry no tag; {} forged answers accepted",
+                self.forgeries_accepted
+            )?,
+        }
         writeln!(
             f,
-            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 64, 1024>)",
+            "  endpoint     {} bytes of RAM (ReceiverLink<_, _, 512, 1024, 512>)",
             self.endpoint_ram_bytes
         )?;
         if let (Some(n), Some(p)) = (self.key_blocks_written, &self.key_file) {
@@ -251,4 +467,110 @@ impl std::fmt::Display for LinkSummary {
         }
         Ok(())
     }
+}
+
+fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Result {
+    let (r, t) = (&a.receiver, &a.transmitter);
+    let alarm = |s: &AuthSide| {
+        let mut v = Vec::new();
+        if s.stopped {
+            v.push("STOPPED".to_string());
+        }
+        if s.attack_alarms > 0 {
+            v.push(format!("ATTACK ALARM x{}", s.attack_alarms));
+        }
+        if s.low_key_alarms > 0 {
+            v.push(format!("low-key alarm x{}", s.low_key_alarms));
+        }
+        if v.is_empty() {
+            "no alarm".to_string()
+        } else {
+            v.join(", ")
+        }
+    };
+    match &a.rounds {
+        None => writeln!(
+            f,
+            "auth           {}-bit Wegman-Carter tags on every frame (POLYVAL + one-time pad): {} \
+             forgeries accepted; key {:.2} % of the sifted bits",
+            a.tag_bits,
+            a.forgeries_accepted,
+            100.0 * a.key_bits_per_sifted_bit
+        )?,
+        Some(rs) => {
+            writeln!(
+                f,
+                "auth           one {}-bit Wegman-Carter tag per round of {} frames each way \
+                 (POLYVAL transcript + one-time pad): rounds {} verified, {} failed; {} forged \
+                 answers kept; {}",
+                a.tag_bits,
+                rs.frames_per_round,
+                rs.verified,
+                rs.failed.values().sum::<u64>(),
+                a.forgeries_accepted,
+                if rs.sifted_bits_kept > 0 {
+                    format!(
+                        "key {:.3} % of the kept sifted bits",
+                        100.0 * a.key_bits_per_sifted_bit
+                    )
+                } else {
+                    "no key kept".to_string()
+                }
+            )?;
+            if !rs.failed_rounds.is_empty() {
+                let why = rs
+                    .failed
+                    .iter()
+                    .map(|(k, v)| format!("{k} {v}"))
+                    .collect::<Vec<_>>()
+                    .join(", ");
+                writeln!(
+                    f,
+                    "  rounds       FAILED {:?} ({why}): {} sifted bits discarded; forged answers: \
+                     {} taken, {} kept",
+                    rs.failed_rounds,
+                    rs.sifted_bits_discarded,
+                    rs.forged_answers_taken,
+                    rs.forged_answers_kept
+                )?;
+            }
+        }
+    }
+    for (name, s) in [("rx", r), ("tx", t)] {
+        let why = s
+            .refused
+            .iter()
+            .map(|(k, v)| format!("{k} {v}"))
+            .collect::<Vec<_>>()
+            .join(", ");
+        writeln!(
+            f,
+            "  {name} auth      tagged {}, verified {}, refused {}{}; key bits: {} used, {} wiped \
+             unused, {} left; {}",
+            s.frames_tagged,
+            s.frames_verified,
+            s.refused_total,
+            if why.is_empty() {
+                String::new()
+            } else {
+                format!(" ({why})")
+            },
+            s.key_bits_consumed,
+            s.key_bits_abandoned,
+            s.key_bits_left,
+            alarm(s)
+        )?;
+    }
+    if let Some(AttackSummary {
+        mode: attack,
+        stats: st,
+    }) = &a.attack
+    {
+        writeln!(
+            f,
+            "  adversary    {attack:?}: {} frames forged, {} replayed, {} held back",
+            st.forged, st.replayed, st.delayed
+        )?;
+    }
+    Ok(())
 }

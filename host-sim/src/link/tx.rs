@@ -1,16 +1,31 @@
 //! The transmitter's half of the link on the host, built on the core's codec: decode announce
 //! frames, look up its own choices, answer, and keep the bits of the frames the receiver reports
 //! as answered — its own sifted key.
+//!
+//! On an authenticated link it keeps the mirror of the board's key pool (the core's
+//! [`LinkAuth`]): it checks each announce frame's tag against pad word `2·n` (n the frame's
+//! number, widened from its `seq`), tags its answers with pad word `2·n + 1`, and wipes the pad
+//! words of every frame the receiver's report declares final.
 
+use super::rounds::TxRounds;
 use crate::scenario::Scenario;
 use crate::sim::rng::{splitmix_at, stream_key, unit_f64};
 use crate::sim::TxSource;
-use slotwise::formats::{answers, encode_frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
-use slotwise::wire::{
-    AnnounceView, AnswerEntry, FrameDecoder, Reject, RejectCounts, Report, SeqClass, SeqWindow,
+use slotwise::formats::round::{self as round_rec, RoundTag, MAX_ENTRIES as ROUND_ENTRIES};
+use slotwise::formats::tag::{Direction, TagInput};
+use slotwise::formats::{
+    answers, encode_frame, encode_frame_tagged, Frame, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
 };
-use slotwise::Basis;
-use std::collections::BTreeMap;
+use slotwise::wire::check_frame;
+use slotwise::wire::{
+    widen_seq, AnnounceView, AnswerEntry, FrameDecoder, LinkAuth, Reject, RejectCounts, Report,
+    SeqClass, SeqWindow,
+};
+use slotwise::{Answer, Basis};
+use std::collections::{BTreeMap, HashMap};
+
+/// Pad words of the host transmitter's mirror pool.
+pub const TX_KEY_WORDS: usize = 4096;
 
 /// Stream number of the test-bit choices.
 const STREAM_REVEAL: u64 = 7;
@@ -82,6 +97,15 @@ pub struct HostTransmitter {
     announced: Option<(u64, u64)>,
     raw: Vec<u8>,
     enc: Vec<u8>,
+    auth: Option<Box<LinkAuth<TX_KEY_WORDS>>>,
+    /// Highest announce-frame number authenticated.
+    highest_num: Option<u64>,
+    /// What the receiver should derive from each answer sent, by slot (to spot forgeries).
+    given: HashMap<u64, Answer>,
+    /// Round mode: untagged frames, one tag per round over the transcript.
+    rounds: Option<TxRounds>,
+    /// Sequence number of the next round-tag record.
+    round_seq: u16,
 }
 
 impl HostTransmitter {
@@ -107,7 +131,54 @@ impl HostTransmitter {
             announced: None,
             raw: vec![0; MAX_RAW],
             enc: vec![0; MAX_FRAME],
+            auth: None,
+            highest_num: None,
+            given: HashMap::new(),
+            rounds: None,
+            round_seq: 0,
         }
+    }
+
+    /// The same transmitter on a round-authenticated link (`docs/wire-protocol.md` §9.9):
+    /// rounds of `frames_per_round` announce frames, mirror pool `auth`.
+    pub fn with_round_auth(
+        mut self,
+        mut auth: Box<LinkAuth<TX_KEY_WORDS>>,
+        frames_per_round: u32,
+    ) -> Result<Self, String> {
+        self.rounds = Some(TxRounds::new(frames_per_round, &mut auth)?);
+        self.auth = Some(auth);
+        Ok(self)
+    }
+
+    /// The round state, in round mode.
+    pub fn rounds(&self) -> Option<&TxRounds> {
+        self.rounds.as_ref()
+    }
+
+    /// The same transmitter on an authenticated link, holding the mirror pool `auth`.
+    pub fn with_auth(mut self, auth: Box<LinkAuth<TX_KEY_WORDS>>) -> Self {
+        self.auth = Some(auth);
+        self
+    }
+
+    /// The mirror pool, on an authenticated link.
+    pub fn auth(&self) -> Option<&LinkAuth<TX_KEY_WORDS>> {
+        self.auth.as_deref()
+    }
+
+    /// Load refill key into the mirror pool (pad words from `first_word` on).
+    pub fn refill(&mut self, first_word: u64, key: &[u8]) -> Result<usize, String> {
+        match self.auth.as_mut() {
+            Some(a) => a.refill(first_word, key).map_err(|e| e.to_string()),
+            None => Err("the link is not authenticated".into()),
+        }
+    }
+
+    /// Whether the receiver took `a` exactly as this transmitter answered it; the answer is
+    /// forgotten either way (each slot is answered once).
+    pub fn answered_as_sent(&mut self, a: &Answer) -> bool {
+        self.given.remove(&a.slot).is_some_and(|g| g == *a)
     }
 
     /// Whether a final report arrived.
@@ -161,29 +232,93 @@ impl HostTransmitter {
     /// Take bytes from the link; returns the answers frames to send back.
     pub fn receive(&mut self, bytes: &[u8]) -> Vec<Vec<u8>> {
         let mut out = Vec::new();
+        let frame_auth = self.rounds.is_none();
         for &b in bytes {
             let Some(r) = self.dec.push(b) else {
                 continue;
             };
-            let (seq, payload) = match r {
+            let payload_of = match r {
                 Err(e) => {
                     self.counters.rejected.add(Reject::from(e));
+                    continue;
+                }
+                Ok(f) if f.record == RecordType::RoundTag && !frame_auth => {
+                    let mut tags = [RoundTag {
+                        round: 0,
+                        dir: Direction::ToTransmitter,
+                        verdict: round_rec::Verdict::Open,
+                        tag: [0; 8],
+                    }; ROUND_ENTRIES];
+                    match (f.tag, round_rec::parse(f.payload, &mut tags)) {
+                        (Some(_), _) => self.counters.rejected.add(Reject::Untagged),
+                        (None, Err(e)) => self.counters.rejected.add(Reject::from(e)),
+                        (None, Ok(n)) => {
+                            if let (Some(r), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+                                for t in tags.iter().take(n) {
+                                    r.take(a, t, &mut self.key);
+                                }
+                            }
+                        }
+                    }
                     continue;
                 }
                 Ok(f) if f.record != RecordType::Announce => {
                     self.counters.rejected.add(Reject::UnexpectedType);
                     continue;
                 }
-                Ok(f) => (f.seq, f.payload.to_vec()),
+                Ok(f) => match authenticate(
+                    self.auth.as_deref_mut().filter(|_| frame_auth),
+                    self.highest_num,
+                    &f,
+                ) {
+                    Err(r) => {
+                        self.counters.rejected.add(r);
+                        continue;
+                    }
+                    Ok(num) => {
+                        if self.auth.is_some() {
+                            // Round mode widens against unauthenticated numbers: a forged
+                            // number can only make rounds fail.
+                            self.highest_num = Some(self.highest_num.map_or(num, |h| h.max(num)));
+                        }
+                        (f.seq, num, f.payload.to_vec())
+                    }
+                },
             };
-            if let Some(frame) = self.announce_frame(seq, &payload) {
+            let (seq, num, payload) = payload_of;
+            if let Some(frame) = self.announce_frame(seq, num, &payload) {
+                out.push(frame);
+            }
+            if let Some(frame) = self.round_tags() {
                 out.push(frame);
             }
         }
         out
     }
 
-    fn announce_frame(&mut self, seq: u16, payload: &[u8]) -> Option<Vec<u8>> {
+    /// Round mode: a record repeating the tags of every round waiting for its verdict.
+    fn round_tags(&mut self) -> Option<Vec<u8>> {
+        let tags = self.rounds.as_ref()?.outgoing();
+        if tags.is_empty() {
+            return None;
+        }
+        let mut p = vec![0u8; round_rec::MAX_LEN];
+        let n = round_rec::emit(&tags, &mut p).ok()?;
+        let seq = self.round_seq;
+        self.round_seq = seq.wrapping_add(1);
+        let m = encode_frame(
+            RecordType::RoundTag,
+            seq,
+            p.get(..n)?,
+            &mut self.raw,
+            &mut self.enc,
+        )
+        .ok()?;
+        self.counters.bytes_out += m as u64;
+        self.enc.get(..m).map(<[u8]>::to_vec)
+    }
+
+    fn announce_frame(&mut self, seq: u16, num: u64, payload: &[u8]) -> Option<Vec<u8>> {
         let v = match AnnounceView::parse(payload) {
             Ok(v) => v,
             Err(e) => {
@@ -201,7 +336,18 @@ impl HostTransmitter {
             SeqClass::Late => self.counters.late_frames += 1,
             SeqClass::TooOld | SeqClass::First => {}
         }
-        self.apply(v.report, v.is_final());
+        if let (Some(r), Some(a)) = (self.rounds.as_mut(), self.auth.as_mut()) {
+            let below = widen_seq(v.report.resolved_below, num);
+            r.report(a, below, v.report.answered_map, v.is_final());
+        } else {
+            self.apply(v.report, v.is_final());
+        }
+        if let (Some(a), None) = (self.auth.as_mut(), self.rounds.as_ref()) {
+            // Frames before the report's cursor are final at the receiver: their pads are of no
+            // further use, and a late copy of one is refused.
+            let below = widen_seq(v.report.resolved_below, num);
+            a.abandon_below(Direction::ToTransmitter.pad_word(below.min(num)));
+        }
         if v.is_final() {
             self.counters.final_reports += 1;
             self.closed = true;
@@ -216,6 +362,7 @@ impl HostTransmitter {
             let (lo, hi) = self.announced.unwrap_or((a.slot, a.slot));
             self.announced = Some((lo.min(a.slot), hi.max(a.slot)));
             let c = self.choices.choice(a.slot);
+            let revealed = self.revealed(a.slot);
             // The answers record has no "no answer" entry: a slot without content is answered
             // as a mismatch that reveals nothing, so no key bit can come from it.
             let withheld = AnswerEntry {
@@ -223,17 +370,35 @@ impl HostTransmitter {
                 intensity: 0,
                 bit: None,
             };
+            let other = if a.basis == Basis::X {
+                Basis::Z
+            } else {
+                Basis::X
+            };
+            let given = &mut self.given;
+            let mut give = |e: AnswerEntry| {
+                let basis = if e.basis_match { a.basis } else { other };
+                given.insert(
+                    a.slot,
+                    Answer {
+                        slot: a.slot,
+                        basis,
+                        intensity: e.intensity,
+                        bit: e.bit,
+                    },
+                );
+                entries.push(e);
+            };
             if c.is_some_and(|c| c.intensity > 3) || self.choices.is_marker_slot(a.slot) {
                 self.counters.marker_announcements += 1;
-                entries.push(withheld);
+                give(withheld);
                 continue;
             }
             let Some(c) = c else {
                 self.counters.unrecorded += 1;
-                entries.push(withheld);
+                give(withheld);
                 continue;
             };
-            let revealed = self.revealed(a.slot);
             let basis_match = c.basis == a.basis;
             if basis_match {
                 matched.push((
@@ -246,7 +411,7 @@ impl HostTransmitter {
                     },
                 ));
             }
-            entries.push(AnswerEntry {
+            give(AnswerEntry {
                 basis_match,
                 intensity: c.intensity,
                 bit: revealed.then_some(c.bit),
@@ -254,23 +419,64 @@ impl HostTransmitter {
         }
         let mut p = vec![0u8; MAX_PAYLOAD];
         let n = answers::emit(seq, v.first_slot, &entries, &mut p).ok()?;
-        let m = encode_frame(
-            RecordType::Answers,
-            self.next_seq,
-            p.get(..n)?,
-            &mut self.raw,
-            &mut self.enc,
-        )
+        let payload = p.get(..n)?;
+        let m = match self.auth.as_mut().filter(|_| self.rounds.is_none()) {
+            None => encode_frame(
+                RecordType::Answers,
+                self.next_seq,
+                payload,
+                &mut self.raw,
+                &mut self.enc,
+            ),
+            Some(a) => {
+                let m = TagInput {
+                    dir: Direction::ToReceiver,
+                    record: RecordType::Answers,
+                    seq: self.next_seq,
+                    num,
+                    payload,
+                };
+                // Out of key: nothing is sent, the receiver's frame expires (fails closed).
+                let tag = a.seal(&m).ok()?;
+                encode_frame_tagged(
+                    RecordType::Answers,
+                    self.next_seq,
+                    payload,
+                    &tag,
+                    &mut self.raw,
+                    &mut self.enc,
+                )
+            }
+        }
         .ok()?;
         self.next_seq = self.next_seq.wrapping_add(1);
         self.counters.frames_out += 1;
         self.counters.bytes_out += m as u64;
-        self.waiting.push(Answered {
-            ann_seq: seq,
-            matched,
-        });
+        if let (Some(r), Some(a)) = (self.rounds.as_mut(), self.auth.as_ref()) {
+            let mut d = a.frame_digest(v.count, v.first_slot);
+            for (x, e) in v.iter().zip(&entries) {
+                d.add(x.slot, x.basis == Basis::X, e.to_byte().unwrap_or(0));
+            }
+            r.answered(num, d.finish(), matched);
+        } else {
+            self.waiting.push(Answered {
+                ann_seq: seq,
+                matched,
+            });
+        }
         self.enc.get(..m).map(<[u8]>::to_vec)
     }
+}
+
+/// Check an announce frame's tag (authenticated link) or its lack of one; returns the frame's
+/// full number.
+fn authenticate(
+    auth: Option<&mut LinkAuth<TX_KEY_WORDS>>,
+    highest: Option<u64>,
+    f: &Frame<'_>,
+) -> Result<u64, Reject> {
+    let num = widen_seq(f.seq, highest.unwrap_or(0));
+    check_frame(auth, Direction::ToTransmitter, num, f).map(|()| num)
 }
 
 #[cfg(test)]

@@ -33,7 +33,7 @@ fn record_type_list_is_consistent() {
         assert!(!t.name().is_empty());
     }
     assert_eq!(RecordType::from_code(0), None);
-    assert_eq!(RecordType::from_code(7), None);
+    assert_eq!(RecordType::from_code(10), None);
 }
 
 // Check value for ASCII "123456789" in Cook's catalogue of parametrised CRC algorithms.
@@ -51,6 +51,23 @@ fn crc32c_residue_of_a_codeword() {
         w.extend_from_slice(&crc32c(msg).to_le_bytes());
         assert_eq!(crc32c(&w), 0xB798_B438 ^ 0xFFFF_FFFF);
     }
+}
+
+#[test]
+fn tagged_frame_round_trips() {
+    let tag = [1, 2, 3, 4, 5, 6, 7, 8];
+    let mut raw = vec![0u8; MAX_RAW];
+    let mut out = vec![0u8; MAX_FRAME];
+    let n =
+        encode_frame_tagged(RecordType::Answers, 9, &[0xAA, 0], &tag, &mut raw, &mut out).unwrap();
+    let mut scratch = vec![0u8; MAX_RAW];
+    let f = decode_frame(&out[..n], &mut scratch).unwrap();
+    assert_eq!(
+        (f.record, f.seq, f.payload, f.tag),
+        (RecordType::Answers, 9, &[0xAA, 0][..], Some(tag))
+    );
+    let plain = frame(RecordType::Answers, 9, &[0xAA, 0]);
+    assert_eq!(decode_frame(&plain, &mut scratch).unwrap().tag, None);
 }
 
 #[test]
@@ -82,12 +99,20 @@ fn decoder_errors_are_typed() {
         Err(FrameError::Cobs { .. })
     ));
     assert_eq!(
-        decode(&stuffed_header(2, 1, 0, &[])),
-        Err(FrameError::UnknownVersion(2))
+        decode(&stuffed_header(3, 1, 0, &[])),
+        Err(FrameError::UnknownVersion(3))
+    );
+    // A tagged frame needs its 8 tag bytes after the payload.
+    assert_eq!(
+        decode(&stuffed_header(VERSION_TAGGED, 1, 0, &[1, 2, 3])),
+        Err(FrameError::LengthMismatch {
+            declared: 0,
+            actual: 0
+        })
     );
     assert_eq!(
-        decode(&stuffed_header(VERSION, 9, 0, &[])),
-        Err(FrameError::UnknownType(9))
+        decode(&stuffed_header(VERSION, 10, 0, &[])),
+        Err(FrameError::UnknownType(10))
     );
     assert_eq!(
         decode(&stuffed_header(VERSION, 1, 5000, &[])),
