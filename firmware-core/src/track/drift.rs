@@ -1,14 +1,15 @@
-//! The drift estimate: how fast the loop's frequency moves, for holdover.
+//! The drift estimate: how fast the loop's frequency moves, for holdover and steering.
 //!
 //! A type-II loop follows a frequency ramp with a constant lag, but it holds no state for the
 //! ramp itself, so a model frozen at the start of a cut would miss ½·ν̇·Δt² of phase: a full
 //! slot after 1 s at 0.02 ppm/s and 100 MHz. The estimate samples the loop's frequency every
 //! 2^32 ps (4.3 ms, about the loop's correlation time at the default bandwidth) and averages the
-//! slope between samples over 2^[`EMA_SHIFT`] samples (about 1.1 s), an exponentially weighted
-//! finite difference; the first 2^EMA_SHIFT samples are averaged with equal weights, and the
-//! samples of a lock's pull-in (wide gear) are left out. Its noise is about √2 times the loop's frequency noise over the averaging
-//! span, so at the default link's 0.2 ppb rms it is about 0.3 ppb/s. Samples are skipped while
-//! the wide gear is engaged: a step's transient is not a drift.
+//! slope between samples over 2^[`EMA_SHIFT`] samples (about 2.2 s), an exponentially weighted
+//! finite difference; the first 2^EMA_SHIFT samples are averaged with equal weights. It also
+//! keeps a smoothed frequency (carried forward by the slope, corrected by 2^−4 of each sample's
+//! innovation), and the innovations' mean square, from which the holdover's bound takes the
+//! standard errors of both (`docs/holdover.md` §2). Samples are skipped while the wide gear is
+//! engaged, and the few after it only settle the smoothing: a step's transient is not a drift.
 
 /// log2 of the sampling interval, ps.
 pub(super) const SAMPLE_SHIFT: u32 = 32;
