@@ -10,7 +10,7 @@
 //!
 //! Each detection in holdover is folded at its predicted slot phase with the channel's arrival
 //! pattern (the Z²_n statistic of [`crate::acquire::fold`], Buccheri et al. 1983). The fold is
-//! tested at 64, 128, ... 4096 detections and then restarted; once Z² passes [`Z2_RESUME`]
+//! tested at 64, 128, ... 4096 detections; once Z² passes [`Z2_RESUME`]
 //! (χ² with at most four degrees of freedom under noise alone: P ≤ 26·e^−25 ≈ 4e-10 per test),
 //! the matched filter gives the offset φ of the arrivals from the prediction, and:
 //! - |φ| ≤ U + 2w (w the window): the cut is bridged; the model moves by φ and tracking resumes
