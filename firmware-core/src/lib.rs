@@ -92,6 +92,7 @@ pub mod frame;
 pub mod frame_out;
 pub mod front;
 pub mod gates;
+pub mod ingest;
 mod log;
 pub mod numbering;
 pub mod receiver;
