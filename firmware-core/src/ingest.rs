@@ -20,7 +20,7 @@
 //! counters, common practice). The event is still handed out unchanged: the counter tells the
 //! board its time base is suspect; it does not guess a correction.
 //!
-//! With the `embedded-hal` feature, [`spi`] reads such blocks from a FIFO behind an
+//! With the `embedded-hal` feature, `spi` reads such blocks from a FIFO behind an
 //! `embedded-hal` 1.0 `SpiDevice` when a data-ready pin is high.
 
 use crate::timestamps::TdcEvent;
