@@ -87,8 +87,8 @@ impl<SPI: SpiDevice, DRDY: InputPin> SpiFifoSource<SPI, DRDY> {
     /// read what waits (at most what `buf` and `out` hold) and decode it into `out`.
     ///
     /// The read is limited to `out.len() * record_bytes - (record_bytes - 1)` bytes, so every byte
-    /// read is decoded even with a carried partial record; `out` shorter than two records' worth
-    /// reads nothing.
+    /// read is decoded even with a carried partial record; with an empty `out` only the status is
+    /// read.
     pub fn poll(
         &mut self,
         ingest: &mut Ingest,
