@@ -11,7 +11,9 @@
 //! 0. [`words`] — raw binary TDC records (4- or 8-byte words with time, channel and kind bit
 //!    fields) become [`TdcEvent`]s: rollover records widen the narrow hardware counter, every
 //!    record ends in one counter. It sits before the receiver (which takes [`TdcEvent`]s): a
-//!    board reading a FIFO and the host importing raw words run it themselves.
+//!    board reading a FIFO and the host importing raw words run it themselves; on a board,
+//!    [`ingest`] wraps it for DMA blocks and counts overruns, FIFO-full flags, rollover gaps and
+//!    malformed words (with the `embedded-hal` feature, `ingest::spi` reads the FIFO over SPI).
 //! 1. [`timestamps`] — TDC counter values (any width from 32 to 64 bits, wrapping) become a
 //!    monotonic picosecond time base; slightly reordered neighbours are handled.
 //! 2. [`clock`] — the [`SlotClock`] seam: a delay-corrected time becomes the clock's own slot and
@@ -92,6 +94,7 @@ pub mod frame;
 pub mod frame_out;
 pub mod front;
 pub mod gates;
+pub mod ingest;
 mod log;
 pub mod numbering;
 pub mod receiver;
