@@ -181,8 +181,8 @@ for t in "${TARGETS[@]}"; do
         t, v["seal_counts_15"] * k, v["verify_counts_15"] * k, v["seal_counts_76"] * k,
         v["verify_counts_76"] * k, v["seal_counts_1056"] * k, v["verify_counts_1056"] * k,
         v["link_auth_bytes"]
-      printf "%s: round mode: digest of a 64-announcement frame %d, transcript entry %d, round tag %d instructions; RoundLedger %d bytes\n",
-        t, v["digest_counts_64"] * k, v["transcript_add_counts"] * k, v["round_tag_counts"] * k,
+      printf "%s: round mode: digest of a 64-announcement frame %d, outcome entry %d, round tag %d instructions; RoundLedger %d bytes\n",
+        t, v["digest_counts_64"] * k, v["outcome_add_counts"] * k, v["round_tag_counts"] * k,
         v["round_ledger_bytes"] }' "$d/auth-fw.txt"
   else
     echo "$t: authentication cost run failed" >&2; failures=$((failures + 1))

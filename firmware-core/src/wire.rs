@@ -22,7 +22,7 @@
 //!   its settings and counters are in [`config`].
 //! - [`auth`] and [`keypool`]: Wegman-Carter authentication of every frame both ways
 //!   ([`LinkAuth`]), with a bounded pool of one-time-pad words that fails closed; [`round`]:
-//!   or one tag per round of frames over the agreed sifting transcript ([`RoundLedger`]).
+//!   or one tag per round of frames over the agreed sifting outcome ([`RoundLedger`]).
 
 pub mod auth;
 pub mod config;

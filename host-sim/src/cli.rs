@@ -160,7 +160,7 @@ pub enum LinkMode {
 /// Whether the classical link is authenticated.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, clap::ValueEnum)]
 pub enum AuthMode {
-    /// One tag per round of frames each way, over the round's agreed sifting transcript
+    /// One tag per round of frames each way, over the round's agreed sifting outcome
     /// (docs/wire-protocol.md §9.9): about 0.5 % of the sifted bits in key.
     Round,
     /// Every frame tagged and checked (a forged frame is refused on its own, at 64 key bits per
@@ -208,7 +208,7 @@ pub struct LinkArgs {
     #[arg(long, default_value_t = 5000, value_name = "SLOTS")]
     pub link_flush_age_slots: u64,
     /// `round`: one Wegman-Carter tag per round of announce frames each way over the round's
-    /// sifting transcript, and a round's key is kept only when both tags check; `frame`: a tag
+    /// sifting outcome, and a round's key is kept only when both tags check; `frame`: a tag
     /// on every frame (docs/wire-protocol.md §9); `off`: untagged frames, which an active
     /// attacker can forge. Both authenticated modes keep a key pool on each end.
     #[arg(long, value_enum, default_value_t = AuthMode::Round)]

@@ -73,7 +73,7 @@ pub struct LinkModel {
     /// Every frame carries a Wegman-Carter tag and both ends keep a key pool.
     pub authenticated: bool,
     /// With `authenticated`: `None` tags every frame; `Some(F)` sends frames untagged and one
-    /// tag per round of `F` announce frames each way over the sifting transcript (§9.9).
+    /// tag per round of `F` announce frames each way over the sifting outcome (§9.9).
     pub auth_round_frames: Option<u32>,
     /// Pad words of key the post-processing host can supply in all (pre-shared ones included).
     pub auth_key_words: u64,

@@ -223,7 +223,7 @@ fn noisy_rounds(frames: u32, attack: Option<LinkAttack>) -> LinkModel {
     }
 }
 
-/// Exact key accounting of round mode: the transcript key (two pad words) once per end, one
+/// Exact key accounting of round mode: the outcome key (two pad words) once per end, one
 /// pad word per round tag sent and one per round tag checked.
 fn exact_rounds(l: &LinkSummary) {
     let a = l.auth.as_ref().unwrap();
@@ -257,7 +257,7 @@ fn exact_rounds(l: &LinkSummary) {
 }
 
 /// On the noisy demo link, round mode verifies every round: loss, duplication, reordering
-/// and corruption change no transcript. Both kept keys are identical, and the key spent is
+/// and corruption change no outcome. Both kept keys are identical, and the key spent is
 /// far below the per-frame tags'.
 #[test]
 fn round_mode_verifies_every_round_on_the_noisy_link() {
@@ -285,7 +285,7 @@ fn round_mode_verifies_every_round_on_the_noisy_link() {
 
 /// Under every attack mode in round mode: every round in which the receiver took a forged
 /// answer fails on both ends, no forged answer is kept, both kept keys are identical, the
-/// accounting is exact and the attack alarm rises. Replay and delay change no transcript
+/// accounting is exact and the attack alarm rises. Replay and delay change no outcome
 /// (copies are dropped, held answers expire): their rounds verify, and the alarm rises on the
 /// duplicates and late answers.
 #[test]

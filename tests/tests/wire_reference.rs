@@ -6,7 +6,7 @@
 //! A second check recomputes the Wegman-Carter tags of §9 with a POLYVAL written in pure Python
 //! from the document (checked there against RFC 8452's Appendix A vector), and the core verifies
 //! the tags the Python transmitter makes. A third recomputes the round tags of §9.9 (frame
-//! digests, round transcripts, both directions and the failed verdict). Skipped (with a note) when Python or the packages cannot
+//! digests, round outcomes, both directions and the failed verdict). Skipped (with a note) when Python or the packages cannot
 //! be had.
 
 use serde_json::Value;
@@ -393,7 +393,7 @@ fn tags_checked_and_made_by_a_python_polyval_from_the_document() {
 }
 
 /// Round tags of `docs/wire-protocol.md` §9.9 in pure Python: the frame digest, the round
-/// transcript, the tags both ways and the failed verdict's tag, from the document's block
+/// outcome, the tags both ways and the failed verdict's tag, from the document's block
 /// layouts, with the POLYVAL of [`TAG_SCRIPT`] (RFC 8452 vector checked again here).
 const ROUND_SCRIPT: &str = r#"
 import json, struct, sys
@@ -478,7 +478,7 @@ print(json.dumps(out))
 #[test]
 fn round_tags_recomputed_by_a_python_polyval_from_the_document() {
     use slotwise::formats::round::{
-        failed_hash, pad_hash, round_pad_word, Fate, FrameDigest, Transcript, Verdict,
+        failed_hash, pad_hash, round_pad_word, Fate, FrameDigest, RoundHash, Verdict,
     };
     use slotwise::formats::tag::Direction;
     let py = match python() {
@@ -499,7 +499,7 @@ fn round_tags_recomputed_by_a_python_polyval_from_the_document() {
     let mut rounds = Vec::new();
     let mut want = Vec::new();
     for r in 0..3u64 {
-        let mut t = Transcript::new(&hr, r, f);
+        let mut t = RoundHash::new(&hr, r, f);
         let mut frames = Vec::new();
         for k in 0..u64::from(f) {
             let num = r * u64::from(f) + k;

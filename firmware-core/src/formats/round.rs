@@ -1,16 +1,16 @@
-//! Round-tag record (type 8) and the round transcript hash: one Wegman-Carter tag per round of
+//! Round-tag record (type 8) and the round outcome hash: one Wegman-Carter tag per round of
 //! the sifting conversation instead of one per frame.
 //!
 //! A tag on every frame costs 64 key bits per frame, far more than the sifted bits a frame
 //! yields. Kiktenko et al. (arXiv:1903.10237) authenticate a whole round of the classical
 //! exchange with one tag per direction. On a lossy link the two ends never hold the same frames,
-//! so the round tag covers what they must agree on anyway: the round's **transcript**, every
+//! so the round tag covers what they must agree on anyway: the round's **outcome**, every
 //! announce frame's number and fate and, for an answered frame, its slots, the receiver's bases
 //! and the answer entries. `docs/wire-protocol.md` §9.9 is the contract.
 //!
 //! Two POLYVAL layers (RFC 8452 §3): [`FrameDigest`] hashes one answered frame under the
 //! session hash key `H` when its answers are taken (the board keeps 16 bytes per open frame, not
-//! its entries), and [`Transcript`] hashes the round's frames in number order under a second
+//! its entries), and [`RoundHash`] hashes the round's frames in number order under a second
 //! key `H_R`. By composition (Stinson, "Universal hashing and authentication codes", 1994) the
 //! whole is almost-XOR-universal with the two error bounds added.
 //!
@@ -29,7 +29,7 @@ pub const ENTRY_LEN: usize = 18;
 pub const MAX_ENTRIES: usize = 16;
 /// Bytes of the largest round-tag payload.
 pub const MAX_LEN: usize = 1 + MAX_ENTRIES * ENTRY_LEN;
-/// Pad words at the start of the key stream that form the transcript key `H_R` in round mode.
+/// Pad words at the start of the key stream that form the outcome key `H_R` in round mode.
 pub const ROUND_KEY_WORDS: u64 = (HASH_KEY_LEN / PAD_LEN) as u64;
 
 /// Pad word of round `round`'s tag travelling `dir`: `2 + 2·round + dir` (words 0 and 1 are
@@ -44,7 +44,7 @@ pub const fn round_pad_word(round: u64, dir: Direction) -> u64 {
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub enum Verdict {
-    /// The transmitter's tag: its transcript, no verdict yet.
+    /// The transmitter's tag: its outcome, no verdict yet.
     Open = 0,
     /// The receiver checked the transmitter's tag: the round's key is kept.
     Verified = 1,
@@ -306,7 +306,7 @@ impl FrameDigest {
     }
 }
 
-/// Fate of an announce frame in a transcript.
+/// Fate of an announce frame in an outcome.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub enum Fate {
@@ -319,7 +319,7 @@ pub enum Fate {
     Unknown = 3,
 }
 
-/// The hash of one round's transcript under `H_R`, fed frame by frame in number order:
+/// The hash of one round's outcome under `H_R`, fed frame by frame in number order:
 ///
 /// ```text
 /// block 0:            round u64 | frames_per_round u32 | 0x52 0 0 0
@@ -327,14 +327,14 @@ pub enum Fate {
 /// last (per tag):     dir u8 | verdict u8 | 0 × 6 | frames u64
 /// ```
 #[derive(Clone)]
-pub struct Transcript {
+pub struct RoundHash {
     b: Blocks,
     round: u64,
     frames: u64,
 }
 
-impl Transcript {
-    /// Start round `round` of `frames_per_round` frames under the transcript key `hr`.
+impl RoundHash {
+    /// Start round `round` of `frames_per_round` frames under the outcome key `hr`.
     pub fn new(hr: &[u8; HASH_KEY_LEN], round: u64, frames_per_round: u32) -> Self {
         let mut b = Blocks::new(hr);
         let mut head = [0u8; BLOCK_LEN];
@@ -371,7 +371,7 @@ impl Transcript {
         self.frames += 1;
     }
 
-    /// The full 16-byte hash for a tag sent `dir` with `verdict` (the transcript stays usable).
+    /// The full 16-byte hash for a tag sent `dir` with `verdict` (the outcome stays usable).
     pub fn hash_for(&self, dir: Direction, verdict: Verdict) -> [u8; BLOCK_LEN] {
         let mut b = self.b.clone();
         let mut last = [0u8; BLOCK_LEN];
@@ -383,10 +383,10 @@ impl Transcript {
     }
 }
 
-/// The hash a failed verdict is tagged over: the empty transcript of `round`, which the other
-/// end can rebuild whatever its own transcript says (a failed round's transcripts differ).
+/// The hash a failed verdict is tagged over: the empty outcome of `round`, which the other
+/// end can rebuild whatever its own outcome says (a failed round's outcomes differ).
 pub fn failed_hash(hr: &[u8; HASH_KEY_LEN], round: u64, frames_per_round: u32) -> [u8; BLOCK_LEN] {
-    Transcript::new(hr, round, frames_per_round).hash_for(Direction::ToTransmitter, Verdict::Failed)
+    RoundHash::new(hr, round, frames_per_round).hash_for(Direction::ToTransmitter, Verdict::Failed)
 }
 
 /// The tag of a 16-byte hash with pad `pad`: its first 8 bytes XOR the pad.
@@ -492,7 +492,7 @@ mod tests {
         m[2].0 += 1;
         assert_ne!(digest(&m), d0);
         let round = |fate: Fate, d: &[u8; 16]| {
-            let mut t = Transcript::new(&[9; 16], 2, 4);
+            let mut t = RoundHash::new(&[9; 16], 2, 4);
             t.add(8, Fate::Expired, None);
             t.add(9, fate, Some(d));
             t.hash_for(Direction::ToReceiver, Verdict::Open)
@@ -501,7 +501,7 @@ mod tests {
         assert_ne!(round(Fate::Expired, &d0), h0);
         assert_ne!(round(Fate::Unknown, &d0), h0);
         assert_ne!(round(Fate::Answered, &digest(&m)), h0);
-        let mut t = Transcript::new(&[9; 16], 2, 4);
+        let mut t = RoundHash::new(&[9; 16], 2, 4);
         t.add(8, Fate::Expired, None);
         t.add(9, Fate::Answered, Some(&d0));
         assert_eq!(t.hash_for(Direction::ToReceiver, Verdict::Open), h0);
@@ -533,7 +533,7 @@ mod tests {
         d.add(1003, true, 0x08);
         d.add(1300, false, 0x01);
         let d = d.finish();
-        let mut t = Transcript::new(&hr, 5, 1);
+        let mut t = RoundHash::new(&hr, 5, 1);
         t.add(5, Fate::Answered, Some(&d));
         let tx = t.hash_for(Direction::ToReceiver, Verdict::Open);
         let rx = t.hash_for(Direction::ToTransmitter, Verdict::Verified);

@@ -271,7 +271,7 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
     }
 
     /// Spend pad words `first ..` into `out` (a whole number of words), e.g. the round mode's
-    /// transcript key; nothing is spent unless every word is there.
+    /// outcome key; nothing is spent unless every word is there.
     pub fn take_words(&mut self, first: u64, out: &mut [u8]) -> Result<(), Reject> {
         let words = out.len() / PAD_LEN;
         if (first..first + words as u64).any(|w| self.pool.state(w) != PadState::Fresh) {
@@ -286,7 +286,7 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         Ok(())
     }
 
-    /// Tag a 16-byte hash (a round transcript) with pad word `word`, spent and wiped.
+    /// Tag a 16-byte hash (a round outcome) with pad word `word`, spent and wiped.
     pub fn seal_hash(&mut self, word: u64, full: &[u8; 16]) -> Result<[u8; TAG_LEN], Reject> {
         let pad = if self.stopped {
             None

@@ -72,7 +72,7 @@ struct OpenFrame {
     first_slot: u64,
     last_slot: u64,
     state: FrameState,
-    /// Round mode: the digest of the frame's transcript entry, once answered.
+    /// Round mode: the digest of the frame's outcome entry, once answered.
     digest: Option<[u8; BLOCK_LEN]>,
 }
 
@@ -110,7 +110,7 @@ pub struct ReceiverLink<R, W, const BATCH: usize, const OUT: usize, const KEYW: 
     /// Number of the next announce frame (its `seq` is the low 16 bits).
     next_num: u64,
     auth: Option<LinkAuth<KEYW>>,
-    /// Round mode: frames go untagged and one tag per round covers the sifting transcript.
+    /// Round mode: frames go untagged and one tag per round covers the sifting outcome.
     rounds: Option<RoundLedger>,
     /// Sequence number of the next round-tag record.
     round_seq: u16,

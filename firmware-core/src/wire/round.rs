@@ -1,24 +1,24 @@
 //! The receiver's side of round authentication: one tag per round of `F` announce frames each
-//! way, over the round's agreed sifting transcript (Kiktenko et al., arXiv:1903.10237).
+//! way, over the round's agreed sifting outcome (Kiktenko et al., arXiv:1903.10237).
 //!
 //! A tag per frame spends 64 key bits per frame, more than the sifted bits a frame yields. Round
 //! mode sends frames untagged and authenticates what both ends must agree on anyway: the
-//! transcript of [`crate::formats::round`], fed in frame-number order as frames become final.
+//! outcome of [`crate::formats::round`], fed in frame-number order as frames become final.
 //! Round `r` holds announce frames `r·F .. (r+1)·F` and closes when the last of them is final
 //! (or at the end of the session), so loss, duplication and reordering of frames change nothing
 //! in it; a forged, altered, injected or replayed answer does, and the round fails on both ends.
 //!
 //! The exchange per round: the transmitter, once a report tells it every fate of the round,
 //! sends its tag (pad word `2 + 2r + 1`) until the receiver's verdict comes; the receiver checks
-//! it against its own transcript, decides (verified or failed) and sends its own tag over the
-//! transcript *and the verdict* (pad word `2 + 2r`), repeated in its next [`RESENDS`]
+//! it against its own outcome, decides (verified or failed) and sends its own tag over the
+//! outcome *and the verdict* (pad word `2 + 2r`), repeated in its next [`RESENDS`]
 //! round-tag records. The board keeps no key: a verdict goes out in [`RoundLedger::poll_verdict`]
 //! and the post-processing host keeps or discards the round's key blocks by it.
 
 use super::auth::LinkAuth;
 use super::Reject;
 use crate::formats::round::{
-    failed_hash, round_pad_word, Fate, RoundTag, RoundVerdict, Transcript, Verdict, MAX_ENTRIES,
+    failed_hash, round_pad_word, Fate, RoundHash, RoundTag, RoundVerdict, Verdict, MAX_ENTRIES,
 };
 use crate::formats::tag::{Direction, BLOCK_LEN, HASH_KEY_LEN};
 use core::fmt;
@@ -42,7 +42,7 @@ pub const DEFAULT_FRAMES_PER_ROUND: u32 = 512;
 pub enum RoundConfigError {
     /// Zero frames per round.
     ZeroFrames,
-    /// The transcript key `H_R` (pad words 0 and 1) is not in the pool, or is all zero.
+    /// The outcome key `H_R` (pad words 0 and 1) is not in the pool, or is all zero.
     NoRoundKey,
 }
 
@@ -50,7 +50,7 @@ impl fmt::Display for RoundConfigError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             Self::ZeroFrames => write!(f, "frames per round must be at least 1"),
-            Self::NoRoundKey => write!(f, "no usable transcript key in pad words 0 and 1"),
+            Self::NoRoundKey => write!(f, "no usable outcome key in pad words 0 and 1"),
         }
     }
 }
@@ -61,7 +61,7 @@ impl core::error::Error for RoundConfigError {}
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub enum RoundFailure {
-    /// The transmitter's tag did not match this end's transcript (an altered, forged, injected
+    /// The transmitter's tag did not match this end's outcome (an altered, forged, injected
     /// or replayed frame changed one side's view, or the tag itself was forged).
     BadTag,
     /// No tag came from the transmitter before the round was pushed out or the session ended.
@@ -110,9 +110,9 @@ impl RoundCounters {
     }
 }
 
-/// A round's transcript and the slots its announce frames covered.
+/// A round's outcome and the slots its announce frames covered.
 struct Round {
-    t: Transcript,
+    t: RoundHash,
     first_slot: u64,
     last_slot: u64,
 }
@@ -128,7 +128,7 @@ struct Outgoing {
     left: u8,
 }
 
-/// The receiver's round state: transcript key, the open round, closed rounds waiting for the
+/// The receiver's round state: outcome key, the open round, closed rounds waiting for the
 /// transmitter's tag, tags to send, and verdicts for the host.
 pub struct RoundLedger {
     frames_per_round: u32,
@@ -147,7 +147,7 @@ impl Drop for RoundLedger {
 }
 
 impl RoundLedger {
-    /// Rounds of `frames_per_round` announce frames; takes the transcript key `H_R` from pad
+    /// Rounds of `frames_per_round` announce frames; takes the outcome key `H_R` from pad
     /// words 0 and 1 of `auth`'s pool.
     pub fn new<const W: usize>(
         frames_per_round: u32,
@@ -199,7 +199,7 @@ impl RoundLedger {
     }
 
     /// Announce frame `num`, which announced slots `first_slot ..= last_slot`, became final
-    /// (frames come in number order): add it to its round's transcript, and close the round after
+    /// (frames come in number order): add it to its round's outcome, and close the round after
     /// its last frame.
     pub fn frame_final<const W: usize>(
         &mut self,
@@ -213,7 +213,7 @@ impl RoundLedger {
             self.close_round(auth);
         }
         let r = self.cur.get_or_insert_with(|| Round {
-            t: Transcript::new(&self.hr, round, self.frames_per_round),
+            t: RoundHash::new(&self.hr, round, self.frames_per_round),
             first_slot: slots.0,
             last_slot: slots.1,
         });
@@ -299,8 +299,8 @@ impl RoundLedger {
         } else {
             Verdict::Failed
         };
-        // A verified verdict is tagged over the transcript, a failed one over the empty
-        // transcript (the transmitter's differs, and it must still learn the verdict).
+        // A verified verdict is tagged over the outcome, a failed one over the empty
+        // outcome (the transmitter's differs, and it must still learn the verdict).
         let full = match verdict {
             Verdict::Verified => t.t.hash_for(Direction::ToTransmitter, verdict),
             _ => failed_hash(&self.hr, round, self.frames_per_round),
@@ -402,8 +402,8 @@ mod tests {
     }
 
     /// A round of two frames (one answered, one expired) fed to `l`; returns the transmitter's
-    /// transcript of the same round.
-    fn one_round(l: &mut RoundLedger, a: &mut LinkAuth<64>) -> Transcript {
+    /// outcome of the same round.
+    fn one_round(l: &mut RoundLedger, a: &mut LinkAuth<64>) -> RoundHash {
         let mut d = a.frame_digest(2, 500);
         d.add(500, false, 0x07);
         d.add(503, true, 0x08);
@@ -416,7 +416,7 @@ mod tests {
             h.copy_from_slice(&k[..16]);
             h
         };
-        let mut t = Transcript::new(&hr, 0, 2);
+        let mut t = RoundHash::new(&hr, 0, 2);
         t.add(0, Fate::Answered, Some(&d));
         t.add(1, Fate::Expired, None);
         t
@@ -441,7 +441,7 @@ mod tests {
     }
 
     #[test]
-    fn agreed_transcripts_verify_and_the_verdict_goes_back_tagged() {
+    fn agreed_outcomes_verify_and_the_verdict_goes_back_tagged() {
         let mut a = end();
         let mut l = RoundLedger::new(2, &mut a).unwrap();
         let t = one_round(&mut l, &mut a);
@@ -470,7 +470,7 @@ mod tests {
             &pad(round_pad_word(0, Direction::ToTransmitter)),
         );
         assert_eq!((out[0].verdict, out[0].tag), (Verdict::Verified, want));
-        // Words 0, 1 (transcript key) and the round's two pads: 4 words spent.
+        // Words 0, 1 (outcome key) and the round's two pads: 4 words spent.
         assert_eq!(a.counters().key_bits_consumed, 4 * 64);
     }
 
@@ -482,7 +482,7 @@ mod tests {
         l.give_up(&mut a);
         assert_eq!(l.poll_verdict(), Some(verdict(false)));
         assert_eq!(l.counters().failed_no_tag, 1);
-        // The transcript key and the verdict's tag spent; the unused check word wiped, so the
+        // The outcome key and the verdict's tag spent; the unused check word wiped, so the
         // pool's ring moves on.
         assert_eq!(a.counters().key_bits_consumed, 3 * 64);
         assert_eq!(a.counters().key_bits_abandoned, 64);
@@ -504,7 +504,7 @@ mod tests {
 
     proptest! {
         /// No round tag made without the key verifies, whatever its bytes, whether it is made
-        /// up or computed over the right transcript with another key; the round fails and the
+        /// up or computed over the right outcome with another key; the round fails and the
         /// attack alarm rises.
         #[test]
         fn round_tags_without_the_key_never_verify(
@@ -521,7 +521,7 @@ mod tests {
                 &pad(round_pad_word(0, Direction::ToReceiver)),
             );
             let tag = if computed {
-                let mut f = Transcript::new(&other_hr, 0, 2);
+                let mut f = RoundHash::new(&other_hr, 0, 2);
                 f.add(0, Fate::Expired, None);
                 f.add(1, Fate::Expired, None);
                 pad_hash(&f.hash_for(Direction::ToReceiver, Verdict::Open), &other_pad)

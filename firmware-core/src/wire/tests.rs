@@ -323,7 +323,7 @@ fn open_frames_are_bounded() {
 }
 
 // RAM of the endpoint as the host instantiates it (64-announcement batches, 1024 open slots).
-// Round mode adds its ledger (five transcript states, eight outgoing tags, eight verdicts; on the
+// Round mode adds its ledger (five outcome states, eight outgoing tags, eight verdicts; on the
 // host each POLYVAL state holds both of the crate's backends), a 16-byte digest per open frame and
 // one round-tag record's entries: 17,584 bytes in all here.
 #[test]

@@ -183,7 +183,7 @@ pub struct RoundsSummary {
 /// per round (mode `round`), both ways.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct AuthSummary {
-    /// `frame` (a tag on every frame) or `round` (one tag per round over the transcript).
+    /// `frame` (a tag on every frame) or `round` (one tag per round over the outcome).
     pub mode: &'static str,
     /// Round mode's figures.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -501,7 +501,7 @@ fn write_auth(f: &mut std::fmt::Formatter<'_>, a: &AuthSummary) -> std::fmt::Res
             writeln!(
                 f,
                 "auth           one {}-bit Wegman-Carter tag per round of {} frames each way \
-                 (POLYVAL transcript + one-time pad): rounds {} verified, {} failed; {} forged \
+                 (POLYVAL outcome + one-time pad): rounds {} verified, {} failed; {} forged \
                  answers kept; {}",
                 a.tag_bits,
                 rs.frames_per_round,

@@ -1,9 +1,9 @@
 //! The transmitter's side of round authentication (`docs/wire-protocol.md` §9.9), built on the
-//! core's transcript hash ([`slotwise::formats::round`]) and key pool.
+//! core's outcome hash ([`slotwise::formats::round`]) and key pool.
 //!
 //! The transmitter digests each announce frame it answers, learns every frame's fate from the
 //! receiver's cumulative reports, and closes round `r` once it knows the fates of all its frames:
-//! it hashes the transcript, tags it with pad word `2 + 2r + 1` and repeats the tag after every
+//! it hashes the outcome, tags it with pad word `2 + 2r + 1` and repeats the tag after every
 //! frame it handles until the receiver's verdict comes. The round's matched bits stay aside
 //! until then: a verified verdict under a good tag makes them key, anything else discards them.
 //! A round-tag entry with a bad tag decides nothing (an adversary's entry must not make this end
@@ -12,7 +12,7 @@
 use super::tx::TxKeyBit;
 use serde::Serialize;
 use slotwise::formats::round::{
-    failed_hash, round_pad_word, Fate, RoundTag, Transcript, Verdict, MAX_ENTRIES,
+    failed_hash, round_pad_word, Fate, RoundHash, RoundTag, Verdict, MAX_ENTRIES,
 };
 use slotwise::formats::tag::{Direction, BLOCK_LEN, HASH_KEY_LEN};
 use slotwise::wire::LinkAuth;
@@ -41,7 +41,7 @@ pub struct TxRoundCounters {
 type MatchedBits = Vec<(u64, TxKeyBit)>;
 
 struct Closed {
-    t: Transcript,
+    t: RoundHash,
     tag: [u8; 8],
     bits: Vec<(u64, TxKeyBit)>,
 }
@@ -66,7 +66,7 @@ pub struct TxRounds {
 }
 
 impl TxRounds {
-    /// Rounds of `frames_per_round` frames; the transcript key `H_R` comes from pad words 0 and
+    /// Rounds of `frames_per_round` frames; the outcome key `H_R` comes from pad words 0 and
     /// 1 of `auth`.
     pub fn new<const W: usize>(
         frames_per_round: u32,
@@ -77,7 +77,7 @@ impl TxRounds {
         }
         let mut hr = [0u8; HASH_KEY_LEN];
         auth.take_words(0, &mut hr)
-            .map_err(|e| format!("transcript key: {e}"))?;
+            .map_err(|e| format!("outcome key: {e}"))?;
         Ok(Self {
             frames_per_round,
             hr,
@@ -106,7 +106,7 @@ impl TxRounds {
         &self.decided
     }
 
-    /// Announce frame `num` answered: its transcript digest and matched bits.
+    /// Announce frame `num` answered: its outcome digest and matched bits.
     pub fn answered(&mut self, num: u64, digest: [u8; BLOCK_LEN], matched: Vec<(u64, TxKeyBit)>) {
         if num >= self.next_round * u64::from(self.frames_per_round) {
             self.answered.insert(num, (digest, matched));
@@ -160,7 +160,7 @@ impl TxRounds {
     }
 
     fn close<const W: usize>(&mut self, auth: &mut LinkAuth<W>, round: u64, start: u64, end: u64) {
-        let mut t = Transcript::new(&self.hr, round, self.frames_per_round);
+        let mut t = RoundHash::new(&self.hr, round, self.frames_per_round);
         let mut bits = Vec::new();
         for num in start..end {
             let fate = self.fates.remove(&num);

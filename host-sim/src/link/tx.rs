@@ -102,7 +102,7 @@ pub struct HostTransmitter {
     highest_num: Option<u64>,
     /// What the receiver should derive from each answer sent, by slot (to spot forgeries).
     given: HashMap<u64, Answer>,
-    /// Round mode: untagged frames, one tag per round over the transcript.
+    /// Round mode: untagged frames, one tag per round over the outcome.
     rounds: Option<TxRounds>,
     /// Sequence number of the next round-tag record.
     round_seq: u16,

@@ -1,5 +1,5 @@
 //! Round mode of the receiver's endpoint (`docs/wire-protocol.md` §9.9): frames travel untagged
-//! and one tag per round each way covers the round's sifting transcript ([`super::super::round`]).
+//! and one tag per round each way covers the round's sifting outcome ([`super::super::round`]).
 
 use super::{Got, Read, ReadReady, ReceiverLink, Write};
 use crate::formats::framing::{seal_in_place, RecordType, HEADER_LEN};
@@ -26,8 +26,8 @@ where
     W: Write,
 {
     /// A round-authenticated endpoint: frames travel untagged and one tag per round of
-    /// `frames_per_round` announce frames, each way, covers the round's sifting transcript
-    /// ([`crate::wire::round`]); the transcript key is taken from pad words 0 and 1 of `auth`.
+    /// `frames_per_round` announce frames, each way, covers the round's sifting outcome
+    /// ([`crate::wire::round`]); the outcome key is taken from pad words 0 and 1 of `auth`.
     pub fn new_round_authenticated(
         cfg: LinkConfig,
         mut auth: LinkAuth<KEYW>,

@@ -2,8 +2,8 @@
 //! three payload sizes (an answers frame of 3 entries, one of 64 — the host's batch — and the
 //! largest payload, 1056 bytes) and a second end checks each tag; the instructions of every
 //! `seal` and every `verify` are counted. Round mode's work is counted too: the digest of an
-//! answered frame of 64 announcements, adding a frame to a round transcript, and one round tag
-//! (hashing the transcript's last block and padding it). Writes `auth-fw.txt`. A binary apart from
+//! answered frame of 64 announcements, adding a frame to a round outcome, and one round tag
+//! (hashing the outcome's last block and padding it). Writes `auth-fw.txt`. A binary apart from
 //! the board build, so the board build stays what its figures measure.
 
 #![no_std]
@@ -27,7 +27,7 @@ mod files;
 
 use core::fmt::Write as _;
 use files::ShFile;
-use slotwise::formats::round::{pad_hash, Fate, FrameDigest, Transcript, Verdict};
+use slotwise::formats::round::{pad_hash, Fate, FrameDigest, RoundHash, Verdict};
 use slotwise::formats::tag::{Direction, TagInput};
 use slotwise::formats::RecordType;
 use slotwise::wire::{AuthConfig, LinkAuth, RoundLedger};
@@ -95,10 +95,10 @@ fn run() -> Result<(), i32> {
         ok &= writeln!(r, "seal_counts_{size} {seal}").is_ok();
         ok &= writeln!(r, "verify_counts_{size} {verify}").is_ok();
     }
-    // Round mode, per answered frame of 64 announcements: its digest and its transcript entry;
+    // Round mode, per answered frame of 64 announcements: its digest and its outcome entry;
     // per round and direction: one tag.
     let (mut digest, mut add, mut round_tag) = (0u64, 0u64, 0u64);
-    let mut t = Transcript::new(&h, 0, 512);
+    let mut t = RoundHash::new(&h, 0, 512);
     let mut slot = 1_000u64;
     for f in 0..TAGS {
         let t0 = arch::now();
@@ -124,7 +124,7 @@ fn run() -> Result<(), i32> {
         round_tag += t3 - t2;
     }
     ok &= writeln!(r, "digest_counts_64 {digest}").is_ok();
-    ok &= writeln!(r, "transcript_add_counts {add}").is_ok();
+    ok &= writeln!(r, "outcome_add_counts {add}").is_ok();
     ok &= writeln!(r, "round_tag_counts {round_tag}").is_ok();
     ok &= writeln!(
         r,
