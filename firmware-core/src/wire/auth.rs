@@ -312,27 +312,7 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         full: &[u8; 16],
         got: &[u8; TAG_LEN],
     ) -> Result<(), Reject> {
-        let r = if self.stopped {
-            Err(Reject::NoKey)
-        } else {
-            match self.pool.state(word) {
-                PadState::Gone => Err(Reject::Replayed),
-                PadState::Absent => Err(Reject::NoKey),
-                PadState::Fresh => match self.pool.spend(word) {
-                    None => Err(Reject::NoKey),
-                    Some(mut pad) => {
-                        let want = pad_hash(full, &pad);
-                        pad.zeroize();
-                        if tags_equal(&want, got) {
-                            Ok(())
-                        } else {
-                            Err(Reject::BadTag)
-                        }
-                    }
-                },
-            }
-        };
-        self.record(r)
+        self.check_pad(word, full, got, true)
     }
 
     /// Check a tag over a 16-byte hash with pad word `word`, spending the word only when the tag
@@ -342,6 +322,18 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
         word: u64,
         full: &[u8; 16],
         got: &[u8; TAG_LEN],
+    ) -> Result<(), Reject> {
+        self.check_pad(word, full, got, false)
+    }
+
+    /// [`Self::verify_hash`] (`spend_always`) or [`Self::check_hash`]: the word is spent when the
+    /// tag matches, and also when it does not if `spend_always`.
+    fn check_pad(
+        &mut self,
+        word: u64,
+        full: &[u8; 16],
+        got: &[u8; TAG_LEN],
+        spend_always: bool,
     ) -> Result<(), Reject> {
         let r = if self.stopped {
             Err(Reject::NoKey)
@@ -354,8 +346,13 @@ impl<const WORDS: usize> LinkAuth<WORDS> {
                     Some(mut pad) => {
                         let want = pad_hash(full, &pad);
                         pad.zeroize();
-                        if tags_equal(&want, got) {
-                            self.pool.spend(word);
+                        let ok = tags_equal(&want, got);
+                        if ok || spend_always {
+                            if let Some(mut spent) = self.pool.spend(word) {
+                                spent.zeroize();
+                            }
+                        }
+                        if ok {
                             Ok(())
                         } else {
                             Err(Reject::BadTag)
