@@ -8,7 +8,9 @@
 
 use core::fmt;
 
-/// One raw event as the TDC reports it: counter value (in ticks) and input channel.
+/// One raw event as the TDC reports it: counter value (in ticks) and input channel. C layout, so
+/// a C firmware's array of `{ uint64_t count; uint8_t channel; }` is read where it lies.
+#[repr(C)]
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct TdcEvent {

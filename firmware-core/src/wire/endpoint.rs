@@ -269,6 +269,16 @@ where
         &self.cfg
     }
 
+    /// The reader (to inspect a transport).
+    pub const fn reader(&self) -> &R {
+        &self.reader
+    }
+
+    /// The writer (to inspect a transport).
+    pub const fn writer(&self) -> &W {
+        &self.writer
+    }
+
     /// The reader, mutably (to inspect or drive a transport).
     pub fn reader_mut(&mut self) -> &mut R {
         &mut self.reader

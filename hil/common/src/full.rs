@@ -176,6 +176,61 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
         self.drain(totals);
     }
 
+    /// Give the numbering the classical channel's hint (before the first block).
+    pub fn begin(&mut self, hint_t_ps: u64, hint_tx_slot: u64) {
+        let _r = self.probe.part(Part::Receiver);
+        self.rx.hint(hint_t_ps, hint_tx_slot);
+    }
+
+    /// Push one block of events (one detection at a time, the monitor after each), then let the
+    /// receiver take the answers that arrived.
+    pub fn push_block(&mut self, events: &[TdcEvent], totals: &mut FullTotals) {
+        for (seen, &ev) in events.iter().enumerate() {
+            let (tr, locked) = {
+                let _r = self.probe.part(Part::Receiver);
+                let tr = self
+                    .rx
+                    .push(ev, &mut *self.link, &mut self.monitor.tap(&mut *self.out));
+                (tr, self.rx.clock().locked())
+            };
+            if totals.steady_from.is_none() && tr.fate == Fate::InFlight {
+                totals.steady_from = Some(totals.detections + seen as u64);
+                self.probe.steady();
+            }
+            let _m = self.probe.part(Part::Monitor);
+            self.monitor.observe(&tr, locked);
+            self.drain_events(totals);
+        }
+        self.service(totals);
+        totals.detections += events.len() as u64;
+        totals.blocks += 1;
+    }
+
+    /// End of input: the link sends its last batch (the answers in flight may still arrive
+    /// before [`Self::finish`]).
+    pub fn end_input(&mut self) {
+        let _l = self.probe.part(Part::Link);
+        self.link.end_of_input();
+    }
+
+    /// Take the last answers, finish the receiver, close the link and write `summary`'s record
+    /// (the receiver's [`Summary`], with whatever the caller adds to it).
+    pub fn finish(&mut self, totals: &mut FullTotals, summary: impl FnOnce(Summary) -> Summary) {
+        self.service(totals);
+        {
+            let _r = self.probe.part(Part::Receiver);
+            self.rx
+                .finish(&mut *self.link, &mut self.monitor.tap(&mut *self.out));
+        }
+        self.drain(totals);
+        {
+            let _l = self.probe.part(Part::Link);
+            self.link.close();
+        }
+        let _r = self.probe.part(Part::Receiver);
+        self.out.finish(&summary(Summary::of(self.rx)));
+    }
+
     /// Give the clock the hint, push every event in blocks of [`BLOCK`] (one detection at a time,
     /// the monitor after each), take the answers after each block; at the end let the link
     /// settle, finish the receiver, close the link and write the summary.
@@ -187,10 +242,7 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
     ) -> Result<FullTotals, E::Error> {
         const { assert!(KEY_BITS > 0) };
         let mut totals = FullTotals::default();
-        {
-            let _r = self.probe.part(Part::Receiver);
-            self.rx.hint(hint_t_ps, hint_tx_slot);
-        }
+        self.begin(hint_t_ps, hint_tx_slot);
         let mut buf = [TdcEvent {
             count: 0,
             channel: 0,
@@ -200,43 +252,10 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
             if n == 0 {
                 break;
             }
-            for (seen, &ev) in buf.iter().take(n).enumerate() {
-                let (tr, locked) = {
-                    let _r = self.probe.part(Part::Receiver);
-                    let tr =
-                        self.rx
-                            .push(ev, &mut *self.link, &mut self.monitor.tap(&mut *self.out));
-                    (tr, self.rx.clock().locked())
-                };
-                if totals.steady_from.is_none() && tr.fate == Fate::InFlight {
-                    totals.steady_from = Some(totals.detections + seen as u64);
-                    self.probe.steady();
-                }
-                let _m = self.probe.part(Part::Monitor);
-                self.monitor.observe(&tr, locked);
-                self.drain_events(&mut totals);
-            }
-            self.service(&mut totals);
-            totals.detections += n as u64;
-            totals.blocks += 1;
+            self.push_block(buf.get(..n).unwrap_or(&[]), &mut totals);
         }
-        {
-            let _l = self.probe.part(Part::Link);
-            self.link.end_of_input();
-        }
-        self.service(&mut totals);
-        {
-            let _r = self.probe.part(Part::Receiver);
-            self.rx
-                .finish(&mut *self.link, &mut self.monitor.tap(&mut *self.out));
-        }
-        self.drain(&mut totals);
-        {
-            let _l = self.probe.part(Part::Link);
-            self.link.close();
-        }
-        let _r = self.probe.part(Part::Receiver);
-        self.out.finish(&Summary::of(self.rx));
+        self.end_input();
+        self.finish(&mut totals, |s| s);
         Ok(totals)
     }
 }

@@ -8,6 +8,8 @@
 //!   SPI / UART / USB streams (any `embedded-io` streams will do);
 //! - [`run`]: the loop itself, the replaying transmitter of the firmware and the recording
 //!   transmitter of the host (the configured clock, answers as records);
+//! - [`station`]: the whole receiver push-style for a board's own main loop (and the C
+//!   interface), configured by a [`blob`]; [`ring`] holds its bytes in and out;
 //! - [`full`]: the whole receiver as a board runs it — recovered clock with marker numbering,
 //!   the link endpoint over [`link`]'s shim, the monitor with its alarms — configured by the
 //!   [`board`] file; [`probe`] says which part of the board's work runs.
@@ -24,12 +26,15 @@
 )]
 #![deny(missing_docs)]
 
+pub mod blob;
 pub mod board;
 pub mod full;
 pub mod link;
 pub mod probe;
+pub mod ring;
 pub mod run;
 pub mod setup;
+pub mod station;
 pub mod transport;
 
 pub use board::{BoardError, BoardSettings};
@@ -45,6 +50,7 @@ pub use run::{
     RunTotals, BLOCK, KEY_BITS, PENDING,
 };
 pub use setup::{Setup, SetupError};
+pub use station::{Phase, Station, StationCounts, StationError};
 pub use transport::{
     AnswerRecord, AnswerSource, EventSource, IoAnswers, IoEvents, IoFrames, IoTransport,
     StreamError, Transport,

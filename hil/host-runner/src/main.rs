@@ -4,11 +4,14 @@
 //!   the core on the host (answering each announcement and recording the answers), and writes the
 //!   firmware's input files and the host's frames into a run directory;
 //! - `compare` reads the firmware's frames and report from that directory after QEMU ran,
-//!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch.
+//!   compares every frame byte for byte, and prints one JSON line; it exits 1 on any mismatch;
+//! - `station` writes the run directory of the C interface's check (`firmware-c`) and the Rust
+//!   reference frames it must reproduce.
 
 mod capture;
 mod full;
 mod simulated;
+mod station;
 mod synth;
 
 use capture::{check_stream, host_replay, split_frames, write_inputs, Capture};
@@ -90,6 +93,19 @@ enum Cmd {
         /// Write the figures read as the new committed ones.
         #[arg(long)]
         update: bool,
+    },
+    /// Write the C interface's run directory (profile with hint, raw words, recorded answers) and
+    /// the frames the Rust station writes from them; print one JSON line.
+    Station {
+        /// Profile blob from `slotwise profile compile` with a raw-word layout.
+        #[arg(long)]
+        profile: PathBuf,
+        /// A capture written by `slotwise simulate` with `marker = true`.
+        #[arg(long)]
+        from: PathBuf,
+        /// Run directory to fill.
+        #[arg(long)]
+        out: PathBuf,
     },
     /// Turn the firmware's stage-by-stage profile into one JSON line (instructions per event).
     Profile {
@@ -223,6 +239,12 @@ fn main() -> ExitCode {
             elf,
             qemu_exit,
         } => compare(&dir, &target, &capture, &elf, qemu_exit),
+        Cmd::Station { profile, from, out } => {
+            station::prepare(&profile, &from, &out).map(|line| {
+                println!("{line}");
+                true
+            })
+        }
         Cmd::Budgets { committed, update } => budgets(&committed, update),
         Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
     };

@@ -1,7 +1,7 @@
 //! `slotwise profile`: check a receiver profile and draw its gate layout, or write the profile of
 //! the simulator's receiver for a scenario.
 
-use crate::profile::{gate_layout_svg, gate_layout_text, Profile};
+use crate::profile::{compile, gate_layout_svg, gate_layout_text, Profile};
 use crate::scenario::Scenario;
 use clap::{Args, Subcommand};
 use std::io::Write;
@@ -18,6 +18,7 @@ replays a capture through the receiver it describes; no scenario is needed.
   slotwise profile check my-receiver.toml              # check it; draw the gate layout
   slotwise profile check my-receiver.toml --svg g.svg  # ...and as a picture
   slotwise profile from-scenario scenarios/bench-100mhz-30km.toml -o bench.toml
+  slotwise profile compile bench.toml -o bench.swp     # the bytes a board reads (C or Rust)
 
 Every value is checked by the core's own configuration constructors; an error names the file,
 the line and the key (e.g. gates[2].half_width_ps) and the range that was expected.";
@@ -63,6 +64,35 @@ gives the same counters as replaying it with the scenario.")]
         #[arg(short, long)]
         out: Option<PathBuf>,
     },
+    /// Compile a profile to the blob a board reads (docs/board-integration.md).
+    #[command(long_about = "\
+Compile a receiver profile to the profile blob a board's firmware reads (Rust: Station::new; C:
+sw_station_init), so board code never builds gate tables or clock settings by hand. The blob
+holds the setup (TDC, gates, sifting), the board settings (recovered clock from [clock], marker
+numbering, link timeouts, monitor, alarms) and, with --words, the TDC's raw-word layout; each
+section has its own CRC-32/ISCSI. Layout: docs/board-integration.md.
+
+  slotwise profile compile rx.toml -o rx.swp
+  slotwise profile compile rx.toml -o rx.swp \\
+      --words bytes=8,time=0:32,channel=32:8,kind=40:8,event=1,rollover=2,max-channel=7
+
+The profile must enable the public marker: the board numbers slots through it.")]
+    Compile {
+        /// The profile (TOML).
+        profile: PathBuf,
+        /// Where to write the blob.
+        #[arg(short, long)]
+        out: PathBuf,
+        /// The TDC's raw-word layout, as comma-separated KEY=VALUE items: bytes (4|8), endian
+        /// (little|big), time, channel, kind and count as OFFSET:WIDTH in bits, event and
+        /// rollover (kind values), max-channel.
+        #[arg(long, value_name = "LAYOUT")]
+        words: Option<String>,
+        /// The classical channel's hint, when known when compiling: receiver time in ps and the
+        /// transmitter's slot counter then (default: none; the firmware gives it at run time).
+        #[arg(long, value_name = "T_PS:TX_SLOT")]
+        hint: Option<String>,
+    },
 }
 
 /// Run `slotwise profile`.
@@ -89,6 +119,26 @@ pub fn run(a: &ProfileArgs) -> Result<(), Box<dyn std::error::Error>> {
             }
             Ok(())
         }
+        ProfileAction::Compile {
+            profile,
+            out,
+            words,
+            hint,
+        } => {
+            let source = profile.display().to_string();
+            let (p, c) = Profile::load(profile)?;
+            let words = words.as_deref().map(compile::parse_words).transpose()?;
+            let hint = hint.as_deref().map(parse_hint).transpose()?;
+            let blob = compile::compile(&p, &c, hint, words, &source)?;
+            std::fs::write(out, &blob).map_err(|e| format!("{}: {e}", out.display()))?;
+            println!(
+                "wrote {} ({} bytes: setup, board settings{})",
+                out.display(),
+                blob.len(),
+                if words.is_some() { ", word layout" } else { "" }
+            );
+            Ok(())
+        }
         ProfileAction::FromScenario { scenario, out } => {
             let s = Scenario::load(scenario)?;
             let p = Profile::from_scenario(&s);
@@ -109,4 +159,17 @@ pub fn run(a: &ProfileArgs) -> Result<(), Box<dyn std::error::Error>> {
             Ok(())
         }
     }
+}
+
+/// `T_PS:TX_SLOT` of `--hint`.
+fn parse_hint(s: &str) -> Result<(u64, u64), String> {
+    let (t, k) = s
+        .split_once(':')
+        .ok_or_else(|| format!("--hint {s:?}: expected T_PS:TX_SLOT"))?;
+    let n = |v: &str| {
+        v.trim()
+            .parse::<u64>()
+            .map_err(|_| format!("--hint {s:?}: {v:?} is not a whole number"))
+    };
+    Ok((n(t)?, n(k)?))
 }

@@ -1,0 +1,302 @@
+//! The whole receiver as one push-style object for a board's own main loop: blocks of raw TDC
+//! words or of events in, bytes of the classical channel in and out, CRC-framed records out for
+//! the post-processing host, counters and alarms readable at any time.
+//!
+//! It runs the same steps as [`FullRun`] (the HIL firmware and its host replay), configured from
+//! a [`ProfileBlob`]. The firmware moves bytes between its peripherals and the station's rings;
+//! the station never blocks and never allocates. The C interface (`firmware-c`) is a thin layer
+//! over this type.
+
+use crate::blob::ProfileBlob;
+use crate::board::BoardError;
+use crate::full::{
+    build_receiver, FullMonitor, FullReceiver, FullRun, FullTotals, LinkEnd, LINK_BATCH, LINK_OUT,
+};
+use crate::probe::Probe;
+use crate::ring::{ByteRing, FrameBytesOut, FrameRing};
+use crate::run::{BoardFrameOut, BLOCK};
+use slotwise::ingest::{Ingest, IngestCounts};
+use slotwise::{ReceiverLink, Summary, TdcEvent};
+
+/// Bytes of the classical channel held until the receiver reads them.
+pub const LINK_IN_BYTES: usize = 2048;
+/// Bytes of announce frames held until the firmware sends them.
+pub const LINK_OUT_BYTES: usize = 4096;
+/// Bytes of output records held until the firmware drains them.
+pub const FRAMES_BYTES: usize = 8192;
+
+/// The station's link endpoint: answers from a ring, announce frames into a ring.
+pub type StationLink =
+    ReceiverLink<ByteRing<LINK_IN_BYTES>, FrameBytesOut<LINK_OUT_BYTES>, LINK_BATCH, LINK_OUT>;
+
+impl LinkEnd for StationLink {
+    fn end_of_input(&mut self) {
+        self.flush();
+    }
+
+    fn close(&mut self) {
+        ReceiverLink::close(self);
+    }
+}
+
+/// Where the station is in its life.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Phase {
+    /// Taking blocks.
+    Running,
+    /// Input ended; the last answers may still be pushed.
+    Ending,
+    /// Finished: the summary record is written; nothing more is taken.
+    Finished,
+}
+
+/// Why a call was refused; the station's state is unchanged.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum StationError {
+    /// The profile blob was refused.
+    Profile(BoardError),
+    /// Raw words were pushed but the profile has no raw-word layout.
+    NoWordLayout,
+    /// The call does not fit the phase (a block after the end of input, say).
+    Phase(Phase),
+}
+
+impl core::fmt::Display for StationError {
+    fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+        match self {
+            Self::Profile(e) => write!(f, "profile blob: {e}"),
+            Self::NoWordLayout => write!(f, "raw words pushed, but the profile has no word layout"),
+            Self::Phase(p) => write!(f, "call not allowed in phase {p:?}"),
+        }
+    }
+}
+
+impl core::error::Error for StationError {}
+
+/// Counters of the station beside the receiver's own accounting.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct StationCounts {
+    /// Detections, blocks, alarm and statistics records.
+    pub totals: FullTotals,
+    /// The raw-word ingest's counters (zero when events are pushed).
+    pub ingest: IngestCounts,
+    /// Classical-channel bytes refused because the input ring was full, in bytes.
+    pub link_in_refused_bytes: u64,
+    /// Output records dropped because the firmware did not drain them in time, in frames.
+    pub frames_dropped: u64,
+    /// Output records written, in frames.
+    pub frames_out: u64,
+}
+
+/// Borrowed parts of a [`Station`]: the driver over its receiver, link, monitor and output, and
+/// what the station keeps beside them.
+struct Parts<'a> {
+    run: FullRun<'a, crate::FullClock, crate::FullNumbering, StationLink, FrameRing<FRAMES_BYTES>>,
+    totals: &'a mut FullTotals,
+    ingest: &'a mut Option<Ingest>,
+    events: &'a mut [TdcEvent; BLOCK],
+}
+
+/// The whole receiver, push-style.
+pub struct Station {
+    rx: FullReceiver,
+    link: StationLink,
+    monitor: FullMonitor,
+    out: BoardFrameOut<FrameRing<FRAMES_BYTES>>,
+    ingest: Option<Ingest>,
+    events: [TdcEvent; BLOCK],
+    totals: FullTotals,
+    phase: Phase,
+}
+
+impl Station {
+    /// A receiver from a profile blob, cold (no lock yet), with the blob's hint given when it
+    /// carries one (a hint of 0, 0 is none: call [`Self::hint`] when the transmitter's hello
+    /// arrives).
+    pub fn new(blob: &[u8]) -> Result<Self, StationError> {
+        let p = ProfileBlob::decode(blob).map_err(StationError::Profile)?;
+        let cfg = p
+            .setup
+            .receiver_config()
+            .map_err(|e| StationError::Profile(e.into()))?;
+        let stats = p
+            .board
+            .stats_config(cfg.gates())
+            .map_err(StationError::Profile)?;
+        let mut s = Self {
+            rx: build_receiver(&p.setup, &p.board).map_err(StationError::Profile)?,
+            link: StationLink::new(
+                p.board.link,
+                ByteRing::new(),
+                FrameBytesOut(ByteRing::new()),
+            ),
+            monitor: FullMonitor::new(stats, p.board.alarms),
+            out: BoardFrameOut::new(FrameRing::new()),
+            ingest: p.words.map(Ingest::new),
+            events: [TdcEvent {
+                count: 0,
+                channel: 0,
+            }; BLOCK],
+            totals: FullTotals::default(),
+            phase: Phase::Running,
+        };
+        if p.board.hint_t_ps != 0 || p.board.hint_tx_slot != 0 {
+            s.hint(p.board.hint_t_ps, p.board.hint_tx_slot);
+        }
+        Ok(s)
+    }
+
+    /// The driver's steps over the station's parts, and the parts the station keeps beside them.
+    fn parts(&mut self) -> Parts<'_> {
+        Parts {
+            run: FullRun {
+                rx: &mut self.rx,
+                link: &mut self.link,
+                monitor: &mut self.monitor,
+                out: &mut self.out,
+                probe: Probe::NONE,
+            },
+            totals: &mut self.totals,
+            ingest: &mut self.ingest,
+            events: &mut self.events,
+        }
+    }
+
+    fn running(&self) -> Result<(), StationError> {
+        match self.phase {
+            Phase::Running => Ok(()),
+            p => Err(StationError::Phase(p)),
+        }
+    }
+
+    /// The classical channel's hint: the transmitter's slot counter `tx_slot` at receiver time
+    /// `t_ps` (ps on the core's time base).
+    pub fn hint(&mut self, t_ps: u64, tx_slot: u64) {
+        self.parts().run.begin(t_ps, tx_slot);
+    }
+
+    /// Push a block of events (any length; taken in pieces of [`BLOCK`], the answers read after
+    /// each piece).
+    pub fn push_events(&mut self, events: &[TdcEvent]) -> Result<(), StationError> {
+        self.running()?;
+        let mut p = self.parts();
+        for piece in events.chunks(BLOCK) {
+            p.run.push_block(piece, p.totals);
+        }
+        Ok(())
+    }
+
+    /// Push a block of raw TDC bytes in the profile's word layout; a block may cut a record
+    /// anywhere (the rest is kept for the next block). The bytes are decoded where they lie.
+    pub fn push_words(&mut self, bytes: &[u8]) -> Result<(), StationError> {
+        self.running()?;
+        let mut p = self.parts();
+        let ingest = p.ingest.as_mut().ok_or(StationError::NoWordLayout)?;
+        let mut rest = bytes;
+        loop {
+            let done = ingest.push(rest, p.events);
+            if done.events > 0 {
+                let block = p.events.get(..done.events).unwrap_or(&[]);
+                p.run.push_block(block, p.totals);
+            }
+            rest = rest.get(done.consumed..).unwrap_or(&[]);
+            if rest.is_empty() || done.consumed == 0 {
+                return Ok(());
+            }
+        }
+    }
+
+    /// The FIFO reported `words` words lost before they were read (overrun).
+    pub fn report_overrun(&mut self, words: u64) {
+        if let Some(i) = self.ingest.as_mut() {
+            i.report_overrun(words);
+        }
+    }
+
+    /// The FIFO's status showed its full flag.
+    pub fn report_fifo_full(&mut self) {
+        if let Some(i) = self.ingest.as_mut() {
+            i.report_fifo_full();
+        }
+    }
+
+    /// Bytes received on the classical channel (the transmitter's answers frames); returns how
+    /// many were taken (the rest did not fit and are counted).
+    pub fn push_link(&mut self, bytes: &[u8]) -> usize {
+        self.link.reader_mut().push(bytes)
+    }
+
+    /// Bytes to send on the classical channel (announce frames); returns how many were written
+    /// into `out`.
+    pub fn drain_link(&mut self, out: &mut [u8]) -> usize {
+        self.link.writer_mut().0.pop_into(out)
+    }
+
+    /// Output records for the post-processing host (key blocks, alarms, statistics, summary);
+    /// returns how many bytes were written into `out`.
+    pub fn drain_frames(&mut self, out: &mut [u8]) -> usize {
+        self.out.sink_mut().drain(out)
+    }
+
+    /// End of input: the last announce frame is sent; push the answers still in flight, then
+    /// [`Self::finish`].
+    pub fn end_input(&mut self) -> Result<(), StationError> {
+        self.running()?;
+        self.parts().run.end_input();
+        self.phase = Phase::Ending;
+        Ok(())
+    }
+
+    /// Take the last answers, finish the receiver, close the link and write the summary record.
+    pub fn finish(&mut self) -> Result<(), StationError> {
+        match self.phase {
+            Phase::Finished => return Err(StationError::Phase(Phase::Finished)),
+            Phase::Running => self.parts().run.end_input(),
+            Phase::Ending => {}
+        }
+        let mut p = self.parts();
+        p.run.finish(p.totals, |s| s);
+        self.phase = Phase::Finished;
+        Ok(())
+    }
+
+    /// The phase.
+    pub const fn phase(&self) -> Phase {
+        self.phase
+    }
+
+    /// The receiver's summary now (accounting, tallies, sifted bits).
+    pub fn summary(&self) -> Summary {
+        Summary::of(&self.rx)
+    }
+
+    /// The receiver.
+    pub const fn receiver(&self) -> &FullReceiver {
+        &self.rx
+    }
+
+    /// The link endpoint (its counters, its state).
+    pub const fn link(&self) -> &StationLink {
+        &self.link
+    }
+
+    /// The monitor (active alarms: `monitor().alarms().active()`).
+    pub const fn monitor(&self) -> &FullMonitor {
+        &self.monitor
+    }
+
+    /// The station's own counters.
+    pub fn counts(&self) -> StationCounts {
+        let ring = self.out.sink();
+        StationCounts {
+            totals: self.totals,
+            ingest: self.ingest.as_ref().map(Ingest::counts).unwrap_or_default(),
+            link_in_refused_bytes: self.link.reader().refused(),
+            frames_dropped: ring.dropped_frames(),
+            frames_out: ring.frames(),
+        }
+    }
+}

@@ -1,0 +1,323 @@
+//! The run directory of the C interface's check, and the Rust reference it is compared with.
+//!
+//! `hil-host station` takes a profile blob (`slotwise profile compile`, with a raw-word layout)
+//! and a capture of `slotwise simulate` with the public marker on, and writes:
+//!
+//! - `profile.swp`: the blob with the capture's classical-channel hint;
+//! - `words.bin`: the capture's events as raw TDC records in the blob's word layout, with a
+//!   rollover record wherever the narrow time field wrapped;
+//! - `answers-link.bin`: the transmitter's answers frames, each after the index of the announce
+//!   frame it answers (the layout of [`slotwise_hil::link`]);
+//! - `frames-ref.bin`, `announce-ref.bin`: what [`Station`] wrote on the host.
+//!
+//! **The schedule** both sides follow, so their bytes can be compared: push [`CHUNK_BYTES`] bytes
+//! of words; then *pump*: drain the announce bytes (counting frames by their 0x00 delimiters),
+//! push the answers records released by the rule of [`slotwise_hil::link`] (announce frame k's
+//! answers once frame k + 2 was sent; after the end of input, once frame k was sent) as far as
+//! the station takes them, and drain the output records. At the end: `end_input`, pump, `finish`,
+//! pump. `firmware-c/examples/replay.c` does exactly this in C.
+//!
+//! The reference runs three times and every run must write the same bytes: with the host
+//! transmitter answering live, from the recorded answers, and fed events instead of raw words
+//! (the ingest path reproduces the capture's events exactly).
+
+use serde_json::{json, Value};
+use slotwise::words::{Endian, WordFormat};
+use slotwise::TdcEvent;
+use slotwise_hil::blob::{ProfileBlob, MAX_BLOB_LEN};
+use slotwise_hil::link::ANSWER_LAG_FRAMES;
+use slotwise_hil::Station;
+use slotwise_sim::capture::read_all;
+use slotwise_sim::clocks::simulated_hint;
+use slotwise_sim::link::tx::HostTransmitter;
+use slotwise_sim::link::LinkModel;
+use slotwise_sim::scenario::Scenario;
+use std::collections::VecDeque;
+use std::fs;
+use std::path::Path;
+
+/// Bytes of raw words per push (the C program uses the same figure).
+pub const CHUNK_BYTES: usize = 4096;
+
+/// The capture's events as raw records of `format`; rollover records where the time field wraps.
+pub fn encode_words(events: &[TdcEvent], format: &WordFormat) -> Result<Vec<u8>, String> {
+    let l = format.layout();
+    let kind = l
+        .kind
+        .ok_or("the word layout has no kind field, so it cannot carry rollover records")?;
+    let w = u32::from(l.time.width);
+    let max_count = if kind.rollover_count.width == 0 {
+        1
+    } else {
+        (1u64 << kind.rollover_count.width.min(32)) - 1
+    };
+    let mut out = Vec::with_capacity(events.len() * usize::from(l.record_bytes));
+    let mut put = |word: u64| {
+        let bytes = word.to_le_bytes();
+        let rec = &bytes[..usize::from(l.record_bytes)];
+        match l.endian {
+            Endian::Little => out.extend_from_slice(rec),
+            Endian::Big => out.extend(rec.iter().rev()),
+        }
+    };
+    let field = |v: u64, f: slotwise::words::BitField| (v & ((1u64 << f.width) - 1)) << f.offset;
+    let mut wraps = 0u64;
+    for ev in events {
+        let need = ev.count >> w;
+        if need < wraps {
+            return Err(format!(
+                "event counts fall back at count {}: the capture is not in time order",
+                ev.count
+            ));
+        }
+        while wraps < need {
+            let n = (need - wraps).min(max_count);
+            let count = if kind.rollover_count.width == 0 { 0 } else { n };
+            put(field(u64::from(kind.rollover), kind.field) | field(count, kind.rollover_count));
+            wraps += n;
+        }
+        if ev.channel > l.max_channel {
+            return Err(format!("channel {} above the layout's maximum", ev.channel));
+        }
+        put(field(ev.count, l.time)
+            | field(u64::from(ev.channel), l.channel)
+            | field(u64::from(kind.event), kind.field));
+    }
+    Ok(out)
+}
+
+/// Where the transmitter's answers come from.
+enum Answers<'a> {
+    /// The host transmitter answers each announce frame as it is drained; records are kept.
+    Live(Box<HostTransmitter>, Vec<u8>),
+    /// Recorded records, read in order.
+    Recorded(&'a [u8]),
+}
+
+/// One run of the schedule.
+struct Pump<'a> {
+    st: Box<Station>,
+    answers: Answers<'a>,
+    /// Records (index, frame) not yet pushed, in order.
+    held: VecDeque<(u32, Vec<u8>)>,
+    /// Bytes of the first held frame already pushed.
+    pushed: usize,
+    partial: Vec<u8>,
+    written: u32,
+    ended: bool,
+    announce: Vec<u8>,
+    frames: Vec<u8>,
+}
+
+impl Pump<'_> {
+    fn pump(&mut self) {
+        let mut buf = [0u8; 1024];
+        loop {
+            let n = self.st.drain_link(&mut buf);
+            if n == 0 {
+                break;
+            }
+            self.announce.extend_from_slice(&buf[..n]);
+            for &b in &buf[..n] {
+                self.partial.push(b);
+                if b != 0 {
+                    continue;
+                }
+                if let Answers::Live(tx, log) = &mut self.answers {
+                    for a in tx.receive(&self.partial) {
+                        log.extend_from_slice(&self.written.to_le_bytes());
+                        log.extend_from_slice(&a);
+                        self.held.push_back((self.written, a));
+                    }
+                }
+                self.partial.clear();
+                self.written += 1;
+            }
+        }
+        if let Answers::Recorded(rest) = &mut self.answers {
+            while let Some((rec, tail)) = next_record(rest) {
+                self.held.push_back(rec);
+                *rest = tail;
+            }
+        }
+        while let Some((index, frame)) = self.held.front() {
+            let released =
+                self.written > *index && (self.ended || self.written - index > ANSWER_LAG_FRAMES);
+            if !released {
+                break;
+            }
+            let taken = self.st.push_link(&frame[self.pushed..]);
+            self.pushed += taken;
+            if self.pushed < frame.len() {
+                break;
+            }
+            self.held.pop_front();
+            self.pushed = 0;
+        }
+        loop {
+            let n = self.st.drain_frames(&mut buf);
+            if n == 0 {
+                break;
+            }
+            self.frames.extend_from_slice(&buf[..n]);
+        }
+    }
+}
+
+/// The next record of an answers stream: index, then the frame through its 0x00.
+fn next_record(bytes: &[u8]) -> Option<((u32, Vec<u8>), &[u8])> {
+    let index = u32::from_le_bytes(bytes.get(..4)?.try_into().ok()?);
+    let end = bytes.get(4..)?.iter().position(|&b| b == 0)? + 5;
+    Some(((index, bytes[4..end].to_vec()), &bytes[end..]))
+}
+
+/// What one run wrote.
+struct Run {
+    frames: Vec<u8>,
+    announce: Vec<u8>,
+    records: Vec<u8>,
+    counts: slotwise_hil::StationCounts,
+    summary: slotwise::Summary,
+    /// Detections taken in after each push (where the schedule pumped).
+    cuts: Vec<u64>,
+}
+
+fn run(blob: &[u8], input: Input<'_>, answers: Answers<'_>) -> Result<Run, String> {
+    let st = Box::new(Station::new(blob).map_err(|e| e.to_string())?);
+    let mut p = Pump {
+        st,
+        answers,
+        held: VecDeque::new(),
+        pushed: 0,
+        partial: Vec::new(),
+        written: 0,
+        ended: false,
+        announce: Vec::new(),
+        frames: Vec::new(),
+    };
+    let mut cuts = Vec::new();
+    match input {
+        Input::Words(w) => {
+            for chunk in w.chunks(CHUNK_BYTES) {
+                p.st.push_words(chunk).map_err(|e| e.to_string())?;
+                p.pump();
+                cuts.push(p.st.counts().totals.detections);
+            }
+        }
+        Input::Events(ev, at) => {
+            let mut from = 0;
+            for &to in at {
+                let chunk = ev
+                    .get(from as usize..to as usize)
+                    .ok_or("cut past the events")?;
+                p.st.push_events(chunk).map_err(|e| e.to_string())?;
+                p.pump();
+                from = to;
+            }
+        }
+    }
+    p.st.end_input().map_err(|e| e.to_string())?;
+    p.ended = true;
+    p.pump();
+    p.st.finish().map_err(|e| e.to_string())?;
+    p.pump();
+    let records = match p.answers {
+        Answers::Live(_, log) => log,
+        Answers::Recorded(_) => Vec::new(),
+    };
+    Ok(Run {
+        frames: p.frames,
+        announce: p.announce,
+        records,
+        counts: p.st.counts(),
+        summary: p.st.summary(),
+        cuts,
+    })
+}
+
+enum Input<'a> {
+    Words(&'a [u8]),
+    /// Events, pushed in pieces ending at these counts (the words run's pump points).
+    Events(&'a [TdcEvent], &'a [u64]),
+}
+
+/// Make the run directory and the reference; returns the reference's summary line.
+pub fn prepare(profile: &Path, capture: &Path, out: &Path) -> Result<Value, String> {
+    let source = capture.display().to_string();
+    let blob = fs::read(profile).map_err(|e| format!("{}: {e}", profile.display()))?;
+    let mut p = ProfileBlob::decode(&blob).map_err(|e| format!("{}: {e}", profile.display()))?;
+    let format = p.words.ok_or_else(|| {
+        format!(
+            "{}: the profile has no raw-word layout (slotwise profile compile --words ...)",
+            profile.display()
+        )
+    })?;
+    let (header, events) = read_all(capture).map_err(|e| e.to_string())?;
+    let s = Scenario::from_toml_str(&header.metadata, &format!("{source}: header metadata"))
+        .map_err(|e| e.to_string())?;
+    (p.board.hint_t_ps, p.board.hint_tx_slot) =
+        simulated_hint(&s).map_err(|e| format!("{source}: {e}"))?;
+    let mut b = vec![0u8; MAX_BLOB_LEN];
+    let n = p.encode(&mut b).map_err(|e| e.to_string())?;
+    b.truncate(n);
+    let words = encode_words(&events, &format)?;
+    let tx = HostTransmitter::new(&s, LinkModel::perfect(&s).test_fraction);
+    let live = run(
+        &b,
+        Input::Words(&words),
+        Answers::Live(Box::new(tx), Vec::new()),
+    )?;
+    let again = run(&b, Input::Words(&words), Answers::Recorded(&live.records))?;
+    let evs = run(
+        &b,
+        Input::Events(&events, &live.cuts),
+        Answers::Recorded(&live.records),
+    )?;
+    if again.frames != live.frames || again.announce != live.announce {
+        return Err(format!(
+            "{source}: the station fed recorded answers wrote other bytes than with the \
+             transmitter answering live"
+        ));
+    }
+    if evs.frames != live.frames || evs.announce != live.announce {
+        return Err(format!(
+            "{source}: the station fed events wrote other bytes than fed the same events as raw \
+             words"
+        ));
+    }
+    let acc = &live.summary.accounting;
+    if acc.total() != live.summary.detections_in
+        || live.summary.detections_in != events.len() as u64
+    {
+        return Err(format!(
+            "{source}: accounting sums to {} for {} detections of {} events",
+            acc.total(),
+            live.summary.detections_in,
+            events.len()
+        ));
+    }
+    fs::create_dir_all(out).map_err(|e| format!("{}: {e}", out.display()))?;
+    for (name, bytes) in [
+        ("profile.swp", &b),
+        ("words.bin", &words),
+        ("answers-link.bin", &live.records),
+        ("frames-ref.bin", &live.frames),
+        ("announce-ref.bin", &live.announce),
+    ] {
+        let path = out.join(name);
+        fs::write(&path, bytes).map_err(|e| format!("{}: {e}", path.display()))?;
+    }
+    let c = &live.counts;
+    Ok(json!({
+        "capture": source,
+        "detections": live.summary.detections_in,
+        "sifted_bits": live.summary.sifted_bits,
+        "words_bytes": words.len(),
+        "frames_out": c.frames_out,
+        "frames_dropped": c.frames_dropped,
+        "link_in_refused_bytes": c.link_in_refused_bytes,
+        "rollover_gaps": c.ingest.rollover_gaps,
+        "malformed_words": c.ingest.malformed_words,
+        "station_bytes": std::mem::size_of::<Station>(),
+    }))
+}
