@@ -37,10 +37,13 @@ use slotwise_hil::{Station, StationError};
 /// Bytes of storage a station needs: an upper bound over every supported target (the build fails
 /// if a target's station grows past it; `sw_station_size()` gives the exact figure).
 pub const SW_STATION_STORAGE_BYTES: usize = 65536;
+/// The same storage in 64-bit words.
+pub const SW_STATION_STORAGE_WORDS: usize = 8192;
 /// Alignment of the station's storage, in bytes.
 pub const SW_STATION_ALIGN: usize = 16;
 
 const _: () = assert!(core::mem::size_of::<Station>() <= SW_STATION_STORAGE_BYTES);
+const _: () = assert!(SW_STATION_STORAGE_WORDS * 8 == SW_STATION_STORAGE_BYTES);
 const _: () = assert!(core::mem::align_of::<Station>() <= SW_STATION_ALIGN);
 const _: () = assert!(core::mem::align_of::<SwStorage>() == SW_STATION_ALIGN);
 const _: () = assert!(core::mem::size_of::<SwEvent>() == core::mem::size_of::<TdcEvent>());
@@ -69,14 +72,66 @@ pub const SW_ALARM_RATE_COLLAPSE: u32 = 1 << 3;
 pub const SW_ALARM_SATURATION: u32 = 1 << 4;
 
 /// Number of detection fates in [`SwCounters::fates`].
-pub const SW_FATES: usize = Fate::COUNT;
+pub const SW_FATES: usize = 13;
+/// Index in `fates`: counter value wider than the TDC, or before the time base.
+pub const SW_FATE_REJECTED_TIME: usize = 0;
+/// Index in `fates`: channel not described by the gate table.
+pub const SW_FATE_REJECTED_CHANNEL: usize = 1;
+/// Index in `fates`: before the clock's origin or while the clock was not locked.
+pub const SW_FATE_NO_CLOCK: usize = 2;
+/// Index in `fates`: arrived after its slot had been closed.
+pub const SW_FATE_LATE: usize = 3;
+/// Index in `fates`: on a known channel, outside every gate window.
+pub const SW_FATE_OUTSIDE_GATES: usize = 4;
+/// Index in `fates`: gated while the slot numbering was not yet established.
+pub const SW_FATE_UNALIGNED: usize = 5;
+/// Index in `fates`: in a public marker slot.
+pub const SW_FATE_MARKER: usize = 6;
+/// Index in `fates`: part of a slot with two or more gated detections.
+pub const SW_FATE_MULTI_CLICK: usize = 7;
+/// Index in `fates`: a sifted bit.
+pub const SW_FATE_SIFTED: usize = 8;
+/// Index in `fates`: basis differed from the transmitter's.
+pub const SW_FATE_BASIS_MISMATCH: usize = 9;
+/// Index in `fates`: dropped because the pending queue was full.
+pub const SW_FATE_QUEUE_OVERFLOW: usize = 10;
+/// Index in `fates`: its answer never came within the timeout.
+pub const SW_FATE_UNANSWERED: usize = 11;
+/// Index in `fates`: still waiting (slot open, or announced and awaiting its answer).
+pub const SW_FATE_IN_FLIGHT: usize = 12;
+
+// Indices in a const block, which cannot run an iterator; every index is below the length.
+#[allow(clippy::indexing_slicing)]
+const _: () = {
+    assert!(SW_FATES == Fate::COUNT);
+    let order = [
+        (SW_FATE_REJECTED_TIME, Fate::RejectedTime),
+        (SW_FATE_REJECTED_CHANNEL, Fate::RejectedChannel),
+        (SW_FATE_NO_CLOCK, Fate::NoClock),
+        (SW_FATE_LATE, Fate::Late),
+        (SW_FATE_OUTSIDE_GATES, Fate::OutsideGates),
+        (SW_FATE_UNALIGNED, Fate::Unaligned),
+        (SW_FATE_MARKER, Fate::Marker),
+        (SW_FATE_MULTI_CLICK, Fate::MultiClick),
+        (SW_FATE_SIFTED, Fate::Sifted),
+        (SW_FATE_BASIS_MISMATCH, Fate::BasisMismatch),
+        (SW_FATE_QUEUE_OVERFLOW, Fate::QueueOverflow),
+        (SW_FATE_UNANSWERED, Fate::Unanswered),
+        (SW_FATE_IN_FLIGHT, Fate::InFlight),
+    ];
+    let mut i = 0;
+    while i < order.len() {
+        assert!(order[i].0 == order[i].1.index());
+        i += 1;
+    }
+};
 
 /// Caller-provided storage for one station: declare it `static` (it is large) and pass it to
 /// `sw_station_init`.
 #[repr(C, align(16))]
 pub struct SwStorage {
     /// The bytes, as 64-bit words.
-    pub words: [u64; SW_STATION_STORAGE_BYTES / 8],
+    pub words: [u64; SW_STATION_STORAGE_WORDS],
 }
 
 /// A station living in an [`SwStorage`] (opaque to C).
