@@ -19,7 +19,6 @@
  * Builds with the host's C compiler (linked with the host library) and with arm-none-eabi-gcc
  * for a Cortex-M4F (newlib, semihosting file I/O; see mps2/).
  */
-#include <inttypes.h>
 #include <stdio.h>
 #include <string.h>
 
@@ -140,13 +139,14 @@ int main(void) {
     sw_station_counters(p.st, &c);
     uint64_t sum = 0;
     for (size_t i = 0; i < SW_FATES; i++) sum += c.fates[i];
-    printf("c-replay: station %u bytes, detections %" PRIu64 ", sifted %" PRIu64
-           ", accounted %" PRIu64 ", frames out %" PRIu64 ", dropped %" PRIu64
-           ", announce frames %" PRIu64 ", answers frames %" PRIu64 ", locked %u, aligned %u"
-           ", alarms 0x%02x\n",
-           (unsigned)sw_station_size(), c.detections, c.sifted_bits, sum, c.frames_out,
-           c.frames_dropped, c.announce_frames, c.answers_frames, (unsigned)c.locked,
-           (unsigned)c.aligned, (unsigned)sw_station_alarms(p.st));
+    printf("c-replay: station %u bytes, detections %llu, sifted %llu, accounted %llu, frames out "
+           "%llu, dropped %llu, announce frames %llu, answers frames %llu, locked %u, aligned %u, "
+           "alarms 0x%02x\n",
+           (unsigned)sw_station_size(), (unsigned long long)c.detections,
+           (unsigned long long)c.sifted_bits, (unsigned long long)sum,
+           (unsigned long long)c.frames_out, (unsigned long long)c.frames_dropped,
+           (unsigned long long)c.announce_frames, (unsigned long long)c.answers_frames,
+           (unsigned)c.locked, (unsigned)c.aligned, (unsigned)sw_station_alarms(p.st));
     if (sum != c.detections || c.frames_dropped != 0 || c.link_in_refused_bytes != 0) p.failed = 1;
     return p.failed ? 1 : 0;
 }
