@@ -52,7 +52,7 @@ for t in "${TARGETS[@]}"; do
 done
 
 step "tests (shared driver)"
-cargo test -p slotwise-hil
+cargo test -p slotwise-hil -p slotwise-c
 
 step "build"
 cargo build --release -p slotwise-hil-host

@@ -14,12 +14,15 @@
 //!
 //! Every function that can fail returns one of the `SW_*` status codes (0 = [`SW_OK`]).
 #![cfg_attr(not(test), no_std)]
-#![deny(
-    clippy::unwrap_used,
-    clippy::expect_used,
-    clippy::panic,
-    clippy::indexing_slicing,
-    clippy::float_arithmetic
+#![cfg_attr(
+    not(test),
+    deny(
+        clippy::unwrap_used,
+        clippy::expect_used,
+        clippy::panic,
+        clippy::indexing_slicing,
+        clippy::float_arithmetic
+    )
 )]
 #![deny(missing_docs)]
 
@@ -563,5 +566,48 @@ fn panic(_info: &core::panic::PanicInfo<'_>) -> ! {
     // Unreachable by design (clippy denies the panicking calls); stop rather than run on.
     loop {
         core::hint::spin_loop();
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use core::ptr::{null, null_mut};
+
+    #[test]
+    fn null_pointers_and_damaged_profiles_are_refused_with_a_status_and_a_message() {
+        let mut msg = [0 as c_char; 96];
+        // SAFETY: null pointers are what is tested; `msg` holds 96 bytes.
+        unsafe {
+            assert_eq!(sw_profile_check(null(), 4, null_mut(), 0), SW_ERR_NULL);
+            let junk = [0u8; 40];
+            let rc = sw_profile_check(junk.as_ptr(), junk.len(), msg.as_mut_ptr(), msg.len());
+            assert_eq!(rc, SW_ERR_PROFILE);
+            let mut out = null_mut();
+            let rc = sw_station_init(null_mut(), junk.as_ptr(), junk.len(), &mut out);
+            assert_eq!(rc, SW_ERR_NULL);
+            assert_eq!(sw_station_push_events(null_mut(), null(), 0), SW_ERR_NULL);
+            assert_eq!(sw_station_drain_frames(null_mut(), null_mut(), 9), 0);
+            assert_eq!(sw_station_alarms(null_mut()), 0);
+        }
+        let text: std::vec::Vec<u8> = msg
+            .iter()
+            .take_while(|&&c| c != 0)
+            .map(|&c| c as u8)
+            .collect();
+        let text = std::string::String::from_utf8(text).unwrap();
+        assert!(text.contains("magic") && text.contains("byte 0"), "{text}");
+    }
+
+    #[test]
+    fn a_long_message_is_cut_and_still_terminated() {
+        let mut out = [0xffu8; 8];
+        let mut w = Truncating {
+            out: &mut out,
+            at: 0,
+        };
+        write!(w, "a message longer than the buffer").unwrap();
+        assert_eq!(w.at, 7);
+        assert_eq!(&out[..7], b"a messa");
     }
 }

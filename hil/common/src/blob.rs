@@ -65,7 +65,9 @@ fn setup_len(bytes: &[u8]) -> Result<usize, SetupError> {
 impl ProfileBlob {
     /// Read and check a blob; errors name the section's field and its byte offset in the blob.
     pub fn decode(bytes: &[u8]) -> Result<Self, BoardError> {
-        let n = setup_len(bytes)?.min(bytes.len());
+        // A blob too short to give its setup length is read whole, so the setup's own check
+        // names the first bad field (its magic, say).
+        let n = setup_len(bytes).unwrap_or(bytes.len()).min(bytes.len());
         let (s, rest) = bytes.split_at(n);
         let setup = Setup::decode(s)?;
         let (b, w) = rest.split_at(BOARD_LEN.min(rest.len()));

@@ -277,3 +277,118 @@ fn end_of_input_never_releases_answers_to_an_announce_frame_not_yet_written() {
     shared.end_of_input();
     assert!(!shared.released(0));
 }
+
+fn blob(words: Option<slotwise::words::WordFormat>) -> Vec<u8> {
+    let p = blob::ProfileBlob {
+        setup: setup(),
+        board: board(),
+        words,
+    };
+    let mut b = vec![0u8; blob::MAX_BLOB_LEN];
+    let n = p.encode(&mut b).unwrap();
+    b.truncate(n);
+    b
+}
+
+fn layout() -> slotwise::words::WordFormat {
+    use slotwise::words::{BitField, Endian, KindField, WordFormat, WordLayout};
+    WordFormat::new(WordLayout {
+        record_bytes: 4,
+        endian: Endian::Big,
+        time: BitField::new(0, 16),
+        channel: BitField::new(24, 4),
+        kind: Some(KindField {
+            field: BitField::new(28, 4),
+            event: 3,
+            rollover: 9,
+            rollover_count: BitField::new(16, 8),
+        }),
+        max_channel: 1,
+    })
+    .unwrap()
+}
+
+#[test]
+fn profile_blob_round_trip_with_and_without_a_word_layout() {
+    for words in [None, Some(layout())] {
+        let b = blob(words);
+        let back = blob::ProfileBlob::decode(&b).unwrap();
+        assert_eq!(
+            (back.setup, back.board, back.words),
+            (setup(), board(), words)
+        );
+    }
+    assert_eq!(
+        blob(Some(layout())).len(),
+        blob(None).len() + blob::WORDS_LEN
+    );
+}
+
+#[test]
+fn profile_blob_errors_name_the_field_at_its_offset_in_the_blob() {
+    let plain = blob(None).len();
+    let mut b = blob(Some(layout()));
+    // Byte order field of the word section: offset 6 of the section.
+    b[plain + 6] = 7;
+    reseal(&mut b);
+    let e = blob::ProfileBlob::decode(&b).unwrap_err();
+    assert_eq!(
+        e,
+        BoardError::Layout(SetupError::BadField {
+            offset: plain + 6,
+            field: "words.endian"
+        })
+    );
+    // A blob cut inside the board section names the board field and its blob offset.
+    let cut = &blob(None)[..plain - 10];
+    let e = blob::ProfileBlob::decode(cut).unwrap_err();
+    assert!(matches!(
+        e,
+        BoardError::Layout(SetupError::Truncated { offset, .. }) if offset > encoded().len()
+    ));
+}
+
+#[test]
+fn a_station_refuses_calls_out_of_phase_and_words_without_a_layout() {
+    let mut st = Box::new(Station::new(&blob(None)).unwrap());
+    assert_eq!(st.push_words(&[0; 8]), Err(StationError::NoWordLayout));
+    st.push_events(&[TdcEvent {
+        count: 5,
+        channel: 0,
+    }])
+    .unwrap();
+    st.end_input().unwrap();
+    assert_eq!(st.push_events(&[]), Err(StationError::Phase(Phase::Ending)));
+    st.finish().unwrap();
+    assert_eq!(st.finish(), Err(StationError::Phase(Phase::Finished)));
+    // The summary record is the last frame out; every detection is accounted for.
+    let mut out = vec![0u8; 4096];
+    let n = st.drain_frames(&mut out);
+    assert!(n > 0 && out[n - 1] == 0);
+    let s = st.summary();
+    assert_eq!((s.detections_in, s.accounting.total()), (1, 1));
+    assert!(Station::new(&blob(None)[1..]).is_err());
+}
+
+#[test]
+fn raw_words_cut_anywhere_give_the_events_and_the_ingest_counts() {
+    // Big-endian 4-byte records: kind 3 = event, 9 = rollover with an 8-bit wrap count.
+    let rec = |kind: u32, ch: u32, low: u32| ((kind << 28) | (ch << 24) | low).to_be_bytes();
+    let mut bytes = Vec::new();
+    bytes.extend(rec(3, 0, 100));
+    bytes.extend(rec(9, 0, 2 << 16)); // two wraps of 2^16 ticks
+    bytes.extend(rec(3, 1, 7));
+    bytes.extend(rec(5, 0, 0)); // unknown kind: malformed
+    bytes.extend(rec(3, 0, 50)); // later in the same wrap: no gap
+    let mut st = Box::new(Station::new(&blob(Some(layout()))).unwrap());
+    for piece in bytes.chunks(3) {
+        st.push_words(piece).unwrap();
+    }
+    let c = st.counts();
+    assert_eq!(c.totals.detections, 3);
+    assert_eq!((c.ingest.malformed_words, c.ingest.rollover_gaps), (1, 0));
+    st.report_overrun(12);
+    st.report_fifo_full();
+    let c = st.counts();
+    assert_eq!((c.ingest.overrun_words, c.ingest.fifo_full_flags), (12, 1));
+}

@@ -99,7 +99,7 @@ struct Pump<'a> {
     st: Box<Station>,
     answers: Answers<'a>,
     /// Records (index, frame) not yet pushed, in order.
-    held: VecDeque<(u32, Vec<u8>)>,
+    held: VecDeque<Record>,
     /// Bytes of the first held frame already pushed.
     pushed: usize,
     partial: Vec<u8>,
@@ -164,8 +164,11 @@ impl Pump<'_> {
     }
 }
 
-/// The next record of an answers stream: index, then the frame through its 0x00.
-fn next_record(bytes: &[u8]) -> Option<((u32, Vec<u8>), &[u8])> {
+/// An answers record: the announce frame's index and the answers frame through its 0x00.
+type Record = (u32, Vec<u8>);
+
+/// The next record of an answers stream, and the bytes after it.
+fn next_record(bytes: &[u8]) -> Option<(Record, &[u8])> {
     let index = u32::from_le_bytes(bytes.get(..4)?.try_into().ok()?);
     let end = bytes.get(4..)?.iter().position(|&b| b == 0)? + 5;
     Some(((index, bytes[4..end].to_vec()), &bytes[end..]))
