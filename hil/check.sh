@@ -206,6 +206,11 @@ for how in host qemu; do
     echo "C replay ($how): bytes differ from the Rust station's" >&2; failures=$((failures + 1))
   fi
 done
+# What the post-processing host reads: the board's record stream, every CRC checked.
+if [ -f "$d/run/frames-c.bin" ]; then
+  cp "$d/run/frames-c.bin" "$d/board.swkey"
+  "$SLOTWISE" inspect "$d/board.swkey" | head -4 || failures=$((failures + 1))
+fi
 
 step "where the instructions go (default capture; whole receiver on default-full)"
 for t in "${TARGETS[@]}"; do

@@ -606,7 +606,9 @@ fn simulate(a: SimulateArgs) -> Result<(), AnyErr> {
 
 fn inspect(a: InspectArgs) -> Result<(), AnyErr> {
     if keyfile::is_key_file(&a.capture) {
-        return emit(a.json, &keyfile::inspect(&a.capture)?);
+        let r = keyfile::inspect(&a.capture)?;
+        emit(a.json, &r)?;
+        return r.problem().map_or(Ok(()), |p| Err(p.into()));
     }
     if crate::txrecord::is_record_file(&a.capture) {
         let r = crate::txrecord::inspect(&a.capture)?;

@@ -155,6 +155,10 @@ pub struct KeyFileReport {
     pub rounds_kept: u64,
     /// Rounds discarded (their key blocks are not in the file).
     pub rounds_discarded: u64,
+    /// A board's record stream also carries alarm records (type 5): each as time, kind, raised.
+    pub alarms: Vec<(u64, String, bool)>,
+    /// ...and live-statistics records (type 6), counted.
+    pub stats_records: u64,
 }
 
 /// Read a key file frame by frame and check every CRC.
@@ -171,6 +175,8 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
         summary: None,
         rounds_kept: 0,
         rounds_discarded: 0,
+        alarms: Vec::new(),
+        stats_records: 0,
     };
     let mut scratch = vec![0u8; MAX_RAW];
     let mut start = 0usize;
@@ -236,6 +242,20 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
                     .bad_frames
                     .push(bad(format!("{name}: round verdict at byte {offset}: {e}"))),
             },
+            RecordType::Alarm => match slotwise::formats::alarm::AlarmEvent::parse(f.payload) {
+                Ok(a) => report
+                    .alarms
+                    .push((a.t_ps, format!("{:?}", a.kind), a.raised)),
+                Err(e) => report
+                    .bad_frames
+                    .push(bad(format!("{name}: alarm record at byte {offset}: {e}"))),
+            },
+            RecordType::Stats => match slotwise::stats::Snapshot::parse(f.payload) {
+                Ok(_) => report.stats_records += 1,
+                Err(e) => report.bad_frames.push(bad(format!(
+                    "{name}: statistics record at byte {offset}: {e}"
+                ))),
+            },
             other => report.bad_frames.push(bad(format!(
                 "{name}: byte {offset}: type field {} ({other:?}) does not belong in a key file",
                 other as u8
@@ -257,6 +277,32 @@ pub fn inspect(path: &Path) -> Result<KeyFileReport, String> {
 /// Whether a file looks like a key file (its name ends in `.swkey`).
 pub fn is_key_file(path: &Path) -> bool {
     path.extension().is_some_and(|e| e == "swkey")
+}
+
+impl KeyFileReport {
+    /// What is wrong with the file, if anything: bad frames, no summary, or a summary that
+    /// disagrees with the blocks (the report is printed in full before this is returned).
+    pub fn problem(&self) -> Option<String> {
+        if !self.bad_frames.is_empty() {
+            return Some(format!(
+                "{}: {} bad frames",
+                self.source,
+                self.bad_frames.len()
+            ));
+        }
+        match self.summary {
+            None => Some(format!("{}: no summary frame", self.source)),
+            Some((bits, blocks))
+                if bits != self.total_bits || blocks != self.blocks.len() as u64 =>
+            {
+                Some(format!(
+                    "{}: the summary frame differs from the key blocks",
+                    self.source
+                ))
+            }
+            Some(_) => None,
+        }
+    }
 }
 
 impl fmt::Display for KeyFileReport {
@@ -291,6 +337,18 @@ impl fmt::Display for KeyFileReport {
                 "round verdicts {} rounds verified (their key blocks above), {} failed (discarded)",
                 self.rounds_kept, self.rounds_discarded
             )?;
+        }
+        if self.stats_records + self.alarms.len() as u64 > 0 {
+            writeln!(
+                f,
+                "board records  {} live-statistics records, {} alarm records",
+                self.stats_records,
+                self.alarms.len()
+            )?;
+            for (t_ps, kind, raised) in &self.alarms {
+                let what = if *raised { "raised" } else { "cleared" };
+                writeln!(f, "  alarm {kind} {what} at {:.6} s", *t_ps as f64 * 1e-12)?;
+            }
         }
         writeln!(
             f,
