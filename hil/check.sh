@@ -209,7 +209,9 @@ done
 # What the post-processing host reads: the board's record stream, every CRC checked.
 if [ -f "$d/run/frames-c.bin" ]; then
   cp "$d/run/frames-c.bin" "$d/board.swkey"
-  "$SLOTWISE" inspect "$d/board.swkey" | head -4 || failures=$((failures + 1))
+  if "$SLOTWISE" inspect "$d/board.swkey" >"$d/inspect.txt"; then head -4 "$d/inspect.txt"; else
+    cat "$d/inspect.txt"; echo "the C replay's record stream did not inspect clean" >&2
+    failures=$((failures + 1)); fi
 fi
 
 step "where the instructions go (default capture; whole receiver on default-full)"
