@@ -209,6 +209,12 @@ impl Station {
         }
     }
 
+    /// The raw-word ingest stage, for a source that decodes itself (an SPI FIFO source polls
+    /// into it, then its events go to [`Self::push_events`]); `None` without a word layout.
+    pub fn ingest_mut(&mut self) -> Option<&mut Ingest> {
+        self.ingest.as_mut()
+    }
+
     /// The FIFO reported `words` words lost before they were read (overrun).
     pub fn report_overrun(&mut self, words: u64) {
         if let Some(i) = self.ingest.as_mut() {
