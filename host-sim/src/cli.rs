@@ -499,6 +499,20 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         crate::profile::gate_layout_svg(&plan_profile.profile, &plan_profile.checked),
     )?;
     let mut files = vec![cap_path.clone(), json, key_path, profile_path, gates_svg];
+    // The same receiver as the blob a board reads (docs/board-integration.md); a scenario
+    // without the public marker has no board receiver, and no blob.
+    let blob = crate::profile::compile::compile(
+        &plan_profile.profile,
+        &plan_profile.checked,
+        None,
+        None,
+        "receiver.toml",
+    );
+    if let Ok(blob) = blob {
+        let blob_path = a.out.join("receiver.swp");
+        std::fs::write(&blob_path, blob)?;
+        files.push(blob_path);
+    }
     files.extend(plots::fold_profile(
         &a.out,
         &res.fold,
