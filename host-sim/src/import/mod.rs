@@ -213,7 +213,11 @@ impl fmt::Display for ImportSummary {
             writeln!(f, "  {:<30} {n:>12}", format!("dropped: {k}"))?;
         }
         if !self.ingest.is_empty() {
-            let rows: Vec<String> = self.ingest.iter().map(|(k, n)| format!("{k} {n}")).collect();
+            let rows: Vec<String> = self
+                .ingest
+                .iter()
+                .map(|(k, n)| format!("{k} {n}"))
+                .collect();
             writeln!(f, "ingest: {}", rows.join(", "))?;
         }
         writeln!(
