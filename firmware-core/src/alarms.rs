@@ -1,6 +1,6 @@
 //! Alarms: the conditions under which an operator must look at the link now.
 //!
-//! Four conditions, thresholds from an [`AlarmConfig`] validated once:
+//! Five conditions, thresholds from an [`AlarmConfig`] validated once:
 //! - **QBER high**: the upper confidence bound ([`crate::bounds`]) of the window QBER of one
 //!   basis, in the configured intensity class (default: signal), at or above a ceiling. The
 //!   default ceiling is the Shor-Preskill zero, 11.0028 % (Shor & Preskill, PRL 85, 441, 2000):
@@ -12,9 +12,14 @@
 //!   seeded by the first [`RATE_WARMUP_BLOCKS`] blocks).
 //! - **Detector saturation**: a channel's dead-time fraction over a block (see
 //!   `stats`) at or above `saturation_ppm`.
+//! - **Ingest fault**: one of the board's raw-word ingest counters ([`crate::ingest`]: overrun,
+//!   FIFO full, rollover gap, malformed word) grew since the previous reading; cleared after a
+//!   reading in which none grew. Any growth counts: each of them is data lost or garbled before
+//!   the receiver saw it, and nothing may be lost silently.
 //!
 //! Each change raises or clears an [`AlarmEvent`] stamped with the receiver time it was decided
-//! at (block end for block conditions, the detection's time for the lock). Events wait in a
+//! at (block end for block conditions, the detection's time for the lock, the caller's reading
+//! time for the ingest counters). Events wait in a
 //! bounded queue (`EVENT_QUEUE`); an overflow is counted, never silent. An event is the payload
 //! of a record-type-5 frame ([`crate::formats::alarm`]) and is logged through `defmt` when that feature is on.
 
@@ -22,6 +27,7 @@ use crate::bounds::{hoeffding_upper_ppm, wilson_ppm, Epsilon, SHOR_PRESKILL_QBER
 use crate::bounds::{BoundError, Z_ONE_SIDED_1E_10_Q16};
 use crate::counts::{Counts, StatsConfig};
 use crate::gates::{Basis, MAX_INTENSITIES};
+use crate::ingest::{IngestCounts, IngestFault};
 use core::fmt;
 use heapless::Deque;
 
@@ -31,6 +37,8 @@ pub use crate::formats::alarm::{AlarmEvent, AlarmKind};
 pub const EVENT_QUEUE: usize = 16;
 /// Blocks that seed the running rate level before rate collapse is judged.
 pub const RATE_WARMUP_BLOCKS: u32 = 2;
+/// Alarm conditions, one per wire code (QBER counts once for both bases).
+pub const CONDITIONS: usize = 5;
 
 /// Which upper confidence bound the QBER alarm uses.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -191,7 +199,11 @@ pub struct Alarms {
     level_blocks: u32,
     events: Deque<AlarmEvent, EVENT_QUEUE>,
     dropped: u64,
-    raised: [u64; 4],
+    raised: [u64; CONDITIONS],
+    /// Ingest counters at the previous reading.
+    ingest_seen: IngestCounts,
+    /// The counter the active ingest-fault alarm named when raised.
+    ingest_named: IngestFault,
 }
 
 impl Alarms {
@@ -204,7 +216,9 @@ impl Alarms {
             level_blocks: 0,
             events: Deque::new(),
             dropped: 0,
-            raised: [0; 4],
+            raised: [0; CONDITIONS],
+            ingest_seen: IngestCounts::ZERO,
+            ingest_named: IngestFault::OverrunWords,
         }
     }
 
@@ -223,8 +237,9 @@ impl Alarms {
         self.dropped
     }
 
-    /// Times raised since start: QBER (either basis), lock lost, rate collapse, saturation.
-    pub const fn raised_counts(&self) -> [u64; 4] {
+    /// Times raised since start: QBER (either basis), lock lost, rate collapse, saturation,
+    /// ingest fault.
+    pub const fn raised_counts(&self) -> [u64; CONDITIONS] {
         self.raised
     }
 
@@ -321,6 +336,36 @@ impl Alarms {
         let limit = self.cfg.saturation_ppm;
         let kind = AlarmKind::Saturation { channel: worst };
         self.set(t_ps, kind, dead >= limit, dead, limit);
+    }
+
+    /// Judge the ingest counters read at `t_ps`: raised when a fault counter grew since the
+    /// previous reading (naming the one that grew most, ties to the first in
+    /// [`IngestFault::ALL`], with its growth as the value), cleared after a reading without
+    /// growth. A counter below its previous reading (the caller restarted its ingest stage) is
+    /// no growth.
+    pub(crate) fn ingest(&mut self, t_ps: u64, now: &IngestCounts) {
+        let mut worst: Option<(IngestFault, u64)> = None;
+        for fault in IngestFault::ALL {
+            let grew = now.get(fault).saturating_sub(self.ingest_seen.get(fault));
+            if grew > worst.map_or(0, |(_, g)| g) {
+                worst = Some((fault, grew));
+            }
+        }
+        self.ingest_seen = *now;
+        match worst {
+            Some((counter, grew)) => {
+                let kind = AlarmKind::IngestFault { counter };
+                if self.active & kind.bit() == 0 {
+                    self.ingest_named = counter;
+                }
+                let value = u32::try_from(grew).unwrap_or(u32::MAX);
+                self.set(t_ps, kind, true, value, 0);
+            }
+            None => {
+                let counter = self.ingest_named;
+                self.set(t_ps, AlarmKind::IngestFault { counter }, false, 0, 0);
+            }
+        }
     }
 
     fn ewma(&self, count_q8: u128) -> u64 {

@@ -28,7 +28,8 @@
 //! Imports point one way, and no module imports one that imports it back:
 //!
 //! ```text
-//! value types   accounting, gates (Basis), tally, sift (Announcement)   import no format
+//! value types   accounting, gates (Basis), tally, sift (Announcement),  import no format
+//!               ingest (IngestCounts, IngestFault)
 //!     ^
 //! formats       framing, cobs, bytes, one file per record               bytes only
 //!     ^
@@ -62,8 +63,8 @@ pub use answers::{AnswerEntry, AnswersView};
 pub use bytes::{Reader, Writer};
 pub use framing::{
     crc32c, decode_frame, encode_frame, encode_frame_tagged, seal_in_place, seal_in_place_tagged,
-    Frame, FrameError, RecordType, CRC_LEN, HEADER_LEN, MAX_FRAME, MAX_PAYLOAD, MAX_RAW, TAG_LEN,
-    VERSION, VERSION_TAGGED,
+    Frame, FrameError, RecordType, CRC_LEN, HEADER_LEN, LINK_MAX_PAYLOAD, MAX_FRAME, MAX_PAYLOAD,
+    MAX_RAW, TAG_LEN, VERSION, VERSION_TAGGED,
 };
 pub use key_block::{KeyBit, KeyBlock};
 pub use statistics::Snapshot;

@@ -118,6 +118,7 @@ pub use frame::{AlignState, FrameAligner, FrameConfig, MarkerSpec, MarkerState, 
 pub use frame_out::{FrameOut, FrameSink};
 pub use front::{FrontEnd, Timed};
 pub use gates::{Basis, Gate, GateTable, Lookup};
+pub use ingest::{Ingest, IngestCounts, IngestFault};
 pub use numbering::{Absolute, MarkerNumbering, Numbering};
 pub use receiver::{ConfigError, Receiver, ReceiverConfig, Trace};
 pub use recovered::{RecoveredClock, RecoveredConfig};

@@ -351,7 +351,9 @@ impl<C: SlotClock, const PENDING: usize, N: Numbering> Receiver<C, PENDING, N> {
 }
 
 impl Summary {
-    /// The counters of `rx` (frame counters left at zero; [`crate::FrameOut::finish`] fills them).
+    /// The counters of `rx` (frame counters left at zero; [`crate::FrameOut::finish`] fills them;
+    /// ingest counters zero: a board that ingests raw words adds them with
+    /// [`Summary::with_ingest`]).
     pub fn of<C: SlotClock, const P: usize, N: Numbering>(rx: &Receiver<C, P, N>) -> Self {
         Self {
             detections_in: rx.detections_in(),
@@ -363,6 +365,7 @@ impl Summary {
             multi_tally: *rx.multi_click_tally(),
             key_blocks: 0,
             frame_errors: 0,
+            ingest: crate::ingest::IngestCounts::ZERO,
         }
     }
 }

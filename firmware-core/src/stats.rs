@@ -30,11 +30,14 @@
 //! Feeding it leaves the receiver's hot path alone: [`Monitor::observe`] reads the [`Trace`]
 //! that `Receiver::push` returns, and [`Tap`] wraps the caller's [`KeySink`] to see sifted bits.
 //! A closed block re-evaluates the alarms ([`crate::alarms`]) and leaves a [`Snapshot`] (record
-//! type 6) for the caller to frame.
+//! type 6) for the caller to frame. A board that ingests raw TDC words also hands its
+//! [`IngestCounts`] to [`Monitor::observe_ingest`] now and then (once per DMA block, say), so a
+//! lost or garbled word raises an alarm instead of only a summary counter at the end.
 
 use crate::accounting::Fate;
 use crate::alarms::{AlarmConfig, AlarmEvent, Alarms};
 use crate::gates::Basis;
+use crate::ingest::IngestCounts;
 use crate::receiver::Trace;
 use crate::sift::{KeySink, Outcome, SiftedBit};
 
@@ -228,6 +231,14 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
         }
     }
 
+    /// Read the board's ingest counters at receiver time `t_ps` (ps): raises the ingest-fault
+    /// alarm when an overrun, FIFO-full, rollover-gap or malformed-word counter grew since the
+    /// previous call (the first call compares with zero), clears it after a call in which none
+    /// grew. Closes no block: `t_ps` only stamps the event.
+    pub fn observe_ingest(&mut self, counts: &IngestCounts, t_ps: u64) {
+        self.alarms.ingest(t_ps, counts);
+    }
+
     /// Close every block that ends at or before `t_ps` (empty ones included).
     pub fn advance(&mut self, t_ps: u64) {
         let block = self.cfg.block_ps();
@@ -344,3 +355,6 @@ fn snapshot(
 
 #[cfg(test)]
 mod tests;
+
+#[cfg(test)]
+mod ingest_tests;

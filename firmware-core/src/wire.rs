@@ -150,7 +150,9 @@ impl From<FrameError> for Reject {
     fn from(e: FrameError) -> Self {
         match e {
             FrameError::Cobs { .. } => Self::Cobs,
-            FrameError::Truncated { .. } | FrameError::BufferTooSmall { .. } => Self::Truncated,
+            FrameError::Truncated { .. }
+            | FrameError::TruncatedField { .. }
+            | FrameError::BufferTooSmall { .. } => Self::Truncated,
             FrameError::BadCrc { .. } => Self::BadCrc,
             FrameError::UnknownVersion(_) => Self::UnknownVersion,
             FrameError::UnknownType(_) => Self::UnknownType,

@@ -15,7 +15,7 @@ use slotwise::alarms::{AlarmEvent, AlarmKind, BoundKind};
 use slotwise::bounds::{hoeffding_upper_ppm, Epsilon};
 use slotwise::formats::RecordType;
 use slotwise::stats::{Snapshot, DEFAULT_BLOCKS};
-use slotwise::{Basis, Counts, Monitor};
+use slotwise::{Basis, Counts, IngestFault, Monitor};
 use std::collections::BTreeMap;
 
 pub use crate::normal::{normal_isf, normal_upper_tail};
@@ -159,11 +159,13 @@ pub fn clopper_pearson(k: u64, n: u64, alpha: f64) -> (f64, f64) {
 pub struct AlarmRow {
     /// Seconds since the first detection.
     pub t_s: f64,
-    /// `qber_z`, `qber_x`, `lock_lost`, `rate_collapse`, `saturation_chN`.
+    /// `qber_z`, `qber_x`, `lock_lost`, `rate_collapse`, `saturation_chN`,
+    /// `ingest_<counter>` (e.g. `ingest_rollover_gaps`).
     pub kind: String,
     /// Raised (true) or cleared.
     pub raised: bool,
-    /// Measured value (fraction: QBER bound, rate over level, dead fraction; 0 for the lock).
+    /// Measured value (fraction: QBER bound, rate over level, dead fraction; 0 for the lock;
+    /// for an ingest fault the counter's growth, a count, not a fraction).
     pub value: f64,
     /// Threshold it was compared with (fraction).
     pub threshold: f64,
@@ -177,6 +179,29 @@ pub fn alarm_name(k: AlarmKind) -> String {
         AlarmKind::LockLost => "lock_lost".into(),
         AlarmKind::RateCollapse => "rate_collapse".into(),
         AlarmKind::Saturation { channel } => format!("saturation_ch{channel}"),
+        AlarmKind::IngestFault { counter } => format!("ingest_{}", counter.name()),
+    }
+}
+
+/// Name of an alarm condition in the raised and active lists: the kind without its detail
+/// (channel or counter).
+pub fn alarm_condition(k: AlarmKind) -> &'static str {
+    match k {
+        AlarmKind::QberHigh(Basis::Z) => "qber_z",
+        AlarmKind::QberHigh(Basis::X) => "qber_x",
+        AlarmKind::LockLost => "lock_lost",
+        AlarmKind::RateCollapse => "rate_collapse",
+        AlarmKind::Saturation { .. } => "saturation",
+        AlarmKind::IngestFault { .. } => "ingest_fault",
+    }
+}
+
+/// The value of an alarm event as the host reports it: a fraction for the ppm kinds, the
+/// counter's growth (a count) for an ingest fault.
+pub fn alarm_value(e: &AlarmEvent) -> f64 {
+    match e.kind {
+        AlarmKind::IngestFault { .. } => f64::from(e.value_ppm),
+        _ => f64::from(e.value_ppm) * 1e-6,
     }
 }
 
@@ -350,7 +375,7 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
         })
         .collect();
     let a = m.alarms();
-    let [q, l, r, sat] = a.raised_counts();
+    let [q, l, r, sat, ingest] = a.raised_counts();
     let active = a.active();
     let kinds = [
         AlarmKind::QberHigh(Basis::Z),
@@ -358,6 +383,9 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
         AlarmKind::LockLost,
         AlarmKind::RateCollapse,
         AlarmKind::Saturation { channel: 0 },
+        AlarmKind::IngestFault {
+            counter: IngestFault::OverrunWords,
+        },
     ];
     let bound = match a.config().bound() {
         BoundKind::Wilson { z_q16 } => format!("Wilson, z = {:.4}", f64::from(z_q16) / 65536.0),
@@ -379,13 +407,14 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
             ("lock_lost", l),
             ("rate_collapse", r),
             ("saturation", sat),
+            ("ingest_fault", ingest),
         ]
         .into_iter()
         .collect(),
         alarms_active: kinds
             .iter()
             .filter(|k| active & k.bit() != 0)
-            .map(|k| alarm_name(*k).trim_end_matches("_ch0").to_string())
+            .map(|k| alarm_condition(*k).to_string())
             .collect(),
         alarm_events: log
             .events
@@ -394,7 +423,7 @@ pub fn report(m: &HostMonitor, log: &LiveLog, first_t_ps: u64, intensities: u8) 
                 t_s: e.t_ps.saturating_sub(first_t_ps) as f64 * 1e-12,
                 kind: alarm_name(e.kind),
                 raised: e.raised,
-                value: f64::from(e.value_ppm) * 1e-6,
+                value: alarm_value(e),
                 threshold: f64::from(e.threshold_ppm) * 1e-6,
             })
             .collect(),
@@ -522,6 +551,30 @@ impl std::fmt::Display for StatsReport {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn ingest_fault_events_are_named_by_counter_and_valued_in_counts() {
+        let kind = AlarmKind::IngestFault {
+            counter: IngestFault::MalformedWords,
+        };
+        assert_eq!(alarm_name(kind), "ingest_malformed_words");
+        assert_eq!(alarm_condition(kind), "ingest_fault");
+        let e = AlarmEvent {
+            t_ps: 0,
+            kind,
+            raised: true,
+            value_ppm: 12,
+            threshold_ppm: 0,
+        };
+        assert_eq!(alarm_value(&e), 12.0);
+        let sat = AlarmEvent {
+            kind: AlarmKind::Saturation { channel: 2 },
+            value_ppm: 500_000,
+            ..e
+        };
+        assert_eq!(alarm_value(&sat), 0.5);
+        assert_eq!(alarm_condition(sat.kind), "saturation");
+    }
 
     #[test]
     fn clopper_pearson_matches_scipy() {

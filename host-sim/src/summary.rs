@@ -5,7 +5,7 @@ use crate::clocks::LockReport;
 use crate::replay::SessionResult;
 use serde::Serialize;
 use slotwise::gates::MAX_INTENSITIES;
-use slotwise::{Basis, Tally, Transmitter};
+use slotwise::{Basis, IngestCounts, Tally, Transmitter};
 use std::collections::BTreeMap;
 
 /// QBER of one basis with its counts.
@@ -78,6 +78,10 @@ pub struct Summary {
     pub multi_photon: Vec<BTreeMap<&'static str, u64>>,
     /// Transmitter answers the core refused.
     pub answer_errors: BTreeMap<&'static str, u64>,
+    /// The board's raw-word ingest counters (`overrun_words`, `fifo_full_flags`,
+    /// `rollover_gaps`, `malformed_words`, `blocks`); all 0 when the receiver was fed events
+    /// directly, as in a simulation or a capture replay.
+    pub ingest: BTreeMap<&'static str, u64>,
     /// Sifted key bits (single and squashed multi-click).
     pub sifted_bits: u64,
     /// QBER per basis.
@@ -109,6 +113,12 @@ pub struct Summary {
 }
 
 impl Summary {
+    /// The same summary with the board's raw-word ingest counters.
+    pub fn with_ingest(mut self, counts: IngestCounts) -> Self {
+        self.ingest = counts.fields().into_iter().collect();
+        self
+    }
+
     /// The same summary with the link's scenario recorded.
     pub fn with_scenario(mut self, s: &crate::scenario::Scenario) -> Self {
         self.scenario = Some(s.to_toml_string());
@@ -190,6 +200,7 @@ pub fn summarize<T: Transmitter>(
         multi_click_events,
         multi_photon,
         answer_errors,
+        ingest: IngestCounts::ZERO.fields().into_iter().collect(),
         sifted_bits: rx.sifted_bits(),
         qber: Qber {
             z: QberFigure::from_tally(t, Basis::Z, None),
@@ -265,6 +276,24 @@ fn pct(v: Option<f64>) -> String {
         .unwrap_or_else(|| "n/a".into())
 }
 
+/// The `ingest` line of the printed summary, when any ingest counter is above zero.
+fn ingest_line(ingest: &BTreeMap<&'static str, u64>) -> Option<String> {
+    if ingest.values().all(|&v| v == 0) {
+        return None;
+    }
+    let get = |k: &str| ingest.get(k).copied().unwrap_or(0);
+    let faults: Vec<String> = IngestCounts::NAMES
+        .iter()
+        .filter(|k| **k != "blocks")
+        .map(|k| format!("{k} {}", get(k)))
+        .collect();
+    Some(format!(
+        "ingest         {} (in {} blocks)",
+        faults.join(", "),
+        get("blocks")
+    ))
+}
+
 impl std::fmt::Display for Summary {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         writeln!(f, "run            {}", self.name)?;
@@ -275,6 +304,9 @@ impl std::fmt::Display for Summary {
                 let share = 100.0 * *v as f64 / self.detections_in.max(1) as f64;
                 writeln!(f, "  {k:<17}{v:>12}  {share:6.2} %")?;
             }
+        }
+        if let Some(line) = ingest_line(&self.ingest) {
+            writeln!(f, "{line}")?;
         }
         writeln!(f, "sifted bits    {}", self.sifted_bits)?;
         if self
@@ -374,5 +406,30 @@ impl std::fmt::Display for Summary {
             writeln!(f, "replay time    {s:.2} s")?;
         }
         write!(f, "{}", self.stats)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn the_ingest_line_shows_only_when_a_counter_is_above_zero() {
+        let zero: BTreeMap<_, _> = IngestCounts::ZERO.fields().into_iter().collect();
+        assert_eq!(ingest_line(&zero), None);
+        let counts = IngestCounts {
+            rollover_gaps: 2,
+            malformed_words: 5,
+            blocks: 40,
+            ..IngestCounts::ZERO
+        };
+        let some: BTreeMap<_, _> = counts.fields().into_iter().collect();
+        assert_eq!(
+            ingest_line(&some).as_deref(),
+            Some(
+                "ingest         overrun_words 0, fifo_full_flags 0, rollover_gaps 2, \
+                 malformed_words 5 (in 40 blocks)"
+            )
+        );
     }
 }

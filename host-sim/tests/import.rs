@@ -182,6 +182,11 @@ fn binary_rollover_records_widen_the_counter() {
     assert_eq!(row(&text, "rollover"), 2);
     assert_eq!(row(&text, "dropped: unknown kind"), 1);
     assert_eq!(row(&text, "dropped: channel above max"), 1);
+    // The core's ingest counters: the two dropped records are malformed words; no gap.
+    assert_eq!(
+        ingest_line(&text),
+        "ingest: overrun_words 0, fifo_full_flags 0, rollover_gaps 0, malformed_words 2, blocks 1"
+    );
 
     // A 32-bit capture stores the same counters modulo 2^32.
     let opts = format!("{LAYOUT} --counter-bits 32");
@@ -193,6 +198,34 @@ fn binary_rollover_records_widen_the_counter() {
         4,
         "channel 9 fits the 4-bit field's default maximum"
     );
+}
+
+/// The import report's `ingest:` line.
+fn ingest_line(summary: &str) -> &str {
+    summary
+        .lines()
+        .find(|l| l.starts_with("ingest:"))
+        .unwrap_or_else(|| panic!("no ingest line in\n{summary}"))
+}
+
+#[test]
+fn binary_lost_rollover_record_is_counted_as_a_gap() {
+    let d = tmp("gap");
+    let input = d.join("gap.bin");
+    let out = d.join("gap.swcap");
+    // The 20-bit time falls from 0xFFFFF to 5 with no rollover record between: more than half
+    // the field's range (2^19), so a rollover record was lost (half-range rule, common practice).
+    let records = [word(1, 0, 0xF_FFFF), word(1, 1, 5), word(1, 1, 6)];
+    std::fs::write(&input, records.concat()).unwrap();
+    let text = ok(&import("binary", &input, &out, LAYOUT));
+    assert_eq!(row(&text, "imported"), 3);
+    assert!(
+        ingest_line(&text).contains("rollover_gaps 1, malformed_words 0"),
+        "{text}"
+    );
+    // The events are imported unchanged: the counter flags the gap, it does not correct it.
+    let (_, events) = capture::read_all(&out).unwrap();
+    assert_eq!(events, vec![ev(0xF_FFFF, 0), ev(5, 1), ev(6, 1)]);
 }
 
 #[test]
@@ -252,7 +285,9 @@ fn binary_without_rollovers_needs_a_wide_enough_time_field() {
         .collect();
     std::fs::write(&input, words).unwrap();
     let opts = format!("{plain} --time 0:40 --max-channel 2");
-    ok(&import("binary", &input, &out, &opts));
+    let text = ok(&import("binary", &input, &out, &opts));
+    // Without rollover records the counter wraps by design: no gap is counted.
+    assert!(ingest_line(&text).contains("rollover_gaps 0"), "{text}");
     let (header, events) = capture::read_all(&out).unwrap();
     assert_eq!((header.counter_bits, header.channel_count), (40, 3));
     assert_eq!(events, vec![ev(0xFF_FFFF_FFFF, 2), ev(7, 0)]);

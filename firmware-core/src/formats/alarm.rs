@@ -2,11 +2,14 @@
 //!
 //! Payload, 20 bytes little-endian: `t_ps u64 | code u8 | detail u8 | raised u8 | reserved u8 |
 //! value_ppm u32 | threshold_ppm u32` (`docs/frames.md`). The conditions themselves are decided
-//! in `alarms`; this module only knows their bytes.
+//! in `alarms`; this module only knows their bytes. For an ingest fault (code 5) the `value_ppm`
+//! word is not a fraction but the growth of the counter the detail byte names, in that
+//! counter's unit.
 
 use super::bytes::{Reader, Writer};
 use super::framing::FrameError;
 use crate::gates::Basis;
+use crate::ingest::IngestFault;
 
 /// Bytes of an [`AlarmEvent`] payload.
 pub const LEN: usize = 20;
@@ -26,10 +29,16 @@ pub enum AlarmKind {
         /// The worst channel.
         channel: u8,
     },
+    /// A board ingest counter (overrun, FIFO full, rollover gap, malformed word) grew.
+    IngestFault {
+        /// The counter that grew most (on a clear: the one the raise named).
+        counter: IngestFault,
+    },
 }
 
 impl AlarmKind {
-    /// Bit of this alarm in the active mask: 0 QBER Z, 1 QBER X, 2 lock, 3 rate, 4 saturation.
+    /// Bit of this alarm in the active mask: 0 QBER Z, 1 QBER X, 2 lock, 3 rate, 4 saturation,
+    /// 5 ingest fault.
     pub const fn bit(self) -> u8 {
         match self {
             Self::QberHigh(Basis::Z) => 1,
@@ -37,16 +46,19 @@ impl AlarmKind {
             Self::LockLost => 1 << 2,
             Self::RateCollapse => 1 << 3,
             Self::Saturation { .. } => 1 << 4,
+            Self::IngestFault { .. } => 1 << 5,
         }
     }
 
-    /// Wire code and detail byte: 1 QBER (detail basis), 2 lock, 3 rate, 4 saturation (channel).
+    /// Wire code and detail byte: 1 QBER (detail basis), 2 lock, 3 rate, 4 saturation (channel),
+    /// 5 ingest fault (counter, [`IngestFault::code`]).
     pub const fn code(self) -> (u8, u8) {
         match self {
             Self::QberHigh(b) => (1, b as u8),
             Self::LockLost => (2, 0),
             Self::RateCollapse => (3, 0),
             Self::Saturation { channel } => (4, channel),
+            Self::IngestFault { counter } => (5, counter.code()),
         }
     }
 
@@ -58,6 +70,10 @@ impl AlarmKind {
             (2, _) => Some(Self::LockLost),
             (3, _) => Some(Self::RateCollapse),
             (4, c) => Some(Self::Saturation { channel: c }),
+            (5, c) => match IngestFault::from_code(c) {
+                Some(counter) => Some(Self::IngestFault { counter }),
+                None => None,
+            },
             _ => None,
         }
     }
@@ -73,9 +89,10 @@ pub struct AlarmEvent {
     pub kind: AlarmKind,
     /// Raised (`true`) or cleared.
     pub raised: bool,
-    /// The measured value, ppm: QBER bound, rate over its level, dead fraction (0 for the lock).
+    /// The measured value, ppm: QBER bound, rate over its level, dead fraction (0 for the lock);
+    /// for an ingest fault the counter's growth in its own unit, saturating (0 on the clear).
     pub value_ppm: u32,
-    /// The threshold it was compared with, ppm (0 for the lock).
+    /// The threshold it was compared with, ppm (0 for the lock and the ingest fault: any growth).
     pub threshold_ppm: u32,
 }
 
@@ -172,6 +189,32 @@ mod tests {
     }
 
     #[test]
+    fn ingest_fault_layout_and_unknown_counter() {
+        // docs/frames.md: code 5, detail = counter (2 = rollover_gaps), value = growth.
+        let ev = AlarmEvent {
+            t_ps: 7,
+            kind: AlarmKind::IngestFault {
+                counter: IngestFault::RolloverGaps,
+            },
+            raised: true,
+            value_ppm: 3,
+            threshold_ppm: 0,
+        };
+        let mut buf = [0u8; LEN];
+        assert_eq!(ev.emit(&mut buf), Ok(LEN));
+        assert_eq!(&buf[8..16], &[5, 2, 1, 0, 3, 0, 0, 0]);
+        assert_eq!(AlarmEvent::parse(&buf), Ok(ev));
+        buf[9] = 4;
+        assert_eq!(
+            AlarmEvent::parse(&buf),
+            Err(FrameError::BadField {
+                offset: 8,
+                field: "code"
+            })
+        );
+    }
+
+    #[test]
     fn every_kind_round_trips() {
         let kinds = [
             AlarmKind::QberHigh(Basis::Z),
@@ -179,6 +222,12 @@ mod tests {
             AlarmKind::LockLost,
             AlarmKind::RateCollapse,
             AlarmKind::Saturation { channel: 15 },
+            AlarmKind::IngestFault {
+                counter: IngestFault::OverrunWords,
+            },
+            AlarmKind::IngestFault {
+                counter: IngestFault::MalformedWords,
+            },
         ];
         for (k, kind) in kinds.into_iter().enumerate() {
             let ev = AlarmEvent {

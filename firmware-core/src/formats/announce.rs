@@ -9,7 +9,7 @@
 //! [`Writer::varint`]); [`emit`] writes a whole batch from a slice.
 
 use super::bytes::{varint_len, Reader, Writer};
-use super::framing::{FrameError, MAX_PAYLOAD};
+use super::framing::{FrameError, LINK_MAX_PAYLOAD};
 use crate::gates::Basis;
 use crate::sift::Announcement;
 
@@ -121,7 +121,7 @@ pub fn emit(
         }
     }
     let len = w.finish();
-    if len > MAX_PAYLOAD {
+    if len > LINK_MAX_PAYLOAD {
         return Err(FrameError::PayloadTooLong { len });
     }
     Ok(len)

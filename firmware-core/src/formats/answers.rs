@@ -6,12 +6,12 @@
 
 use super::announce::MAX_ENTRIES;
 use super::bytes::{Reader, Writer};
-use super::framing::{FrameError, MAX_PAYLOAD};
+use super::framing::{FrameError, LINK_MAX_PAYLOAD};
 
 /// Bytes of the fixed part of an answers payload.
 pub const FIXED_LEN: usize = 12;
 
-const _: () = assert!(len(MAX_ENTRIES) <= MAX_PAYLOAD);
+const _: () = assert!(len(MAX_ENTRIES) <= LINK_MAX_PAYLOAD);
 
 /// Payload bytes of an answers record with `count` entries.
 pub const fn len(count: usize) -> usize {

@@ -1,7 +1,7 @@
 //! One little-endian byte reader and writer, used by every record codec.
 //!
 //! Both are cursors over a caller's buffer. Nothing is ever silent: a read past the end is
-//! [`FrameError::Truncated`], bytes left over after the last field are
+//! [`FrameError::Truncated`] (or [`FrameError::TruncatedField`] for a named read), bytes left over after the last field are
 //! [`FrameError::LengthMismatch`] (from [`Reader::finish`]), and a write past the end is
 //! [`FrameError::BufferTooSmall`]. Variable-length integers are unsigned LEB128 as the DWARF
 //! standard defines it (DWARF 5, §7.6): seven bits per byte, least significant group first, bit 7
@@ -81,6 +81,14 @@ impl<'a> Reader<'a> {
     /// A little-endian u64.
     pub fn u64(&mut self) -> Result<u64, FrameError> {
         self.array().map(u64::from_le_bytes)
+    }
+
+    /// A little-endian u64 named `field`: a short payload is [`FrameError::TruncatedField`] at
+    /// the field's first byte, for records whose fields are known only from an earlier word.
+    pub fn u64_named(&mut self, field: &'static str) -> Result<u64, FrameError> {
+        let offset = self.at;
+        self.u64()
+            .map_err(|_| FrameError::TruncatedField { offset, field })
     }
 
     /// One LEB128 value; longer than [`MAX_VARINT`] bytes or above u64 is a

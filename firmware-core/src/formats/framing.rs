@@ -29,7 +29,13 @@ pub const HEADER_LEN: usize = 6;
 pub const CRC_LEN: usize = 4;
 /// Largest payload any record type uses, in bytes: the summary's
 /// ([`super::summary::LEN`], checked there).
-pub const MAX_PAYLOAD: usize = 1056;
+pub const MAX_PAYLOAD: usize = 1104;
+/// Largest payload of a sifting-link record (announce, answers, key refill, round), in bytes:
+/// the link's batching and its records' limits are set by this, not by the board's larger
+/// summary record.
+pub const LINK_MAX_PAYLOAD: usize = 1056;
+
+const _: () = assert!(LINK_MAX_PAYLOAD <= MAX_PAYLOAD);
 /// Largest unstuffed frame (header, payload, tag, CRC), in bytes.
 pub const MAX_RAW: usize = HEADER_LEN + MAX_PAYLOAD + TAG_LEN + CRC_LEN;
 /// Largest frame on the wire, COBS overhead and 0x00 delimiter included, in bytes.
@@ -173,6 +179,14 @@ pub enum FrameError {
         /// Stuffed bytes taken before giving up on the frame.
         bytes: usize,
     },
+    /// The payload ends inside or before a named field of a record (a record whose fields depend
+    /// on a format word it carries, so the missing field is known).
+    TruncatedField {
+        /// Byte offset of the field in the payload.
+        offset: usize,
+        /// Field name.
+        field: &'static str,
+    },
     /// A record field holds a value outside its range.
     BadField {
         /// Byte offset of the field in the payload.
@@ -207,6 +221,12 @@ impl fmt::Display for FrameError {
                 write!(
                     f,
                     "{bytes} stuffed bytes without a delimiter; at most {MAX_FRAME}"
+                )
+            }
+            Self::TruncatedField { offset, field } => {
+                write!(
+                    f,
+                    "ends before field {field} at payload byte {offset} is complete"
                 )
             }
             Self::BadField { offset, field } => {

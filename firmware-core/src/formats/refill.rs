@@ -8,13 +8,13 @@
 //! never on the sifting link.
 
 use super::bytes::{Reader, Writer};
-use super::framing::{FrameError, MAX_PAYLOAD};
+use super::framing::{FrameError, LINK_MAX_PAYLOAD};
 use super::tag::PAD_LEN;
 
 /// Bytes of the fixed part of a refill payload.
 pub const FIXED_LEN: usize = 10;
 /// Most pad words one refill record carries.
-pub const MAX_WORDS: usize = (MAX_PAYLOAD - FIXED_LEN) / PAD_LEN;
+pub const MAX_WORDS: usize = (LINK_MAX_PAYLOAD - FIXED_LEN) / PAD_LEN;
 
 /// Payload bytes of a refill record of `words` pad words.
 pub const fn len(words: usize) -> usize {
@@ -96,6 +96,6 @@ mod tests {
         assert!(emit(0, &key[..5], &mut out).is_err());
         assert!(emit(0, &[], &mut out).is_err());
         assert_eq!(MAX_WORDS, 130);
-        assert!(len(MAX_WORDS) <= MAX_PAYLOAD);
+        assert!(len(MAX_WORDS) <= LINK_MAX_PAYLOAD);
     }
 }

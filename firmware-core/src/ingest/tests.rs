@@ -96,6 +96,54 @@ fn a_gap_is_seen_across_blocks() {
 }
 
 #[test]
+fn a_format_without_rollover_records_counts_no_gaps() {
+    // A 32-bit counter with no rollover records wraps by design: no record was lost.
+    let layout = WordLayout {
+        record_bytes: 8,
+        endian: Endian::Little,
+        time: BitField::new(0, 32),
+        channel: BitField::new(32, 8),
+        kind: None,
+        max_channel: 7,
+    };
+    let mut ingest = Ingest::new(WordFormat::new(layout).unwrap());
+    let b: Vec<u8> = [0xFFFF_FF00u64, 0x10]
+        .iter()
+        .flat_map(|w| w.to_le_bytes())
+        .collect();
+    let mut out = [TdcEvent {
+        count: 0,
+        channel: 0,
+    }; 3];
+    assert_eq!(ingest.push(&b, &mut out).events, 2);
+    assert_eq!(ingest.counts().rollover_gaps, 0);
+}
+
+#[test]
+fn counts_list_their_fault_counters_once() {
+    let c = IngestCounts {
+        overrun_words: 1,
+        fifo_full_flags: 2,
+        rollover_gaps: 3,
+        malformed_words: 4,
+        blocks: 5,
+    };
+    assert_eq!(IngestCounts::from_words(&c.to_words()), c);
+    for (k, fault) in IngestFault::ALL.into_iter().enumerate() {
+        assert_eq!(c.fields()[k], (fault.name(), c.get(fault)));
+        assert_eq!(IngestFault::from_code(fault.code()), Some(fault));
+    }
+    assert_eq!(c.fields()[4], ("blocks", 5));
+    assert_eq!(IngestFault::from_code(4), None);
+    assert!(c.any_fault());
+    let quiet = IngestCounts {
+        blocks: 9,
+        ..IngestCounts::ZERO
+    };
+    assert!(!quiet.any_fault());
+}
+
+#[test]
 fn each_fault_ends_in_its_own_counter() {
     let mut ingest = Ingest::new(format());
     // Kind 2 is unknown; channel 9 is above the maximum 7: both malformed.

@@ -196,7 +196,7 @@ fn rate_collapse_and_lock_lost() {
         kinds,
         [(AlarmKind::RateCollapse, true), (AlarmKind::LockLost, true)]
     );
-    assert_eq!(m.alarms().raised_counts(), [0, 1, 1, 0]);
+    assert_eq!(m.alarms().raised_counts(), [0, 1, 1, 0, 0]);
     m.observe(&trace(t + 1, 0, Fate::InFlight, 1), true);
     assert_eq!(
         m.pop_event().map(|e| (e.kind, e.raised, e.t_ps)),

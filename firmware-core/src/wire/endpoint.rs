@@ -1,7 +1,7 @@
 //! The receiver's end of the link: a [`Transmitter`] on top of `embedded-io` reader and writer.
 //!
 //! Announcements collect in one fixed buffer and leave as one announce frame when `BATCH` are
-//! held, when the payload would outgrow [`MAX_PAYLOAD`], when a new slot lies more than
+//! held, when the payload would outgrow [`LINK_MAX_PAYLOAD`], when a new slot lies more than
 //! `flush_age_slots` after the batch's first, or on [`ReceiverLink::flush`]. Sent frames wait
 //! (at most [`MAX_OPEN_FRAMES`], their slots in a ring of `OUT` entries of 8 bytes) until their
 //! answers frame arrives or their last slot falls `answer_timeout_slots` behind the newest
@@ -29,7 +29,7 @@ use crate::formats::answers::{AnswerEntry, AnswersView};
 use crate::formats::bytes::{varint_len, Writer};
 use crate::formats::framing::{
     decode_frame, seal_in_place, seal_in_place_tagged, FrameError, RecordType, HEADER_LEN,
-    MAX_FRAME, MAX_PAYLOAD, MAX_RAW,
+    LINK_MAX_PAYLOAD, MAX_FRAME, MAX_RAW,
 };
 use crate::formats::refill::RefillView;
 use crate::formats::round::{self as round_rec, round_pad_word, RoundTag};
@@ -435,7 +435,7 @@ where
         let d = slot.wrapping_sub(self.batch_prev);
         self.batch_n < self.batch_limit()
             && ANNOUNCE_FIXED + self.batch_deltas + varint_len(d) + (self.batch_n + 1).div_ceil(8)
-                <= MAX_PAYLOAD
+                <= LINK_MAX_PAYLOAD
     }
 
     fn send_batch(&mut self) {

@@ -1,10 +1,12 @@
-//! Binary exports: fixed-width records decoded by the core's `slotwise::words` decoder.
+//! Binary exports: fixed-width records decoded by the core's ingest stage (`slotwise::ingest`,
+//! which wraps the `slotwise::words` decoder), so a replayed capture of raw words shows the
+//! same rollover-gap and malformed-word counts a board would.
 
 use std::io::{ErrorKind, Read, Seek, Write};
 use std::path::Path;
 
-use slotwise::words::{RecordFate, WordDecoder, WordFormat, WordLayout};
-use slotwise::TdcEvent;
+use slotwise::words::{RecordFate, WordFormat, WordLayout};
+use slotwise::{Ingest, TdcEvent};
 
 use super::{close_capture, file_to_file, open_capture, CaptureTdc, ImportError, ImportSummary};
 use super::{ChannelMap, TextImport};
@@ -110,7 +112,7 @@ impl BinaryImport {
     ) -> Result<(ImportSummary, W), ImportError> {
         let mut writer = open_capture(w, &self.tdc, out_name)?;
         let mask = self.tdc.counter_mask();
-        let mut decoder = WordDecoder::new(self.format);
+        let mut ingest = Ingest::new(self.format);
         let mut buf = vec![0u8; READ_BLOCK_BYTES];
         let mut events = vec![
             TdcEvent {
@@ -131,7 +133,7 @@ impl BinaryImport {
             read += n as u64;
             let mut rest = buf.get(..n).unwrap_or_default();
             while !rest.is_empty() {
-                let d = decoder.decode(rest, &mut events);
+                let d = ingest.push(rest, &mut events);
                 for ev in events.get(..d.events).unwrap_or_default() {
                     let channel = match &self.map {
                         None => ev.channel,
@@ -159,7 +161,7 @@ impl BinaryImport {
             }
             progress(read);
         }
-        let counts = decoder.finish().map_err(|error| {
+        let counts = ingest.finish().map_err(|error| {
             let slotwise::words::WordError::PartialRecord { offset, .. } = error;
             ImportError::PartialRecord {
                 source: source.to_owned(),
@@ -179,6 +181,7 @@ impl BinaryImport {
             counter_bits: self.tdc.counter_bits,
             tick_ps: self.tdc.tick_ps,
             channel_count: self.tdc.max_channel + 1,
+            ingest: ingest.counts().fields().to_vec(),
         };
         for fate in [
             RecordFate::UnknownKind,

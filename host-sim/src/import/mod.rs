@@ -180,6 +180,12 @@ pub struct ImportSummary {
     pub tick_ps: u32,
     /// Channel count of the written capture.
     pub channel_count: u8,
+    /// The core's ingest counters for a binary import (`overrun_words`, `fifo_full_flags`,
+    /// `rollover_gaps`, `malformed_words`, `blocks`), in that order; empty for text. They
+    /// describe records already settled in the rows above (a malformed word is also a dropped
+    /// row; a rollover gap is an imported event whose counter fell), so [`Self::settled`]
+    /// leaves them out.
+    pub ingest: Vec<(&'static str, u64)>,
 }
 
 impl ImportSummary {
@@ -205,6 +211,14 @@ impl fmt::Display for ImportSummary {
         }
         for (k, n) in &self.dropped {
             writeln!(f, "  {:<30} {n:>12}", format!("dropped: {k}"))?;
+        }
+        if !self.ingest.is_empty() {
+            let rows: Vec<String> = self
+                .ingest
+                .iter()
+                .map(|(k, n)| format!("{k} {n}"))
+                .collect();
+            writeln!(f, "ingest: {}", rows.join(", "))?;
         }
         writeln!(
             f,

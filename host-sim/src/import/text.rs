@@ -303,6 +303,7 @@ impl TextImport {
             counter_bits: self.tdc.counter_bits,
             tick_ps: self.tdc.tick_ps,
             channel_count: self.tdc.max_channel + 1,
+            ingest: Vec::new(),
         };
         Ok((summary, sink))
     }

@@ -1,6 +1,6 @@
 //! What authenticating the sifting link costs on the board: the core's `LinkAuth` tags frames of
 //! three payload sizes (an answers frame of 3 entries, one of 64 — the host's batch — and the
-//! largest payload, 1056 bytes) and a second end checks each tag; the instructions of every
+//! largest sifting-link payload, 1056 bytes) and a second end checks each tag; the instructions of every
 //! `seal` and every `verify` are counted. Round mode's work is counted too: the digest of an
 //! answered frame of 64 announcements, adding a frame to a round outcome, and one round tag
 //! (hashing the outcome's last block and padding it). Writes `auth-fw.txt`. A binary apart from
