@@ -179,7 +179,6 @@ d="$RUNS/c-interface"
 rm -rf "$d" && mkdir -p "$d"
 "$SLOTWISE" profile from-scenario "$DEFAULT_SCENARIO" -o "$d/receiver.toml" 2>/dev/null
 "$SLOTWISE" profile compile "$d/receiver.toml" -o "$d/receiver.swp" --words "$WORDS"
-"$HOST_TOOL" station --profile "$d/receiver.swp" --from "$RUNS/default-full.cap" --out "$d/run"
 C_FLAGS=(-std=c11 -Wall -Wextra -Werror -O2 -I"$C_DIR/include")
 NATIVE_LIBS="$(cargo rustc --release -p slotwise-c --crate-type staticlib -- \
   --print native-static-libs 2>&1 | sed -n 's/.*native-static-libs: //p' | tail -1)"
@@ -190,29 +189,42 @@ arm-none-eabi-gcc "${C_FLAGS[@]}" -mcpu=cortex-m4 -mthumb -mfloat-abi=hard -mfpu
   --specs=rdimon.specs -nostartfiles -Wl,--no-warn-execstack -T "$C_DIR/examples/mps2/mps2.ld" \
   "$C_DIR/examples/mps2/startup.c" "$C_DIR/examples/replay.c" \
   "$HIL/target/thumbv7em-none-eabihf/release/libslotwise_c.a" -o "$d/replay-m4f.elf"
-for how in host qemu; do
-  rm -f "$d/run/frames-c.bin" "$d/run/announce-c.bin"
-  set +e
-  if [ "$how" = host ]; then (cd "$d/run" && "$d/replay-host"); else
-    ./qemu-run.sh "$d/replay-m4f.elf" "$d/run"; fi
-  rc=$?
-  set -e
-  if [ "$rc" != 0 ]; then
-    echo "C replay ($how) exited with $rc" >&2; failures=$((failures + 1))
-  elif cmp "$d/run/frames-c.bin" "$d/run/frames-ref.bin" &&
-    cmp "$d/run/announce-c.bin" "$d/run/announce-ref.bin"; then
-    echo "C replay ($how): frames and announce frames equal the Rust station's byte for byte"
-  else
-    echo "C replay ($how): bytes differ from the Rust station's" >&2; failures=$((failures + 1))
+# Two runs: the clean capture, and its raw words damaged (one malformed record, one lost
+# rollover), whose ingest-fault alarms must reach the record stream.
+for run in clean faults; do
+  r="$d/$run"
+  extra=()
+  if [ "$run" = faults ]; then extra=(--faults); fi
+  "$HOST_TOOL" station --profile "$d/receiver.swp" --from "$RUNS/default-full.cap" --out "$r" \
+    "${extra[@]}"
+  for how in host qemu; do
+    rm -f "$r/frames-c.bin" "$r/announce-c.bin"
+    set +e
+    if [ "$how" = host ]; then (cd "$r" && "$d/replay-host"); else
+      ./qemu-run.sh "$d/replay-m4f.elf" "$r"; fi
+    rc=$?
+    set -e
+    if [ "$rc" != 0 ]; then
+      echo "C replay ($run, $how) exited with $rc" >&2; failures=$((failures + 1))
+    elif cmp "$r/frames-c.bin" "$r/frames-ref.bin" &&
+      cmp "$r/announce-c.bin" "$r/announce-ref.bin"; then
+      echo "C replay ($run, $how): records and announce frames equal the Rust station's byte for byte"
+    else
+      echo "C replay ($run, $how): bytes differ from the Rust station's" >&2
+      failures=$((failures + 1))
+    fi
+  done
+  # What the post-processing host reads: the board's record stream, every CRC checked.
+  if [ -f "$r/frames-c.bin" ]; then
+    cp "$r/frames-c.bin" "$r/board.swkey"
+    if "$SLOTWISE" inspect "$r/board.swkey" >"$r/inspect.txt"; then head -4 "$r/inspect.txt"; else
+      cat "$r/inspect.txt"; echo "the C replay's record stream ($run) did not inspect clean" >&2
+      failures=$((failures + 1)); fi
+    if [ "$run" = faults ] && ! grep -q 'IngestFault.*raised' "$r/inspect.txt"; then
+      echo "the damaged words raised no ingest-fault alarm record" >&2; failures=$((failures + 1))
+    fi
   fi
 done
-# What the post-processing host reads: the board's record stream, every CRC checked.
-if [ -f "$d/run/frames-c.bin" ]; then
-  cp "$d/run/frames-c.bin" "$d/board.swkey"
-  if "$SLOTWISE" inspect "$d/board.swkey" >"$d/inspect.txt"; then head -4 "$d/inspect.txt"; else
-    cat "$d/inspect.txt"; echo "the C replay's record stream did not inspect clean" >&2
-    failures=$((failures + 1)); fi
-fi
 
 step "where the instructions go (default capture; whole receiver on default-full)"
 for t in "${TARGETS[@]}"; do

@@ -140,12 +140,13 @@ int main(void) {
     uint64_t sum = 0;
     for (size_t i = 0; i < SW_FATES; i++) sum += c.fates[i];
     printf("c-replay: station %u bytes, detections %llu, sifted %llu, accounted %llu, frames out "
-           "%llu, dropped %llu, announce frames %llu, answers frames %llu, locked %u, aligned %u, "
-           "alarms 0x%02x\n",
+           "%llu, dropped %llu, announce frames %llu, answers frames %llu, malformed words %llu, "
+           "rollover gaps %llu, locked %u, aligned %u, alarms 0x%02x\n",
            (unsigned)sw_station_size(), (unsigned long long)c.detections,
            (unsigned long long)c.sifted_bits, (unsigned long long)sum,
            (unsigned long long)c.frames_out, (unsigned long long)c.frames_dropped,
            (unsigned long long)c.announce_frames, (unsigned long long)c.answers_frames,
+           (unsigned long long)c.malformed_words, (unsigned long long)c.rollover_gaps,
            (unsigned)c.locked, (unsigned)c.aligned, (unsigned)sw_station_alarms(p.st));
     if (sum != c.detections || c.frames_dropped != 0 || c.link_in_refused_bytes != 0) p.failed = 1;
     return p.failed ? 1 : 0;

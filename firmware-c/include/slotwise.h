@@ -60,6 +60,10 @@
 // Active-alarm bit: a detector's dead-time fraction over the threshold.
 #define SW_ALARM_SATURATION (1 << 4)
 
+// Active-alarm bit: the raw-word ingest lost or refused data (overrun, FIFO full, rollover
+// gap, malformed word) since the previous block.
+#define SW_ALARM_INGEST_FAULT (1 << 5)
+
 // Number of detection fates in [`SwCounters::fates`].
 #define SW_FATES 13
 

@@ -74,6 +74,24 @@ pub const SW_ALARM_RATE_COLLAPSE: u32 = 1 << 3;
 /// Active-alarm bit: a detector's dead-time fraction over the threshold.
 pub const SW_ALARM_SATURATION: u32 = 1 << 4;
 
+/// Active-alarm bit: the raw-word ingest lost or refused data (overrun, FIFO full, rollover
+/// gap, malformed word) since the previous block.
+pub const SW_ALARM_INGEST_FAULT: u32 = 1 << 5;
+
+const _: () = {
+    use slotwise::alarms::AlarmKind;
+    use slotwise::{Basis, IngestFault};
+    assert!(SW_ALARM_QBER_Z == AlarmKind::QberHigh(Basis::Z).bit() as u32);
+    assert!(SW_ALARM_QBER_X == AlarmKind::QberHigh(Basis::X).bit() as u32);
+    assert!(SW_ALARM_LOCK_LOST == AlarmKind::LockLost.bit() as u32);
+    assert!(SW_ALARM_RATE_COLLAPSE == AlarmKind::RateCollapse.bit() as u32);
+    assert!(SW_ALARM_SATURATION == AlarmKind::Saturation { channel: 0 }.bit() as u32);
+    let ingest = AlarmKind::IngestFault {
+        counter: IngestFault::OverrunWords,
+    };
+    assert!(SW_ALARM_INGEST_FAULT == ingest.bit() as u32);
+};
+
 /// Number of detection fates in [`SwCounters::fates`].
 pub const SW_FATES: usize = 13;
 /// Index in `fates`: counter value wider than the TDC, or before the time base.

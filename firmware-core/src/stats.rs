@@ -231,6 +231,11 @@ impl<const BLOCKS: usize> Monitor<BLOCKS> {
         }
     }
 
+    /// Receiver time of the latest detection observed, ps.
+    pub const fn last_t_ps(&self) -> Option<u64> {
+        self.last_t_ps
+    }
+
     /// Read the board's ingest counters at receiver time `t_ps` (ps): raises the ingest-fault
     /// alarm when an overrun, FIFO-full, rollover-gap or malformed-word counter grew since the
     /// previous call (the first call compares with zero), clears it after a call in which none

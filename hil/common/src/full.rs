@@ -16,6 +16,7 @@ use crate::Setup;
 use embedded_io::{Read, Write};
 use slotwise::acquire::fold::ArrivalPattern;
 use slotwise::formats::{alarm, statistics};
+use slotwise::ingest::IngestCounts;
 use slotwise::{
     Announcement, Answer, Fate, FrameConfig, FrameSink, Located, MarkerNumbering, Monitor,
     Numbered, Numbering, Receiver, ReceiverLink, RecordType, RecoveredClock, SlotClock, Summary,
@@ -204,6 +205,15 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
         self.service(totals);
         totals.detections += events.len() as u64;
         totals.blocks += 1;
+    }
+
+    /// Read the ingest stage's counters: the monitor raises or clears its ingest-fault alarm
+    /// (stamped with the latest detection's time) and the event goes into the frame stream.
+    pub fn observe_ingest(&mut self, counts: &IngestCounts, totals: &mut FullTotals) {
+        let _m = self.probe.part(Part::Monitor);
+        let t_ps = self.monitor.last_t_ps().unwrap_or(0);
+        self.monitor.observe_ingest(counts, t_ps);
+        self.drain_events(totals);
     }
 
     /// End of input: the link sends its last batch (the answers in flight may still arrive

@@ -186,6 +186,9 @@ impl Station {
         for piece in events.chunks(BLOCK) {
             p.run.push_block(piece, p.totals);
         }
+        if let Some(i) = p.ingest.as_ref() {
+            p.run.observe_ingest(&i.counts(), p.totals);
+        }
         Ok(())
     }
 
@@ -204,6 +207,7 @@ impl Station {
             }
             rest = rest.get(done.consumed..).unwrap_or(&[]);
             if rest.is_empty() || done.consumed == 0 {
+                p.run.observe_ingest(&ingest.counts(), p.totals);
                 return Ok(());
             }
         }
@@ -264,7 +268,12 @@ impl Station {
             Phase::Ending => {}
         }
         let mut p = self.parts();
-        p.run.finish(p.totals, |s| s);
+        let ingest = p.ingest.as_ref().map(Ingest::counts);
+        if let Some(c) = ingest {
+            p.run.observe_ingest(&c, p.totals);
+        }
+        p.run
+            .finish(p.totals, |s| s.with_ingest(ingest.unwrap_or_default()));
         self.phase = Phase::Finished;
         Ok(())
     }
@@ -274,9 +283,10 @@ impl Station {
         self.phase
     }
 
-    /// The receiver's summary now (accounting, tallies, sifted bits).
+    /// The receiver's summary now (accounting, tallies, sifted bits, the ingest counters).
     pub fn summary(&self) -> Summary {
-        Summary::of(&self.rx)
+        let ingest = self.ingest.as_ref().map(Ingest::counts).unwrap_or_default();
+        Summary::of(&self.rx).with_ingest(ingest)
     }
 
     /// The receiver.

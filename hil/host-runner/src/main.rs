@@ -106,6 +106,9 @@ enum Cmd {
         /// Run directory to fill.
         #[arg(long)]
         out: PathBuf,
+        /// Damage the raw words: one malformed record, one lost rollover record.
+        #[arg(long)]
+        faults: bool,
     },
     /// Turn the firmware's stage-by-stage profile into one JSON line (instructions per event).
     Profile {
@@ -239,12 +242,15 @@ fn main() -> ExitCode {
             elf,
             qemu_exit,
         } => compare(&dir, &target, &capture, &elf, qemu_exit),
-        Cmd::Station { profile, from, out } => {
-            station::prepare(&profile, &from, &out).map(|line| {
-                println!("{line}");
-                true
-            })
-        }
+        Cmd::Station {
+            profile,
+            from,
+            out,
+            faults,
+        } => station::prepare(&profile, &from, &out, faults).map(|line| {
+            println!("{line}");
+            true
+        }),
         Cmd::Budgets { committed, update } => budgets(&committed, update),
         Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
     };
