@@ -145,7 +145,10 @@ pub fn init_clocks() {
     // 25 MHz / M 25 = 1 MHz into the VCO, x N 336 = 336 MHz, / P 4 = 84 MHz, / Q 7 = 48 MHz.
     let (m, n, p_code, q) = (25u32, 336u32, 1u32, 7u32);
     const PLLSRC_HSE: u32 = 1 << 22;
-    rcc::PLLCFGR.write(m | (n << 6) | (p_code << 16) | PLLSRC_HSE | (q << 24));
+    // Only the fields set here change: the register has reserved bits whose reset value
+    // must be kept.
+    let fields = 0x3F | (0x1FF << 6) | (3 << 16) | PLLSRC_HSE | (0xF << 24);
+    rcc::PLLCFGR.modify(|v| (v & !fields) | m | (n << 6) | (p_code << 16) | PLLSRC_HSE | (q << 24));
     rcc::CR.set(PLLON);
     while rcc::CR.read() & PLLRDY == 0 {}
     // 2 wait states for 64..90 MHz at 2.7..3.6 V; prefetch and both caches on.
