@@ -114,15 +114,15 @@ fn main() -> ! {
     // built in a stack frame of its own that is gone before the next one is built.
     let rx = place!(RECEIVER: FullReceiver = match receiver::receiver(&p) {
         Ok(rx) => rx,
-        Err(_e) => {
-            log::error!("receiver settings refused: {}", _e);
+        Err(e) => {
+            log::error!("receiver settings refused: {}", e);
             halt()
         }
     });
     let monitor = place!(MONITOR: FullMonitor = match receiver::monitor(&p) {
         Ok(m) => m,
-        Err(_e) => {
-            log::error!("monitor settings refused: {}", _e);
+        Err(e) => {
+            log::error!("monitor settings refused: {}", e);
             halt()
         }
     });
