@@ -50,9 +50,12 @@ cargo clippy -p slotwise-c --target thumbv7em-none-eabihf --release -- -D warnin
 for t in "${TARGETS[@]}"; do
   cargo clippy -p slotwise-hil-firmware --target "$t" --release -- -D warnings
 done
+cargo clippy -p slotwise-board-example --target thumbv7em-none-eabihf --release -- -D warnings
+cargo clippy -p slotwise-board-example --lib --tests -- -D warnings
 
-step "tests (shared driver)"
+step "tests (shared driver, C interface, board example)"
 cargo test -p slotwise-hil -p slotwise-c
+cargo test -p slotwise-board-example --lib
 
 step "build"
 cargo build --release -p slotwise-hil-host
@@ -70,11 +73,19 @@ if ! cargo build --release -p slotwise-hil-firmware --target thumbv7em-none-eabi
   defmt_built=0
   failures=$((failures + 1))
 fi
+# The board example (STM32F411-class part) is built, never run: it has no QEMU machine here.
+cargo build --release -p slotwise-board-example --target thumbv7em-none-eabihf
+if ! cargo build --release -p slotwise-board-example --target thumbv7em-none-eabihf \
+  --features defmt --target-dir target/defmt; then
+  echo "the defmt build of the board example failed (see above)" >&2
+  failures=$((failures + 1))
+fi
 elf() { echo "$HIL/target/$1/release/slotwise-hil-firmware"; }
 profile_elf() { echo "$HIL/target/$1/release/slotwise-hil-profile"; }
 acquire_elf() { echo "$HIL/target/$1/release/slotwise-hil-acquire"; }
 full_elf() { echo "$HIL/target/$1/release/slotwise-hil-full"; }
 auth_elf() { echo "$HIL/target/$1/release/slotwise-hil-auth"; }
+BOARD_ELF="$HIL/target/thumbv7em-none-eabihf/release/slotwise-board-example"
 
 step "fault handlers exit with their own code"
 for t in "${TARGETS[@]}"; do
@@ -304,10 +315,12 @@ new="$(mktemp)"
   echo "# text = code + read-only data + vector table; bss excludes the stack and heap regions."
   echo "# (full) = slotwise-hil-full, the whole receiver; the other rows the configured-clock build."
   echo "# (C replay) = firmware-c/examples/replay.c with the static library and newlib's stdio."
+  echo "# (board example) = slotwise-board-example, the whole receiver on an STM32F411-class board."
   printf '%-37s %8s %8s %8s\n' "# target" text data bss
   for t in "${TARGETS[@]}"; do size_line "$(elf "$t")" "$t"; done
   for t in "${TARGETS[@]}"; do size_line "$(full_elf "$t")" "$t (full)"; done
   size_line "$RUNS/c-interface/replay-m4f.elf" "thumbv7em (C replay, newlib)"
+  size_line "$BOARD_ELF" "thumbv7em-none-eabihf (board example)"
 } >"$new"
 if [ -f size-report.txt ] && ! diff -q size-report.txt "$new" >/dev/null; then
   echo "size report changed:"
