@@ -33,6 +33,7 @@ extern crate std;
 
 use core::ffi::c_char;
 use core::fmt::Write as _;
+use core::mem::MaybeUninit;
 use slotwise::{Fate, SlotClock, TdcEvent};
 use slotwise_hil::blob::ProfileBlob;
 use slotwise_hil::{Station, StationError};
@@ -156,6 +157,7 @@ pub struct SwStorage {
 }
 
 /// A station living in an [`SwStorage`] (opaque to C).
+#[repr(transparent)]
 pub struct SwStation(Station);
 
 /// One TDC event: counter value in ticks and input channel (the layout of the core's event, so
@@ -310,8 +312,9 @@ impl core::fmt::Write for Truncating<'_> {
 /// Build a station in `storage` from a profile blob; on success `*out` is the station (it lives
 /// in `storage`, which must outlive it). The blob's hint is given when it carries one.
 ///
-/// The station is built on the stack before it is moved into `storage`: give this call about
-/// `sw_station_size()` bytes of stack beyond the caller's own.
+/// The station is built in `storage` part by part; the call needs about 40 KiB of stack on a
+/// Cortex-M4F (the receiver's clock is built in a frame of its own before the receiver is
+/// written in place).
 ///
 /// # Safety
 /// `storage` must be valid for writes and not in use by a live station; `profile` must point to
@@ -330,16 +333,18 @@ pub unsafe extern "C" fn sw_station_init(
     if storage.is_null() || out.is_null() {
         return SW_ERR_NULL;
     }
-    let st = match Station::new(blob) {
-        Ok(s) => s,
-        Err(e) => return status(Err(e)),
-    };
-    let slot = storage.cast::<SwStation>();
     // SAFETY: the storage is large and aligned enough (checked at compile time above), valid
-    // for writes and not in use, by the caller's contract; `out` is valid for a write.
-    unsafe {
-        slot.write(SwStation(st));
-        out.write(slot);
+    // for writes and not in use, by the caller's contract; `MaybeUninit` asks nothing of its
+    // bytes.
+    let slot = unsafe { &mut *storage.cast::<MaybeUninit<Station>>() };
+    match Station::init(slot, blob) {
+        Ok(st) => {
+            let st: *mut Station = st;
+            // SAFETY: `out` is valid for a write; `SwStation` is a transparent wrapper of
+            // `Station`, so the pointer is the station's.
+            unsafe { out.write(st.cast::<SwStation>()) };
+        }
+        Err(e) => return status(Err(e)),
     }
     SW_OK
 }

@@ -19,18 +19,19 @@ mod uart;
 #[cfg(feature = "defmt")]
 use defmt_rtt as _;
 
+use core::mem::MaybeUninit;
 use cortex_m::interrupt::InterruptNumber;
 use cortex_m::peripheral::NVIC;
 use cortex_m_rt::{entry, exception};
 use embedded_hal::spi::{Operation, SpiDevice};
+use embedded_io::{Read, Write};
 use regs::Usart;
 use slotwise::ingest::spi::SpiFifoSource;
-use slotwise::ingest::Ingest;
+use slotwise::track::LockState;
 use slotwise::TdcEvent;
 use slotwise_board_example::fifo::{self, RECORD_BYTES};
-use slotwise_board_example::profile::{self, PROFILE};
-use slotwise_board_example::receiver::{self, FrameOut, Link, Pipeline};
-use slotwise_hil::{FullMonitor, FullReceiver, IoFrames};
+use slotwise_board_example::profile::PROFILE;
+use slotwise_hil::Station;
 use spi::{CommandPort, DataReady};
 use uart::{ByteRing, UartRx, UartTx};
 
@@ -44,10 +45,8 @@ const REPORT_EVERY_HALVES: u32 = 256;
 /// The classical channel's received bytes, filled by the USART1 interrupt.
 static LINK_RX: ByteRing = ByteRing::new();
 
-/// The frame stream to the post-processing host.
-type HostFrames = IoFrames<UartTx>;
-/// The link endpoint over USART1.
-type BoardLink = Link<UartRx, UartTx>;
+/// Bytes moved per call between the station's rings and a UART.
+const MOVE_BYTES: usize = 256;
 
 /// Build a value into a static of its own (`cortex_m::singleton!`) inside a function that is
 /// never inlined, so the value's temporary lives in that function's frame only: the receiver
@@ -102,56 +101,36 @@ fn main() -> ! {
     uart::init(Usart::USART1, regs::APB2_HZ, true);
     uart::init(Usart::USART2, regs::APB1_HZ, false);
 
-    let p = match profile::decode(PROFILE) {
-        Ok(p) => p,
+    // The whole receiver in one static, built where it lives, part by part, from the profile
+    // blob in flash (setup, board settings, the bridge's word layout).
+    let slot = place!(STATION: MaybeUninit<Station> = MaybeUninit::uninit());
+    let st = match Station::init(slot, PROFILE) {
+        Ok(st) => st,
         Err(e) => {
             log::error!("profile refused: {}", e);
             halt()
         }
     };
-    let counter_bits = p.setup.tdc.counter_bits();
-    // Each part in a static of its own: a symbol listing of the ELF shows its RAM, and each is
-    // built in a stack frame of its own that is gone before the next one is built.
-    let rx = place!(RECEIVER: FullReceiver = match receiver::receiver(&p) {
-        Ok(rx) => rx,
-        Err(e) => {
-            log::error!("receiver settings refused: {}", e);
-            halt()
-        }
-    });
-    let monitor = place!(MONITOR: FullMonitor = match receiver::monitor(&p) {
-        Ok(m) => m,
-        Err(e) => {
-            log::error!("monitor settings refused: {}", e);
-            halt()
-        }
-    });
-    let link = place!(LINK: BoardLink = receiver::link(
-        &p,
-        UartRx::new(&LINK_RX),
-        UartTx::new(Usart::USART1)
-    ));
-    let out = place!(FRAME_OUT: FrameOut<HostFrames> =
-        FrameOut::new(IoFrames::new(UartTx::new(Usart::USART2))));
+    let counter_bits = st.receiver().config().tdc().counter_bits();
     let events =
         place!(EVENT_BLOCK: [TdcEvent; EVENTS] = [TdcEvent { count: 0, channel: 0 }; EVENTS]);
     log::info!(
-        "RAM bytes: receiver {}, link {}, monitor {}, frame writer {}, events {}, DMA ring {}",
-        core::mem::size_of::<FullReceiver>(),
-        core::mem::size_of::<BoardLink>(),
-        core::mem::size_of::<FullMonitor>(),
-        core::mem::size_of::<FrameOut<HostFrames>>(),
+        "RAM bytes: station {}, events {}, DMA ring {}",
+        core::mem::size_of::<Station>(),
         core::mem::size_of::<[TdcEvent; EVENTS]>(),
         dma::RING_BYTES
     );
-    let mut pipe = Pipeline::new(&p, rx, link, monitor, out);
+    let mut link_rx = UartRx::new(&LINK_RX);
+    let mut link_tx = UartTx::new(Usart::USART1);
+    let mut host_tx = UartTx::new(Usart::USART2);
 
-    let mut ingest = Ingest::new(fifo::FORMAT);
     let mut source = SpiFifoSource::new(CommandPort::new(), DataReady);
     // One status read before the DMA is armed: whatever the FIFO dropped or overflowed while the
     // board was booting is counted now, not blamed on the first half.
-    if source.poll(&mut ingest, &mut [], &mut []).is_err() {
-        log::warning!("bridge status read failed before arming the DMA");
+    if let Some(ingest) = st.ingest_mut() {
+        if source.poll(ingest, &mut [], &mut []).is_err() {
+            log::warning!("bridge status read failed before arming the DMA");
+        }
     }
     dma::arm();
     spi::enable_stream_port();
@@ -162,32 +141,34 @@ fn main() -> ! {
         NVIC::unmask(Irq::Usart1);
     }
     let mut source = command(source, spi::STREAM_ON_COMMAND);
-    log::info!(
-        "receiver up: {}-bit TDC counter, hint at {} ps",
-        counter_bits,
-        p.board.hint_t_ps
-    );
+    log::info!("receiver up: {}-bit TDC counter", counter_bits);
 
     let mut path = Path::Dma;
     let mut halves = dma::Halves::new();
     let mut decoded_halves: u32 = 0;
-    let mut last_state = pipe.lock_state();
-    let mut last_alarms = 0;
+    let mut last_state = LockState::Acquiring;
+    let mut last_alarms = 0u8;
     let mut poll_buf = [0u8; POLL_BYTES];
+    let mut moved = [0u8; MOVE_BYTES];
     let half_words = (dma::HALF_BYTES / RECORD_BYTES) as u64;
     loop {
         let mut worked = false;
         if path == Path::Dma {
             if let Some(ready) = halves.next() {
                 if ready.lost_halves > 0 {
-                    ingest.report_overrun(u64::from(ready.lost_halves) * half_words);
+                    st.report_overrun(u64::from(ready.lost_halves) * half_words);
                 }
-                decode(&mut ingest, ready.bytes, events, counter_bits, &mut pipe);
+                // Decoded where it lies, each counter cut to the receiver's width.
+                if st.push_words(ready.bytes).is_err() {
+                    log::error!("the profile has no word layout");
+                }
                 if halves.done() {
-                    ingest.report_overrun(half_words);
+                    st.report_overrun(half_words);
                 }
                 // The bridge's own FIFO-full flag and dropped words, for this half's time.
-                let _ = source.poll(&mut ingest, &mut [], &mut []);
+                if let Some(ingest) = st.ingest_mut() {
+                    let _ = source.poll(ingest, &mut [], &mut []);
+                }
                 decoded_halves = decoded_halves.wrapping_add(1);
                 worked = true;
             } else if dma::transfer_errors() > 0 {
@@ -195,41 +176,63 @@ fn main() -> ! {
                 source = command(source, spi::STREAM_OFF_COMMAND);
                 path = Path::Polled;
             }
-        } else if let Ok(got) = source.poll(&mut ingest, &mut poll_buf, events.as_mut_slice()) {
-            push(events, got.events, counter_bits, &mut pipe);
-            decoded_halves = decoded_halves.wrapping_add(u32::from(got.bytes > 0));
-            worked = got.bytes > 0;
+        } else if let Some(ingest) = st.ingest_mut() {
+            if let Ok(got) = source.poll(ingest, &mut poll_buf, events.as_mut_slice()) {
+                push(st, events, got.events, counter_bits);
+                decoded_halves = decoded_halves.wrapping_add(u32::from(got.bytes > 0));
+                worked = got.bytes > 0;
+            }
         }
+        worked |= move_bytes(st, &mut link_rx, &mut link_tx, &mut host_tx, &mut moved);
         if !worked {
             // Answers may arrive while no detections do; they must not wait for the next half.
-            pipe.service();
+            let _ = st.push_events(&[]);
         }
 
-        let state = pipe.lock_state();
+        let state = st.receiver().clock().state();
         if state != last_state {
             log::info!("clock: {}", state);
             last_state = state;
         }
-        let alarms = pipe.counts().alarm_frames;
+        let alarms = st.monitor().alarms().active();
         if alarms != last_alarms {
-            if let Some(a) = pipe.last_alarm() {
-                log::warning!(
-                    "alarm {} raised={} value {} ppm",
-                    a.kind,
-                    a.raised,
-                    a.value_ppm
-                );
-            }
+            log::warning!("active alarms now {=u8:#04x}", alarms);
             last_alarms = alarms;
         }
         if worked && decoded_halves.is_multiple_of(REPORT_EVERY_HALVES) {
-            report(&ingest, &pipe);
+            report(st);
         }
         if !worked && path == Path::Dma {
             // Sleep until the next half or link byte: every source of work is an interrupt.
             cortex_m::asm::wfi();
         }
     }
+}
+
+/// Move bytes between the station's rings and the UARTs: received link bytes in, announce frames
+/// out on USART1, records out on USART2. True when anything moved.
+fn move_bytes(
+    st: &mut Station,
+    link_rx: &mut UartRx,
+    link_tx: &mut UartTx,
+    host_tx: &mut UartTx,
+    buf: &mut [u8; MOVE_BYTES],
+) -> bool {
+    let mut moved = false;
+    // Received bytes the station's ring refuses stay counted there (`link_in_refused_bytes`).
+    let Ok(n) = link_rx.read(buf);
+    st.push_link(buf.get(..n).unwrap_or(&[]));
+    moved |= n > 0;
+    let n = st.drain_link(buf);
+    if link_tx.write_all(buf.get(..n).unwrap_or(&[])).is_err() {
+        log::warning!("classical channel write failed");
+    }
+    moved |= n > 0;
+    let n = st.drain_frames(buf);
+    if host_tx.write_all(buf.get(..n).unwrap_or(&[])).is_err() {
+        log::warning!("host link write failed");
+    }
+    moved | (n > 0)
 }
 
 /// Send one command byte on the bridge's command port.
@@ -244,63 +247,40 @@ fn command(
     SpiFifoSource::new(port, pin)
 }
 
-/// Decode one half in place and push its events.
-fn decode(
-    ingest: &mut Ingest,
-    bytes: &[u8],
-    events: &mut [TdcEvent],
-    counter_bits: u8,
-    pipe: &mut Pipeline<'_, UartRx, UartTx, HostFrames>,
-) {
-    let mut rest = bytes;
-    while !rest.is_empty() {
-        let done = ingest.push(rest, events);
-        push(events, done.events, counter_bits, pipe);
-        if done.consumed == 0 {
-            // The event buffer holds a whole half, so this never happens; if it did, stopping
-            // is better than spinning on the same bytes.
-            break;
-        }
-        rest = rest.get(done.consumed..).unwrap_or(&[]);
-    }
-}
-
-/// Cut the first `n` events to the receiver's counter width and push them.
-fn push(
-    events: &mut [TdcEvent],
-    n: usize,
-    counter_bits: u8,
-    pipe: &mut Pipeline<'_, UartRx, UartTx, HostFrames>,
-) {
+/// Cut the first `n` events (decoded by the polled source) to the receiver's counter width and
+/// push them.
+fn push(st: &mut Station, events: &mut [TdcEvent], n: usize, counter_bits: u8) {
     let block = events.get_mut(..n).unwrap_or(&mut []);
     for ev in block.iter_mut() {
         *ev = fifo::to_receiver(*ev, counter_bits);
     }
-    pipe.push_block(block);
+    let _ = st.push_events(block);
 }
 
 /// The ingest, receiver, link and line counters, in the log.
-fn report(ingest: &Ingest, pipe: &Pipeline<'_, UartRx, UartTx, HostFrames>) {
-    log::info!("ingest: {}", ingest.counts());
+fn report(st: &Station) {
+    let c = st.counts();
+    let l = st.link().counters();
+    log::info!("ingest: {}", c.ingest);
     log::info!(
         "receiver: {} detections, {} sifted bits, {} alarms, {} stats records",
-        pipe.counts().detections,
-        pipe.sifted_bits(),
-        pipe.counts().alarm_frames,
-        pipe.counts().stats_frames
+        c.totals.detections,
+        st.receiver().sifted_bits(),
+        c.totals.alarm_frames,
+        c.totals.stats_frames
     );
     log::info!(
         "link: {} announce frames, {} answers frames, {} rejected; uart losses {}; DMA errors {}",
-        pipe.link_counters().frames_out,
-        pipe.link_counters().answered_frames,
-        pipe.link_counters().rejected.total(),
+        l.frames_out,
+        l.answered_frames,
+        l.rejected.total(),
         LINK_RX.losses(),
         dma::transfer_errors()
     );
     log::info!(
-        "host stream: {} frames, {} write errors",
-        pipe.frame_out().sink().frames(),
-        pipe.frame_out().sink().errors()
+        "host stream: {} records, {} dropped",
+        c.frames_out,
+        c.frames_dropped
     );
 }
 

@@ -1,43 +1,21 @@
-//! Host tests of the board-independent half: the committed profile, the bridge's record layout
-//! through the core's ingest stage, and the receiver wiring.
+//! Host tests of the board-independent half: the committed profile blob, the bridge's record
+//! layout through the core's ingest stage, and the station fed the bridge's records.
 
 use crate::fifo::{event_record, rollover_record, to_receiver, FORMAT, RECORD_BYTES};
-use crate::profile::{decode, setup_len, ProfileError, PROFILE};
-use crate::receiver::{self, Pipeline};
-use core::convert::Infallible;
+use crate::profile::PROFILE;
 use slotwise::ingest::Ingest;
-use slotwise::{FrameSink, TdcEvent};
-use slotwise_hil::board::BOARD_LEN;
-use slotwise_hil::BoardFrameOut;
+use slotwise::TdcEvent;
+use slotwise_hil::blob::ProfileBlob;
+use slotwise_hil::Station;
 
 #[test]
-fn committed_profile_decodes_and_splits_where_the_layout_says() {
-    // The setup layout table (hil/common/src/setup.rs): 46 + 8·C + 11·G + 4 bytes, C at byte 44,
-    // G right after the delays; the committed setup has C = 3, G = 8.
-    assert_eq!(PROFILE.get(44), Some(&3));
-    assert_eq!(PROFILE.get(45 + 8 * 3), Some(&8));
-    assert_eq!(setup_len(PROFILE), Some(46 + 8 * 3 + 11 * 8 + 4));
-    assert_eq!(PROFILE.len(), 162 + BOARD_LEN);
-    let p = decode(PROFILE).expect("the committed profile decodes");
-    // The committed setup is the bench scenario's: a 48-bit TDC counter at 1 ps (bytes 5..10 of
-    // the layout).
+fn committed_profile_carries_the_bridge_layout() {
+    let p = ProfileBlob::decode(PROFILE).expect("the committed profile decodes");
+    // The bench scenario's receiver: a 48-bit TDC counter at 1 ps, and the bridge's word layout.
     assert_eq!(p.setup.tdc.counter_bits(), 48);
-}
-
-#[test]
-fn damaged_profiles_are_refused() {
-    assert_eq!(decode(&PROFILE[..40]), Err(ProfileError::Truncated));
-    assert_eq!(
-        decode(&PROFILE[..PROFILE.len() - 1]),
-        Err(ProfileError::BoardLength(BOARD_LEN - 1))
-    );
-    let mut flipped = PROFILE.to_vec();
-    flipped[20] ^= 0x10;
-    assert!(matches!(decode(&flipped), Err(ProfileError::Setup(_))));
-    let mut flipped = PROFILE.to_vec();
-    let last = flipped.len() - 10;
-    flipped[last] ^= 0x01;
-    assert!(matches!(decode(&flipped), Err(ProfileError::Board(_))));
+    assert_eq!(p.words, Some(FORMAT));
+    // No hint compiled in: the transmitter's hello gives it at run time.
+    assert_eq!((p.board.hint_t_ps, p.board.hint_tx_slot), (0, 0));
 }
 
 #[test]
@@ -86,64 +64,29 @@ fn receiver_counter_keeps_the_configured_width() {
     assert_eq!(to_receiver(ev, 32).count, 0x5678_9ABC);
 }
 
-/// A link line with nothing to read.
-struct Silent;
-impl embedded_io::ErrorType for Silent {
-    type Error = Infallible;
-}
-impl embedded_io::Read for Silent {
-    fn read(&mut self, _: &mut [u8]) -> Result<usize, Infallible> {
-        Ok(0)
-    }
-}
-impl embedded_io::ReadReady for Silent {
-    fn read_ready(&mut self) -> Result<bool, Infallible> {
-        Ok(false)
-    }
-}
-
-/// A line that keeps what is written.
-#[derive(Default)]
-struct Kept(Vec<u8>);
-impl embedded_io::ErrorType for Kept {
-    type Error = Infallible;
-}
-impl embedded_io::Write for Kept {
-    fn write(&mut self, buf: &[u8]) -> Result<usize, Infallible> {
-        self.0.extend_from_slice(buf);
-        Ok(buf.len())
-    }
-    fn flush(&mut self) -> Result<(), Infallible> {
-        Ok(())
-    }
-}
-
-#[derive(Default)]
-struct Frames(usize);
-impl FrameSink for Frames {
-    fn frame(&mut self, _: &[u8]) {
-        self.0 += 1;
-    }
-}
-
 #[test]
-fn pipeline_takes_blocks_from_a_cold_start() {
-    let p = decode(PROFILE).expect("profile");
-    let mut rx = Box::new(receiver::receiver(&p).expect("receiver"));
-    let mut link = Box::new(receiver::link(&p, Silent, Kept::default()));
-    let mut monitor = Box::new(receiver::monitor(&p).expect("monitor"));
-    let mut out = Box::new(BoardFrameOut::new(Frames::default()));
-    let mut pipe = Pipeline::new(&p, &mut rx, &mut link, &mut monitor, &mut out);
-    // 10 ns apart at 1 ps per tick: one detection per slot of the 100 MHz scenario.
-    let block: Vec<TdcEvent> = (0..128u64)
-        .map(|i| TdcEvent {
-            count: 1_000_000 + i * 10_000,
-            channel: (i % 2) as u8,
-        })
-        .collect();
-    pipe.push_block(&block);
-    pipe.push_block(&block[..0]);
-    assert_eq!(pipe.counts().detections, 128);
-    // 128 detections cannot lock a cold recovered clock: nothing is announced yet.
-    assert_eq!(pipe.link_counters().announcements, 0);
+fn the_station_takes_the_bridges_records_from_a_cold_start() {
+    let mut st = Box::new(Station::new(PROFILE).expect("station"));
+    // 10 ns apart at 1 ps per tick: one detection per slot of the 100 MHz scenario, across a
+    // wrap of the 32-bit time field, cut into odd pieces as DMA halves may cut them.
+    let mut bytes = Vec::new();
+    let start: u64 = 0xFFF0_0000;
+    for i in 0..256u64 {
+        let t = start + i * 10_000;
+        if t >> 32 != (t - 10_000) >> 32 {
+            bytes.extend_from_slice(&rollover_record(1));
+        }
+        bytes.extend_from_slice(&event_record(t as u32, (i % 2) as u8));
+    }
+    for piece in bytes.chunks(100) {
+        st.push_words(piece).expect("words");
+    }
+    let c = st.counts();
+    assert_eq!(c.totals.detections, 256);
+    assert_eq!((c.ingest.malformed_words, c.ingest.rollover_gaps), (0, 0));
+    // 256 detections cannot lock a cold recovered clock: nothing is announced yet, and every
+    // detection is accounted for.
+    assert_eq!(st.link().counters().announcements, 0);
+    let s = st.summary();
+    assert_eq!(s.accounting.total(), 256);
 }

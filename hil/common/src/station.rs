@@ -10,11 +10,14 @@
 use crate::blob::ProfileBlob;
 use crate::board::BoardError;
 use crate::full::{
-    build_receiver, FullMonitor, FullReceiver, FullRun, FullTotals, LinkEnd, LINK_BATCH, LINK_OUT,
+    build_clock, build_numbering, build_receiver, FullMonitor, FullReceiver, FullRun, FullTotals,
+    LinkEnd, LINK_BATCH, LINK_OUT,
 };
 use crate::probe::Probe;
 use crate::ring::{ByteRing, FrameBytesOut, FrameRing};
 use crate::run::{BoardFrameOut, BLOCK};
+use core::mem::MaybeUninit;
+use core::ptr::addr_of_mut;
 use slotwise::ingest::{Ingest, IngestCounts};
 use slotwise::{ReceiverLink, Summary, TdcEvent};
 
@@ -91,6 +94,81 @@ pub struct StationCounts {
     pub frames_out: u64,
 }
 
+/// A blob read and every setting checked, before anything is built.
+struct Checked {
+    blob: ProfileBlob,
+    stats: slotwise::StatsConfig,
+}
+
+impl Checked {
+    fn of(bytes: &[u8]) -> Result<Self, StationError> {
+        let blob = ProfileBlob::decode(bytes).map_err(StationError::Profile)?;
+        let cfg = blob
+            .setup
+            .receiver_config()
+            .map_err(|e| StationError::Profile(e.into()))?;
+        let stats = blob
+            .board
+            .stats_config(cfg.gates())
+            .map_err(StationError::Profile)?;
+        Ok(Self { blob, stats })
+    }
+
+    fn count_mask(&self) -> u64 {
+        u64::MAX >> (64 - u32::from(self.blob.setup.tdc.counter_bits()).clamp(1, 64))
+    }
+}
+
+fn new_link(p: &Checked) -> StationLink {
+    StationLink::new(
+        p.blob.board.link,
+        ByteRing::new(),
+        FrameBytesOut(ByteRing::new()),
+    )
+}
+
+/// Build the receiver in a frame of its own and write it to `dst`.
+///
+/// # Safety
+/// `dst` must be valid for a write of a `FullReceiver`.
+#[inline(never)]
+unsafe fn write_rx(dst: *mut FullReceiver, p: &Checked) -> Result<(), StationError> {
+    let err = StationError::Profile;
+    let cfg = p.blob.setup.receiver_config().map_err(|e| err(e.into()))?;
+    let numbering = build_numbering().map_err(err)?;
+    match build_clock(&p.blob.setup, &p.blob.board) {
+        // SAFETY: valid for a write, by the caller's contract.
+        Ok(clock) => unsafe { assemble(dst, cfg, clock, numbering) },
+        Err(e) => return Err(err(e)),
+    }
+    Ok(())
+}
+
+/// The receiver assembled by a call of its own, its result written straight to `dst`.
+///
+/// # Safety
+/// `dst` must be valid for a write of a `FullReceiver`.
+#[inline(never)]
+unsafe fn assemble(
+    dst: *mut FullReceiver,
+    cfg: slotwise::ReceiverConfig,
+    clock: crate::FullClock,
+    numbering: crate::FullNumbering,
+) {
+    // SAFETY: valid for a write, by the caller's contract.
+    unsafe { dst.write(slotwise::Receiver::with_numbering(cfg, clock, numbering)) };
+}
+
+/// Build a part in a frame of its own and write it to `dst`.
+///
+/// # Safety
+/// `dst` must be valid for a write of a `T`.
+#[inline(never)]
+unsafe fn write_with<T>(dst: *mut T, make: impl FnOnce() -> T) {
+    // SAFETY: valid for a write, by the caller's contract.
+    unsafe { dst.write(make()) };
+}
+
 /// Borrowed parts of a [`Station`]: the driver over its receiver, link, monitor and output, and
 /// what the station keeps beside them.
 struct Parts<'a> {
@@ -98,6 +176,7 @@ struct Parts<'a> {
     totals: &'a mut FullTotals,
     ingest: &'a mut Option<Ingest>,
     events: &'a mut [TdcEvent; BLOCK],
+    count_mask: u64,
 }
 
 /// The whole receiver, push-style.
@@ -110,43 +189,79 @@ pub struct Station {
     events: [TdcEvent; BLOCK],
     totals: FullTotals,
     phase: Phase,
+    /// The receiver's counter mask: decoded words are cut to the setup's counter width, which
+    /// the receiver's time base widens again (its own wraps), so a long run never outgrows it.
+    count_mask: u64,
 }
 
 impl Station {
     /// A receiver from a profile blob, cold (no lock yet), with the blob's hint given when it
     /// carries one (a hint of 0, 0 is none: call [`Self::hint`] when the transmitter's hello
-    /// arrives).
+    /// arrives). Returned by value: on a board, build it in place with [`Self::init`] instead.
     pub fn new(blob: &[u8]) -> Result<Self, StationError> {
-        let p = ProfileBlob::decode(blob).map_err(StationError::Profile)?;
-        let cfg = p
-            .setup
-            .receiver_config()
-            .map_err(|e| StationError::Profile(e.into()))?;
-        let stats = p
-            .board
-            .stats_config(cfg.gates())
-            .map_err(StationError::Profile)?;
+        let p = Checked::of(blob)?;
         let mut s = Self {
-            rx: build_receiver(&p.setup, &p.board).map_err(StationError::Profile)?,
-            link: StationLink::new(
-                p.board.link,
-                ByteRing::new(),
-                FrameBytesOut(ByteRing::new()),
-            ),
-            monitor: FullMonitor::new(stats, p.board.alarms),
+            rx: build_receiver(&p.blob.setup, &p.blob.board).map_err(StationError::Profile)?,
+            link: new_link(&p),
+            monitor: FullMonitor::new(p.stats, p.blob.board.alarms),
             out: BoardFrameOut::new(FrameRing::new()),
-            ingest: p.words.map(Ingest::new),
+            ingest: p.blob.words.map(Ingest::new),
             events: [TdcEvent {
                 count: 0,
                 channel: 0,
             }; BLOCK],
             totals: FullTotals::default(),
             phase: Phase::Running,
+            count_mask: p.count_mask(),
         };
-        if p.board.hint_t_ps != 0 || p.board.hint_tx_slot != 0 {
-            s.hint(p.board.hint_t_ps, p.board.hint_tx_slot);
-        }
+        s.hint_from(&p);
         Ok(s)
+    }
+
+    /// The same station built where it will live: each part is written into `slot` from a
+    /// stack frame of its own, so building needs about the largest part's size in stack (the
+    /// receiver, some 27 KiB on a Cortex-M4F) instead of several copies of the whole station.
+    /// On a refusal nothing is built and `slot` stays uninitialised.
+    pub fn init<'s>(
+        slot: &'s mut MaybeUninit<Self>,
+        blob: &[u8],
+    ) -> Result<&'s mut Self, StationError> {
+        let p = Checked::of(blob)?;
+        // The receiver is the one part whose construction can still refuse; it goes first.
+        let at = slot.as_mut_ptr();
+        // SAFETY: `at` points to `slot`, valid for writes of a `Station`; each field pointer
+        // comes from `addr_of_mut!` and is written exactly once before `assume_init_mut`.
+        unsafe {
+            write_rx(addr_of_mut!((*at).rx), &p)?;
+            write_with(addr_of_mut!((*at).link), || new_link(&p));
+            write_with(addr_of_mut!((*at).monitor), || {
+                FullMonitor::new(p.stats, p.blob.board.alarms)
+            });
+            write_with(addr_of_mut!((*at).out), || {
+                BoardFrameOut::new(FrameRing::new())
+            });
+            addr_of_mut!((*at).ingest).write(p.blob.words.map(Ingest::new));
+            addr_of_mut!((*at).events).write(
+                [TdcEvent {
+                    count: 0,
+                    channel: 0,
+                }; BLOCK],
+            );
+            addr_of_mut!((*at).totals).write(FullTotals::default());
+            addr_of_mut!((*at).phase).write(Phase::Running);
+            addr_of_mut!((*at).count_mask).write(p.count_mask());
+        }
+        // SAFETY: every field was written above.
+        let s = unsafe { slot.assume_init_mut() };
+        s.hint_from(&p);
+        Ok(s)
+    }
+
+    fn hint_from(&mut self, p: &Checked) {
+        let b = &p.blob.board;
+        if b.hint_t_ps != 0 || b.hint_tx_slot != 0 {
+            self.hint(b.hint_t_ps, b.hint_tx_slot);
+        }
     }
 
     /// The driver's steps over the station's parts, and the parts the station keeps beside them.
@@ -162,6 +277,7 @@ impl Station {
             totals: &mut self.totals,
             ingest: &mut self.ingest,
             events: &mut self.events,
+            count_mask: self.count_mask,
         }
     }
 
@@ -193,7 +309,9 @@ impl Station {
     }
 
     /// Push a block of raw TDC bytes in the profile's word layout; a block may cut a record
-    /// anywhere (the rest is kept for the next block). The bytes are decoded where they lie.
+    /// anywhere (the rest is kept for the next block). The bytes are decoded where they lie, and
+    /// each event's widened counter is cut to the setup's counter width (the receiver's time base
+    /// widens it again).
     pub fn push_words(&mut self, bytes: &[u8]) -> Result<(), StationError> {
         self.running()?;
         let mut p = self.parts();
@@ -202,7 +320,10 @@ impl Station {
         loop {
             let done = ingest.push(rest, p.events);
             if done.events > 0 {
-                let block = p.events.get(..done.events).unwrap_or(&[]);
+                let block = p.events.get_mut(..done.events).unwrap_or(&mut []);
+                for ev in block.iter_mut() {
+                    ev.count &= p.count_mask;
+                }
                 p.run.push_block(block, p.totals);
             }
             rest = rest.get(done.consumed..).unwrap_or(&[]);
