@@ -22,8 +22,8 @@
 //! records has none to lose: its counter wraps by design and the downstream unwrapping stage
 //! handles that, so such a stream counts no gaps.
 //!
-//! The counters leave the board in the summary record ([`crate::formats::summary`]) and, as they
-//! grow, as an ingest-fault alarm ([`crate::alarms`]).
+//! The counters leave the board in the summary record (`formats::summary`) and, as they grow, as
+//! an ingest-fault alarm (`alarms`); both read them from here.
 //!
 //! With the `embedded-hal` feature, `spi` reads such blocks from a FIFO behind an
 //! `embedded-hal` 1.0 `SpiDevice` when a data-ready pin is high.

@@ -501,7 +501,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
     let mut files = vec![cap_path.clone(), json, key_path, profile_path, gates_svg];
     // The same receiver as the blob a board reads (docs/board-integration.md); a scenario
     // without the public marker has no board receiver, and no blob.
-    let blob = crate::profile::compile::compile(
+    let blob = crate::board_blob::compile(
         &plan_profile.profile,
         &plan_profile.checked,
         None,

@@ -5,6 +5,7 @@
 pub mod bench_import;
 pub mod bench_pipeline;
 pub mod bench_sync;
+pub mod board_blob;
 pub mod capture;
 pub mod cli;
 pub mod clocks;

@@ -24,7 +24,6 @@ use slotwise::{
 };
 use std::path::Path;
 
-pub mod compile;
 mod draw;
 mod from_scenario;
 pub use draw::{gate_layout_svg, gate_layout_text};

@@ -1,7 +1,8 @@
 //! `slotwise profile`: check a receiver profile and draw its gate layout, or write the profile of
 //! the simulator's receiver for a scenario.
 
-use crate::profile::{compile, gate_layout_svg, gate_layout_text, Profile};
+use crate::board_blob;
+use crate::profile::{gate_layout_svg, gate_layout_text, Profile};
 use crate::scenario::Scenario;
 use clap::{Args, Subcommand};
 use std::io::Write;
@@ -127,9 +128,9 @@ pub fn run(a: &ProfileArgs) -> Result<(), Box<dyn std::error::Error>> {
         } => {
             let source = profile.display().to_string();
             let (p, c) = Profile::load(profile)?;
-            let words = words.as_deref().map(compile::parse_words).transpose()?;
+            let words = words.as_deref().map(board_blob::parse_words).transpose()?;
             let hint = hint.as_deref().map(parse_hint).transpose()?;
-            let blob = compile::compile(&p, &c, hint, words, &source)?;
+            let blob = board_blob::compile(&p, &c, hint, words, &source)?;
             std::fs::write(out, &blob).map_err(|e| format!("{}: {e}", out.display()))?;
             println!(
                 "wrote {} ({} bytes: setup, board settings{})",

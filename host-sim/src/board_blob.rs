@@ -5,8 +5,8 @@
 //! configuration, the recovered clock's settings from `[clock]` (as `--clock recovered` replays
 //! use them), the marker numbering, the link's timeouts, the monitor and the alarms.
 
-use super::{Checked, Profile};
 use crate::clocks::{recovered_params_for, REACQUIRE_PPM};
+use crate::profile::{Checked, Profile};
 use slotwise::fixed::types::U32F32;
 use slotwise::wire::LinkConfig;
 use slotwise::words::{BitField, Endian, KindField, WordFormat, WordLayout};
