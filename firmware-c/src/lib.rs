@@ -252,6 +252,27 @@ unsafe fn station<'a>(st: *mut SwStation) -> Option<&'a mut Station> {
     unsafe { st.cast::<Station>().as_mut() }
 }
 
+/// Up to `cap` bytes from one of the station's output rings into `out`; 0 for null pointers.
+///
+/// # Safety
+/// `st` must be a live station or null; `out` must point to `cap` writable bytes or be null.
+unsafe fn drain(
+    st: *mut SwStation,
+    out: *mut u8,
+    cap: usize,
+    take: fn(&mut Station, &mut [u8]) -> usize,
+) -> usize {
+    // SAFETY: the caller's contract.
+    let Some(s) = (unsafe { station(st) }) else {
+        return 0;
+    };
+    if out.is_null() || cap == 0 {
+        return 0;
+    }
+    // SAFETY: `cap` writable bytes, by the caller's contract.
+    take(s, unsafe { core::slice::from_raw_parts_mut(out, cap) })
+}
+
 /// Exact bytes of one station on this target (at most `SW_STATION_STORAGE_BYTES`).
 #[no_mangle]
 pub extern "C" fn sw_station_size() -> usize {
@@ -467,14 +488,7 @@ pub unsafe extern "C" fn sw_station_drain_link(
     cap: usize,
 ) -> usize {
     // SAFETY: the caller's contract.
-    let Some(s) = (unsafe { station(st) }) else {
-        return 0;
-    };
-    if out.is_null() || cap == 0 {
-        return 0;
-    }
-    // SAFETY: `cap` writable bytes, by the caller's contract.
-    s.drain_link(unsafe { core::slice::from_raw_parts_mut(out, cap) })
+    unsafe { drain(st, out, cap, Station::drain_link) }
 }
 
 /// Records for the post-processing host (key blocks, alarms, statistics, the summary; COBS
@@ -489,14 +503,7 @@ pub unsafe extern "C" fn sw_station_drain_frames(
     cap: usize,
 ) -> usize {
     // SAFETY: the caller's contract.
-    let Some(s) = (unsafe { station(st) }) else {
-        return 0;
-    };
-    if out.is_null() || cap == 0 {
-        return 0;
-    }
-    // SAFETY: `cap` writable bytes, by the caller's contract.
-    s.drain_frames(unsafe { core::slice::from_raw_parts_mut(out, cap) })
+    unsafe { drain(st, out, cap, Station::drain_frames) }
 }
 
 /// End of input: the last announce frame is sent. Push the answers still in flight, then call

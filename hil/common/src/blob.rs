@@ -30,7 +30,6 @@
 
 use crate::board::{BoardError, BoardSettings, BOARD_LEN};
 use crate::setup::{Reader, Setup, SetupError, Writer, GATE_LEN};
-use slotwise::formats::crc32c;
 use slotwise::words::{BitField, Endian, KindField, WordFormat, WordLayout};
 
 /// Magic of the raw-word layout section.
@@ -150,23 +149,12 @@ fn encode_words(l: &WordLayout, out: &mut [u8]) -> Result<usize, SetupError> {
     w.put(&[l.max_channel, u8::from(l.kind.is_some())]);
     w.put(&[k.field.offset, k.field.width, k.event, k.rollover]);
     w.put(&[k.rollover_count.offset, k.rollover_count.width]);
-    let crc = crc32c(w.out.get(..w.at).unwrap_or(&[]));
-    w.put(&crc.to_le_bytes());
-    if w.ok {
-        Ok(w.at)
-    } else {
-        Err(SetupError::BufferTooSmall)
-    }
+    w.seal()
 }
 
 fn decode_words(bytes: &[u8]) -> Result<WordFormat, SetupError> {
     let mut r = Reader { bytes, at: 0 };
-    if r.arr::<4>("words.magic")? != WORDS_MAGIC {
-        return Err(r.bad(4, "words.magic"));
-    }
-    if r.u8("words.version")? != WORDS_VERSION {
-        return Err(r.bad(1, "words.version"));
-    }
+    r.header(WORDS_MAGIC, WORDS_VERSION, ["words.magic", "words.version"])?;
     let record_bytes = r.u8("words.record_bytes")?;
     let endian = match r.u8("words.endian")? {
         0 => Endian::Little,
@@ -200,13 +188,7 @@ fn decode_words(bytes: &[u8]) -> Result<WordFormat, SetupError> {
             })
         }
     };
-    let crc_at = r.at;
-    if r.u32("words.crc")? != crc32c(bytes.get(..crc_at).unwrap_or(&[])) {
-        return Err(SetupError::BadCrc { offset: crc_at });
-    }
-    if r.at != bytes.len() {
-        return Err(SetupError::TrailingBytes { offset: r.at });
-    }
+    r.crc_end("words.crc")?;
     WordFormat::new(WordLayout {
         record_bytes,
         endian,

@@ -48,7 +48,6 @@ use slotwise::acquire::AcquireConfigError;
 use slotwise::alarms::AlarmConfigError;
 use slotwise::bounds::Epsilon;
 use slotwise::fixed::types::{U0F32, U32F32};
-use slotwise::formats::crc32c;
 use slotwise::frame::FrameError as AlignConfigError;
 use slotwise::recovered::RecoveredConfigError;
 use slotwise::stats::StatsConfigError;
@@ -193,24 +192,13 @@ impl BoardSettings {
         w.put(&[al.intensity()]);
         w.put(&al.rate_floor_ppm().to_le_bytes());
         w.put(&al.saturation_ppm().to_le_bytes());
-        let crc = crc32c(w.out.get(..w.at).unwrap_or(&[]));
-        w.put(&crc.to_le_bytes());
-        if w.ok {
-            Ok(w.at)
-        } else {
-            Err(SetupError::BufferTooSmall.into())
-        }
+        Ok(w.seal()?)
     }
 
     /// Read and validate a board file.
     pub fn decode(bytes: &[u8]) -> Result<Self, BoardError> {
         let mut r = Reader { bytes, at: 0 };
-        if r.arr::<4>("magic")? != BOARD_MAGIC {
-            return Err(r.bad(4, "magic").into());
-        }
-        if r.u8("version")? != BOARD_VERSION {
-            return Err(r.bad(1, "version").into());
-        }
+        r.header(BOARD_MAGIC, BOARD_VERSION, ["magic", "version"])?;
         let mut acquire = AcquireParams::new(U32F32::from_bits(r.u64("acquire.period")?), 0);
         acquire.prior_ppm = r.u32("acquire.prior_ppm")?;
         acquire.first_stage = r.u32("acquire.first_stage")?;
@@ -258,14 +246,7 @@ impl BoardSettings {
             ceiling, bound, min_tested, intensity, rate_floor, saturation,
         )
         .map_err(BoardError::Alarms)?;
-        let crc_at = r.at;
-        let stored = r.u32("crc")?;
-        if stored != crc32c(bytes.get(..crc_at).unwrap_or(&[])) {
-            return Err(SetupError::BadCrc { offset: crc_at }.into());
-        }
-        if r.at != bytes.len() {
-            return Err(SetupError::TrailingBytes { offset: r.at }.into());
-        }
+        r.crc_end("crc")?;
         let s = Self {
             acquire,
             track,

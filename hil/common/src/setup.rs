@@ -131,6 +131,17 @@ pub(crate) struct Writer<'a> {
 }
 
 impl Writer<'_> {
+    /// Append the CRC-32/ISCSI of every byte written; the total length, or the buffer was short.
+    pub(crate) fn seal(mut self) -> Result<usize, SetupError> {
+        let crc = crc32c(self.out.get(..self.at).unwrap_or(&[]));
+        self.put(&crc.to_le_bytes());
+        if self.ok {
+            Ok(self.at)
+        } else {
+            Err(SetupError::BufferTooSmall)
+        }
+    }
+
     pub(crate) fn put(&mut self, bytes: &[u8]) {
         match self.out.get_mut(self.at..self.at + bytes.len()) {
             Some(d) => d.copy_from_slice(bytes),
@@ -175,6 +186,35 @@ impl<'a> Reader<'a> {
     pub(crate) fn u64(&mut self, field: &'static str) -> Result<u64, SetupError> {
         Ok(u64::from_le_bytes(self.arr(field)?))
     }
+    /// The section's magic and version, each refused by name.
+    pub(crate) fn header(
+        &mut self,
+        magic: [u8; 4],
+        version: u8,
+        [magic_field, version_field]: [&'static str; 2],
+    ) -> Result<(), SetupError> {
+        if self.arr::<4>(magic_field)? != magic {
+            return Err(self.bad(4, magic_field));
+        }
+        if self.u8(version_field)? != version {
+            return Err(self.bad(1, version_field));
+        }
+        Ok(())
+    }
+
+    /// The CRC-32/ISCSI over every byte before it, then the end of the bytes.
+    pub(crate) fn crc_end(&mut self, field: &'static str) -> Result<(), SetupError> {
+        let crc_at = self.at;
+        let stored = self.u32(field)?;
+        if stored != crc32c(self.bytes.get(..crc_at).unwrap_or(&[])) {
+            return Err(SetupError::BadCrc { offset: crc_at });
+        }
+        if self.at != self.bytes.len() {
+            return Err(SetupError::TrailingBytes { offset: self.at });
+        }
+        Ok(())
+    }
+
     pub(crate) fn bad(&self, len: usize, field: &'static str) -> SetupError {
         SetupError::BadField {
             offset: self.at - len,
@@ -234,24 +274,13 @@ impl Setup {
             w.put(&g.end.to_bits().to_le_bytes());
             w.put(&[g.basis as u8, g.bit]);
         }
-        let crc = crc32c(w.out.get(..w.at).unwrap_or(&[]));
-        w.put(&crc.to_le_bytes());
-        if w.ok {
-            Ok(w.at)
-        } else {
-            Err(SetupError::BufferTooSmall)
-        }
+        w.seal()
     }
 
     /// Read and validate a setup file.
     pub fn decode(bytes: &[u8]) -> Result<Self, SetupError> {
         let mut r = Reader { bytes, at: 0 };
-        if r.arr::<4>("magic")? != MAGIC {
-            return Err(r.bad(4, "magic"));
-        }
-        if r.u8("version")? != SETUP_VERSION {
-            return Err(r.bad(1, "version"));
-        }
+        r.header(MAGIC, SETUP_VERSION, ["magic", "version"])?;
         let counter_bits = r.u8("counter_bits")?;
         let resolution_ps = r.u32("resolution_ps")?;
         let tdc = UnwrapConfig::new(counter_bits, resolution_ps).map_err(SetupError::Tdc)?;
@@ -295,15 +324,7 @@ impl Setup {
             };
             g.bit = r.u8("gate.bit")?;
         }
-        let body_len = r.at;
-        let crc_at = r.at;
-        let stored = r.u32("crc")?;
-        if stored != crc32c(bytes.get(..body_len).unwrap_or(&[])) {
-            return Err(SetupError::BadCrc { offset: crc_at });
-        }
-        if r.at != bytes.len() {
-            return Err(SetupError::TrailingBytes { offset: r.at });
-        }
+        r.crc_end("crc")?;
         let table = GateTable::new(
             delays.get(..channels).unwrap_or(&[]),
             gates.get(..n_gates).unwrap_or(&[]),
