@@ -78,12 +78,13 @@ pub const SW_ERR_REFILL: i32 = -7;
 pub const SW_AGAIN: i32 = 1;
 
 /// Pad words (8 bytes each) an authenticated station's pool holds.
-pub const SW_AUTH_KEY_WORDS: usize = slotwise_hil::station::STATION_KEY_WORDS;
+pub const SW_AUTH_KEY_WORDS: usize = 96;
 /// Bytes of the hash key `sw_station_authenticate` takes.
 pub const SW_AUTH_HASH_KEY_BYTES: usize = 16;
 /// Bytes of one pad word.
 pub const SW_AUTH_PAD_WORD_BYTES: usize = 8;
 
+const _: () = assert!(SW_AUTH_KEY_WORDS == slotwise_hil::station::STATION_KEY_WORDS);
 const _: () = assert!(SW_AUTH_HASH_KEY_BYTES == slotwise::formats::tag::HASH_KEY_LEN);
 const _: () = assert!(SW_AUTH_PAD_WORD_BYTES == slotwise::formats::tag::PAD_LEN);
 
