@@ -140,15 +140,15 @@
 // Index in `fates`: still waiting (slot open, or announced and awaiting its answer).
 #define SW_FATE_IN_FLIGHT 12
 
+// A station living in an [`SwStorage`]: an opaque handle (the pointer is the station's).
+typedef struct SwStation SwStation;
+
 // Caller-provided storage for one station: declare it `static` (it is large) and pass it to
 // `sw_station_init`.
 typedef struct SW_ALIGNED(16) SwStorage {
   // The bytes, as 64-bit words.
   uint64_t words[SW_STATION_STORAGE_WORDS];
 } SwStorage;
-
-// A station living in an [`SwStorage`] (opaque to C).
-typedef Station SwStation;
 
 // One TDC event: counter value in ticks and input channel (the layout of the core's event, so
 // an array of them is read where it lies).
@@ -260,46 +260,46 @@ int32_t sw_profile_check(const uint8_t *profile, size_t len, char *msg, size_t m
 int32_t sw_station_init(struct SwStorage *storage,
                         const uint8_t *profile,
                         size_t len,
-                        SwStation **out);
+                        struct SwStation **out);
 
 // The classical channel's hint: the transmitter's slot counter `tx_slot` at receiver time
 // `t_ps` (ps on the core's time base).
 //
 // # Safety
 // `st` must be a live station from `sw_station_init`.
-int32_t sw_station_hint(SwStation *st, uint64_t t_ps, uint64_t tx_slot);
+int32_t sw_station_hint(struct SwStation *st, uint64_t t_ps, uint64_t tx_slot);
 
 // Push `n` events (read where they lie).
 //
 // # Safety
 // `st` must be a live station; `events` must point to `n` readable events.
-int32_t sw_station_push_events(SwStation *st, const struct SwEvent *events, size_t n);
+int32_t sw_station_push_events(struct SwStation *st, const struct SwEvent *events, size_t n);
 
 // Push `len` bytes of raw TDC records in the profile's word layout (decoded where they lie; a
 // block may end inside a record, whose rest comes with the next block).
 //
 // # Safety
 // `st` must be a live station; `bytes` must point to `len` readable bytes.
-int32_t sw_station_push_words(SwStation *st, const uint8_t *words, size_t len);
+int32_t sw_station_push_words(struct SwStation *st, const uint8_t *words, size_t len);
 
 // The FIFO reported `words` words lost before they were read (overrun).
 //
 // # Safety
 // `st` must be a live station.
-int32_t sw_station_report_overrun(SwStation *st, uint64_t words);
+int32_t sw_station_report_overrun(struct SwStation *st, uint64_t words);
 
 // The FIFO's status showed its full flag.
 //
 // # Safety
 // `st` must be a live station.
-int32_t sw_station_report_fifo_full(SwStation *st);
+int32_t sw_station_report_fifo_full(struct SwStation *st);
 
 // Bytes received on the classical channel; returns how many were taken (the rest did not fit
 // and are counted in `link_in_refused_bytes`: push them again later).
 //
 // # Safety
 // `st` must be a live station; `bytes` must point to `len` readable bytes.
-size_t sw_station_push_link(SwStation *st, const uint8_t *bytes_in, size_t len);
+size_t sw_station_push_link(struct SwStation *st, const uint8_t *bytes_in, size_t len);
 
 // Authenticate the classical channel in round mode: one Wegman-Carter tag per round of
 // `round_frames` announce frames each way over the round's sifting outcome; the round-verdict
@@ -333,21 +333,21 @@ int32_t sw_station_push_refill(SwStation *st, const uint8_t *frame, size_t len);
 //
 // # Safety
 // `st` must be a live station; `out` must point to `cap` writable bytes.
-size_t sw_station_drain_link(SwStation *st, uint8_t *out, size_t cap);
+size_t sw_station_drain_link(struct SwStation *st, uint8_t *out, size_t cap);
 
 // Records for the post-processing host (key blocks, alarms, statistics, the summary; COBS
 // frames, 0x00-delimited); writes up to `cap` bytes into `out` and returns how many.
 //
 // # Safety
 // `st` must be a live station; `out` must point to `cap` writable bytes.
-size_t sw_station_drain_frames(SwStation *st, uint8_t *out, size_t cap);
+size_t sw_station_drain_frames(struct SwStation *st, uint8_t *out, size_t cap);
 
 // End of input: the last announce frame is sent. Push the answers still in flight, then call
 // `sw_station_finish`.
 //
 // # Safety
 // `st` must be a live station.
-int32_t sw_station_end_input(SwStation *st);
+int32_t sw_station_end_input(struct SwStation *st);
 
 // Take the last answers, finish the receiver, close the link and write the summary record
 // (drain it with `sw_station_drain_frames`). Round-authenticated, the first call closes the
@@ -356,19 +356,19 @@ int32_t sw_station_end_input(SwStation *st);
 //
 // # Safety
 // `st` must be a live station.
-int32_t sw_station_finish(SwStation *st);
+int32_t sw_station_finish(struct SwStation *st);
 
 // Active alarms now, as `SW_ALARM_*` bits.
 //
 // # Safety
 // `st` must be a live station.
-uint32_t sw_station_alarms(SwStation *st);
+uint32_t sw_station_alarms(struct SwStation *st);
 
 // Read the counters into `*out`.
 //
 // # Safety
 // `st` must be a live station; `out` must be valid for a write.
-int32_t sw_station_counters(SwStation *st, struct SwCounters *out);
+int32_t sw_station_counters(struct SwStation *st, struct SwCounters *out);
 
 #ifdef __cplusplus
 }  // extern "C"

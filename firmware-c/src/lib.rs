@@ -186,9 +186,10 @@ pub struct SwStorage {
     pub words: [u64; SW_STATION_STORAGE_WORDS],
 }
 
-/// A station living in an [`SwStorage`] (opaque to C).
-#[repr(transparent)]
-pub struct SwStation(Station);
+/// A station living in an [`SwStorage`]: an opaque handle (the pointer is the station's).
+pub struct SwStation {
+    _opaque: [u8; 0],
+}
 
 /// One TDC event: counter value in ticks and input channel (the layout of the core's event, so
 /// an array of them is read where it lies).
@@ -307,8 +308,9 @@ unsafe fn bytes<'a>(ptr: *const u8, len: usize) -> Option<&'a [u8]> {
 /// # Safety
 /// A non-null `st` must come from `sw_station_init` and not be used by another call at once.
 unsafe fn station<'a>(st: *mut SwStation) -> Option<&'a mut Station> {
-    // SAFETY: a live station from `sw_station_init`, by the caller's contract.
-    unsafe { st.as_mut() }.map(|s| &mut s.0)
+    // SAFETY: a live station from `sw_station_init` (the handle is the station's address), by
+    // the caller's contract.
+    unsafe { st.cast::<Station>().as_mut() }
 }
 
 /// Exact bytes of one station on this target (at most `SW_STATION_STORAGE_BYTES`).
@@ -401,8 +403,7 @@ pub unsafe extern "C" fn sw_station_init(
     match Station::init(slot, blob) {
         Ok(st) => {
             let st: *mut Station = st;
-            // SAFETY: `out` is valid for a write; `SwStation` is a transparent wrapper of
-            // `Station`, so the pointer is the station's.
+            // SAFETY: `out` is valid for a write; the handle is the station's address.
             unsafe { out.write(st.cast::<SwStation>()) };
         }
         Err(e) => return status(Err(e)),
