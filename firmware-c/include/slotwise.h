@@ -314,7 +314,7 @@ size_t sw_station_push_link(struct SwStation *st, const uint8_t *bytes_in, size_
 // # Safety
 // `st` must be a live station; `hash_key16` must point to 16 readable bytes; `preshared` to
 // `len` readable bytes.
-int32_t sw_station_authenticate(SwStation *st,
+int32_t sw_station_authenticate(struct SwStation *st,
                                 const uint8_t *hash_key16,
                                 const uint8_t *preshared,
                                 size_t len,
@@ -326,7 +326,7 @@ int32_t sw_station_authenticate(SwStation *st,
 //
 // # Safety
 // `st` must be a live station; `frame` must point to `len` readable bytes.
-int32_t sw_station_push_refill(SwStation *st, const uint8_t *frame, size_t len);
+int32_t sw_station_push_refill(struct SwStation *st, const uint8_t *frame, size_t len);
 
 // Bytes to send on the classical channel (announce frames, 0x00-delimited); writes up to `cap`
 // bytes into `out` and returns how many.
