@@ -662,8 +662,16 @@ pub unsafe extern "C" fn sw_station_alarms(st: *mut SwStation) -> u32 {
     unsafe { station(st) }.map_or(0, |s| {
         let a = s.counts().auth.unwrap_or_default();
         u32::from(s.monitor().alarms().active())
-            | if a.attack_alarm { SW_ALARM_AUTH_ATTACK } else { 0 }
-            | if a.low_key_alarm { SW_ALARM_AUTH_LOW_KEY } else { 0 }
+            | if a.attack_alarm {
+                SW_ALARM_AUTH_ATTACK
+            } else {
+                0
+            }
+            | if a.low_key_alarm {
+                SW_ALARM_AUTH_LOW_KEY
+            } else {
+                0
+            }
     })
 }
 
@@ -840,7 +848,10 @@ mod tests {
         // SAFETY: `storage` is a fresh, leaked storage; every pointer is valid for its length or
         // null on purpose.
         unsafe {
-            assert_eq!(sw_station_init(storage, b.as_ptr(), b.len(), &mut st), SW_OK);
+            assert_eq!(
+                sw_station_init(storage, b.as_ptr(), b.len(), &mut st),
+                SW_OK
+            );
             assert_eq!(
                 sw_station_authenticate(null_mut(), key.as_ptr(), pad.as_ptr(), pad.len(), 4),
                 SW_ERR_NULL
@@ -853,7 +864,10 @@ mod tests {
                 sw_station_authenticate(st, key.as_ptr(), null(), pad.len(), 4),
                 SW_ERR_NULL
             );
-            assert_eq!(sw_station_push_refill(null_mut(), pad.as_ptr(), 4), SW_ERR_NULL);
+            assert_eq!(
+                sw_station_push_refill(null_mut(), pad.as_ptr(), 4),
+                SW_ERR_NULL
+            );
             assert_eq!(sw_station_push_refill(st, null(), 4), SW_ERR_NULL);
             // Unauthenticated, a refill is refused.
             assert_eq!(sw_station_push_refill(st, pad.as_ptr(), 9), SW_ERR_REFILL);
@@ -879,7 +893,10 @@ mod tests {
 
             // A fresh station takes the key once; the second call is out of phase; finishing
             // takes two calls.
-            assert_eq!(sw_station_init(storage, b.as_ptr(), b.len(), &mut st), SW_OK);
+            assert_eq!(
+                sw_station_init(storage, b.as_ptr(), b.len(), &mut st),
+                SW_OK
+            );
             assert_eq!(
                 sw_station_authenticate(st, key.as_ptr(), pad.as_ptr(), pad.len(), 4),
                 SW_OK

@@ -586,7 +586,11 @@ impl Station {
             frames_out: ring.frames(),
             auth: self.link.auth().map(|a| AuthCounts {
                 counters: *a.counters(),
-                rounds: self.link.rounds().map(|r| *r.counters()).unwrap_or_default(),
+                rounds: self
+                    .link
+                    .rounds()
+                    .map(|r| *r.counters())
+                    .unwrap_or_default(),
                 key_bits_left: a.key_bits_left(),
                 attack_alarm: a.attack_alarm(),
                 low_key_alarm: a.low_key_alarm(),

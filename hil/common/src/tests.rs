@@ -421,12 +421,18 @@ fn authentication_is_refused_with_the_core_reason_and_only_before_the_first_dete
     );
     assert!(st.counts().auth.is_none(), "a refusal changes nothing");
     st.authenticate(key, &pad, 4).unwrap();
-    assert_eq!(st.authenticate(key, &pad, 4), Err(StationError::Authenticated));
+    assert_eq!(
+        st.authenticate(key, &pad, 4),
+        Err(StationError::Authenticated)
+    );
     let a = st.counts().auth.unwrap();
     // 16 words loaded, the 2 of the round outcome key taken: 14 left, 64 bits each.
     assert_eq!(a.counters.key_bits_loaded, 16 * 64);
     assert_eq!(a.key_bits_left, 14 * 64);
-    assert!(a.low_key_alarm, "16 words are below the default low-water mark of 64");
+    assert!(
+        a.low_key_alarm,
+        "16 words are below the default low-water mark of 64"
+    );
     // A refill record that is no refill is refused by the core, naming why.
     assert!(matches!(
         st.push_refill(&[0]),
@@ -456,12 +462,18 @@ fn a_round_authenticated_station_finishes_in_two_calls_with_the_summary_last() {
     st.end_input().unwrap();
     st.finish().unwrap();
     assert_eq!(st.phase(), Phase::Closing);
-    assert_eq!(st.push_events(&[]), Err(StationError::Phase(Phase::Closing)));
+    assert_eq!(
+        st.push_events(&[]),
+        Err(StationError::Phase(Phase::Closing))
+    );
     st.finish().unwrap();
     assert_eq!(st.phase(), Phase::Finished);
     let mut out = vec![0u8; 8192];
     let n = st.drain_frames(&mut out);
-    let frames: Vec<&[u8]> = out[..n].split(|&b| b == 0).filter(|f| !f.is_empty()).collect();
+    let frames: Vec<&[u8]> = out[..n]
+        .split(|&b| b == 0)
+        .filter(|f| !f.is_empty())
+        .collect();
     let mut scratch = vec![0u8; slotwise::formats::MAX_RAW + 8];
     let last = slotwise::formats::decode_frame(frames[frames.len() - 1], &mut scratch).unwrap();
     assert_eq!(last.record, slotwise::RecordType::Summary);

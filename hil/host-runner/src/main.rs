@@ -256,10 +256,12 @@ fn main() -> ExitCode {
             faults,
             auth,
             round_frames,
-        } => station::prepare(&profile, &from, &out, faults, auth.then_some(round_frames)).map(|line| {
-            println!("{line}");
-            true
-        }),
+        } => station::prepare(&profile, &from, &out, faults, auth.then_some(round_frames)).map(
+            |line| {
+                println!("{line}");
+                true
+            },
+        ),
         Cmd::Budgets { committed, update } => budgets(&committed, update),
         Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
     };

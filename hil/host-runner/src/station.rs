@@ -498,7 +498,8 @@ pub fn prepare(
         &b,
         Input::Words(&words),
         Answers::Live(Box::new(tx), Vec::new()),
-        auth.as_ref().map(|a| (a, Refills::Live(supply, Vec::new()))),
+        auth.as_ref()
+            .map(|a| (a, Refills::Live(supply, Vec::new()))),
     )?;
     let recorded = || auth.as_ref().map(|a| (a, Refills::Recorded(&live.refills)));
     let again = run(
