@@ -190,7 +190,7 @@ fn to_round_link(
     round_frames: u32,
 ) -> Result<(), RoundConfigError> {
     let cfg = *link.config();
-    let reader = core::mem::replace(link.reader_mut(), ByteRing::new());
+    let reader = core::mem::take(link.reader_mut());
     let writer = core::mem::replace(link.writer_mut(), FrameBytesOut(ByteRing::new()));
     *link = StationLink::new_round_authenticated(cfg, auth, round_frames, reader, writer)?;
     Ok(())
