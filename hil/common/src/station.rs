@@ -6,6 +6,9 @@
 //! a [`ProfileBlob`]. The firmware moves bytes between its peripherals and the station's rings;
 //! the station never blocks and never allocates. The C interface (`firmware-c`) is a thin layer
 //! over this type.
+//!
+//! The classical channel is unauthenticated until [`Station::authenticate`] switches it to round
+//! mode (`docs/wire-protocol.md` §9.9); the round verdicts then go into the record stream.
 
 use crate::blob::ProfileBlob;
 use crate::board::BoardError;
@@ -450,7 +453,8 @@ impl Station {
     /// both tags check (the round-verdict records say which). `hash_key` (16 bytes) and
     /// `preshared` (whole pad words, from word 0) are the secrets shared with the
     /// transmitter, loaded at start-up: never from the profile blob. Allowed only before the
-    /// first detection; the link keeps its rings. On a refusal nothing changes.
+    /// first detection; the link keeps its rings. On a refusal nothing changes. The new link is
+    /// built in a frame of its own: the call needs about one link's size of stack (18 KB).
     pub fn authenticate(
         &mut self,
         hash_key: [u8; 16],
