@@ -200,12 +200,14 @@ arm-none-eabi-gcc "${C_FLAGS[@]}" -mcpu=cortex-m4 -mthumb -mfloat-abi=hard -mfpu
   --specs=rdimon.specs -nostartfiles -Wl,--no-warn-execstack -T "$C_DIR/examples/mps2/mps2.ld" \
   "$C_DIR/examples/mps2/startup.c" "$C_DIR/examples/replay.c" \
   "$HIL/target/thumbv7em-none-eabihf/release/libslotwise_c.a" -o "$d/replay-m4f.elf"
-# Two runs: the clean capture, and its raw words damaged (one malformed record, one lost
-# rollover), whose ingest-fault alarms must reach the record stream.
-for run in clean faults; do
+# Three runs: the clean capture; its raw words damaged (one malformed record, one lost
+# rollover), whose ingest-fault alarms must reach the record stream; and the classical channel
+# round-authenticated (auth.bin, refill-link.bin), whose rounds must all verify.
+for run in clean faults auth; do
   r="$d/$run"
   extra=()
   if [ "$run" = faults ]; then extra=(--faults); fi
+  if [ "$run" = auth ]; then extra=(--auth); fi
   "$HOST_TOOL" station --profile "$d/receiver.swp" --from "$RUNS/default-full.cap" --out "$r" \
     "${extra[@]}"
   for how in host qemu; do
@@ -233,6 +235,11 @@ for run in clean faults; do
       failures=$((failures + 1)); fi
     if [ "$run" = faults ] && ! grep -q 'IngestFault.*raised' "$r/inspect.txt"; then
       echo "the damaged words raised no ingest-fault alarm record" >&2; failures=$((failures + 1))
+    fi
+    if [ "$run" = auth ] &&
+      ! grep -Eq '^round verdicts +[1-9][0-9]* rounds verified.*, 0 failed' "$r/inspect.txt"; then
+      echo "the authenticated run's records show no verified rounds, or failed ones" >&2
+      failures=$((failures + 1))
     fi
   fi
 done

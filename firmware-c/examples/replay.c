@@ -7,6 +7,11 @@
  *   words.bin         raw TDC records in the blob's word layout
  *   answers-link.bin  the transmitter's answers frames, each after the u32 LE index of the
  *                     announce frame it answers
+ *   auth.bin          (optional) the classical channel's key: 16-byte hash key, u32 LE announce
+ *                     frames per round, then the pre-shared pad words; when present the station
+ *                     is authenticated before the first block
+ *   refill-link.bin   (with auth.bin) key-refill records, each after the u32 LE index of the pump
+ *                     (counted from 0) that pushes them
  * Writes frames-c.bin (records for the post-processing host) and announce-c.bin (announce frames
  * sent), and prints one line of counters. Exit status 0 when every detection is accounted for and
  * nothing was dropped, 1 otherwise.
@@ -14,7 +19,8 @@
  * The schedule (hil/host-runner/src/station.rs follows the same one, so the bytes compare):
  * push CHUNK_BYTES of words; pump: drain the announce bytes (frames counted by their 0x00
  * delimiters), push the answers released by the lag rule as far as the station takes them, drain
- * the output records. At the end: end_input, pump, finish, pump.
+ * the output records. At the end: end_input, pump, finish, pump. Authenticated, each pump first
+ * pushes the refill records due, and finish answers SW_AGAIN once: pump and finish again.
  *
  * Builds with the host's C compiler (linked with the host library) and with arm-none-eabi-gcc
  * for a Cortex-M4F (newlib, semihosting file I/O; see mps2/).
@@ -45,6 +51,8 @@ struct answers {
 struct pump {
     SwStation *st;
     struct answers ans;
+    struct answers refills; /* index = the pump that pushes the record */
+    uint32_t pumps;
     FILE *announce;
     FILE *frames;
     uint32_t written;
@@ -73,6 +81,17 @@ static int next_record(struct answers *a) {
 
 static void pump(struct pump *p) {
     size_t n;
+    uint32_t at = p->pumps++;
+    while (p->refills.f) {
+        if (!p->refills.held) {
+            int r = next_record(&p->refills);
+            if (r < 0) { fprintf(stderr, "refill-link.bin: damaged record\n"); p->failed = 1; }
+            if (r <= 0) break;
+        }
+        if (p->refills.index > at) break;
+        if (sw_station_push_refill(p->st, p->refills.frame, p->refills.len) < 0) p->failed = 1;
+        p->refills.held = 0;
+    }
     while ((n = sw_station_drain_link(p->st, buf, sizeof buf)) > 0) {
         if (fwrite(buf, 1, n, p->announce) != n) p->failed = 1;
         for (size_t i = 0; i < n; i++) p->written += buf[i] == 0;
@@ -95,6 +114,23 @@ static void pump(struct pump *p) {
         if (fwrite(buf, 1, n, p->frames) != n) p->failed = 1;
 }
 
+/* Authenticate the station from auth.bin when the run directory has one; -1 on a failure. */
+static int authenticate(struct pump *p) {
+    static uint8_t key[16 + 4 + 8 * SW_AUTH_KEY_WORDS];
+    FILE *f = fopen("auth.bin", "rb");
+    if (!f) return 0;
+    size_t n = fread(key, 1, sizeof key, f);
+    fclose(f);
+    if (n < 20) { fprintf(stderr, "auth.bin: too short\n"); return -1; }
+    uint32_t frames = (uint32_t)key[16] | ((uint32_t)key[17] << 8) | ((uint32_t)key[18] << 16) |
+                      ((uint32_t)key[19] << 24);
+    int rc = sw_station_authenticate(p->st, key, key + 20, n - 20, frames);
+    memset(key, 0, sizeof key);
+    if (rc != SW_OK) { fprintf(stderr, "auth.bin: refused (%d)\n", rc); return -1; }
+    p->refills.f = fopen("refill-link.bin", "rb");
+    return 1;
+}
+
 static FILE *open_or_say(const char *name, const char *mode) {
     FILE *f = fopen(name, mode);
     if (!f) fprintf(stderr, "%s: cannot open\n", name);
@@ -114,6 +150,7 @@ int main(void) {
     }
     struct pump p = {0};
     if (sw_station_init(&storage, profile, plen, &p.st) != SW_OK) return 1;
+    if (authenticate(&p) < 0) return 1;
     FILE *words = open_or_say("words.bin", "rb");
     p.ans.f = open_or_say("answers-link.bin", "rb");
     p.announce = open_or_say("announce-c.bin", "wb");
@@ -128,9 +165,15 @@ int main(void) {
     if (sw_station_end_input(p.st) != SW_OK) p.failed = 1;
     p.ended = 1;
     pump(&p);
-    if (sw_station_finish(p.st) != SW_OK) p.failed = 1;
+    int fin = sw_station_finish(p.st);
     pump(&p);
+    if (fin == SW_AGAIN) {
+        fin = sw_station_finish(p.st);
+        pump(&p);
+    }
+    if (fin != SW_OK) p.failed = 1;
     fclose(words);
+    if (p.refills.f) fclose(p.refills.f);
     fclose(p.ans.f);
     fclose(p.announce);
     fclose(p.frames);
@@ -141,13 +184,15 @@ int main(void) {
     for (size_t i = 0; i < SW_FATES; i++) sum += c.fates[i];
     printf("c-replay: station %u bytes, detections %llu, sifted %llu, accounted %llu, frames out "
            "%llu, dropped %llu, announce frames %llu, answers frames %llu, malformed words %llu, "
-           "rollover gaps %llu, locked %u, aligned %u, alarms 0x%02x\n",
+           "rollover gaps %llu, locked %u, aligned %u, alarms 0x%02x, rounds kept %llu, "
+           "discarded %llu\n",
            (unsigned)sw_station_size(), (unsigned long long)c.detections,
            (unsigned long long)c.sifted_bits, (unsigned long long)sum,
            (unsigned long long)c.frames_out, (unsigned long long)c.frames_dropped,
            (unsigned long long)c.announce_frames, (unsigned long long)c.answers_frames,
            (unsigned long long)c.malformed_words, (unsigned long long)c.rollover_gaps,
-           (unsigned)c.locked, (unsigned)c.aligned, (unsigned)sw_station_alarms(p.st));
+           (unsigned)c.locked, (unsigned)c.aligned, (unsigned)sw_station_alarms(p.st),
+           (unsigned long long)c.rounds_kept, (unsigned long long)c.rounds_discarded);
     if (sum != c.detections || c.frames_dropped != 0 || c.link_in_refused_bytes != 0) p.failed = 1;
     return p.failed ? 1 : 0;
 }

@@ -42,8 +42,34 @@
 // Raw words were pushed but the profile carries no word layout.
 #define SW_ERR_NO_WORD_LAYOUT -3
 
-// The call does not fit the station's phase (a block after `sw_station_end_input`, say).
+// The call does not fit the station's phase (a block after `sw_station_end_input`, say, or
+// `sw_station_authenticate` after the first detection or a second time).
 #define SW_ERR_PHASE -4
+
+// `sw_station_authenticate`: the hash key is all zero, or the pre-shared pad key is not whole
+// 8-byte pad words or does not fit the pool (`SW_AUTH_KEY_WORDS` words).
+#define SW_ERR_AUTH_KEY -5
+
+// `sw_station_authenticate`: zero frames per round, or pad words 0 and 1 (the round outcome
+// key) are all zero or missing.
+#define SW_ERR_AUTH_ROUNDS -6
+
+// `sw_station_push_refill`: the record is damaged or not a key refill, the station is not
+// authenticated, or the pool refused the key (not the next words, or no room).
+#define SW_ERR_REFILL -7
+
+// `sw_station_finish` on a round-authenticated station: the link is closed, the transmitter's
+// last round tags may still come; pump the link, then call `sw_station_finish` again.
+#define SW_AGAIN 1
+
+// Pad words (8 bytes each) an authenticated station's pool holds.
+#define SW_AUTH_KEY_WORDS 96
+
+// Bytes of the hash key `sw_station_authenticate` takes.
+#define SW_AUTH_HASH_KEY_BYTES 16
+
+// Bytes of one pad word.
+#define SW_AUTH_PAD_WORD_BYTES 8
 
 // Active-alarm bit: QBER upper bound over the ceiling in the Z basis.
 #define SW_ALARM_QBER_Z (1 << 0)
@@ -63,6 +89,14 @@
 // Active-alarm bit: the raw-word ingest lost or refused data (overrun, FIFO full, rollover
 // gap, malformed word) since the previous block.
 #define SW_ALARM_INGEST_FAULT (1 << 5)
+
+// Active-alarm bit (authenticated link): too many frames or round tags failed their check
+// among the last 64 — someone may be tampering with the classical channel.
+#define SW_ALARM_AUTH_ATTACK (1 << 16)
+
+// Active-alarm bit (authenticated link): the pad pool is below its low-water mark; push key
+// refills (`sw_station_push_refill`).
+#define SW_ALARM_AUTH_LOW_KEY (1 << 17)
 
 // Number of detection fates in [`SwCounters::fates`].
 #define SW_FATES 13
@@ -170,6 +204,32 @@ typedef struct SwCounters {
   uint32_t locked;
   // 1 when the slot numbering is aligned with the transmitter's.
   uint32_t aligned;
+  // 1 once `sw_station_authenticate` switched the classical channel's authentication on.
+  uint32_t authenticated;
+  // 1 while the attack alarm is up (`SW_ALARM_AUTH_ATTACK`).
+  uint32_t auth_attack_alarm;
+  // 1 while the low-key alarm is up (`SW_ALARM_AUTH_LOW_KEY`).
+  uint32_t auth_low_key_alarm;
+  // Authentication: frames tagged and sent (0 in round mode, whose frames travel untagged).
+  uint64_t auth_frames_tagged;
+  // Authentication: frames refused by the tag check.
+  uint64_t auth_refusals;
+  // Authentication: unused key bits in the pad pool, in bits.
+  uint64_t auth_key_bits_left;
+  // Authentication: key bits loaded (pre-shared and refilled), in bits.
+  uint64_t auth_key_bits_loaded;
+  // Authentication: key bits spent on tags, in bits.
+  uint64_t auth_key_bits_consumed;
+  // Authentication: key bits wiped unused, in bits.
+  uint64_t auth_key_bits_abandoned;
+  // Round mode: round-tag records sent.
+  uint64_t round_tag_records;
+  // Round mode: rounds whose tags both checked (their key blocks are kept).
+  uint64_t rounds_kept;
+  // Round mode: rounds failed (their key blocks are discarded).
+  uint64_t rounds_discarded;
+  // Round-verdict records written for the post-processing host.
+  uint64_t verdict_frames;
 } SwCounters;
 
 #ifdef __cplusplus
@@ -241,6 +301,33 @@ int32_t sw_station_report_fifo_full(struct SwStation *st);
 // `st` must be a live station; `bytes` must point to `len` readable bytes.
 size_t sw_station_push_link(struct SwStation *st, const uint8_t *bytes_in, size_t len);
 
+// Authenticate the classical channel in round mode: one Wegman-Carter tag per round of
+// `round_frames` announce frames each way over the round's sifting outcome; the round-verdict
+// records say which rounds' key blocks to keep. `hash_key16` points to the 16-byte hash key,
+// `preshared` to `len` bytes of pre-shared pad key (whole 8-byte words, at most
+// `SW_AUTH_KEY_WORDS`, from pad word 0). Both are secrets shared with the transmitter and
+// loaded at start-up, never from the profile blob. Call it after `sw_station_init` and before
+// the first block. Returns `SW_OK`, `SW_ERR_NULL`, `SW_ERR_PHASE` (after the first detection,
+// or authenticated already), `SW_ERR_AUTH_KEY` or `SW_ERR_AUTH_ROUNDS`; on a refusal nothing
+// changes.
+//
+// # Safety
+// `st` must be a live station; `hash_key16` must point to 16 readable bytes; `preshared` to
+// `len` readable bytes.
+int32_t sw_station_authenticate(struct SwStation *st,
+                                const uint8_t *hash_key16,
+                                const uint8_t *preshared,
+                                size_t len,
+                                uint32_t round_frames);
+
+// A key-refill record from the post-processing host (one COBS frame as it arrived, with or
+// without its 0x00 delimiter); returns the pad words loaded (≥ 0), or `SW_ERR_NULL` or
+// `SW_ERR_REFILL`.
+//
+// # Safety
+// `st` must be a live station; `frame` must point to `len` readable bytes.
+int32_t sw_station_push_refill(struct SwStation *st, const uint8_t *frame, size_t len);
+
 // Bytes to send on the classical channel (announce frames, 0x00-delimited); writes up to `cap`
 // bytes into `out` and returns how many.
 //
@@ -263,7 +350,9 @@ size_t sw_station_drain_frames(struct SwStation *st, uint8_t *out, size_t cap);
 int32_t sw_station_end_input(struct SwStation *st);
 
 // Take the last answers, finish the receiver, close the link and write the summary record
-// (drain it with `sw_station_drain_frames`).
+// (drain it with `sw_station_drain_frames`). Round-authenticated, the first call closes the
+// link and returns `SW_AGAIN`: drain the link, push the transmitter's last frames, and call it
+// again, which writes the last round verdicts and the summary and returns `SW_OK`.
 //
 // # Safety
 // `st` must be a live station.

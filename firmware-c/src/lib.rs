@@ -61,8 +61,32 @@ pub const SW_ERR_NULL: i32 = -1;
 pub const SW_ERR_PROFILE: i32 = -2;
 /// Raw words were pushed but the profile carries no word layout.
 pub const SW_ERR_NO_WORD_LAYOUT: i32 = -3;
-/// The call does not fit the station's phase (a block after `sw_station_end_input`, say).
+/// The call does not fit the station's phase (a block after `sw_station_end_input`, say, or
+/// `sw_station_authenticate` after the first detection or a second time).
 pub const SW_ERR_PHASE: i32 = -4;
+/// `sw_station_authenticate`: the hash key is all zero, or the pre-shared pad key is not whole
+/// 8-byte pad words or does not fit the pool (`SW_AUTH_KEY_WORDS` words).
+pub const SW_ERR_AUTH_KEY: i32 = -5;
+/// `sw_station_authenticate`: zero frames per round, or pad words 0 and 1 (the round outcome
+/// key) are all zero or missing.
+pub const SW_ERR_AUTH_ROUNDS: i32 = -6;
+/// `sw_station_push_refill`: the record is damaged or not a key refill, the station is not
+/// authenticated, or the pool refused the key (not the next words, or no room).
+pub const SW_ERR_REFILL: i32 = -7;
+/// `sw_station_finish` on a round-authenticated station: the link is closed, the transmitter's
+/// last round tags may still come; pump the link, then call `sw_station_finish` again.
+pub const SW_AGAIN: i32 = 1;
+
+/// Pad words (8 bytes each) an authenticated station's pool holds.
+pub const SW_AUTH_KEY_WORDS: usize = 96;
+/// Bytes of the hash key `sw_station_authenticate` takes.
+pub const SW_AUTH_HASH_KEY_BYTES: usize = 16;
+/// Bytes of one pad word.
+pub const SW_AUTH_PAD_WORD_BYTES: usize = 8;
+
+const _: () = assert!(SW_AUTH_KEY_WORDS == slotwise_hil::station::STATION_KEY_WORDS);
+const _: () = assert!(SW_AUTH_HASH_KEY_BYTES == slotwise::formats::tag::HASH_KEY_LEN);
+const _: () = assert!(SW_AUTH_PAD_WORD_BYTES == slotwise::formats::tag::PAD_LEN);
 
 /// Active-alarm bit: QBER upper bound over the ceiling in the Z basis.
 pub const SW_ALARM_QBER_Z: u32 = 1 << 0;
@@ -78,6 +102,12 @@ pub const SW_ALARM_SATURATION: u32 = 1 << 4;
 /// Active-alarm bit: the raw-word ingest lost or refused data (overrun, FIFO full, rollover
 /// gap, malformed word) since the previous block.
 pub const SW_ALARM_INGEST_FAULT: u32 = 1 << 5;
+/// Active-alarm bit (authenticated link): too many frames or round tags failed their check
+/// among the last 64 — someone may be tampering with the classical channel.
+pub const SW_ALARM_AUTH_ATTACK: u32 = 1 << 16;
+/// Active-alarm bit (authenticated link): the pad pool is below its low-water mark; push key
+/// refills (`sw_station_push_refill`).
+pub const SW_ALARM_AUTH_LOW_KEY: u32 = 1 << 17;
 
 const _: () = {
     use slotwise::alarms::AlarmKind;
@@ -219,6 +249,32 @@ pub struct SwCounters {
     pub locked: u32,
     /// 1 when the slot numbering is aligned with the transmitter's.
     pub aligned: u32,
+    /// 1 once `sw_station_authenticate` switched the classical channel's authentication on.
+    pub authenticated: u32,
+    /// 1 while the attack alarm is up (`SW_ALARM_AUTH_ATTACK`).
+    pub auth_attack_alarm: u32,
+    /// 1 while the low-key alarm is up (`SW_ALARM_AUTH_LOW_KEY`).
+    pub auth_low_key_alarm: u32,
+    /// Authentication: frames tagged and sent (0 in round mode, whose frames travel untagged).
+    pub auth_frames_tagged: u64,
+    /// Authentication: frames refused by the tag check.
+    pub auth_refusals: u64,
+    /// Authentication: unused key bits in the pad pool, in bits.
+    pub auth_key_bits_left: u64,
+    /// Authentication: key bits loaded (pre-shared and refilled), in bits.
+    pub auth_key_bits_loaded: u64,
+    /// Authentication: key bits spent on tags, in bits.
+    pub auth_key_bits_consumed: u64,
+    /// Authentication: key bits wiped unused, in bits.
+    pub auth_key_bits_abandoned: u64,
+    /// Round mode: round-tag records sent.
+    pub round_tag_records: u64,
+    /// Round mode: rounds whose tags both checked (their key blocks are kept).
+    pub rounds_kept: u64,
+    /// Round mode: rounds failed (their key blocks are discarded).
+    pub rounds_discarded: u64,
+    /// Round-verdict records written for the post-processing host.
+    pub verdict_frames: u64,
 }
 
 fn status(r: Result<(), StationError>) -> i32 {
@@ -226,7 +282,12 @@ fn status(r: Result<(), StationError>) -> i32 {
         Ok(()) => SW_OK,
         Err(StationError::Profile(_)) => SW_ERR_PROFILE,
         Err(StationError::NoWordLayout) => SW_ERR_NO_WORD_LAYOUT,
-        Err(StationError::Phase(_)) => SW_ERR_PHASE,
+        Err(StationError::Phase(_) | StationError::Started | StationError::Authenticated) => {
+            SW_ERR_PHASE
+        }
+        Err(StationError::AuthKey(_)) => SW_ERR_AUTH_KEY,
+        Err(StationError::AuthRounds(_)) => SW_ERR_AUTH_ROUNDS,
+        Err(StationError::Refill(_)) => SW_ERR_REFILL,
     }
 }
 
@@ -476,6 +537,64 @@ pub unsafe extern "C" fn sw_station_push_link(
     }
 }
 
+/// Authenticate the classical channel in round mode: one Wegman-Carter tag per round of
+/// `round_frames` announce frames each way over the round's sifting outcome; the round-verdict
+/// records say which rounds' key blocks to keep. `hash_key16` points to the 16-byte hash key,
+/// `preshared` to `len` bytes of pre-shared pad key (whole 8-byte words, at most
+/// `SW_AUTH_KEY_WORDS`, from pad word 0). Both are secrets shared with the transmitter and
+/// loaded at start-up, never from the profile blob. Call it after `sw_station_init` and before
+/// the first block. Returns `SW_OK`, `SW_ERR_NULL`, `SW_ERR_PHASE` (after the first detection,
+/// or authenticated already), `SW_ERR_AUTH_KEY` or `SW_ERR_AUTH_ROUNDS`; on a refusal nothing
+/// changes.
+///
+/// # Safety
+/// `st` must be a live station; `hash_key16` must point to 16 readable bytes; `preshared` to
+/// `len` readable bytes.
+#[no_mangle]
+pub unsafe extern "C" fn sw_station_authenticate(
+    st: *mut SwStation,
+    hash_key16: *const u8,
+    preshared: *const u8,
+    len: usize,
+    round_frames: u32,
+) -> i32 {
+    // SAFETY: the caller's contract.
+    let (Some(s), Some(h), Some(pre)) = (
+        unsafe { station(st) },
+        unsafe { bytes(hash_key16, SW_AUTH_HASH_KEY_BYTES) },
+        unsafe { bytes(preshared, len) },
+    ) else {
+        return SW_ERR_NULL;
+    };
+    let mut key = [0u8; SW_AUTH_HASH_KEY_BYTES];
+    key.copy_from_slice(h);
+    let r = s.authenticate(key, pre, round_frames);
+    key.fill(0);
+    status(r)
+}
+
+/// A key-refill record from the post-processing host (one COBS frame as it arrived, with or
+/// without its 0x00 delimiter); returns the pad words loaded (≥ 0), or `SW_ERR_NULL` or
+/// `SW_ERR_REFILL`.
+///
+/// # Safety
+/// `st` must be a live station; `frame` must point to `len` readable bytes.
+#[no_mangle]
+pub unsafe extern "C" fn sw_station_push_refill(
+    st: *mut SwStation,
+    frame: *const u8,
+    len: usize,
+) -> i32 {
+    // SAFETY: the caller's contract.
+    let (Some(s), Some(f)) = (unsafe { station(st) }, unsafe { bytes(frame, len) }) else {
+        return SW_ERR_NULL;
+    };
+    match s.push_refill(f) {
+        Ok(words) => i32::try_from(words).unwrap_or(i32::MAX),
+        Err(e) => status(Err(e)),
+    }
+}
+
 /// Bytes to send on the classical channel (announce frames, 0x00-delimited); writes up to `cap`
 /// bytes into `out` and returns how many.
 ///
@@ -521,7 +640,9 @@ pub unsafe extern "C" fn sw_station_end_input(st: *mut SwStation) -> i32 {
 }
 
 /// Take the last answers, finish the receiver, close the link and write the summary record
-/// (drain it with `sw_station_drain_frames`).
+/// (drain it with `sw_station_drain_frames`). Round-authenticated, the first call closes the
+/// link and returns `SW_AGAIN`: drain the link, push the transmitter's last frames, and call it
+/// again, which writes the last round verdicts and the summary and returns `SW_OK`.
 ///
 /// # Safety
 /// `st` must be a live station.
@@ -531,7 +652,11 @@ pub unsafe extern "C" fn sw_station_finish(st: *mut SwStation) -> i32 {
     let Some(s) = (unsafe { station(st) }) else {
         return SW_ERR_NULL;
     };
-    status(s.finish())
+    let r = s.finish();
+    if r.is_ok() && s.phase() == slotwise_hil::Phase::Closing {
+        return SW_AGAIN;
+    }
+    status(r)
 }
 
 /// Active alarms now, as `SW_ALARM_*` bits.
@@ -541,7 +666,20 @@ pub unsafe extern "C" fn sw_station_finish(st: *mut SwStation) -> i32 {
 #[no_mangle]
 pub unsafe extern "C" fn sw_station_alarms(st: *mut SwStation) -> u32 {
     // SAFETY: the caller's contract.
-    unsafe { station(st) }.map_or(0, |s| u32::from(s.monitor().alarms().active()))
+    unsafe { station(st) }.map_or(0, |s| {
+        let a = s.counts().auth.unwrap_or_default();
+        u32::from(s.monitor().alarms().active())
+            | if a.attack_alarm {
+                SW_ALARM_AUTH_ATTACK
+            } else {
+                0
+            }
+            | if a.low_key_alarm {
+                SW_ALARM_AUTH_LOW_KEY
+            } else {
+                0
+            }
+    })
 }
 
 /// Read the counters into `*out`.
@@ -567,6 +705,7 @@ fn counters(s: &Station) -> SwCounters {
     let sum = s.summary();
     let k = s.counts();
     let l = s.link().counters();
+    let a = k.auth.unwrap_or_default();
     SwCounters {
         detections: sum.detections_in,
         blocks: k.totals.blocks,
@@ -588,6 +727,19 @@ fn counters(s: &Station) -> SwCounters {
         stats_frames: k.totals.stats_frames,
         locked: u32::from(s.receiver().clock().is_locked()),
         aligned: u32::from(s.receiver().numbering().aligned()),
+        authenticated: u32::from(k.auth.is_some()),
+        auth_attack_alarm: u32::from(a.attack_alarm),
+        auth_low_key_alarm: u32::from(a.low_key_alarm),
+        auth_frames_tagged: a.counters.frames_tagged,
+        auth_refusals: a.counters.refusals,
+        auth_key_bits_left: a.key_bits_left,
+        auth_key_bits_loaded: a.counters.key_bits_loaded,
+        auth_key_bits_consumed: a.counters.key_bits_consumed,
+        auth_key_bits_abandoned: a.counters.key_bits_abandoned,
+        round_tag_records: a.rounds.records_out,
+        rounds_kept: a.rounds.verified,
+        rounds_discarded: a.rounds.failed(),
+        verdict_frames: k.totals.verdict_frames,
     }
 }
 
@@ -601,44 +753,4 @@ fn panic(_info: &core::panic::PanicInfo<'_>) -> ! {
 }
 
 #[cfg(test)]
-mod tests {
-    use super::*;
-    use core::ptr::{null, null_mut};
-
-    #[test]
-    fn null_pointers_and_damaged_profiles_are_refused_with_a_status_and_a_message() {
-        let mut msg = [0 as c_char; 96];
-        // SAFETY: null pointers are what is tested; `msg` holds 96 bytes.
-        unsafe {
-            assert_eq!(sw_profile_check(null(), 4, null_mut(), 0), SW_ERR_NULL);
-            let junk = [0u8; 40];
-            let rc = sw_profile_check(junk.as_ptr(), junk.len(), msg.as_mut_ptr(), msg.len());
-            assert_eq!(rc, SW_ERR_PROFILE);
-            let mut out = null_mut();
-            let rc = sw_station_init(null_mut(), junk.as_ptr(), junk.len(), &mut out);
-            assert_eq!(rc, SW_ERR_NULL);
-            assert_eq!(sw_station_push_events(null_mut(), null(), 0), SW_ERR_NULL);
-            assert_eq!(sw_station_drain_frames(null_mut(), null_mut(), 9), 0);
-            assert_eq!(sw_station_alarms(null_mut()), 0);
-        }
-        let text: std::vec::Vec<u8> = msg
-            .iter()
-            .take_while(|&&c| c != 0)
-            .map(|&c| c as u8)
-            .collect();
-        let text = std::string::String::from_utf8(text).unwrap();
-        assert!(text.contains("magic") && text.contains("byte 0"), "{text}");
-    }
-
-    #[test]
-    fn a_long_message_is_cut_and_still_terminated() {
-        let mut out = [0xffu8; 8];
-        let mut w = Truncating {
-            out: &mut out,
-            at: 0,
-        };
-        write!(w, "a message longer than the buffer").unwrap();
-        assert_eq!(w.at, 7);
-        assert_eq!(&out[..7], b"a messa");
-    }
-}
+mod tests;

@@ -15,6 +15,7 @@ use crate::transport::EventSource;
 use crate::Setup;
 use embedded_io::{Read, Write};
 use slotwise::acquire::fold::ArrivalPattern;
+use slotwise::formats::round::{RoundVerdict, VERDICT_LEN};
 use slotwise::formats::{alarm, statistics};
 use slotwise::ingest::IngestCounts;
 use slotwise::{
@@ -98,6 +99,11 @@ pub trait LinkEnd: Transmitter {
     fn end_of_input(&mut self);
     /// After the receiver finished: expire what waits and send the final report.
     fn close(&mut self);
+    /// Round mode: the next round verdict for the post-processing host (none on a link without
+    /// rounds).
+    fn poll_verdict(&mut self) -> Option<RoundVerdict> {
+        None
+    }
 }
 
 impl<R: Read, W: Write> LinkEnd for FullLink<'_, R, W> {
@@ -108,6 +114,10 @@ impl<R: Read, W: Write> LinkEnd for FullLink<'_, R, W> {
 
     fn close(&mut self) {
         ReceiverLink::close(self);
+    }
+
+    fn poll_verdict(&mut self) -> Option<RoundVerdict> {
+        ReceiverLink::poll_verdict(self)
     }
 }
 
@@ -123,6 +133,8 @@ pub struct FullTotals {
     pub alarm_frames: u64,
     /// Statistics records written.
     pub stats_frames: u64,
+    /// Round-verdict records written (round-authenticated links only).
+    pub verdict_frames: u64,
     /// Detections taken in before the steady state (the first detection that reached the sifter:
     /// clock locked, slots numbered); `None` if it was never reached.
     pub steady_from: Option<u64>,
@@ -150,6 +162,16 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
     }
 
     fn drain_events(&mut self, totals: &mut FullTotals) {
+        // A verdict goes out as soon as the link decided it, so the host can release or discard
+        // the round's key blocks in stream order.
+        while let Some(v) = self.link.poll_verdict() {
+            let mut p = [0u8; VERDICT_LEN];
+            if let Ok(n) = v.emit(&mut p) {
+                self.out
+                    .record(RecordType::RoundVerdict, p.get(..n).unwrap_or(&[]));
+                totals.verdict_frames += 1;
+            }
+        }
         while let Some(ev) = self.monitor.pop_event() {
             let mut p = [0u8; alarm::LEN];
             if let Ok(n) = ev.emit(&mut p) {
@@ -226,6 +248,13 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
     /// Take the last answers, finish the receiver, close the link and write `summary`'s record
     /// (the receiver's [`Summary`], with whatever the caller adds to it).
     pub fn finish(&mut self, totals: &mut FullTotals, summary: impl FnOnce(Summary) -> Summary) {
+        self.close(totals);
+        self.write_summary(summary);
+    }
+
+    /// The first half of [`Self::finish`]: take the last answers, finish the receiver and close
+    /// the link (its final report sent); the summary is not written yet.
+    pub fn close(&mut self, totals: &mut FullTotals) {
         self.service(totals);
         {
             let _r = self.probe.part(Part::Receiver);
@@ -233,12 +262,20 @@ impl<C: BoardClock, N: Numbering, T: LinkEnd, S: FrameSink> FullRun<'_, C, N, T,
                 .finish(&mut *self.link, &mut self.monitor.tap(&mut *self.out));
         }
         self.drain(totals);
-        {
-            let _l = self.probe.part(Part::Link);
-            self.link.close();
-        }
+        let _l = self.probe.part(Part::Link);
+        self.link.close();
+    }
+
+    /// Write `summary`'s record: the last of the run.
+    pub fn write_summary(&mut self, summary: impl FnOnce(Summary) -> Summary) {
         let _r = self.probe.part(Part::Receiver);
         self.out.finish(&summary(Summary::of(self.rx)));
+    }
+
+    /// Alarm events, verdicts and the latest snapshot into the frame stream (after the link
+    /// took input outside [`Self::push_block`]).
+    pub fn drain_records(&mut self, totals: &mut FullTotals) {
+        self.drain(totals);
     }
 
     /// Give the clock the hint, push every event in blocks of [`BLOCK`] (one detection at a time,
@@ -366,5 +403,9 @@ impl<T: LinkEnd> LinkEnd for ProbedLink<T> {
 
     fn close(&mut self) {
         self.inner.close();
+    }
+
+    fn poll_verdict(&mut self) -> Option<RoundVerdict> {
+        self.inner.poll_verdict()
     }
 }

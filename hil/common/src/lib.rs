@@ -50,7 +50,7 @@ pub use run::{
     RunTotals, BLOCK, KEY_BITS, PENDING,
 };
 pub use setup::{Setup, SetupError};
-pub use station::{Phase, Station, StationCounts, StationError};
+pub use station::{AuthCounts, Phase, Station, StationCounts, StationError};
 pub use transport::{
     AnswerRecord, AnswerSource, EventSource, IoAnswers, IoEvents, IoFrames, IoTransport,
     StreamError, Transport,

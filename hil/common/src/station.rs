@@ -6,6 +6,9 @@
 //! a [`ProfileBlob`]. The firmware moves bytes between its peripherals and the station's rings;
 //! the station never blocks and never allocates. The C interface (`firmware-c`) is a thin layer
 //! over this type.
+//!
+//! The classical channel is unauthenticated until [`Station::authenticate`] switches it to round
+//! mode (`docs/wire-protocol.md` §9.9); the round verdicts then go into the record stream.
 
 use crate::blob::ProfileBlob;
 use crate::board::BoardError;
@@ -18,8 +21,11 @@ use crate::ring::{ByteRing, FrameBytesOut, FrameRing};
 use crate::run::{BoardFrameOut, BLOCK};
 use core::mem::MaybeUninit;
 use core::ptr::addr_of_mut;
+use slotwise::formats::round::RoundVerdict;
 use slotwise::ingest::{Ingest, IngestCounts};
-use slotwise::{ReceiverLink, Summary, TdcEvent};
+use slotwise::wire::round::{RoundConfigError, RoundCounters, RESENDS};
+use slotwise::wire::{AuthConfig, AuthConfigError, AuthCounters, LinkAuth, RefillFrameError};
+use slotwise::{ReceiverLink, Summary, TdcEvent, Transmitter};
 
 /// Bytes of the classical channel held until the receiver reads them.
 pub const LINK_IN_BYTES: usize = 2048;
@@ -28,9 +34,20 @@ pub const LINK_OUT_BYTES: usize = 4096;
 /// Bytes of output records held until the firmware drains them.
 pub const FRAMES_BYTES: usize = 8192;
 
-/// The station's link endpoint: answers from a ring, announce frames into a ring.
-pub type StationLink =
-    ReceiverLink<ByteRing<LINK_IN_BYTES>, FrameBytesOut<LINK_OUT_BYTES>, LINK_BATCH, LINK_OUT>;
+/// One-time-pad words (8 bytes each, and a flag) the station's link holds once authenticated: what the HIL
+/// authentication bench holds. Round mode spends two words per round, so a refill of a few dozen
+/// words every few rounds keeps the pool above the low-key mark.
+pub const STATION_KEY_WORDS: usize = 96;
+
+/// The station's link endpoint: answers from a ring, announce frames into a ring, a pad pool of
+/// [`STATION_KEY_WORDS`] words (unused until [`Station::authenticate`]).
+pub type StationLink = ReceiverLink<
+    ByteRing<LINK_IN_BYTES>,
+    FrameBytesOut<LINK_OUT_BYTES>,
+    LINK_BATCH,
+    LINK_OUT,
+    STATION_KEY_WORDS,
+>;
 
 impl LinkEnd for StationLink {
     fn end_of_input(&mut self) {
@@ -39,6 +56,10 @@ impl LinkEnd for StationLink {
 
     fn close(&mut self) {
         ReceiverLink::close(self);
+    }
+
+    fn poll_verdict(&mut self) -> Option<RoundVerdict> {
+        ReceiverLink::poll_verdict(self)
     }
 }
 
@@ -50,6 +71,9 @@ pub enum Phase {
     Running,
     /// Input ended; the last answers may still be pushed.
     Ending,
+    /// Round-authenticated only: the receiver finished and the link closed; the transmitter's
+    /// last round tags may still be pushed, then [`Station::finish`] again.
+    Closing,
     /// Finished: the summary record is written; nothing more is taken.
     Finished,
 }
@@ -64,6 +88,16 @@ pub enum StationError {
     NoWordLayout,
     /// The call does not fit the phase (a block after the end of input, say).
     Phase(Phase),
+    /// Authentication asked for after the first detection: both ends must tag from the start.
+    Started,
+    /// The link is authenticated already.
+    Authenticated,
+    /// The hash key or the pre-shared pad key was refused.
+    AuthKey(AuthConfigError),
+    /// The round setting was refused (zero frames per round, no outcome key in pad words 0, 1).
+    AuthRounds(RoundConfigError),
+    /// A key-refill record was refused (damaged, not a refill, unauthenticated link, pool).
+    Refill(RefillFrameError),
 }
 
 impl core::fmt::Display for StationError {
@@ -72,6 +106,11 @@ impl core::fmt::Display for StationError {
             Self::Profile(e) => write!(f, "profile blob: {e}"),
             Self::NoWordLayout => write!(f, "raw words pushed, but the profile has no word layout"),
             Self::Phase(p) => write!(f, "call not allowed in phase {p:?}"),
+            Self::Started => write!(f, "authentication must come before the first detection"),
+            Self::Authenticated => write!(f, "the link is authenticated already"),
+            Self::AuthKey(e) => write!(f, "authentication key: {e}"),
+            Self::AuthRounds(e) => write!(f, "authentication rounds: {e}"),
+            Self::Refill(e) => write!(f, "key refill: {e}"),
         }
     }
 }
@@ -92,6 +131,24 @@ pub struct StationCounts {
     pub frames_dropped: u64,
     /// Output records written, in frames.
     pub frames_out: u64,
+    /// The link's authentication, once [`Station::authenticate`] switched it on.
+    pub auth: Option<AuthCounts>,
+}
+
+/// What the authenticated link did: the core's counters, the key left and the alarms.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct AuthCounts {
+    /// Frames tagged, refusals, key bits loaded, consumed and abandoned.
+    pub counters: AuthCounters,
+    /// Rounds closed, verified (key kept) and failed (key discarded), tag records sent.
+    pub rounds: RoundCounters,
+    /// Unused key bits in the pad pool, in bits.
+    pub key_bits_left: u64,
+    /// Whether the attack alarm is up (too many refusals among the last 64 checks).
+    pub attack_alarm: bool,
+    /// Whether the low-key alarm is up (the pool is below its low-water mark: refill it).
+    pub low_key_alarm: bool,
 }
 
 /// A blob read and every setting checked, before anything is built.
@@ -125,6 +182,36 @@ fn new_link(p: &Checked) -> StationLink {
         ByteRing::new(),
         FrameBytesOut(ByteRing::new()),
     )
+}
+
+/// The round-mode link over the old link's rings, in a frame of its own; the old link is
+/// dropped (it held no key).
+#[inline(never)]
+fn to_round_link(
+    link: &mut StationLink,
+    auth: LinkAuth<STATION_KEY_WORDS>,
+    round_frames: u32,
+) -> Result<(), RoundConfigError> {
+    let cfg = *link.config();
+    let reader = core::mem::take(link.reader_mut());
+    let writer = core::mem::replace(link.writer_mut(), FrameBytesOut(ByteRing::new()));
+    *link = StationLink::new_round_authenticated(cfg, auth, round_frames, reader, writer)?;
+    Ok(())
+}
+
+/// Refuse a round setting [`ReceiverLink::new_round_authenticated`] would refuse, before the
+/// rings leave the old link: zero frames, or no usable outcome key in pad words 0 and 1.
+fn check_rounds(
+    auth: &LinkAuth<STATION_KEY_WORDS>,
+    round_frames: u32,
+) -> Result<(), RoundConfigError> {
+    if round_frames == 0 {
+        return Err(RoundConfigError::ZeroFrames);
+    }
+    match (auth.pool().peek(0), auth.pool().peek(1)) {
+        (Some(a), Some(b)) if a.iter().chain(b.iter()).any(|&x| x != 0) => Ok(()),
+        _ => Err(RoundConfigError::NoRoundKey),
+    }
 }
 
 /// Build the receiver in a frame of its own and write it to `dst`.
@@ -360,6 +447,41 @@ impl Station {
         self.link.reader_mut().push(bytes)
     }
 
+    /// Authenticate the classical channel in round mode (`docs/wire-protocol.md` §9.9): frames
+    /// travel untagged and one Wegman-Carter tag per round of `round_frames` announce frames,
+    /// each way, covers the round's sifting outcome; a round's key blocks are kept only when
+    /// both tags check (the round-verdict records say which). `hash_key` (16 bytes) and
+    /// `preshared` (whole pad words, from word 0) are the secrets shared with the
+    /// transmitter, loaded at start-up: never from the profile blob. Allowed only before the
+    /// first detection; the link keeps its rings. On a refusal nothing changes. The new link is
+    /// built in a frame of its own: the call needs about one link's size of stack (18 KB).
+    pub fn authenticate(
+        &mut self,
+        hash_key: [u8; 16],
+        preshared: &[u8],
+        round_frames: u32,
+    ) -> Result<(), StationError> {
+        self.running()?;
+        if self.totals.detections > 0 || self.link.counters().frames_out > 0 {
+            return Err(StationError::Started);
+        }
+        if self.link.auth().is_some() {
+            return Err(StationError::Authenticated);
+        }
+        let auth = LinkAuth::new(AuthConfig::DEFAULT, hash_key, preshared)
+            .map_err(StationError::AuthKey)?;
+        check_rounds(&auth, round_frames).map_err(StationError::AuthRounds)?;
+        to_round_link(&mut self.link, auth, round_frames).map_err(StationError::AuthRounds)
+    }
+
+    /// A key-refill record from the post-processing host (one COBS frame of record type
+    /// `KeyRefill`, as it arrived); returns the pad words loaded into the pool.
+    pub fn push_refill(&mut self, frame: &[u8]) -> Result<usize, StationError> {
+        self.link
+            .take_refill_frame(frame)
+            .map_err(StationError::Refill)
+    }
+
     /// Bytes to send on the classical channel (announce frames); returns how many were written
     /// into `out`.
     pub fn drain_link(&mut self, out: &mut [u8]) -> usize {
@@ -382,21 +504,53 @@ impl Station {
     }
 
     /// Take the last answers, finish the receiver, close the link and write the summary record.
+    ///
+    /// Round-authenticated, in two calls: the first closes the link and leaves the station in
+    /// [`Phase::Closing`] (its final report and round tags go out: drain them, push the
+    /// transmitter's answer); the second takes the transmitter's last round tags, fails the
+    /// rounds still without one, writes their verdicts and then the summary.
     pub fn finish(&mut self) -> Result<(), StationError> {
         match self.phase {
             Phase::Finished => return Err(StationError::Phase(Phase::Finished)),
             Phase::Running => self.parts().run.end_input(),
-            Phase::Ending => {}
+            Phase::Ending | Phase::Closing => {}
         }
-        let mut p = self.parts();
-        let ingest = p.ingest.as_ref().map(Ingest::counts);
-        if let Some(c) = ingest {
-            p.run.observe_ingest(&c, p.totals);
+        let rounds = self.link.rounds().is_some();
+        if self.phase == Phase::Closing {
+            self.settle_rounds();
+        } else {
+            let mut p = self.parts();
+            let ingest = p.ingest.as_ref().map(Ingest::counts);
+            if let Some(c) = ingest {
+                p.run.observe_ingest(&c, p.totals);
+            }
+            p.run.close(p.totals);
+            if rounds {
+                self.phase = Phase::Closing;
+                return Ok(());
+            }
         }
-        p.run
-            .finish(p.totals, |s| s.with_ingest(ingest.unwrap_or_default()));
+        let ingest = self.ingest.as_ref().map(Ingest::counts);
+        self.parts()
+            .run
+            .write_summary(|s| s.with_ingest(ingest.unwrap_or_default()));
         self.phase = Phase::Finished;
         Ok(())
+    }
+
+    /// Round mode, after the close: read the round tags that arrived, fail every round still
+    /// waiting, send this end's last tags and write every verdict.
+    fn settle_rounds(&mut self) {
+        while self.link.poll_answer().is_some() {}
+        self.link.give_up_rounds();
+        for _ in 0..RESENDS {
+            if self.link.rounds().is_none_or(|r| r.unsent() == 0) {
+                break;
+            }
+            self.link.send_final_report();
+        }
+        let mut p = self.parts();
+        p.run.drain_records(p.totals);
     }
 
     /// The phase.
@@ -434,6 +588,17 @@ impl Station {
             link_in_refused_bytes: self.link.reader().refused(),
             frames_dropped: ring.dropped_frames(),
             frames_out: ring.frames(),
+            auth: self.link.auth().map(|a| AuthCounts {
+                counters: *a.counters(),
+                rounds: self
+                    .link
+                    .rounds()
+                    .map(|r| *r.counters())
+                    .unwrap_or_default(),
+                key_bits_left: a.key_bits_left(),
+                attack_alarm: a.attack_alarm(),
+                low_key_alarm: a.low_key_alarm(),
+            }),
         }
     }
 }

@@ -392,3 +392,89 @@ fn raw_words_cut_anywhere_give_the_events_and_the_ingest_counts() {
     let c = st.counts();
     assert_eq!((c.ingest.overrun_words, c.ingest.fifo_full_flags), (12, 1));
 }
+
+#[test]
+fn authentication_is_refused_with_the_core_reason_and_only_before_the_first_detection() {
+    use slotwise::wire::{AuthConfigError, RefillFrameError, RoundConfigError};
+    let key: [u8; 16] = core::array::from_fn(|i| i as u8 + 1);
+    let pad: Vec<u8> = (0..8 * 16).map(|i| (i * 7 + 3) as u8).collect();
+    let mut st = Box::new(Station::new(&blob(None)).unwrap());
+    assert!(matches!(
+        st.push_refill(&[1, 2, 3, 0]),
+        Err(StationError::Refill(_))
+    ));
+    assert_eq!(
+        st.authenticate([0; 16], &pad, 4),
+        Err(StationError::AuthKey(AuthConfigError::ZeroHashKey))
+    );
+    assert!(matches!(
+        st.authenticate(key, &pad[..7], 4),
+        Err(StationError::AuthKey(AuthConfigError::Preshared(_)))
+    ));
+    assert_eq!(
+        st.authenticate(key, &pad, 0),
+        Err(StationError::AuthRounds(RoundConfigError::ZeroFrames))
+    );
+    assert_eq!(
+        st.authenticate(key, &[0; 32], 4),
+        Err(StationError::AuthRounds(RoundConfigError::NoRoundKey))
+    );
+    assert!(st.counts().auth.is_none(), "a refusal changes nothing");
+    st.authenticate(key, &pad, 4).unwrap();
+    assert_eq!(
+        st.authenticate(key, &pad, 4),
+        Err(StationError::Authenticated)
+    );
+    let a = st.counts().auth.unwrap();
+    // 16 words loaded, the 2 of the round outcome key taken: 14 left, 64 bits each.
+    assert_eq!(a.counters.key_bits_loaded, 16 * 64);
+    assert_eq!(a.key_bits_left, 14 * 64);
+    assert!(
+        a.low_key_alarm,
+        "16 words are below the default low-water mark of 64"
+    );
+    // A refill record that is no refill is refused by the core, naming why.
+    assert!(matches!(
+        st.push_refill(&[0]),
+        Err(StationError::Refill(RefillFrameError::Frame(_)))
+    ));
+
+    let mut late = Box::new(Station::new(&blob(None)).unwrap());
+    late.push_events(&[TdcEvent {
+        count: 5,
+        channel: 0,
+    }])
+    .unwrap();
+    assert_eq!(late.authenticate(key, &pad, 4), Err(StationError::Started));
+}
+
+#[test]
+fn a_round_authenticated_station_finishes_in_two_calls_with_the_summary_last() {
+    let key: [u8; 16] = core::array::from_fn(|i| i as u8 + 1);
+    let pad: Vec<u8> = (0..8 * 16).map(|i| (i * 7 + 3) as u8).collect();
+    let mut st = Box::new(Station::new(&blob(None)).unwrap());
+    st.authenticate(key, &pad, 4).unwrap();
+    st.push_events(&[TdcEvent {
+        count: 5,
+        channel: 0,
+    }])
+    .unwrap();
+    st.end_input().unwrap();
+    st.finish().unwrap();
+    assert_eq!(st.phase(), Phase::Closing);
+    assert_eq!(
+        st.push_events(&[]),
+        Err(StationError::Phase(Phase::Closing))
+    );
+    st.finish().unwrap();
+    assert_eq!(st.phase(), Phase::Finished);
+    let mut out = vec![0u8; 8192];
+    let n = st.drain_frames(&mut out);
+    let frames: Vec<&[u8]> = out[..n]
+        .split(|&b| b == 0)
+        .filter(|f| !f.is_empty())
+        .collect();
+    let mut scratch = vec![0u8; slotwise::formats::MAX_RAW + 8];
+    let last = slotwise::formats::decode_frame(frames[frames.len() - 1], &mut scratch).unwrap();
+    assert_eq!(last.record, slotwise::RecordType::Summary);
+}

@@ -109,6 +109,13 @@ enum Cmd {
         /// Damage the raw words: one malformed record, one lost rollover record.
         #[arg(long)]
         faults: bool,
+        /// Authenticate the classical channel (round mode, the simulator's key supply); writes
+        /// auth.bin and refill-link.bin too, and every round must verify.
+        #[arg(long)]
+        auth: bool,
+        /// Announce frames per authentication round (with --auth).
+        #[arg(long, default_value_t = station::ROUND_FRAMES, value_name = "N")]
+        round_frames: u32,
     },
     /// Turn the firmware's stage-by-stage profile into one JSON line (instructions per event).
     Profile {
@@ -247,10 +254,14 @@ fn main() -> ExitCode {
             from,
             out,
             faults,
-        } => station::prepare(&profile, &from, &out, faults).map(|line| {
-            println!("{line}");
-            true
-        }),
+            auth,
+            round_frames,
+        } => station::prepare(&profile, &from, &out, faults, auth.then_some(round_frames)).map(
+            |line| {
+                println!("{line}");
+                true
+            },
+        ),
         Cmd::Budgets { committed, update } => budgets(&committed, update),
         Cmd::Profile { dir, target, full } => profile(&dir, &target, full),
     };

@@ -8,28 +8,42 @@
 //!   rollover record wherever the narrow time field wrapped;
 //! - `answers-link.bin`: the transmitter's answers frames, each after the index of the announce
 //!   frame it answers (the layout of [`slotwise_hil::link`]);
-//! - `frames-ref.bin`, `announce-ref.bin`: what [`Station`] wrote on the host.
+//! - `frames-ref.bin`, `announce-ref.bin`: what [`Station`] wrote on the host;
+//! - with `--auth` (the classical channel round-authenticated, `docs/wire-protocol.md` §9.9):
+//!   `auth.bin`, the key the station starts with (16-byte hash key, u32 LE frames per round,
+//!   then the pre-shared pad words), and `refill-link.bin`, the post-processing host's key-refill
+//!   records, each after the u32 LE index of the pump that pushes it (pumps counted from 0).
+//!
+//! The key is the simulator's stand-in key supply ([`KeySupply`]) under the link model's seed,
+//! as `slotwise simulate` derives it for its authenticated demo, and the transmitter is the
+//! simulator's in round mode with the mirror pool of the same supply.
 //!
 //! **The schedule** both sides follow, so their bytes can be compared: push [`CHUNK_BYTES`] bytes
 //! of words; then *pump*: drain the announce bytes (counting frames by their 0x00 delimiters),
 //! push the answers records released by the rule of [`slotwise_hil::link`] (announce frame k's
 //! answers once frame k + 2 was sent; after the end of input, once frame k was sent) as far as
 //! the station takes them, and drain the output records. At the end: `end_input`, pump, `finish`,
-//! pump. `firmware-c/examples/replay.c` does exactly this in C.
+//! pump. Authenticated, each pump first pushes the refill records due (live: whenever the pool
+//! has [`REFILL_AT_WORDS`] words free), and `finish` takes a second call (the transmitter's last
+//! round tags arrive in the pump between): `end_input`, pump, `finish`, pump, `finish`, pump.
+//! `firmware-c/examples/replay.c` does exactly this in C.
 //!
 //! The reference runs three times and every run must write the same bytes: with the host
 //! transmitter answering live, from the recorded answers, and fed events instead of raw words
 //! (the ingest path reproduces the capture's events exactly).
 
 use serde_json::{json, Value};
+use slotwise::formats::{encode_frame, refill, RecordType, MAX_FRAME, MAX_PAYLOAD, MAX_RAW};
 use slotwise::words::{Endian, WordFormat};
 use slotwise::TdcEvent;
 use slotwise_hil::blob::{ProfileBlob, MAX_BLOB_LEN};
 use slotwise_hil::link::ANSWER_LAG_FRAMES;
-use slotwise_hil::Station;
+use slotwise_hil::station::STATION_KEY_WORDS;
+use slotwise_hil::{Phase, Station};
 use slotwise_sim::capture::read_all;
 use slotwise_sim::clocks::simulated_hint;
-use slotwise_sim::link::tx::HostTransmitter;
+use slotwise_sim::link::auth::{KeySupply, PRESHARED_WORDS};
+use slotwise_sim::link::tx::{HostTransmitter, TX_KEY_WORDS};
 use slotwise_sim::link::LinkModel;
 use slotwise_sim::scenario::Scenario;
 use std::collections::VecDeque;
@@ -38,6 +52,73 @@ use std::path::Path;
 
 /// Bytes of raw words per push (the C program uses the same figure).
 pub const CHUNK_BYTES: usize = 4096;
+
+/// Announce frames per authentication round of `--auth` unless told otherwise: small, so a
+/// short capture closes many rounds.
+pub const ROUND_FRAMES: u32 = 8;
+/// Free pad words in the station's pool at which the live run pushes a refill record.
+pub const REFILL_AT_WORDS: usize = 16;
+
+/// The key an authenticated station starts with.
+struct AuthSetup {
+    hash_key: [u8; 16],
+    round_frames: u32,
+    preshared: Vec<u8>,
+}
+
+impl AuthSetup {
+    /// `auth.bin`: hash key, u32 LE frames per round, pre-shared pad words.
+    fn bytes(&self) -> Vec<u8> {
+        let mut b = self.hash_key.to_vec();
+        b.extend_from_slice(&self.round_frames.to_le_bytes());
+        b.extend_from_slice(&self.preshared);
+        b
+    }
+}
+
+/// Where the key refills come from.
+enum Refills<'a> {
+    /// None: the run is not authenticated.
+    Off,
+    /// From the key supply whenever the pool has room; the records are kept.
+    Live(KeySupply, Vec<u8>),
+    /// Recorded records, read in order.
+    Recorded(&'a [u8]),
+}
+
+/// A key-refill record for the station's pool, when it has [`REFILL_AT_WORDS`] words free and
+/// the supply has key left.
+fn refill_for(st: &Station, supply: &KeySupply) -> Option<Vec<u8>> {
+    let pool = st.link().auth()?.pool();
+    if pool.room() < REFILL_AT_WORDS {
+        return None;
+    }
+    let n = pool.room().min(refill::MAX_WORDS) as u64;
+    let key = supply.words(pool.end(), n);
+    if key.is_empty() {
+        return None;
+    }
+    let mut p = vec![0u8; MAX_PAYLOAD];
+    let m = refill::emit(pool.end(), &key, &mut p).ok()?;
+    let (mut raw, mut out) = (vec![0u8; MAX_RAW], vec![0u8; MAX_FRAME]);
+    let len = encode_frame(RecordType::KeyRefill, 0, &p[..m], &mut raw, &mut out).ok()?;
+    out.truncate(len);
+    Some(out)
+}
+
+/// Top the transmitter's mirror pool up from the same supply (as the simulator's link does).
+fn refill_tx(tx: &mut HostTransmitter, supply: &KeySupply) {
+    while let Some(a) = tx.auth() {
+        let (end, room) = (a.pool().end(), a.pool().room());
+        if room < refill::MAX_WORDS {
+            break;
+        }
+        let key = supply.words(end, refill::MAX_WORDS as u64);
+        if key.is_empty() || tx.refill(end, &key).is_err() {
+            break;
+        }
+    }
+}
 
 /// The capture's events as raw records of `format`; rollover records where the time field wraps.
 pub fn encode_words(events: &[TdcEvent], format: &WordFormat) -> Result<Vec<u8>, String> {
@@ -107,10 +188,37 @@ struct Pump<'a> {
     ended: bool,
     announce: Vec<u8>,
     frames: Vec<u8>,
+    refills: Refills<'a>,
+    /// Pumps done so far.
+    pumps: u32,
 }
 
 impl Pump<'_> {
-    fn pump(&mut self) {
+    fn pump(&mut self) -> Result<(), String> {
+        let at = self.pumps;
+        self.pumps += 1;
+        match &mut self.refills {
+            Refills::Off => {}
+            Refills::Live(supply, log) => {
+                if let Answers::Live(tx, _) = &mut self.answers {
+                    refill_tx(tx, supply);
+                }
+                while let Some(frame) = refill_for(&self.st, supply) {
+                    self.st.push_refill(&frame).map_err(|e| e.to_string())?;
+                    log.extend_from_slice(&at.to_le_bytes());
+                    log.extend_from_slice(&frame);
+                }
+            }
+            Refills::Recorded(rest) => {
+                while let Some(((index, frame), tail)) = next_record(rest) {
+                    if index > at {
+                        break;
+                    }
+                    self.st.push_refill(&frame).map_err(|e| e.to_string())?;
+                    *rest = tail;
+                }
+            }
+        }
         let mut buf = [0u8; 1024];
         loop {
             let n = self.st.drain_link(&mut buf);
@@ -161,6 +269,7 @@ impl Pump<'_> {
             }
             self.frames.extend_from_slice(&buf[..n]);
         }
+        Ok(())
     }
 }
 
@@ -172,6 +281,16 @@ fn next_record(bytes: &[u8]) -> Option<(Record, &[u8])> {
     let index = u32::from_le_bytes(bytes.get(..4)?.try_into().ok()?);
     let end = bytes.get(4..)?.iter().position(|&b| b == 0)? + 5;
     Some(((index, bytes[4..end].to_vec()), &bytes[end..]))
+}
+
+/// Records in a recorded stream.
+fn next_records(mut bytes: &[u8]) -> usize {
+    let mut n = 0;
+    while let Some((_, rest)) = next_record(bytes) {
+        bytes = rest;
+        n += 1;
+    }
+    n
 }
 
 /// Turn the middle record into an unknown kind and drop the last rollover record; returns the
@@ -239,10 +358,25 @@ struct Run {
     summary: slotwise::Summary,
     /// Detections taken in after each push (where the schedule pumped).
     cuts: Vec<u64>,
+    /// The refill records pushed (live runs).
+    refills: Vec<u8>,
 }
 
-fn run(blob: &[u8], input: Input<'_>, answers: Answers<'_>) -> Result<Run, String> {
-    let st = Box::new(Station::new(blob).map_err(|e| e.to_string())?);
+fn run(
+    blob: &[u8],
+    input: Input<'_>,
+    answers: Answers<'_>,
+    auth: Option<(&AuthSetup, Refills<'_>)>,
+) -> Result<Run, String> {
+    let mut st = Box::new(Station::new(blob).map_err(|e| e.to_string())?);
+    let refills = match auth {
+        Some((a, r)) => {
+            st.authenticate(a.hash_key, &a.preshared, a.round_frames)
+                .map_err(|e| e.to_string())?;
+            r
+        }
+        None => Refills::Off,
+    };
     let mut p = Pump {
         st,
         answers,
@@ -253,13 +387,15 @@ fn run(blob: &[u8], input: Input<'_>, answers: Answers<'_>) -> Result<Run, Strin
         ended: false,
         announce: Vec::new(),
         frames: Vec::new(),
+        refills,
+        pumps: 0,
     };
     let mut cuts = Vec::new();
     match input {
         Input::Words(w) => {
             for chunk in w.chunks(CHUNK_BYTES) {
                 p.st.push_words(chunk).map_err(|e| e.to_string())?;
-                p.pump();
+                p.pump()?;
                 cuts.push(p.st.counts().totals.detections);
             }
         }
@@ -270,19 +406,27 @@ fn run(blob: &[u8], input: Input<'_>, answers: Answers<'_>) -> Result<Run, Strin
                     .get(from as usize..to as usize)
                     .ok_or("cut past the events")?;
                 p.st.push_events(chunk).map_err(|e| e.to_string())?;
-                p.pump();
+                p.pump()?;
                 from = to;
             }
         }
     }
     p.st.end_input().map_err(|e| e.to_string())?;
     p.ended = true;
-    p.pump();
+    p.pump()?;
     p.st.finish().map_err(|e| e.to_string())?;
-    p.pump();
+    p.pump()?;
+    if p.st.phase() == Phase::Closing {
+        p.st.finish().map_err(|e| e.to_string())?;
+        p.pump()?;
+    }
     let records = match p.answers {
         Answers::Live(_, log) => log,
         Answers::Recorded(_) => Vec::new(),
+    };
+    let refills = match p.refills {
+        Refills::Live(_, log) => log,
+        _ => Vec::new(),
     };
     Ok(Run {
         frames: p.frames,
@@ -291,6 +435,7 @@ fn run(blob: &[u8], input: Input<'_>, answers: Answers<'_>) -> Result<Run, Strin
         counts: p.st.counts(),
         summary: p.st.summary(),
         cuts,
+        refills,
     })
 }
 
@@ -305,7 +450,16 @@ enum Input<'a> {
 /// With `faults`, the raw words are damaged the way a TDC link goes wrong: the record at the
 /// middle becomes one of an unknown kind (malformed), and the last rollover record is lost (the
 /// counter falls back: a rollover gap). The events path is then not compared (the events differ).
-pub fn prepare(profile: &Path, capture: &Path, out: &Path, faults: bool) -> Result<Value, String> {
+///
+/// With `auth_rounds` (`--auth`), the classical channel is round-authenticated with rounds of
+/// that many announce frames, and every round must verify.
+pub fn prepare(
+    profile: &Path,
+    capture: &Path,
+    out: &Path,
+    faults: bool,
+    auth_rounds: Option<u32>,
+) -> Result<Value, String> {
     let source = capture.display().to_string();
     let blob = fs::read(profile).map_err(|e| format!("{}: {e}", profile.display()))?;
     let mut p = ProfileBlob::decode(&blob).map_err(|e| format!("{}: {e}", profile.display()))?;
@@ -329,17 +483,36 @@ pub fn prepare(profile: &Path, capture: &Path, out: &Path, faults: bool) -> Resu
     } else {
         0
     };
-    let tx = HostTransmitter::new(&s, LinkModel::perfect(&s).test_fraction);
+    let model = LinkModel::perfect(&s);
+    let supply = KeySupply::new(model.seed, model.auth_key_words);
+    let auth = auth_rounds.map(|round_frames| AuthSetup {
+        hash_key: supply.hash_key(),
+        round_frames,
+        preshared: supply.words(0, PRESHARED_WORDS.min(STATION_KEY_WORDS as u64)),
+    });
+    let mut tx = HostTransmitter::new(&s, model.test_fraction);
+    if let Some(a) = &auth {
+        tx = tx.with_round_auth(Box::new(supply.end::<TX_KEY_WORDS>()?), a.round_frames)?;
+    }
     let live = run(
         &b,
         Input::Words(&words),
         Answers::Live(Box::new(tx), Vec::new()),
+        auth.as_ref()
+            .map(|a| (a, Refills::Live(supply, Vec::new()))),
     )?;
-    let again = run(&b, Input::Words(&words), Answers::Recorded(&live.records))?;
+    let recorded = || auth.as_ref().map(|a| (a, Refills::Recorded(&live.refills)));
+    let again = run(
+        &b,
+        Input::Words(&words),
+        Answers::Recorded(&live.records),
+        recorded(),
+    )?;
     let evs = run(
         &b,
         Input::Events(&events, &live.cuts),
         Answers::Recorded(&live.records),
+        recorded(),
     )?;
     if again.frames != live.frames || again.announce != live.announce {
         return Err(format!(
@@ -370,14 +543,33 @@ pub fn prepare(profile: &Path, capture: &Path, out: &Path, faults: bool) -> Resu
             events.len()
         ));
     }
+    let a = live.counts.auth.unwrap_or_default();
+    if auth.is_some() && (a.rounds.verified == 0 || a.rounds.failed() > 0) {
+        return Err(format!(
+            "{source}: authenticated, {} rounds verified and {} failed: every round must verify",
+            a.rounds.verified,
+            a.rounds.failed()
+        ));
+    }
     fs::create_dir_all(out).map_err(|e| format!("{}: {e}", out.display()))?;
-    for (name, bytes) in [
+    let auth_bin = auth.as_ref().map(AuthSetup::bytes);
+    let mut files = vec![
         ("profile.swp", &b),
         ("words.bin", &words),
         ("answers-link.bin", &live.records),
         ("frames-ref.bin", &live.frames),
         ("announce-ref.bin", &live.announce),
-    ] {
+    ];
+    if let Some(k) = &auth_bin {
+        files.push(("auth.bin", k));
+        files.push(("refill-link.bin", &live.refills));
+    } else {
+        // A directory used before for an authenticated run must not authenticate the C replay.
+        for name in ["auth.bin", "refill-link.bin"] {
+            let _ = fs::remove_file(out.join(name));
+        }
+    }
+    for (name, bytes) in files {
         let path = out.join(name);
         fs::write(&path, bytes).map_err(|e| format!("{}: {e}", path.display()))?;
     }
@@ -393,5 +585,16 @@ pub fn prepare(profile: &Path, capture: &Path, out: &Path, faults: bool) -> Resu
         "rollover_gaps": c.ingest.rollover_gaps,
         "malformed_words": c.ingest.malformed_words,
         "station_bytes": std::mem::size_of::<Station>(),
+        "authenticated": auth.is_some(),
+        "round_frames": auth_rounds,
+        "rounds_kept": a.rounds.verified,
+        "rounds_discarded": a.rounds.failed(),
+        "verdict_frames": c.totals.verdict_frames,
+        "refill_records": next_records(&live.refills),
+        "key_bits_loaded": a.counters.key_bits_loaded,
+        "key_bits_consumed": a.counters.key_bits_consumed,
+        "key_bits_left": a.key_bits_left,
+        "attack_alarm": a.attack_alarm,
+        "low_key_alarm": a.low_key_alarm,
     }))
 }
