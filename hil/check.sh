@@ -189,7 +189,7 @@ WORDS=bytes=8,time=0:32,channel=32:8,kind=40:8,event=1,rollover=2,max-channel=7
 d="$RUNS/c-interface"
 rm -rf "$d" && mkdir -p "$d"
 "$SLOTWISE" profile from-scenario "$DEFAULT_SCENARIO" -o "$d/receiver.toml" 2>/dev/null
-"$SLOTWISE" profile compile "$d/receiver.toml" -o "$d/receiver.swp" --words "$WORDS"
+"$SLOTWISE" profile compile "$d/receiver.toml" -o "$d/receiver.swblob" --words "$WORDS"
 C_FLAGS=(-std=c11 -Wall -Wextra -Werror -O2 -I"$C_DIR/include")
 NATIVE_LIBS="$(cargo rustc --release -p slotwise-c --crate-type staticlib -- \
   --print native-static-libs 2>&1 | sed -n 's/.*native-static-libs: //p' | tail -1)"
@@ -208,7 +208,7 @@ for run in clean faults auth; do
   extra=()
   if [ "$run" = faults ]; then extra=(--faults); fi
   if [ "$run" = auth ]; then extra=(--auth); fi
-  "$HOST_TOOL" station --profile "$d/receiver.swp" --from "$RUNS/default-full.cap" --out "$r" \
+  "$HOST_TOOL" station --profile "$d/receiver.swblob" --from "$RUNS/default-full.cap" --out "$r" \
     "${extra[@]}"
   for how in host qemu; do
     rm -f "$r/frames-c.bin" "$r/announce-c.bin"

@@ -3,7 +3,7 @@
  * TDC words in blocks, the classical channel's bytes in and out, output records drained.
  *
  * Reads, in the current directory (a run directory of `hil-host station`):
- *   profile.swp       the profile blob (slotwise profile compile), with the hint
+ *   profile.swblob       the profile blob (slotwise profile compile), with the hint
  *   words.bin         raw TDC records in the blob's word layout
  *   answers-link.bin  the transmitter's answers frames, each after the u32 LE index of the
  *                     announce frame it answers
@@ -140,12 +140,12 @@ static FILE *open_or_say(const char *name, const char *mode) {
 int main(void) {
     static uint8_t profile[1024];
     char msg[160];
-    FILE *pf = open_or_say("profile.swp", "rb");
+    FILE *pf = open_or_say("profile.swblob", "rb");
     if (!pf) return 1;
     size_t plen = fread(profile, 1, sizeof profile, pf);
     fclose(pf);
     if (sw_profile_check(profile, plen, msg, sizeof msg) != SW_OK) {
-        fprintf(stderr, "profile.swp: %s\n", msg);
+        fprintf(stderr, "profile.swblob: %s\n", msg);
         return 1;
     }
     struct pump p = {0};

@@ -509,7 +509,7 @@ fn demo(a: DemoArgs) -> Result<(), AnyErr> {
         "receiver.toml",
     );
     if let Ok(blob) = blob {
-        let blob_path = a.out.join("receiver.swp");
+        let blob_path = a.out.join("receiver.swblob");
         std::fs::write(&blob_path, blob)?;
         files.push(blob_path);
     }

@@ -7,9 +7,9 @@
 //! `profile/receiver.toml` (the invented bench scenario's receiver) with
 //!
 //! ```sh
-//! slotwise profile compile profile/receiver.toml -o profile/receiver.swp \
+//! slotwise profile compile profile/receiver.toml -o profile/receiver.swblob \
 //!   --words bytes=8,endian=little,time=0:32,channel=32:4,kind=56:8,event=165,rollover=90,count=40:16,max-channel=7
 //! ```
 
 /// The example profile committed beside the firmware (invented bench scenario, 100 MHz slots).
-pub static PROFILE: &[u8] = include_bytes!("../profile/receiver.swp");
+pub static PROFILE: &[u8] = include_bytes!("../profile/receiver.swblob");

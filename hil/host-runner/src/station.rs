@@ -3,7 +3,7 @@
 //! `hil-host station` takes a profile blob (`slotwise profile compile`, with a raw-word layout)
 //! and a capture of `slotwise simulate` with the public marker on, and writes:
 //!
-//! - `profile.swp`: the blob with the capture's classical-channel hint;
+//! - `profile.swblob`: the blob with the capture's classical-channel hint;
 //! - `words.bin`: the capture's events as raw TDC records in the blob's word layout, with a
 //!   rollover record wherever the narrow time field wrapped;
 //! - `answers-link.bin`: the transmitter's answers frames, each after the index of the announce
@@ -554,7 +554,7 @@ pub fn prepare(
     fs::create_dir_all(out).map_err(|e| format!("{}: {e}", out.display()))?;
     let auth_bin = auth.as_ref().map(AuthSetup::bytes);
     let mut files = vec![
-        ("profile.swp", &b),
+        ("profile.swblob", &b),
         ("words.bin", &words),
         ("answers-link.bin", &live.records),
         ("frames-ref.bin", &live.frames),

@@ -19,7 +19,7 @@ replays a capture through the receiver it describes; no scenario is needed.
   slotwise profile check my-receiver.toml              # check it; draw the gate layout
   slotwise profile check my-receiver.toml --svg g.svg  # ...and as a picture
   slotwise profile from-scenario scenarios/bench-100mhz-30km.toml -o bench.toml
-  slotwise profile compile bench.toml -o bench.swp     # the bytes a board reads (C or Rust)
+  slotwise profile compile bench.toml -o bench.swblob     # the bytes a board reads (C or Rust)
 
 Every value is checked by the core's own configuration constructors; an error names the file,
 the line and the key (e.g. gates[2].half_width_ps) and the range that was expected.";
@@ -73,8 +73,8 @@ holds the setup (TDC, gates, sifting), the board settings (recovered clock from 
 numbering, link timeouts, monitor, alarms) and, with --words, the TDC's raw-word layout; each
 section has its own CRC-32/ISCSI. Layout: docs/board-integration.md.
 
-  slotwise profile compile rx.toml -o rx.swp
-  slotwise profile compile rx.toml -o rx.swp \\
+  slotwise profile compile rx.toml -o rx.swblob
+  slotwise profile compile rx.toml -o rx.swblob \\
       --words bytes=8,time=0:32,channel=32:8,kind=40:8,event=1,rollover=2,max-channel=7
 
 The profile must enable the public marker: the board numbers slots through it.")]
