@@ -28,61 +28,10 @@ fn null_pointers_and_damaged_profiles_are_refused_with_a_status_and_a_message() 
     assert!(text.contains("magic") && text.contains("byte 0"), "{text}");
 }
 
-/// A small profile blob (two channels, three gates), without a word layout.
+/// A real compiled profile blob: the board example's (the invented bench scenario's receiver
+/// with its FIFO bridge's word layout; `slotwise profile compile`).
 fn blob() -> std::vec::Vec<u8> {
-    use slotwise::fixed::types::{U0F32, U32F32};
-    use slotwise::{
-        AcquireParams, AlarmConfig, Basis, Gate, GateTable, LinkConfig, OverflowPolicy,
-        TrackParams, UnwrapConfig,
-    };
-    use slotwise_hil::{BoardSettings, Setup};
-    let g = |channel, a: f64, b: f64, basis, bit| Gate {
-        channel,
-        start: U0F32::from_num(a),
-        end: U0F32::from_num(b),
-        basis,
-        bit,
-    };
-    let setup = Setup {
-        tdc: UnwrapConfig::new(48, 4).unwrap(),
-        gates: GateTable::new(
-            &[0, -1230],
-            &[
-                g(0, 0.1, 0.2, Basis::Z, 0),
-                g(0, 0.6, 0.7, Basis::Z, 1),
-                g(1, 0.3, 0.4, Basis::X, 1),
-            ],
-        )
-        .unwrap(),
-        period_ps: U32F32::from_num(9999.63),
-        origin_ps: 123_456_789,
-        intensities: 3,
-        answer_timeout_slots: 50_000,
-        overflow: OverflowPolicy::DropNewest,
-        squash_seed: 42,
-    };
-    let mut acquire = AcquireParams::new(U32F32::from_num(9999.63), 500);
-    acquire.work_per_call = 4096;
-    let board = BoardSettings {
-        acquire,
-        track: TrackParams::new(2_000, 80_000, 1_000_000_000),
-        reacquire_ppm: 20,
-        hint_t_ps: 0,
-        hint_tx_slot: 0,
-        link: LinkConfig::new(1_000_000, 5_000).unwrap(),
-        block_ps: 2_000_000_000,
-        dead_time_ps: 40_000,
-        alarms: AlarmConfig::DEFAULT,
-    };
-    let p = ProfileBlob {
-        setup,
-        board,
-        words: None,
-    };
-    let mut b = std::vec![0u8; slotwise_hil::blob::MAX_BLOB_LEN];
-    let n = p.encode(&mut b).unwrap();
-    b.truncate(n);
-    b
+    include_bytes!("../../hil/board-example/profile/receiver.swblob").to_vec()
 }
 
 #[test]
