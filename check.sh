@@ -28,12 +28,12 @@ cargo clippy -p slotwise --all-targets --all-features -- -D warnings
 step "fuzz targets compile (stable check; running them needs nightly, see below)"
 cargo check --manifest-path fuzz/Cargo.toml --bins --target-dir target
 
-step "clippy (firmware-core for thumbv7em, defmt and embedded-hal on)"
-cargo clippy -p slotwise --target thumbv7em-none-eabihf --features defmt,embedded-hal -- -D warnings
+step "clippy (firmware-core for thumbv7em, defmt, embedded-hal and embedded-hal-async on)"
+cargo clippy -p slotwise --target thumbv7em-none-eabihf --features defmt,embedded-hal-async -- -D warnings
 
 step "tests"
 cargo test --workspace
-cargo test -p slotwise --features embedded-hal --lib ingest   # the SPI source against the mock
+cargo test -p slotwise --features embedded-hal-async --lib ingest   # the SPI sources against the mock
 
 step "no_std cross builds of firmware-core"
 cargo build -p slotwise --target thumbv7em-none-eabihf --release

@@ -13,6 +13,9 @@
 //!
 //! A level need not be a whole number of records: a record cut by a short read is completed by
 //! the next one (the decoder carries it).
+//!
+//! With the `embedded-hal-async` feature, `asynch::SpiFifoSourceAsync` speaks the same two
+//! commands over `embedded-hal-async` 1.0 and awaits the data-ready line instead of polling it.
 
 use core::fmt;
 
@@ -22,8 +25,14 @@ use embedded_hal::spi::{Operation, SpiDevice};
 use super::Ingest;
 use crate::timestamps::TdcEvent;
 
+#[cfg(feature = "embedded-hal-async")]
+pub mod asynch;
+
 #[cfg(test)]
 mod tests;
+
+#[cfg(all(test, feature = "embedded-hal-async"))]
+mod asynch_tests;
 
 /// Command byte that reads the FIFO bridge's status.
 pub const STATUS_COMMAND: u8 = 0x01;
@@ -105,33 +114,45 @@ impl<SPI: SpiDevice, DRDY: InputPin> SpiFifoSource<SPI, DRDY> {
                 Operation::Read(&mut status),
             ])
             .map_err(SourceError::Spi)?;
-        let [flags, dropped, level_hi, level_lo] = status;
-        if flags & FLAG_FIFO_FULL != 0 {
-            ingest.report_fifo_full();
-        }
-        if dropped > 0 {
-            ingest.report_overrun(u64::from(dropped));
-        }
-        let size = ingest.format().record_bytes();
-        let room = out
-            .len()
-            .saturating_mul(size)
-            .saturating_sub(size.saturating_sub(1));
-        let level = usize::from(u16::from_be_bytes([level_hi, level_lo]));
-        let n = level.min(buf.len()).min(room);
-        let Some(block) = buf.get_mut(..n) else {
+        let n = read_length(ingest, status, buf.len(), out.len());
+        let Some(block) = buf.get_mut(..n).filter(|b| !b.is_empty()) else {
             return Ok(Polled::default());
         };
-        if n == 0 {
-            return Ok(Polled::default());
-        }
         self.spi
             .transaction(&mut [Operation::Write(&[READ_COMMAND]), Operation::Read(block)])
             .map_err(SourceError::Spi)?;
-        let done = ingest.push(block, out);
-        Ok(Polled {
-            bytes: n,
-            events: done.events,
-        })
+        Ok(decode(ingest, block, out))
+    }
+}
+
+/// After a status read: report its FIFO-full flag and dropped words to `ingest`, and give the
+/// bytes to read next — the level, at most what `buf_len` bytes and `out_len` events take (so
+/// every byte read is decoded, even after a carried partial record).
+pub(crate) fn read_length(
+    ingest: &mut Ingest,
+    [flags, dropped, level_hi, level_lo]: [u8; STATUS_BYTES],
+    buf_len: usize,
+    out_len: usize,
+) -> usize {
+    if flags & FLAG_FIFO_FULL != 0 {
+        ingest.report_fifo_full();
+    }
+    if dropped > 0 {
+        ingest.report_overrun(u64::from(dropped));
+    }
+    let size = ingest.format().record_bytes();
+    let room = out_len
+        .saturating_mul(size)
+        .saturating_sub(size.saturating_sub(1));
+    let level = usize::from(u16::from_be_bytes([level_hi, level_lo]));
+    level.min(buf_len).min(room)
+}
+
+/// Decode the bytes just read into `out`.
+pub(crate) fn decode(ingest: &mut Ingest, block: &[u8], out: &mut [TdcEvent]) -> Polled {
+    let done = ingest.push(block, out);
+    Polled {
+        bytes: block.len(),
+        events: done.events,
     }
 }

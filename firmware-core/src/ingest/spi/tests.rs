@@ -8,7 +8,7 @@ use embedded_hal_mock::eh1::digital::{Mock as PinMock, State, Transaction as Pin
 use embedded_hal_mock::eh1::spi::{Mock as SpiMock, Transaction as SpiTx};
 
 /// The status transaction: command, then flags, dropped words and the big-endian byte level.
-fn status(flags: u8, dropped: u8, level_bytes: u16) -> Vec<SpiTx<u8>> {
+pub(super) fn status(flags: u8, dropped: u8, level_bytes: u16) -> Vec<SpiTx<u8>> {
     let [hi, lo] = level_bytes.to_be_bytes();
     vec![
         SpiTx::transaction_start(),
@@ -19,7 +19,7 @@ fn status(flags: u8, dropped: u8, level_bytes: u16) -> Vec<SpiTx<u8>> {
 }
 
 /// The data transaction returning `data`.
-fn read(data: Vec<u8>) -> Vec<SpiTx<u8>> {
+pub(super) fn read(data: Vec<u8>) -> Vec<SpiTx<u8>> {
     vec![
         SpiTx::transaction_start(),
         SpiTx::write_vec(vec![READ_COMMAND]),
@@ -28,7 +28,7 @@ fn read(data: Vec<u8>) -> Vec<SpiTx<u8>> {
     ]
 }
 
-fn blank() -> [TdcEvent; 8] {
+pub(super) fn blank() -> [TdcEvent; 8] {
     [TdcEvent {
         count: 0,
         channel: 0,
