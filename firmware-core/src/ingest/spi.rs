@@ -31,9 +31,6 @@ pub mod asynch;
 #[cfg(test)]
 mod tests;
 
-#[cfg(all(test, feature = "embedded-hal-async"))]
-mod asynch_tests;
-
 /// Command byte that reads the FIFO bridge's status.
 pub const STATUS_COMMAND: u8 = 0x01;
 /// Command byte that reads bytes from the FIFO.

@@ -75,6 +75,27 @@ fn drain(p: &Pipe) -> Vec<u8> {
     p.0.borrow_mut().drain(..).collect()
 }
 
+/// Answers to three announced slots: matched with its bit revealed, mismatched, matched.
+fn three_answers() -> [AnswerEntry; 3] {
+    [
+        AnswerEntry {
+            basis_match: true,
+            intensity: 0,
+            bit: Some(1),
+        },
+        AnswerEntry {
+            basis_match: false,
+            intensity: 1,
+            bit: None,
+        },
+        AnswerEntry {
+            basis_match: true,
+            intensity: 0,
+            bit: None,
+        },
+    ]
+}
+
 fn ann(slot: u64, x: bool) -> Announcement {
     Announcement {
         slot,
@@ -499,23 +520,7 @@ fn documented_example_frames() {
     let mut p = [0u8; 64];
     let n = announce::emit(&entries, report, 0, &mut p).unwrap();
     let a = frame_bytes(RecordType::Announce, 5, &p[..n]);
-    let e = [
-        AnswerEntry {
-            basis_match: true,
-            intensity: 0,
-            bit: Some(1),
-        },
-        AnswerEntry {
-            basis_match: false,
-            intensity: 1,
-            bit: None,
-        },
-        AnswerEntry {
-            basis_match: true,
-            intensity: 0,
-            bit: None,
-        },
-    ];
+    let e = three_answers();
     let n = answers::emit(5, 1000, &e, &mut p).unwrap();
     let b = frame_bytes(RecordType::Answers, 9, &p[..n]);
     let unstuff = |f: &[u8]| {

@@ -13,8 +13,8 @@
 use crate::blob::ProfileBlob;
 use crate::board::BoardError;
 use crate::full::{
-    build_clock, build_numbering, build_receiver, FullMonitor, FullReceiver, FullRun, FullTotals,
-    LinkEnd, LINK_BATCH, LINK_OUT,
+    build_clock, build_numbering, FullMonitor, FullReceiver, FullRun, FullTotals, LinkEnd,
+    LINK_BATCH, LINK_OUT,
 };
 use crate::probe::Probe;
 use crate::ring::{ByteRing, FrameBytesOut, FrameRing};
@@ -286,23 +286,10 @@ impl Station {
     /// carries one (a hint of 0, 0 is none: call [`Self::hint`] when the transmitter's hello
     /// arrives). Returned by value: on a board, build it in place with [`Self::init`] instead.
     pub fn new(blob: &[u8]) -> Result<Self, StationError> {
-        let p = Checked::of(blob)?;
-        let mut s = Self {
-            rx: build_receiver(&p.blob.setup, &p.blob.board).map_err(StationError::Profile)?,
-            link: new_link(&p),
-            monitor: FullMonitor::new(p.stats, p.blob.board.alarms),
-            out: BoardFrameOut::new(FrameRing::new()),
-            ingest: p.blob.words.map(Ingest::new),
-            events: [TdcEvent {
-                count: 0,
-                channel: 0,
-            }; BLOCK],
-            totals: FullTotals::default(),
-            phase: Phase::Running,
-            count_mask: p.count_mask(),
-        };
-        s.hint_from(&p);
-        Ok(s)
+        let mut slot = MaybeUninit::uninit();
+        Self::init(&mut slot, blob)?;
+        // SAFETY: `init` returned Ok, so every field of `slot` is written.
+        Ok(unsafe { slot.assume_init() })
     }
 
     /// The same station built where it will live: each part is written into `slot` from a

@@ -8,7 +8,7 @@ use embedded_hal_mock::eh1::digital::{Mock as PinMock, State, Transaction as Pin
 use embedded_hal_mock::eh1::spi::{Mock as SpiMock, Transaction as SpiTx};
 
 /// The status transaction: command, then flags, dropped words and the big-endian byte level.
-pub(super) fn status(flags: u8, dropped: u8, level_bytes: u16) -> Vec<SpiTx<u8>> {
+fn status(flags: u8, dropped: u8, level_bytes: u16) -> Vec<SpiTx<u8>> {
     let [hi, lo] = level_bytes.to_be_bytes();
     vec![
         SpiTx::transaction_start(),
@@ -19,7 +19,7 @@ pub(super) fn status(flags: u8, dropped: u8, level_bytes: u16) -> Vec<SpiTx<u8>>
 }
 
 /// The data transaction returning `data`.
-pub(super) fn read(data: Vec<u8>) -> Vec<SpiTx<u8>> {
+fn read(data: Vec<u8>) -> Vec<SpiTx<u8>> {
     vec![
         SpiTx::transaction_start(),
         SpiTx::write_vec(vec![READ_COMMAND]),
@@ -28,7 +28,13 @@ pub(super) fn read(data: Vec<u8>) -> Vec<SpiTx<u8>> {
     ]
 }
 
-pub(super) fn blank() -> [TdcEvent; 8] {
+/// Both mocks saw every transaction they expected.
+fn all_expected((mut spi, mut pin): (SpiMock<u8>, PinMock)) {
+    spi.done();
+    pin.done();
+}
+
+fn blank() -> [TdcEvent; 8] {
     [TdcEvent {
         count: 0,
         channel: 0,
@@ -68,9 +74,7 @@ fn an_overrun_fifo_reports_its_flag_and_dropped_words() {
             blocks: 1,
         }
     );
-    let (mut spi, mut pin) = src.release();
-    spi.done();
-    pin.done();
+    all_expected(src.release());
 }
 
 #[test]
@@ -100,9 +104,7 @@ fn a_rollover_between_two_reads_widens_the_counter() {
     assert_eq!(out[0].count, (1 << 24) | 0x10);
     assert_eq!(ingest.counts().rollover_gaps, 0);
     assert_eq!(ingest.word_counts().rollovers, 1);
-    let (mut spi, mut pin) = src.release();
-    spi.done();
-    pin.done();
+    all_expected(src.release());
 }
 
 #[test]
@@ -129,9 +131,7 @@ fn a_rollover_lost_in_an_overrun_is_a_gap() {
         (c.rollover_gaps, c.overrun_words, c.fifo_full_flags),
         (1, 1, 1)
     );
-    let (mut spi, mut pin) = src.release();
-    spi.done();
-    pin.done();
+    all_expected(src.release());
 }
 
 #[test]
@@ -182,9 +182,7 @@ fn a_short_read_cut_inside_a_record_is_completed_by_the_next() {
         }
     );
     assert_eq!(ingest.finish().map(|w| w.records), Ok(2));
-    let (mut spi, mut pin) = src.release();
-    spi.done();
-    pin.done();
+    all_expected(src.release());
 }
 
 #[test]
@@ -203,9 +201,7 @@ fn a_read_is_limited_to_what_the_buffers_hold() {
             events: 3
         })
     );
-    let (mut spi, mut pin) = src.release();
-    spi.done();
-    pin.done();
+    all_expected(src.release());
 }
 
 #[test]
@@ -224,7 +220,93 @@ fn a_failed_pin_read_is_an_error_not_a_panic() {
         Err(SourceError::Pin(MockError::Io(ErrorKind::NotConnected)))
     ));
     assert_eq!(ingest.counts(), IngestCounts::default());
-    let (mut spi, mut pin) = src.release();
-    spi.done();
-    pin.done();
+    all_expected(src.release());
+}
+
+/// The async source against `embedded-hal-mock`'s async implementations: the same bus traffic,
+/// the data-ready line awaited.
+#[cfg(feature = "embedded-hal-async")]
+mod asynch {
+    use super::super::asynch::SpiFifoSourceAsync;
+    use super::*;
+    use crate::ingest::tests::ROLLOVER;
+    use core::future::Future;
+    use core::pin::pin;
+    use core::task::{Context, Poll, Waker};
+    use embedded_hal_mock::eh1::MockError;
+    use std::io::ErrorKind;
+
+    /// Run a future that never waits on anything outside it (the mocks answer at once).
+    fn block_on<F: Future>(f: F) -> F::Output {
+        let mut f = pin!(f);
+        let mut cx = Context::from_waker(Waker::noop());
+        loop {
+            if let Poll::Ready(v) = f.as_mut().poll(&mut cx) {
+                return v;
+            }
+        }
+    }
+
+    #[test]
+    fn the_async_source_counts_an_overrun_and_carries_a_record_cut_by_a_short_read() {
+        let all = bytes(&[event(3, 0x1234), ROLLOVER, event(4, 0x10)]);
+        let spi = SpiMock::new(
+            &[
+                status(FLAG_FIFO_FULL, 5, 6),
+                read(all[..6].to_vec()),
+                status(0, 0, 6),
+                read(all[6..].to_vec()),
+            ]
+            .concat(),
+        );
+        let high = PinTx::wait_for_state(State::High);
+        let pin = PinMock::new(&[high.clone(), high]);
+        let mut src = SpiFifoSourceAsync::new(spi, pin);
+        let mut ingest = Ingest::new(format());
+        let (mut buf, mut out) = ([0u8; 32], blank());
+        let first = block_on(src.next(&mut ingest, &mut buf, &mut out));
+        assert_eq!(
+            first,
+            Ok(Polled {
+                bytes: 6,
+                events: 1
+            })
+        );
+        let second = block_on(src.next(&mut ingest, &mut buf, &mut out));
+        assert_eq!(
+            second,
+            Ok(Polled {
+                bytes: 6,
+                events: 1
+            })
+        );
+        // After the rollover record the 24-bit time field has wrapped once.
+        assert_eq!(
+            out[0],
+            TdcEvent {
+                count: (1 << 24) | 0x10,
+                channel: 4
+            }
+        );
+        let c = ingest.counts();
+        assert_eq!(
+            (c.overrun_words, c.fifo_full_flags, c.rollover_gaps),
+            (5, 1, 0)
+        );
+        all_expected(src.release());
+    }
+
+    #[test]
+    fn a_failing_data_ready_line_is_an_error_and_no_bus_traffic() {
+        let spi = SpiMock::new(&[]);
+        let err = MockError::Io(ErrorKind::Other);
+        let pin = PinMock::new(&[PinTx::wait_for_state(State::High).with_error(err)]);
+        let mut src = SpiFifoSourceAsync::new(spi, pin);
+        let mut ingest = Ingest::new(format());
+        let (mut buf, mut out) = ([0u8; 32], blank());
+        let got = block_on(src.next(&mut ingest, &mut buf, &mut out));
+        assert!(matches!(got, Err(SourceError::Pin(_))));
+        assert_eq!(ingest.counts().blocks, 0);
+        all_expected(src.release());
+    }
 }

@@ -448,23 +448,7 @@ fn documented_tagged_frames() {
     assert_eq!(tx.verify(&m, Some(&ta)), Ok(()));
     let a = tagged(RecordType::Announce, 5, &p[..n], &ta);
     let hb_a = m.header_block();
-    let e = [
-        AnswerEntry {
-            basis_match: true,
-            intensity: 0,
-            bit: Some(1),
-        },
-        AnswerEntry {
-            basis_match: false,
-            intensity: 1,
-            bit: None,
-        },
-        AnswerEntry {
-            basis_match: true,
-            intensity: 0,
-            bit: None,
-        },
-    ];
+    let e = three_answers();
     let n = answers::emit(5, 1000, &e, &mut p).unwrap();
     let m = TagInput {
         dir: Direction::ToReceiver,
